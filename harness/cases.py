@@ -1,0 +1,107 @@
+"""The case: the unit everything in fftgauge iterates over.
+
+A case is one transform a backend can be asked for: its kind (the array API standard's
+``fft``, ``ifft``, ``rfft``, ``irfft``), its real precision, its length ``n`` and its
+normalisation (``backward``, ``ortho``, ``forward``, as in the array API standard and
+numpy). The helpers here say what arrays go in and come out of such a transform.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+KINDS = ("fft", "ifft", "rfft", "irfft")
+DTYPES = ("float32", "float64", "longdouble")
+NORMS = ("backward", "ortho", "forward")
+
+_REAL = {"float32": np.float32, "float64": np.float64, "longdouble": np.longdouble}
+_COMPLEX = {"float32": np.complex64, "float64": np.complex128, "longdouble": np.clongdouble}
+
+
+@dataclass(frozen=True, order=True)
+class Case:
+    """One transform: ``kind`` of length ``n`` in real precision ``dtype`` with ``norm``.
+
+    ``n`` is always the length of the (logical) signal, so for ``irfft`` it is the length of
+    the real output and the input holds ``n // 2 + 1`` complex values.
+    """
+
+    kind: str
+    dtype: str
+    n: int
+    norm: str = "backward"
+
+    def __post_init__(self) -> None:
+        if self.kind not in KINDS:
+            raise ValueError(f"unknown transform kind {self.kind!r}; expected one of {', '.join(KINDS)}")
+        if self.dtype not in DTYPES:
+            raise ValueError(f"unknown precision {self.dtype!r}; expected one of {', '.join(DTYPES)}")
+        if self.norm not in NORMS:
+            raise ValueError(f"unknown normalisation {self.norm!r}; expected one of {', '.join(NORMS)}")
+        if not isinstance(self.n, (int, np.integer)) or self.n < 1:
+            raise ValueError(f"transform length must be a positive integer, got {self.n!r}")
+
+    @property
+    def is_real(self) -> bool:
+        """True for the real-signal kinds ``rfft`` and ``irfft``."""
+        return self.kind in ("rfft", "irfft")
+
+    @property
+    def is_inverse(self) -> bool:
+        """True for ``ifft`` and ``irfft`` (positive exponent sign)."""
+        return self.kind in ("ifft", "irfft")
+
+    @property
+    def real_dtype(self) -> np.dtype:
+        """The numpy real dtype of this case's precision."""
+        return np.dtype(_REAL[self.dtype])
+
+    @property
+    def complex_dtype(self) -> np.dtype:
+        """The numpy complex dtype of this case's precision."""
+        return np.dtype(_COMPLEX[self.dtype])
+
+    @property
+    def input_dtype(self) -> np.dtype:
+        """Dtype of the input array: real for ``rfft``, complex otherwise."""
+        return self.real_dtype if self.kind == "rfft" else self.complex_dtype
+
+    @property
+    def output_dtype(self) -> np.dtype:
+        """Dtype the output should have: real for ``irfft``, complex otherwise."""
+        return self.real_dtype if self.kind == "irfft" else self.complex_dtype
+
+    @property
+    def input_length(self) -> int:
+        """Length of the input array (``n // 2 + 1`` for ``irfft``, else ``n``)."""
+        return self.n // 2 + 1 if self.kind == "irfft" else self.n
+
+    @property
+    def output_length(self) -> int:
+        """Length of the output array (``n // 2 + 1`` for ``rfft``, else ``n``)."""
+        return self.n // 2 + 1 if self.kind == "rfft" else self.n
+
+    def label(self) -> str:
+        """Short human label, e.g. ``"rfft float32 n=1024"`` (norm shown when not backward)."""
+        norm = "" if self.norm == "backward" else f" norm={self.norm}"
+        return f"{self.kind} {self.dtype} n={self.n}{norm}"
+
+
+def is_power_of_two(n: int) -> bool:
+    """Return True when ``n`` is 1, 2, 4, 8, ..."""
+    return n >= 1 and (n & (n - 1)) == 0
+
+
+def norm_factor(n: int, norm: str, inverse: bool) -> float:
+    """Return the factor the unscaled sum is multiplied by under ``norm``.
+
+    The array API standard (and numpy): ``backward`` scales the inverse by 1/n, ``forward``
+    scales the forward transform by 1/n, ``ortho`` scales both by 1/sqrt(n).
+    """
+    if norm == "ortho":
+        return 1.0 / np.sqrt(n)
+    if (norm == "backward") == inverse:
+        return 1.0 / n
+    return 1.0

@@ -1,0 +1,45 @@
+"""``fftgauge backends``: every backend found, available or not, with capabilities."""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+
+from backends.registry import list_backends
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    """Add this sub-command's options to ``parser``."""
+    parser.add_argument("--json", metavar="PATH", help="write the listing as JSON ('-' for standard output)")
+
+
+def _line(info) -> str:
+    if not info.available:
+        return f"  {info.name:<12} unavailable  {info.reason}"
+    caps = info.capabilities
+    sizes = "powers of two" if caps["sizes"] == "pow2" else "any size"
+    if caps["max_n"]:
+        sizes += f" up to {caps['max_n']}"
+    extras = [x for x, on in (("plans", caps["separate_planning"]), ("in place", caps["in_place"]),
+                              (f"threads via {caps['thread_option']}", caps["thread_option"]),
+                              ("counts operations", caps["counts_operations"])) if on]
+    opts = ", ".join(f"{k}={v['default']}" for k, v in info.options.items())
+    return (f"  {info.name:<12} {info.version:<11}  {','.join(caps['kinds'])}; {','.join(caps['dtypes'])}; "
+            f"{sizes}" + (f"; {'; '.join(extras)}" if extras else "") + (f"\n  {'':<12} options: {opts}" if opts else ""))
+
+
+def run(args: argparse.Namespace) -> int:
+    """Print the listing (and write JSON when asked); return 0."""
+    infos = list_backends()
+    if args.json:
+        text = json.dumps({"schema": "fftgauge-backends/1", "backends": [vars(i) for i in infos]}, indent=2)
+        if args.json == "-":
+            print(text)
+            return 0
+        from harness.results import write_text_atomic
+        write_text_atomic(args.json, text + "\n")
+    print("backends (name, version, kinds; precisions; sizes; features):")
+    for info in infos:
+        print(_line(info))
+    return 0
