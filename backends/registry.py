@@ -6,6 +6,8 @@ SPEC forms (see the contracts)::
     NAME[key=value,...]       with options, e.g. pyfftw[threads=2,effort=measure]
     package.module:attr       a Python object importable from the environment
     path/to/file.py:attr      a Python object loaded from a file
+    clib:...                  a C function in a shared library (backends/shared_library.py)
+    exec:...                  an external program speaking a pipe protocol (backends/external_program.py)
 
 Any form may carry ``[key=value,...]``. ``attr`` is a :class:`~backends.base.Backend`
 subclass, an instance of one, or a plain callable (wrapped by
@@ -44,6 +46,17 @@ BUILTINS: dict[str, tuple[str, str, str]] = {
     "direct": ("backends.direct", "DirectBackend", "reinstall fftgauge"),
 }
 
+#: SPEC schemes for implementations outside Python: ``scheme:rest`` -> (module, function).
+#: The function takes ``(spec, rest)`` and returns a Backend; it parses ``rest`` itself
+#: (its own syntax is documented in its module) and raises UsageError on bad input.
+SCHEMES: dict[str, tuple[str, str]] = {
+    "clib": ("backends.shared_library", "backend_from_spec"),
+    "exec": ("backends.external_program", "backend_from_spec"),
+}
+
+#: The backends a command uses when no --backend is given (those available on this machine).
+DEFAULT_BACKENDS = ("numpy", "scipy", "pyfftw", "radix2-dit", "radix2-dif", "direct")
+
 _NAME = re.compile(r"^[A-Za-z][A-Za-z0-9_.+-]*$")
 _SPEC = re.compile(r"^(?P<body>[^\[\]]+?)(?:\[(?P<opts>[^\[\]]*)\])?$")
 _TRUE = {"1", "true", "yes", "on"}
@@ -52,7 +65,8 @@ _FALSE = {"0", "false", "no", "off"}
 
 @dataclass(frozen=True)
 class ParsedSpec:
-    """A SPEC split into its parts: ``form`` is ``name``, ``module`` or ``file``."""
+    """A SPEC split into its parts: ``form`` is ``name``, ``module``, ``file`` or a scheme
+    of :data:`SCHEMES` (then ``target`` is everything after ``scheme:``)."""
 
     text: str
     form: str
@@ -116,6 +130,11 @@ def parse_spec(spec: str) -> ParsedSpec:
     if spec is None or not str(spec).strip():
         raise UsageError("empty backend SPEC; give a name such as numpy, or path/to/file.py:function")
     spec = str(spec).strip()
+    scheme, sep, rest = spec.partition(":")
+    if sep and scheme in SCHEMES:
+        if not rest.strip():
+            raise UsageError(f"backend {spec!r}: nothing after {scheme}:; see fftgauge check --help for the form")
+        return ParsedSpec(spec, scheme, rest.strip(), None, {})
     m = _SPEC.match(spec)
     if not m:
         raise UsageError(f"backend {spec!r} is malformed; options go in one trailing [key=value,...]")
@@ -256,6 +275,10 @@ def load_backend(spec: str, threads: int | None = None) -> Backend:
         built-in backend whose library is not installed.
     """
     parsed = parse_spec(spec)
+    if parsed.form in SCHEMES:
+        module_name, func_name = SCHEMES[parsed.form]
+        module = importlib.import_module(module_name)
+        return getattr(module, func_name)(spec, parsed.target)
     if parsed.form == "name":
         if parsed.target in BUILTINS:
             cls = _builtin_class(spec, parsed.target)
@@ -293,6 +316,18 @@ def _thread_extra(cls: Any, threads: int | None, explicit: dict[str, Any]) -> di
     if option is None or option in explicit:
         return {}
     return {option: threads}
+
+
+def default_specs() -> list[str]:
+    """Return the names in :data:`DEFAULT_BACKENDS` whose backends load on this machine."""
+    out = []
+    for name in DEFAULT_BACKENDS:
+        try:
+            load_backend(name)
+        except UsageError:
+            continue
+        out.append(name)
+    return out
 
 
 def list_backends() -> list[BackendInfo]:

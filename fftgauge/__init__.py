@@ -2,10 +2,62 @@
 
 The engine lives in :mod:`harness` (cases, checks, timing, gate) and the adapters in
 :mod:`backends`; this package re-exports what a user's own scripts need.
+
+Examples
+--------
+>>> import fftgauge
+>>> df = fftgauge.check(["numpy"], sizes="1..8", kinds=["fft"], dtypes=["float64"])  # doctest: +SKIP
+>>> df.groupby("check")["status"].value_counts()  # doctest: +SKIP
 """
 
-from harness import __version__
-from backends.registry import list_backends, load_backend
-from harness.cases import Case
+from __future__ import annotations
 
-__all__ = ["__version__", "Case", "list_backends", "load_backend"]
+from typing import Sequence
+
+from backends.registry import list_backends, load_backend
+from harness import __version__
+from harness.cases import DTYPES, KINDS, NORMS, Case
+
+__all__ = ["__version__", "Case", "check", "list_backends", "load_backend"]
+
+
+def _as_tuple(value: str | Sequence[str] | None, allowed: Sequence[str], what: str) -> tuple[str, ...] | None:
+    from harness.cli import parse_choice_list
+
+    if value is None or isinstance(value, str):
+        return parse_choice_list(value, allowed, what)
+    return parse_choice_list(",".join(value), allowed, what)
+
+
+def check(backends: Sequence[str] | None = None, sizes: str = "@default", kinds=None,
+          dtypes=("float32", "float64"), norms=("backward",), checks=None, seed: int = 1234,
+          json_path: str | None = None, timeout_seconds: float = 120.0, threads: int | None = None):
+    """Run the correctness battery and return its rows as a pandas DataFrame.
+
+    Parameters mirror ``fftgauge check``: ``backends`` are SPEC strings (default: every
+    available built-in), ``sizes`` uses the ``--sizes`` grammar, ``kinds``/``dtypes``/
+    ``norms``/``checks`` are lists (or comma strings). The full document (envelope and
+    rows) is written to ``json_path`` when given.
+
+    Raises
+    ------
+    harness.errors.UsageError
+        For an unknown backend, a malformed size list or an unknown kind/dtype/check.
+    """
+    from backends.registry import default_specs
+    from harness.battery import BatteryRequest, run_battery
+    from harness.check_report import rows_frame
+    from harness.checks import CHECKS
+    from harness.sizes import parse_sizes
+
+    req = BatteryRequest(
+        specs=tuple(backends) if backends else tuple(default_specs()),
+        kinds=_as_tuple(kinds, KINDS, "kind"),
+        dtypes=_as_tuple(dtypes, DTYPES, "dtype") or ("float32", "float64"),
+        sizes=tuple(parse_sizes(sizes)),
+        norms=_as_tuple(norms, NORMS, "norm") or ("backward",),
+        checks=_as_tuple(checks, tuple(CHECKS), "check"),
+        seed=seed, threads=threads, timeout_seconds=timeout_seconds,
+    )
+    doc = run_battery(req, json_path=json_path, quiet=True)
+    return rows_frame(doc["rows"])

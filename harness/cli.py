@@ -18,6 +18,8 @@ from harness.errors import UsageError
 #: (sub-command, module holding add_arguments/run, one-line help)
 COMMANDS: list[tuple[str, str, str]] = [
     ("backends", "harness.cmd_backends", "list every backend found, available or not, with its capabilities"),
+    ("check", "harness.cmd_check", "run the correctness battery and diagnose what is wrong"),
+    ("count", "harness.cmd_count", "operation-count tables: direct DFT and radix-2 models against instrumented counts"),
 ]
 
 EXIT_OK, EXIT_FAILED, EXIT_USAGE = 0, 1, 2
@@ -51,6 +53,37 @@ def add_common_options(parser: argparse.ArgumentParser, *names: str) -> None:
     for name in names:
         flags, kwargs = table[name]
         parser.add_argument(*flags, **kwargs)
+
+
+def parse_choice_list(text: str | None, allowed: Sequence[str], what: str) -> tuple[str, ...] | None:
+    """Return the comma list ``text`` as a tuple, each item checked against ``allowed``.
+
+    ``None`` stays ``None`` (the caller's default applies); ``all`` means every allowed item.
+
+    Raises
+    ------
+    UsageError
+        Naming the first item that is not allowed, or an empty list.
+    """
+    if text is None:
+        return None
+    items = [t.strip() for t in text.split(",")]
+    if items == ["all"]:
+        return tuple(allowed)
+    if not items or any(not t for t in items):
+        raise UsageError(f"the {what} list {text!r} has an empty item; write e.g. {','.join(allowed[:2])}")
+    for item in items:
+        if item not in allowed:
+            raise UsageError(f"unknown {what} {item!r}; expected a comma list of {', '.join(allowed)} (or all)")
+    return tuple(dict.fromkeys(items))
+
+
+def default_results_path(command: str) -> str:
+    """Return ``results/<command>-<UTC time>.json``: where a run is written when --json is not given."""
+    import datetime as dt
+
+    stamp = dt.datetime.now(dt.timezone.utc).strftime("%Y%m%d-%H%M%S")
+    return f"results/{command}-{stamp}.json"
 
 
 def build_parser() -> argparse.ArgumentParser:

@@ -15,6 +15,8 @@ import json
 import os
 import platform
 import tempfile
+import threading
+import time
 from typing import Any, Iterable
 
 from harness import __version__
@@ -154,28 +156,42 @@ def _clean(obj: Any) -> Any:
 
 
 class ResultsWriter:
-    """Streams rows into a results file: every :meth:`add` rewrites the file atomically.
+    """Streams rows into a results file, rewriting it atomically as rows arrive.
 
     Rewriting the whole file keeps it valid JSON at every moment, so an interrupted run
-    leaves a readable file holding every row finished so far. ``path=None`` keeps rows in
-    memory only.
+    leaves a readable file holding every row written so far. To keep long runs from
+    spending their time rewriting a growing file, a rewrite happens at most every
+    ``min_interval_seconds`` (and always on :meth:`close`). ``path=None`` keeps rows in
+    memory only. Safe to call from several threads.
     """
 
-    def __init__(self, path: str | None, doc: dict[str, Any]):
+    def __init__(self, path: str | None, doc: dict[str, Any], min_interval_seconds: float = 1.0):
         self.path = path
         self.doc = doc
+        self.min_interval_seconds = min_interval_seconds
+        self._lock = threading.Lock()
+        self._last_write = 0.0
         if path:
             self.flush()
 
     def add(self, rows: Iterable[dict[str, Any]]) -> None:
-        """Append ``rows`` and rewrite the file."""
-        self.doc["rows"].extend(rows)
-        if self.path:
-            self.flush()
+        """Append ``rows``; rewrite the file if the last rewrite is old enough."""
+        with self._lock:
+            self.doc["rows"].extend(rows)
+            if self.path and time.monotonic() - self._last_write >= self.min_interval_seconds:
+                self._write()
 
     def flush(self) -> None:
         """Write the document as it stands now."""
+        with self._lock:
+            if self.path:
+                self._write()
+
+    close = flush
+
+    def _write(self) -> None:
         write_text_atomic(self.path, dumps(self.doc))
+        self._last_write = time.monotonic()
 
 
 def load_results(path: str, schema: str | tuple[str, ...]) -> dict[str, Any]:

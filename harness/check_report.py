@@ -1,0 +1,116 @@
+"""Turning battery rows into what a person reads: a DataFrame, a summary per backend x kind
+x precision, and the terminal text."""
+
+from __future__ import annotations
+
+from typing import Any, Iterable
+
+import pandas as pd
+
+ROW_COLUMNS = ["backend", "kind", "dtype", "norm", "n", "check", "status", "value", "limit", "eps_units",
+               "diagnosis", "message", "reference"]
+
+
+def rows_frame(rows: Iterable[dict[str, Any]]) -> pd.DataFrame:
+    """Return the battery rows as a DataFrame with the contract's columns in a fixed order."""
+    df = pd.DataFrame(list(rows))
+    if df.empty:
+        return pd.DataFrame(columns=ROW_COLUMNS)
+    for col in ROW_COLUMNS:
+        if col not in df:
+            df[col] = None
+    return df[ROW_COLUMNS + [c for c in df.columns if c not in ROW_COLUMNS]]
+
+
+def compress_sizes(sizes: Iterable[int], limit: int = 12) -> str:
+    """Return sorted sizes as short text: runs of consecutive sizes as ``A..B``.
+
+    Examples
+    --------
+    >>> compress_sizes([1, 2, 3, 5, 8, 9, 10, 1009])
+    '1..3, 5, 8..10, 1009'
+    """
+    values = sorted(set(int(s) for s in sizes))
+    parts: list[str] = []
+    i = 0
+    while i < len(values):
+        j = i
+        while j + 1 < len(values) and values[j + 1] == values[j] + 1:
+            j += 1
+        parts.append(str(values[i]) if j == i else f"{values[i]}..{values[j]}")
+        i = j + 1
+    if len(parts) > limit:
+        return ", ".join(parts[:limit]) + f", ... ({len(values)} sizes)"
+    return ", ".join(parts)
+
+
+def _case_status(statuses: pd.Series) -> str:
+    if (statuses == "error").any():
+        return "error"
+    if (statuses == "fail").any():
+        return "fail"
+    if (statuses == "skip").all():
+        return "skip"
+    return "pass"
+
+
+def summary_frame(df: pd.DataFrame) -> pd.DataFrame:
+    """Return one line per backend x kind x dtype x norm: cases passed/failed/error/skipped,
+    worst accuracy in eps units, the failing sizes and the diagnoses found."""
+    if df.empty:
+        return pd.DataFrame()
+    keys = ["backend", "kind", "dtype", "norm"]
+    per_case = df.groupby(keys + ["n"], sort=False)["status"].agg(_case_status).reset_index(name="case_status")
+    lines = []
+    for key, group in per_case.groupby(keys, sort=False):
+        sub = df[(df[keys] == pd.Series(key, index=keys)).all(axis=1)]
+        acc = sub[(sub["check"] == "accuracy") & sub["eps_units"].notna()]
+        bad = sub[sub["status"].isin(["fail", "error"])]
+        diagnoses = bad["diagnosis"].dropna()
+        counts = group["case_status"].value_counts()
+        lines.append({
+            "backend": key[0], "kind": key[1], "dtype": key[2], "norm": key[3],
+            "passed": int(counts.get("pass", 0)), "failed": int(counts.get("fail", 0)),
+            "errors": int(counts.get("error", 0)), "skipped": int(counts.get("skip", 0)),
+            "worst_eps_units": float(acc["eps_units"].max()) if not acc.empty else None,
+            "failed_sizes": compress_sizes(group.loc[group["case_status"].isin(["fail", "error"]), "n"]),
+            "diagnoses": ", ".join(f"{d} x{c}" for d, c in diagnoses.value_counts().items()),
+        })
+    return pd.DataFrame(lines)
+
+
+def _first_messages(df: pd.DataFrame, limit: int = 8) -> list[str]:
+    """Return one plain-words line per distinct (backend, check, diagnosis) failure, worst first."""
+    bad = df[df["status"].isin(["fail", "error"])]
+    out = []
+    for (backend, check, diag), group in bad.groupby(["backend", "check", "diagnosis"], dropna=False, sort=False):
+        first = group.iloc[0]
+        where = f"{first['kind']} {first['dtype']} n={first['n']}"
+        more = f" (and {len(group) - 1} more cases)" if len(group) > 1 else ""
+        tag = diag if isinstance(diag, str) else first["status"]
+        out.append(f"  {backend} · {check} · {tag}: {where}: {first['message']}{more}")
+        if len(out) >= limit:
+            break
+    return out
+
+
+def format_summary(df: pd.DataFrame) -> str:
+    """Return the terminal summary of a battery run: a verdict line, the table, the findings."""
+    if df.empty:
+        return "no cases were run"
+    summary = summary_frame(df)
+    shown = summary.copy()
+    shown["worst eps"] = shown.pop("worst_eps_units").map(lambda v: "" if v is None or v != v else f"{v:.3g}")
+    shown = shown.rename(columns={"failed_sizes": "failed sizes"})
+    if (shown["norm"] == "backward").all():
+        shown = shown.drop(columns=["norm"])
+    text = shown.to_string(index=False)
+    total_bad = int(summary["failed"].sum() + summary["errors"].sum())
+    total_ok = int(summary["passed"].sum())
+    verdict = ("PASS: every case held" if total_bad == 0 else
+               f"FAIL: {total_bad} case(s) failed or errored, {total_ok} passed")
+    lines = [verdict, "", text]
+    findings = _first_messages(df)
+    if findings:
+        lines += ["", "findings (backend · check · diagnosis: first case: what was seen):"] + findings
+    return "\n".join(lines)

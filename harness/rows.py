@@ -1,0 +1,82 @@
+"""The rows results files store: one small frozen dataclass per schema.
+
+Field names are the contracts' (``fftgauge-check/1``, ``fftgauge-time/1``); fields beyond the
+contract (``norm``, ``reference``) are additions in the same spirit. Rows are turned into
+dicts with :func:`dataclasses.asdict` for JSON and into pandas DataFrames at the edges.
+"""
+
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass
+from typing import Any
+
+STATUSES = ("pass", "fail", "error", "skip")
+
+DIAGNOSES = (
+    "sign", "scale", "bit-reversed", "shifted", "precision", "truncated-size", "input-modified",
+    "nondeterministic", "dtype", "shape", "nonfinite", "real-only", "thread-unsafe", "unknown",
+)
+
+
+@dataclass(frozen=True)
+class CheckRow:
+    """One verdict of the battery: one check of one case on one backend.
+
+    ``status`` is one of :data:`STATUSES`; ``diagnosis`` is ``None`` on pass and skip,
+    otherwise one code of :data:`DIAGNOSES` (``error`` rows carry ``None`` too: the message
+    says what went wrong). ``value``/``limit`` are in the check's own unit (relative error
+    for accuracy-like checks); ``eps_units`` is ``value`` over the machine epsilon of
+    ``dtype`` where that makes sense. ``reference`` names the ground-truth method used.
+    """
+
+    backend: str
+    kind: str
+    dtype: str
+    n: int
+    check: str
+    status: str
+    value: float | None = None
+    limit: float | None = None
+    eps_units: float | None = None
+    diagnosis: str | None = None
+    message: str = ""
+    norm: str = "backward"
+    reference: str | None = None
+
+    def as_dict(self) -> dict[str, Any]:
+        """Return the row as a JSON-able dict (contract field order first)."""
+        return asdict(self)
+
+
+@dataclass(frozen=True)
+class TimeRow:
+    """One timed case: median execution time of one transform with its 95% interval.
+
+    ``flops`` is the conventional 5 N log2 N (complex) or 2.5 N log2 N (real) count used
+    for ``gflops`` whatever the algorithm; ``peak_bytes`` the peak extra memory of one
+    execution beyond input and output (None when not measured).
+    """
+
+    backend: str
+    kind: str
+    dtype: str
+    n: int
+    threads: int
+    plan_seconds: float
+    seconds: float
+    seconds_low: float
+    seconds_high: float
+    samples: int
+    loops: int
+    flops: float
+    gflops: float
+    ns_per_nlogn: float | None
+    peak_bytes: int | None
+    in_place: bool
+    norm: str = "backward"
+    status: str = "ok"
+    message: str = ""
+
+    def as_dict(self) -> dict[str, Any]:
+        """Return the row as a JSON-able dict."""
+        return asdict(self)
