@@ -227,6 +227,24 @@ def _load_file(spec: str, path: str) -> Any:
     return module
 
 
+def _construct(spec: str, factory: Any, *args: Any, **kwargs: Any) -> Backend:
+    """Call ``factory(*args, **kwargs)``; a TypeError/ValueError from it is the SPEC's fault.
+
+    Raises
+    ------
+    UsageError
+        When building the adapter fails (an abstract class, an option value its
+        constructor refuses).
+    """
+    try:
+        return factory(*args, **kwargs)
+    except UsageError:
+        raise
+    except (TypeError, ValueError) as exc:
+        raise UsageError(f"backend {spec!r}: building the adapter failed: {type(exc).__name__}: "
+                         f"{_one_line(exc)}") from None
+
+
 def _from_object(parsed: ParsedSpec, obj: Any, extra: dict[str, Any]) -> Backend:
     """Return a backend for ``obj``: a Backend subclass, an instance of one, or a callable."""
     from backends.user_function import FunctionBackend
@@ -234,7 +252,7 @@ def _from_object(parsed: ParsedSpec, obj: Any, extra: dict[str, Any]) -> Backend
     spec = parsed.text
     if isinstance(obj, type) and issubclass(obj, Backend):
         opts = coerce_options(spec, obj, parsed.options)
-        return obj(**{**extra, **opts})
+        return _construct(spec, obj, **{**extra, **opts})
     if isinstance(obj, Backend):
         if parsed.options:
             raise UsageError(f"backend {spec!r} names a ready-made adapter instance, which takes no "
@@ -243,7 +261,7 @@ def _from_object(parsed: ParsedSpec, obj: Any, extra: dict[str, Any]) -> Backend
     if callable(obj):
         opts = coerce_options(spec, FunctionBackend, parsed.options)
         body = spec.split("[", 1)[0]
-        return FunctionBackend(obj, body, **opts)
+        return _construct(spec, FunctionBackend, obj, body, **opts)
     raise UsageError(f"backend {spec!r}: {parsed.attr or parsed.target!r} is a {type(obj).__name__}, "
                      f"not a callable or a backend adapter")
 
@@ -284,7 +302,7 @@ def load_backend(spec: str, threads: int | None = None) -> Backend:
             cls = _builtin_class(spec, parsed.target)
             opts = coerce_options(spec, cls, parsed.options)
             extra = _thread_extra(cls, threads, opts)
-            return cls(**{**extra, **opts})
+            return _construct(spec, cls, **{**extra, **opts})
         eps = _entry_points()
         if parsed.target in eps:
             try:

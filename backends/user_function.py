@@ -46,6 +46,8 @@ class FunctionBackend(Backend):
         self._fn = fn
         self._spec = spec
         self._dtypes = _dtypes(self.opts["dtypes"])
+        if self.opts["max_n"] < 0:
+            raise ValueError(f"max_n must be 0 (no limit) or a positive size, got {self.opts['max_n']}")
         self.name = spec
 
     @property

@@ -14,19 +14,28 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--json", metavar="PATH", help="write the listing as JSON ('-' for standard output)")
 
 
+def _text(value) -> str:
+    return str(value).lower() if isinstance(value, bool) else str(value)
+
+
 def _line(info) -> str:
+    """Return the listing of one backend: a heading line, then its claims and options."""
     if not info.available:
-        return f"  {info.name:<12} unavailable  {info.reason}"
+        return f"  {info.name:<12} unavailable: {info.reason}"
     caps = info.capabilities
     sizes = "powers of two" if caps["sizes"] == "pow2" else "any size"
     if caps["max_n"]:
         sizes += f" up to {caps['max_n']}"
-    extras = [x for x, on in (("plans", caps["separate_planning"]), ("in place", caps["in_place"]),
-                              (f"threads via {caps['thread_option']}", caps["thread_option"]),
-                              ("counts operations", caps["counts_operations"])) if on]
-    opts = ", ".join(f"{k}={v['default']}" for k, v in info.options.items())
-    return (f"  {info.name:<12} {info.version:<11}  {','.join(caps['kinds'])}; {','.join(caps['dtypes'])}; "
-            f"{sizes}" + (f"; {'; '.join(extras)}" if extras else "") + (f"\n  {'':<12} options: {opts}" if opts else ""))
+    features = [x for x, on in (("separate planning", caps["separate_planning"]), ("in place", caps["in_place"]),
+                                (f"thread option {caps['thread_option']}", caps["thread_option"]),
+                                ("counts operations", caps["counts_operations"])) if on]
+    lines = [f"  {info.name:<12} {info.version}  ({info.source})",
+             f"  {'':<12} kinds {','.join(caps['kinds'])}; {','.join(caps['dtypes'])}; {sizes}"
+             + (f"; {'; '.join(features)}" if features else "")]
+    if info.options:
+        opts = ", ".join(f"{k}={_text(v['default'])}" for k, v in info.options.items())
+        lines.append(f"  {'':<12} options: {opts}")
+    return "\n".join(lines)
 
 
 def run(args: argparse.Namespace) -> int:
@@ -39,7 +48,7 @@ def run(args: argparse.Namespace) -> int:
             return 0
         from harness.results import write_text_atomic
         write_text_atomic(args.json, text + "\n")
-    print("backends (name, version, kinds; precisions; sizes; features):")
+    print("backends found (name, version, what it claims):")
     for info in infos:
         print(_line(info))
     return 0
