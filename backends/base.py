@@ -160,6 +160,8 @@ class Backend(ABC):
     options: Mapping[str, OptionSpec] = {}
     #: The option in ``options`` that sets the thread count, if any (``--threads`` sets it).
     thread_option: str | None = None
+    #: True for the engine's synthetic backends (null, busywait), which compute no transform.
+    synthetic: bool = False
 
     def __init__(self, **opts: Any):
         self.opts = {k: spec.default for k, spec in self.options.items()}

@@ -44,6 +44,9 @@ BUILTINS: dict[str, tuple[str, str, str]] = {
     "radix2-dit": ("backends.radix2", "Radix2DitBackend", "reinstall fftgauge"),
     "radix2-dif": ("backends.radix2", "Radix2DifBackend", "reinstall fftgauge"),
     "direct": ("backends.direct", "DirectBackend", "reinstall fftgauge"),
+    # Synthetic backends for the engine's own measurements (not FFTs; never in the defaults):
+    "null": ("backends.null", "NullBackend", "reinstall fftgauge"),
+    "busywait": ("backends.busywait", "BusyWaitBackend", "reinstall fftgauge"),
 }
 
 #: SPEC schemes for implementations outside Python: ``scheme:rest`` -> (module, function).

@@ -54,7 +54,10 @@ class TimeRow:
 
     ``flops`` is the conventional 5 N log2 N (complex) or 2.5 N log2 N (real) count used
     for ``gflops`` whatever the algorithm; ``peak_bytes`` the peak extra memory of one
-    execution beyond input and output (None when not measured).
+    execution beyond input and output (None when not measured). Beyond the contract:
+    ``overhead_seconds`` (the timing loop's own cost per call, already subtracted),
+    ``relative_spread`` (IQR / median of the samples), ``coverage`` (exact confidence of the
+    order-statistic interval), ``cold_cache``, ``memory_method``.
     """
 
     backend: str
@@ -76,6 +79,11 @@ class TimeRow:
     norm: str = "backward"
     status: str = "ok"
     message: str = ""
+    overhead_seconds: float | None = None
+    relative_spread: float | None = None
+    coverage: float | None = None
+    cold_cache: bool = False
+    memory_method: str | None = None
 
     def as_dict(self) -> dict[str, Any]:
         """Return the row as a JSON-able dict."""

@@ -1,0 +1,399 @@
+"""The timer: planning time, then warm-up, loops per sample, many samples, overhead floor.
+
+How one case is timed (:func:`time_case`, or :class:`Timer` in-process):
+
+1. ``backend.plan(case)`` is timed once: the *planning time* (real work for FFTW-style
+   backends, nothing for plain functions).
+2. The input is prepared with ``plan.prepare`` outside every timed region.
+3. Warm-up: the plan runs for at least one call and :attr:`TimerSettings.warmup_seconds`.
+4. Loops per sample (an autorange): starting at 1 and doubling until a run of ``loops``
+   back-to-back calls lasts an eighth of the *target*, then scaled so that one sample
+   lasts about the target (:data:`TARGET_SAMPLE_SECONDS`, 1 ms, or 10 000 times the
+   clock's resolution where that is coarser); a single call longer than the target gives
+   ``loops = 1``. Why 1 ms: ``perf_counter`` reads in about 50-100 ns from Python and
+   resolves 1 ns on Linux, so the two clock reads of a sample are about 0.01% of it; the
+   per-call loop overhead (tens of ns) is measured and subtracted (step 6), not left in;
+   and a sample well below the time slice the scheduler gives a process when CPUs are
+   shared (about 3-4 ms measured on a loaded 2-core Linux machine) is rarely cut by another
+   process, so most samples stay clean and the median ignores the rest. Samples of 2-4 ms
+   were cut almost every time on that machine. 25 samples keep a fast case near 0.05 s.
+5. Samples: :attr:`TimerSettings.samples` (25) samples, fewer (never fewer than
+   :attr:`TimerSettings.min_samples`) when the per-case budget runs out. Garbage collection
+   is disabled while sampling (as :mod:`timeit` does) and restored after; outputs are
+   dropped at once, never kept.
+6. Overhead floor: after every sample, the same number of loops runs the null backend's
+   plan (:mod:`backends.null`: ``execute`` returns its input) on the same input. The median
+   of those null samples is the loop's own cost per call (``overhead_seconds``), subtracted
+   from every sample. A result can thus be slightly negative for a plan no dearer than the
+   loop itself (the null backend gives a median near zero).
+7. The row reports the median per-call time with a distribution-free 95% interval
+   (:func:`harness.stats.median_ci`) and the relative IQR (:func:`harness.stats.relative_spread`).
+
+Cold-cache mode (:attr:`TimerSettings.cold_cache`): before each sample a buffer larger than
+the last-level cache (:func:`eviction_bytes`) is written, outside the timed region, and
+every sample is one call (``loops = 1``), so each call starts with its input, output and
+tables out of cache.
+
+Threads: :func:`limit_threads` caps BLAS/OpenMP pools with threadpoolctl around the
+measurement, so that "1 thread" means one; the backend's own thread option is set by the
+registry (``load_backend(spec, threads=N)``).
+"""
+
+from __future__ import annotations
+
+import gc
+import glob
+import itertools
+import math
+import os
+import time
+from contextlib import contextmanager
+from dataclasses import dataclass, fields, replace
+from functools import lru_cache
+from typing import Any, Callable, Iterator
+
+import numpy as np
+
+from backends.base import Backend, Plan
+from backends.null import NullPlan
+from harness.cases import Case
+from harness.errors import UnsupportedCase
+from harness.inputs import case_rng, random_input
+from harness.memory import detect_in_place, measure_memory
+from harness.opcount import pseudo_flops
+from harness.rows import TimeRow
+from harness.stats import median_ci, order_statistic_ranks, relative_spread
+
+#: Duration of one sample (seconds); see the module docstring for why.
+TARGET_SAMPLE_SECONDS = 1e-3
+#: A sample lasts at least this many clock ticks, whatever the target.
+MIN_CLOCK_TICKS = 10_000
+#: Size of the cold-cache eviction buffer when the last-level cache size is unknown.
+FALLBACK_EVICTION_BYTES = 64 * 2**20
+#: The eviction buffer is this many times the last-level cache.
+EVICTION_FACTOR = 1.5
+#: Most loops per sample the autorange tries (a guard against a plan that takes no time).
+MAX_LOOPS = 2**24
+
+
+@dataclass(frozen=True)
+class TimerSettings:
+    """How a case is timed.
+
+    Attributes
+    ----------
+    samples : samples to take (each of ``loops`` calls).
+    min_samples : fewest samples even when the budget runs out.
+    target_sample_seconds : minimum duration of one sample (the autorange target).
+    budget_seconds : time after which sampling stops once ``min_samples`` are in;
+        ``None`` for no budget. Counted from the start of the warm-up.
+    warmup_seconds : warm-up duration (at least one call).
+    cold_cache : evict the caches before every sample (then ``loops = 1``).
+    eviction_bytes : size of the eviction buffer; ``None`` for :func:`eviction_bytes`.
+    confidence : coverage of the interval on the median.
+    subtract_overhead : subtract the null plan's loop overhead from every sample.
+    """
+
+    samples: int = 25
+    min_samples: int = 5
+    target_sample_seconds: float = TARGET_SAMPLE_SECONDS
+    budget_seconds: float | None = 2.0
+    warmup_seconds: float = 5e-3
+    cold_cache: bool = False
+    eviction_bytes: int | None = None
+    confidence: float = 0.95
+    subtract_overhead: bool = True
+
+
+@dataclass(frozen=True)
+class Measurement:
+    """The timer's result for one plan: per-call times in seconds.
+
+    Attributes
+    ----------
+    seconds, seconds_low, seconds_high : median per-call time and its confidence interval
+        (overhead subtracted when the settings say so).
+    samples, loops : samples taken and calls per sample.
+    overhead_seconds : the loop's own cost per call (median of the null-plan samples).
+    relative_spread : IQR over median of the per-call times; ``None`` when the median is
+        not positive.
+    coverage : exact coverage of the interval (below ``confidence`` for fewer than 6 samples).
+    sample_seconds : every per-call sample time, in the order taken.
+    cold_cache : whether the caches were evicted before every sample.
+    """
+
+    seconds: float
+    seconds_low: float
+    seconds_high: float
+    samples: int
+    loops: int
+    overhead_seconds: float
+    relative_spread: float | None
+    coverage: float
+    sample_seconds: tuple[float, ...]
+    cold_cache: bool
+
+
+def clock_resolution_seconds() -> float:
+    """Return the resolution :func:`time.perf_counter` reports (seconds)."""
+    return time.get_clock_info("perf_counter").resolution
+
+
+def _parse_cache_size(text: str) -> int | None:
+    text = text.strip().upper()
+    units = {"K": 2**10, "M": 2**20, "G": 2**30}
+    try:
+        if text and text[-1] in units:
+            return int(text[:-1]) * units[text[-1]]
+        return int(text)
+    except ValueError:
+        return None
+
+
+def last_level_cache_bytes(root: str = "/sys/devices/system/cpu/cpu0/cache") -> int | None:
+    """Return the size of the highest-level data or unified cache from sysfs, or ``None``."""
+    best: tuple[int, int] | None = None
+    for folder in glob.glob(os.path.join(root, "index*")):
+        try:
+            with open(os.path.join(folder, "level"), encoding="ascii") as fh:
+                level = int(fh.read())
+            with open(os.path.join(folder, "type"), encoding="ascii") as fh:
+                kind = fh.read().strip()
+            with open(os.path.join(folder, "size"), encoding="ascii") as fh:
+                size = _parse_cache_size(fh.read())
+        except (OSError, ValueError):
+            continue
+        if kind in ("Data", "Unified") and size and (best is None or level > best[0]):
+            best = (level, size)
+    return None if best is None else best[1]
+
+
+def eviction_bytes() -> int:
+    """Return the cold-cache buffer size: 1.5 x the last-level cache, else 64 MiB."""
+    llc = last_level_cache_bytes()
+    return FALLBACK_EVICTION_BYTES if llc is None else int(EVICTION_FACTOR * llc)
+
+
+@contextmanager
+def limit_threads(threads: int | None) -> Iterator[None]:
+    """Cap BLAS/OpenMP thread pools at ``threads`` inside the block (no cap for ``None``)."""
+    if threads is None:
+        yield
+        return
+    from threadpoolctl import threadpool_limits
+
+    with threadpool_limits(limits=threads):
+        yield
+
+
+@contextmanager
+def _gc_paused() -> Iterator[None]:
+    was_enabled = gc.isenabled()
+    gc.collect()
+    gc.disable()
+    try:
+        yield
+    finally:
+        if was_enabled:
+            gc.enable()
+
+
+def _time_loops(execute: Callable[[np.ndarray], Any], x: np.ndarray, loops: int) -> int:
+    """Return the nanoseconds ``loops`` back-to-back calls ``execute(x)`` take."""
+    repeat = itertools.repeat(None, loops)
+    clock = time.perf_counter_ns
+    start = clock()
+    for _ in repeat:
+        execute(x)
+    return clock() - start
+
+
+@lru_cache(maxsize=1)
+def _eviction_buffer(size: int) -> np.ndarray:
+    """Return the cold-cache buffer of ``size`` bytes, kept for the next case of the process."""
+    return np.zeros(size, dtype=np.uint8)
+
+
+class Timer:
+    """Times plans with fixed :class:`TimerSettings` (see the module docstring for the method)."""
+
+    def __init__(self, settings: TimerSettings | None = None):
+        self.settings = settings or TimerSettings()
+
+    def _target_ns(self) -> int:
+        seconds = max(self.settings.target_sample_seconds, MIN_CLOCK_TICKS * clock_resolution_seconds())
+        return math.ceil(seconds * 1e9)
+
+    def _evict(self) -> None:
+        buffer = _eviction_buffer(self.settings.eviction_bytes or eviction_bytes())
+        np.add(buffer, 1, out=buffer)  # read and write every byte: every line is brought in
+
+    def _warm_up(self, execute: Callable, x: np.ndarray) -> None:
+        deadline = time.perf_counter() + self.settings.warmup_seconds
+        execute(x)
+        while time.perf_counter() < deadline:
+            execute(x)
+
+    def _autorange(self, execute: Callable, x: np.ndarray) -> int:
+        """Return the loops per sample that make one sample last about the target.
+
+        Doubling from 1 until a run lasts an eighth of the target, then scaling to the
+        target from the shorter of two runs (a run cut by another process is longer, never
+        shorter), so samples last about the target rather than up to twice it.
+        """
+        target = self._target_ns()
+        loops = 1
+        while True:
+            elapsed = _time_loops(execute, x, loops)
+            if elapsed >= target or loops >= MAX_LOOPS:
+                return loops
+            if elapsed >= target // 8:
+                break
+            loops *= 2
+        elapsed = max(1, min(elapsed, _time_loops(execute, x, loops)))
+        return min(MAX_LOOPS, max(loops, math.ceil(loops * target / elapsed)))
+
+    def measure(self, plan: Plan, x: np.ndarray) -> Measurement:
+        """Time ``plan.execute`` on ``x`` and return the per-call :class:`Measurement`.
+
+        ``x`` is copied and passed through ``plan.prepare`` outside the timed region, so a
+        plan that overwrites its input never changes the caller's array.
+
+        Raises
+        ------
+        Exception
+            Whatever the plan raises.
+        """
+        s = self.settings
+        x_in = plan.prepare(np.array(x, copy=True))
+        null_execute = NullPlan(plan.case).execute
+        execute = plan.execute
+        started = time.perf_counter()
+        raw_ns: list[int] = []
+        null_ns: list[int] = []
+        with _gc_paused():
+            self._warm_up(execute, x_in)
+            loops = 1 if s.cold_cache else self._autorange(execute, x_in)
+            while len(raw_ns) < s.samples:
+                if s.cold_cache:
+                    self._evict()
+                raw_ns.append(_time_loops(execute, x_in, loops))
+                null_ns.append(_time_loops(null_execute, x_in, loops))
+                if (s.budget_seconds is not None and len(raw_ns) >= s.min_samples
+                        and time.perf_counter() - started >= s.budget_seconds):
+                    break
+        overhead = float(np.median(null_ns)) / loops * 1e-9
+        per_call = np.asarray(raw_ns, dtype=float) / loops * 1e-9
+        if s.subtract_overhead:
+            per_call = per_call - overhead
+        med, low, high = median_ci(per_call, s.confidence)
+        _, _, coverage = order_statistic_ranks(per_call.size, s.confidence)
+        spread = relative_spread(per_call) if med > 0 else None
+        return Measurement(seconds=med, seconds_low=low, seconds_high=high, samples=int(per_call.size),
+                           loops=loops, overhead_seconds=overhead, relative_spread=spread,
+                           coverage=coverage, sample_seconds=tuple(float(v) for v in per_call),
+                           cold_cache=s.cold_cache)
+
+
+def measure(plan: Plan, x: np.ndarray, settings: TimerSettings | None = None, **overrides: Any) -> Measurement:
+    """Time ``plan`` on ``x`` in this process and return the :class:`Measurement`.
+
+    ``overrides`` replace fields of ``settings`` (e.g. ``samples=9``).
+
+    Raises
+    ------
+    TypeError
+        For an override that is not a :class:`TimerSettings` field.
+    """
+    base = settings or TimerSettings()
+    return Timer(replace(base, **overrides) if overrides else base).measure(plan, x)
+
+
+def ns_per_nlogn(seconds: float, n: int) -> float | None:
+    """Return ``seconds * 1e9 / (n log2 n)``, the time per unit of FFT work; ``None`` for n = 1.
+
+    Common practice: N log2 N is the FFT's asymptotic cost, so this stays flat as n grows
+    when a backend scales as it should.
+    """
+    if n <= 1:
+        return None
+    return seconds * 1e9 / (n * math.log2(n))
+
+
+def gflops(flops: float, seconds: float) -> float:
+    """Return ``flops / seconds / 1e9`` (GFLOP/s); 0.0 when ``seconds`` is not positive."""
+    return flops / seconds / 1e9 if seconds > 0 else 0.0
+
+
+_SETTING_NAMES = {f.name for f in fields(TimerSettings)}
+_CASE_OPTIONS = {"threads", "seed", "measure_memory"}
+
+
+def _split_options(options: dict[str, Any]) -> tuple[TimerSettings, dict[str, Any]]:
+    unknown = set(options) - _SETTING_NAMES - _CASE_OPTIONS
+    if unknown:
+        raise ValueError(f"unknown timing options: {', '.join(sorted(unknown))}; known: "
+                         f"{', '.join(sorted(_SETTING_NAMES | _CASE_OPTIONS))}")
+    settings = TimerSettings(**{k: v for k, v in options.items() if k in _SETTING_NAMES})
+    rest = {"threads": 1, "seed": 0, "measure_memory": True}
+    rest.update({k: v for k, v in options.items() if k in _CASE_OPTIONS})
+    return settings, rest
+
+
+def time_case(backend: Backend, case_fields: tuple, options: dict) -> dict:
+    """Plan and time one case; the job function the worker process runs.
+
+    Parameters
+    ----------
+    backend : the adapter, with its own thread option already set by the registry.
+    case_fields : ``(kind, dtype, n, norm)``.
+    options : :class:`TimerSettings` fields, plus ``threads`` (recorded in the row and the
+        cap :func:`limit_threads` puts on BLAS/OpenMP pools; default 1), ``seed`` (of the
+        random input, :func:`harness.inputs.case_rng` with purpose ``"time"``; default 0) and ``measure_memory`` (default True).
+
+    Returns
+    -------
+    dict : :meth:`TimeRow.as_dict` (``memory_method`` None when memory is not measured).
+
+    Raises
+    ------
+    UnsupportedCase
+        When the backend does not claim the case.
+    ValueError
+        For an unknown option key.
+    Exception
+        Whatever the backend raises while planning or executing.
+    """
+    case = Case(*case_fields)
+    settings, rest = _split_options(options)
+    reason = backend.unsupported_reason(case)
+    if reason is not None:
+        raise UnsupportedCase(reason)
+    x = random_input(case, case_rng(rest["seed"], case, "time"))
+    with limit_threads(rest["threads"]):
+        start = time.perf_counter()
+        plan = backend.plan(case)
+        plan_seconds = time.perf_counter() - start
+        try:
+            m = Timer(settings).measure(plan, x)
+            if rest["measure_memory"]:
+                mem = measure_memory(plan, x)
+                in_place = mem.in_place
+            else:
+                mem = None
+                in_place = any(detect_in_place(plan, x))
+        finally:
+            plan.close()
+    flops = pseudo_flops(case.n, case.is_real)
+    row = TimeRow(
+        backend=backend.label, kind=case.kind, dtype=case.dtype, n=case.n, threads=rest["threads"],
+        plan_seconds=plan_seconds, seconds=m.seconds, seconds_low=m.seconds_low,
+        seconds_high=m.seconds_high, samples=m.samples, loops=m.loops, flops=flops,
+        gflops=gflops(flops, m.seconds), ns_per_nlogn=ns_per_nlogn(m.seconds, case.n),
+        peak_bytes=None if mem is None else mem.peak_bytes,
+        in_place=in_place, norm=case.norm,
+        message="" if m.seconds > 0 else "median at or below the timing loop's overhead floor",
+        overhead_seconds=m.overhead_seconds, relative_spread=m.relative_spread,
+        coverage=m.coverage, cold_cache=m.cold_cache, memory_method=None if mem is None else mem.method,
+    )
+    return row.as_dict()
