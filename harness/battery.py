@@ -12,12 +12,12 @@ one worker each, up to the number of cores.
 from __future__ import annotations
 
 import os
-import threading
 from concurrent.futures import ThreadPoolExecutor
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Any, Iterable, Sequence
 
 from harness.cases import Case
+from harness.dispatch import Progress, describe_cases
 from harness.errors import BackendFailure, UsageError
 from harness.results import ResultsWriter, envelope
 from harness.rows import CheckRow
@@ -44,24 +44,6 @@ class BatteryRequest:
     max_n_pure_python: int | None = None
 
 
-def backend_claims(backend: Any, case_fields: list[tuple], max_n_pure_python: int | None) -> dict[str, Any]:
-    """Worker job: return the backend's description and, per case, why it is skipped (or None).
-
-    ``max_n_pure_python`` caps the sizes given to backends that declare ``max_n`` (the
-    pure-Python references), so a default run stays quick.
-    """
-    caps = backend.capabilities()
-    reasons = []
-    for fields in case_fields:
-        case = Case(*fields)
-        reason = backend.unsupported_reason(case)
-        if reason is None and max_n_pure_python and caps.max_n is not None and case.n > max_n_pure_python:
-            reason = (f"{backend.label} is a pure-Python reference: this run limits it to n <= "
-                      f"{max_n_pure_python} (n = {case.n}); ask for it by its sizes to go further")
-        reasons.append(reason)
-    return {"label": backend.label, "describe": backend.describe(), "reasons": reasons}
-
-
 def build_cases(req: BatteryRequest, kinds: Sequence[str]) -> list[Case]:
     """Return the cases of ``req`` for the given kinds, in a stable order (kind, dtype, norm, n)."""
     return [Case(k, d, n, norm) for k in kinds for d in req.dtypes for norm in req.norms for n in req.sizes]
@@ -72,50 +54,8 @@ def _rows_for(label: str, case: Case, check_names: Iterable[str], status: str, m
                      status=status, message=message).as_dict() for name in check_names]
 
 
-@dataclass
-class _Progress:
-    """Thread-safe progress counter that drives a tqdm bar (or nothing when quiet)."""
-
-    total: int
-    quiet: bool
-    _bar: Any = field(default=None, init=False)
-    _lock: threading.Lock = field(default_factory=threading.Lock, init=False)
-
-    def __post_init__(self) -> None:
-        if not self.quiet:
-            from tqdm import tqdm
-            self._bar = tqdm(total=self.total, unit="case", desc="checking", leave=False, dynamic_ncols=True)
-
-    def advance(self, k: int = 1, note: str | None = None) -> None:
-        if self._bar is not None:
-            with self._lock:
-                self._bar.update(k)
-                if note:
-                    self._bar.set_postfix_str(note, refresh=False)
-
-    def close(self) -> None:
-        if self._bar is not None:
-            self._bar.close()
-
-
-def _describe(worker: Any, spec: str, req: BatteryRequest, cases: list[Case]) -> dict[str, Any]:
-    """Ask a backend's worker which cases it claims.
-
-    Raises
-    ------
-    UsageError
-        When the SPEC cannot be loaded, or the backend fails while describing itself.
-    """
-    fields = [(c.kind, c.dtype, c.n, c.norm) for c in cases]
-    try:
-        return worker.call("harness.battery:backend_claims", fields, req.max_n_pure_python,
-                           timeout_seconds=req.timeout_seconds)
-    except BackendFailure as exc:
-        raise UsageError(f"backend {spec!r} failed while describing itself: {exc}") from None
-
-
 def _run_backend(worker: Any, claims: dict[str, Any], cases: list[Case], req: BatteryRequest,
-                 check_names: list[str] | None, writer: ResultsWriter, progress: _Progress) -> None:
+                 check_names: list[str] | None, writer: ResultsWriter, progress: Progress) -> None:
     """Run every claimed case of one backend in its worker, writing rows as they come."""
     from harness.checks import CHECKS, applicable_checks
 
@@ -161,7 +101,7 @@ def run_battery(req: BatteryRequest, json_path: str | None = None, quiet: bool =
     cases = build_cases(req, kinds)
     workers = {spec: Worker(spec, threads=req.threads) for spec in req.specs}
     try:
-        claims = {spec: _describe(workers[spec], spec, req, cases) for spec in req.specs}
+        claims = {spec: describe_cases(workers[spec], spec, cases, req.max_n_pure_python, req.timeout_seconds) for spec in req.specs}
         doc = envelope(CHECK_SCHEMA, req.seed, extra={
             "reference": reference_method(),
             "backends": {claims[s]["label"]: {"spec": s, **claims[s]["describe"]} for s in req.specs},
@@ -169,7 +109,7 @@ def run_battery(req: BatteryRequest, json_path: str | None = None, quiet: bool =
                         "sizes": list(req.sizes), "checks": check_names or list(CHECKS)},
         })
         writer = ResultsWriter(json_path, doc)
-        progress = _Progress(total=len(cases) * len(req.specs), quiet=quiet)
+        progress = Progress(total=len(cases) * len(req.specs), quiet=quiet)
         try:
             parallel = max(1, min(len(req.specs), os.cpu_count() or 1))
             with ThreadPoolExecutor(max_workers=parallel) as pool:

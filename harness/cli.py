@@ -19,6 +19,7 @@ from harness.errors import UsageError
 COMMANDS: list[tuple[str, str, str]] = [
     ("backends", "harness.cmd_backends", "list every backend found, available or not, with its capabilities"),
     ("check", "harness.cmd_check", "run the correctness battery and diagnose what is wrong"),
+    ("time", "harness.cmd_time", "time planning and execution, with rates, memory and scaling"),
     ("count", "harness.cmd_count", "operation-count tables: direct DFT and radix-2 models against instrumented counts"),
 ]
 
