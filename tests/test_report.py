@@ -1,0 +1,446 @@
+"""Tests of the plots (harness.plots), the comparison tables (harness.time_tables) and the
+``fftgauge report`` sub-command (harness.cmd_report).
+
+tests/data/sample_time.json and sample_check.json are DEMO results files with invented
+numbers (their "note" field says so): they exercise drawing and tables, they measure nothing.
+"""
+
+from __future__ import annotations
+
+import argparse
+import copy
+import json
+import math
+import os
+import sys
+import xml.etree.ElementTree as ET
+
+import numpy as np
+import pytest
+
+from harness import cli, cmd_report, plots
+from harness.cases import Case
+from harness.errors import UsageError
+from harness.time_tables import comparison_table, format_comparison, format_seconds, markdown_comparison
+
+DATA = os.path.join(os.path.dirname(__file__), "data")
+TIME_FILE = os.path.join(DATA, "sample_time.json")
+CHECK_FILE = os.path.join(DATA, "sample_check.json")
+PNG_MAGIC = b"\x89PNG\r\n\x1a\n"  # PNG specification (ISO/IEC 15948), file signature
+
+
+def load(path: str) -> dict:
+    with open(path, encoding="utf-8") as fh:
+        return json.load(fh)
+
+
+@pytest.fixture(scope="module")
+def time_doc() -> dict:
+    return load(TIME_FILE)
+
+
+@pytest.fixture(scope="module")
+def check_doc() -> dict:
+    return load(CHECK_FILE)
+
+
+def gids(ax, prefix: str) -> list[str]:
+    return [line.get_gid() for line in ax.get_lines() if (line.get_gid() or "").startswith(prefix)]
+
+
+def visible_axes(fig) -> list:
+    return [ax for ax in fig.axes if ax.get_visible()]
+
+
+def panel(fig, title: str):
+    return next(ax for ax in visible_axes(fig) if ax.get_title().startswith(title))
+
+
+def assert_png(path: str) -> None:
+    """Valid PNG: the signature, and matplotlib's reader loads it larger than 100 x 100 pixels."""
+    import matplotlib.image
+
+    with open(path, "rb") as fh:
+        assert fh.read(8) == PNG_MAGIC
+    image = matplotlib.image.imread(path)
+    assert image.shape[0] > 100 and image.shape[1] > 100
+
+
+def assert_svg(path: str) -> None:
+    root = ET.parse(path).getroot()
+    assert root.tag.endswith("svg")
+    assert len(list(root.iter())) > 50
+
+
+def test_demo_files_say_they_are_demo_data(time_doc, check_doc):
+    assert time_doc["schema"] == "fftgauge-time/1" and check_doc["schema"] == "fftgauge-check/1"
+    assert "DEMO" in time_doc["note"] and "DEMO" in check_doc["note"]
+
+
+# --------------------------------------------------------------------------- time plot
+
+def test_time_plot_has_one_line_per_backend_and_both_models(time_doc):
+    fig = plots.draw_time(time_doc["rows"])
+    assert len(visible_axes(fig)) == 3  # fft float32, fft float64, rfft float64
+    expected = {("fft", "float64"): {"numpy", "scipy", "pyfftw", "radix2-dit"},
+                ("fft", "float32"): {"numpy", "scipy", "pyfftw"}, ("rfft", "float64"): {"numpy", "scipy", "pyfftw"}}
+    for (kind, dtype), backends in expected.items():
+        ax = panel(fig, f"{kind} {dtype}")
+        assert sorted(gids(ax, "backend:")) == sorted(f"backend:{b}" for b in backends)
+        assert sorted(gids(ax, "model:")) == ["model:n2", "model:nlogn"]
+        labels = {t.get_text() for t in ax.texts}
+        assert backends <= labels  # direct labels at the lines' ends
+        assert any("N log" in t for t in labels) and any("N$^2$" in t for t in labels)
+        assert ax.get_xscale() == "log" and ax.get_yscale() == "log"
+        assert ax.get_ylabel() and "transform length N" in ax.get_xlabel()
+
+
+def test_time_plot_model_lines_go_through_the_anchor(time_doc):
+    """The N log2 N line is t0 (N log2 N)/(n0 log2 n0) and the N^2 line t0 (N/n0)^2, where t0 is
+    the fastest median time at n0, the middle power of two >= 64 (here 2^12)."""
+    fig = plots.draw_time(time_doc["rows"])
+    ax = panel(fig, "fft float64")
+    rows = [r for r in time_doc["rows"] if r["kind"] == "fft" and r["dtype"] == "float64" and r["seconds"]]
+    n0 = 2**12
+    t0 = min(r["seconds"] for r in rows if r["n"] == n0)
+    nlogn = next(line for line in ax.get_lines() if line.get_gid() == "model:nlogn")
+    x, y = np.asarray(nlogn.get_xdata()), np.asarray(nlogn.get_ydata())
+    assert np.allclose(y / (x * np.log2(x)), t0 / (n0 * math.log2(n0)), rtol=1e-12)
+    n2 = next(line for line in ax.get_lines() if line.get_gid() == "model:n2")
+    x, y = np.asarray(n2.get_xdata()), np.asarray(n2.get_ydata())
+    assert np.allclose(y / x**2, t0 / n0**2, rtol=1e-12)
+
+
+def test_time_plot_lines_hold_the_powers_of_two_and_markers_the_other_sizes(time_doc):
+    fig = plots.draw_time(time_doc["rows"])
+    ax = panel(fig, "fft float32")
+    line = next(ln for ln in ax.get_lines() if ln.get_gid() == "backend:pyfftw")
+    rows = sorted((r for r in time_doc["rows"] if r["backend"] == "pyfftw" and r["kind"] == "fft"
+                   and r["dtype"] == "float32"), key=lambda r: r["n"])
+    pow2 = [r for r in rows if r["n"] & (r["n"] - 1) == 0]
+    assert list(line.get_xdata()) == [r["n"] for r in pow2]
+    assert list(line.get_ydata()) == [r["seconds"] for r in pow2]
+    others = next(ln for ln in ax.get_lines() if ln.get_gid() == "other-sizes:pyfftw")
+    assert sorted(others.get_xdata()) == [97, 1000, 1009, 9973]
+
+
+def test_time_plot_skips_rows_without_a_time(time_doc):
+    fig = plots.draw_time(time_doc["rows"])
+    line = next(ln for ln in panel(fig, "fft float64").get_lines() if ln.get_gid() == "backend:radix2-dit")
+    assert 97 not in list(line.get_xdata())  # the skip row
+    with pytest.raises(UsageError, match="no timed rows"):
+        plots.draw_time([r for r in time_doc["rows"] if r["status"] != "ok"])
+
+
+def test_time_plot_png_and_svg(tmp_path, time_doc):
+    rows = [r for r in time_doc["rows"] if r["kind"] == "fft" and r["dtype"] == "float64"]
+    png = plots.plot_time(rows, str(tmp_path / "t.png"))
+    assert png == str(tmp_path / "t.png")
+    assert_png(png)
+    svg = plots.plot_time(rows, str(tmp_path / "sub" / "t.svg"))
+    assert_svg(svg)
+    assert sorted(os.listdir(tmp_path)) == ["sub", "t.png"]  # no temporary files left behind
+
+
+def test_other_extension_is_a_usage_error(tmp_path, time_doc):
+    for name in ("t.jpg", "t", "t.pdf"):
+        with pytest.raises(UsageError, match=r"write \.png or \.svg"):
+            plots.plot_time(time_doc["rows"], str(tmp_path / name))
+    assert os.listdir(tmp_path) == []
+
+
+def test_missing_matplotlib_is_a_usage_error(monkeypatch, time_doc):
+    """With matplotlib not importable the plot functions say how to install it."""
+    for name in [m for m in sys.modules if m == "matplotlib" or m.startswith("matplotlib.")]:
+        monkeypatch.setitem(sys.modules, name, None)
+    monkeypatch.setitem(sys.modules, "matplotlib", None)
+    with pytest.raises(UsageError, match=r"install matplotlib \(pip install 'fftgauge\[plots\]'\)"):
+        plots.draw_time(time_doc["rows"])
+    with pytest.raises(UsageError, match="install matplotlib"):
+        plots.require_matplotlib()
+
+
+# --------------------------------------------------------------------------- rate plot
+
+def test_rate_plot_lines_labels_and_values(time_doc):
+    fig = plots.draw_rate(time_doc["rows"])
+    ax = panel(fig, "fft float64")
+    assert len(gids(ax, "backend:")) == 4
+    assert "5 N log" in ax.get_ylabel() and "GFLOP/s" in ax.get_ylabel()
+    assert "2.5 N log" in panel(fig, "rfft float64").get_ylabel()
+    line = next(ln for ln in ax.get_lines() if ln.get_gid() == "backend:numpy")
+    rows = {r["n"]: r for r in time_doc["rows"] if r["backend"] == "numpy" and r["kind"] == "fft"
+            and r["dtype"] == "float64"}
+    for n, gflops in zip(line.get_xdata(), line.get_ydata()):
+        assert gflops == rows[n]["gflops"]
+    assert ax.get_ylim()[0] == 0
+
+
+def test_rate_falls_back_to_the_flop_convention():
+    """Without gflops/flops fields the rate is 5 N log2 N / seconds (common practice in FFT
+    benchmarking), 2.5 N log2 N for real transforms."""
+    rows = [{"backend": "x", "kind": k, "dtype": "float64", "n": n, "seconds": 1e-6} for k in ("fft", "rfft")
+            for n in (64, 128, 256)]
+    fig = plots.draw_rate(rows)
+    for kind, factor in (("fft", 5.0), ("rfft", 2.5)):
+        line = next(ln for ln in panel(fig, f"{kind} float64").get_lines() if ln.get_gid() == "backend:x")
+        expected = [factor * n * math.log2(n) / 1e-6 / 1e9 for n in (64, 128, 256)]
+        assert np.allclose(line.get_ydata(), expected, rtol=1e-12)
+
+
+# --------------------------------------------------------------------------- accuracy plot
+
+def test_accuracy_plot_lines_bound_and_failures(check_doc, tmp_path):
+    fig = plots.draw_accuracy(check_doc["rows"])
+    assert len(visible_axes(fig)) == 2
+    for dtype in ("float32", "float64"):
+        ax = panel(fig, f"fft {dtype}")
+        assert sorted(gids(ax, "backend:")) == ["backend:demo-recurrence", "backend:numpy", "backend:scipy"]
+        bound = next(ln for ln in ax.get_lines() if ln.get_gid() == "bound")
+        # eps = 2^-23 (binary32), 2^-52 (binary64): IEEE Std 754-2019; the demo rows store limit = bound x eps
+        eps = {"float32": 2.0**-23, "float64": 2.0**-52}[dtype]
+        limits = {r["n"]: r["limit"] / eps for r in check_doc["rows"]
+                  if r["check"] == "accuracy" and r["dtype"] == dtype and r["limit"] > 0}
+        for n, value in zip(bound.get_xdata(), bound.get_ydata()):
+            assert value == pytest.approx(limits[n], rel=1e-12)
+        fails = next(ln for ln in ax.get_lines() if ln.get_gid() == "fail")
+        n_fail = sum(1 for r in check_doc["rows"] if r["check"] == "accuracy" and r["dtype"] == dtype
+                     and r["status"] == "fail")
+        assert len(fails.get_xdata()) == n_fail == 4
+        assert "error bound" in {t.get_text() for t in ax.texts}
+        assert "eps units" in ax.get_ylabel()
+    assert "exact result" in panel(fig, "fft float64").get_title()  # the n = 1 row with 0 eps
+    assert_png(plots.plot_accuracy(check_doc["rows"], str(tmp_path / "a.png")))
+
+
+def test_bound_in_eps_units_uses_the_rows_own_scale():
+    row = {"dtype": "float64", "value": 4.0e-16, "eps_units": 2.0, "limit": 2.0e-15}
+    assert plots.bound_eps_units(row) == pytest.approx(10.0)
+    assert plots.bound_eps_units({**row, "value": 0.0, "eps_units": 0.0}) == pytest.approx(2.0e-15 / 2.0**-52)
+    assert plots.bound_eps_units({**row, "limit": None}) is None
+
+
+def test_accuracy_plot_needs_accuracy_rows(check_doc):
+    with pytest.raises(UsageError, match="no accuracy rows"):
+        plots.draw_accuracy([r for r in check_doc["rows"] if r["check"] != "accuracy"])
+
+
+# --------------------------------------------------------------------------- history plot
+
+def history_docs(time_doc: dict, count: int = 4) -> list[dict]:
+    docs = []
+    for i in range(count):
+        doc = copy.deepcopy(time_doc)
+        doc["created"] = f"2026-12-0{i + 1}T10:00:00Z"
+        if i % 2 == 0:
+            doc["commit"] = f"{i}0c0ffee1234567890"
+        for r in doc["rows"]:
+            if r["seconds"]:
+                for key in ("seconds", "seconds_low", "seconds_high"):
+                    r[key] *= 1 + 0.1 * i
+        docs.append(doc)
+    return docs
+
+
+def test_history_plot_orders_runs_and_labels_them(time_doc, tmp_path):
+    docs = history_docs(time_doc)
+    case = Case("fft", "float64", 1024)
+    fig = plots.draw_history(list(reversed(docs)), case)
+    axes = visible_axes(fig)
+    assert [ax.get_title(loc="left") for ax in axes] == ["numpy", "pyfftw", "radix2-dit", "scipy"]
+    labels = [t.get_text() for t in axes[-1].get_xticklabels()]
+    assert labels == ["00c0ffee12", "2026-12-02 10:00", "20c0ffee12", "2026-12-04 10:00"]
+    line = next(ln for ln in axes[0].get_lines() if ln.get_gid() == "backend:numpy")
+    base = next(r["seconds"] for r in time_doc["rows"] if r["backend"] == "numpy" and r["kind"] == "fft"
+                and r["dtype"] == "float64" and r["n"] == 1024)
+    assert np.allclose(line.get_ydata(), [base * (1 + 0.1 * i) for i in range(4)], rtol=1e-12)
+    assert_svg(plots.plot_history(docs, case, str(tmp_path / "h.svg"), backend="numpy"))
+
+
+def test_history_with_gate_runs_adds_the_ratio_panel(time_doc):
+    gate = {"schema": "fftgauge-gate/1", "created": "2026-12-09T00:00:00Z", "regressed": False,
+            "rows": [{"backend": "numpy", "kind": "fft", "dtype": "float64", "n": 1024, "ratio": 1.07,
+                      "ratio_low": 1.05, "ratio_high": 1.09, "p_value": 0.001, "verdict": "slower"}]}
+    fig = plots.draw_history(history_docs(time_doc, 2) + [gate], Case("fft", "float64", 1024), backend="numpy")
+    axes = visible_axes(fig)
+    assert len(axes) == 2
+    ratio = next(ln for ln in axes[1].get_lines() if ln.get_gid() == "ratio:numpy")
+    assert list(ratio.get_xdata()) == [2] and list(ratio.get_ydata()) == [1.07]
+    assert gids(axes[1], "no-change")
+
+
+def test_history_of_an_absent_case_is_a_usage_error(time_doc):
+    with pytest.raises(UsageError, match="no stored run holds fft float64 n=12345"):
+        plots.draw_history(history_docs(time_doc, 1), Case("fft", "float64", 12345))
+
+
+# --------------------------------------------------------------------------- tables
+
+def test_comparison_table_and_fastest(time_doc):
+    df = comparison_table(time_doc["rows"])
+    assert list(df.index.names) == ["kind", "dtype", "n"]
+    assert list(df.columns) == ["numpy", "scipy", "pyfftw", "radix2-dit"]
+    block = df.loc[("fft", "float64")]
+    numpy_1024 = next(r["seconds"] for r in time_doc["rows"] if r["backend"] == "numpy" and r["kind"] == "fft"
+                      and r["dtype"] == "float64" and r["n"] == 1024)
+    assert block.loc[1024, "numpy"] == numpy_1024
+    assert math.isnan(block.loc[97, "radix2-dit"])  # a skip row is no time
+    assert df.idxmin(axis=1).loc[("fft", "float64", 1009)] == "scipy"
+
+
+def test_comparison_table_labels_thread_counts_and_keeps_the_last_duplicate():
+    rows = [{"backend": "a", "kind": "fft", "dtype": "float64", "n": 8, "threads": t, "seconds": s}
+            for t, s in ((1, 2.0), (2, 1.0), (2, 0.5))]
+    df = comparison_table(rows)
+    assert list(df.columns) == ["a (1 threads)", "a (2 threads)"]
+    assert df.loc[("fft", "float64", 8), "a (2 threads)"] == 0.5
+    assert comparison_table([]).empty
+
+
+def test_terminal_and_markdown_tables_mark_the_fastest(time_doc):
+    df = comparison_table(time_doc["rows"])
+    blocks = format_comparison(df).split("\n\n")
+    assert [b.splitlines()[0] for b in blocks] == [f"{k}: median time per transform (* fastest)"
+                                                   for k in ("fft float32", "fft float64", "rfft float64")]
+    line = next(ln for ln in blocks[1].splitlines() if ln.split()[0] == "1009")
+    assert line.count("*") == 1 and "12.9 us *" in line
+    md = markdown_comparison(df)
+    assert "| 1009 | 14.3 µs | **12.9 µs** | 42.9 µs | - |" in md
+    assert md.count("### ") == 3
+
+
+@pytest.mark.parametrize("seconds, text", [(9.9e-6, "9.90 us"), (1e-4, "100 us"), (999.6e-6, "1.00 ms"),
+                                           (2.5, "2.50 s"), (5e-10, "0.500 ns"), (float("nan"), "")])
+def test_format_seconds(seconds, text):
+    assert format_seconds(seconds) == text
+
+
+# --------------------------------------------------------------------------- the command
+
+def run_report(argv: list[str]) -> int:
+    parser = argparse.ArgumentParser(prog="fftgauge report")
+    cmd_report.add_arguments(parser)
+    return cmd_report.run(parser.parse_args(argv))
+
+
+def test_report_writes_plots_tables_and_scaling(tmp_path, capsys):
+    out = tmp_path / "rep"
+    md, page = tmp_path / "report.md", tmp_path / "report.html"
+    assert run_report([TIME_FILE, CHECK_FILE, "--out", str(out), "--markdown", str(md), "--html", str(page)]) == 0
+    printed = capsys.readouterr().out.split()
+    expected = [str(out / f) for f in ("time.png", "rate.png", "accuracy.png", "scaling.txt")] + [str(md), str(page)]
+    assert printed == expected
+    for path in expected[:3]:
+        assert_png(path)
+    scaling = (out / "scaling.txt").read_text()
+    assert "pyfftw fft float64: n = 9973 (prime)" in scaling and "cache cliff" in scaling
+    text = md.read_text(encoding="utf-8")
+    assert "![time per transform" in text and "(rep/time.png)" in text
+    assert "| 1009 | 14.3 µs | **12.9 µs** | 42.9 µs | - |" in text and "```text" in text
+    assert "demo-recurrence" in text and "precision x4" in text  # the battery summary
+    ET.fromstring(page.read_text(encoding="utf-8").split("\n", 1)[1])  # XHTML-clean apart from the doctype
+    assert "<strong>12.9 µs</strong>" in page.read_text(encoding="utf-8")
+
+
+def test_report_svg_and_history_folder(tmp_path, capsys, time_doc):
+    runs = tmp_path / "runs"
+    runs.mkdir()
+    small = {**time_doc, "rows": [r for r in time_doc["rows"] if r["kind"] == "fft" and r["dtype"] == "float64"
+                                  and r["n"] in (64, 1024, 4096)]}
+    for i, doc in enumerate(history_docs(small, 3)):
+        (runs / f"run{i}.json").write_text(json.dumps(doc))
+    (runs / "notes.txt").write_text("not a results file")
+    out = tmp_path / "rep"
+    assert run_report([str(runs), "--out", str(out), "--format", "svg"]) == 0
+    printed = capsys.readouterr().out.split("\n")
+    written = sorted(os.listdir(out))
+    assert written == [f"history-runs-fft-float64-{n}.svg" for n in (1024, 4096, 64)]
+    for name in written:
+        assert_svg(str(out / name))
+        assert str(out / name) in printed
+    assert run_report([str(runs), "--out", str(out), "--case", "fft,float64,1024", "--no-plots"]) == 0
+
+
+def test_report_caps_default_histories_and_says_so(tmp_path, capsys, time_doc, monkeypatch):
+    runs = tmp_path / "runs"
+    runs.mkdir()
+    (runs / "a.json").write_text(json.dumps(time_doc))
+    drawn = []
+    monkeypatch.setattr(plots, "plot_history", lambda docs, case, path, **kw: drawn.append(case) or path)
+    assert run_report([str(runs), "--out", str(tmp_path / "o")]) == 0
+    assert len(drawn) == cmd_report.MAX_HISTORY_PLOTS
+    assert "choose with --case" in capsys.readouterr().out
+
+
+def test_report_without_plots_needs_no_matplotlib(tmp_path, capsys, monkeypatch):
+    monkeypatch.setitem(sys.modules, "matplotlib", None)
+    md = tmp_path / "r.md"
+    assert run_report([TIME_FILE, "--no-plots", "--out", str(tmp_path / "o"), "--markdown", str(md)]) == 0
+    assert "![" not in md.read_text(encoding="utf-8")
+    with pytest.raises(UsageError, match="install matplotlib"):
+        run_report([TIME_FILE, "--out", str(tmp_path / "o")])
+
+
+def write(tmp_path, name: str, text: str) -> str:
+    path = tmp_path / name
+    path.write_text(text)
+    return str(path)
+
+
+def bad_inputs(tmp_path, time_doc) -> dict[str, tuple[list[str], str]]:
+    broken_row = {**time_doc, "rows": [{k: v for k, v in time_doc["rows"][0].items() if k != "seconds"}]}
+    gate = {"schema": "fftgauge-gate/1", "created": "x", "rows": []}
+    empty, runs = tmp_path / "empty", tmp_path / "runs"
+    empty.mkdir()
+    runs.mkdir()
+    (runs / "run.json").write_text(json.dumps(time_doc))
+    return {
+        "missing": ([str(tmp_path / "nope.json")], "does not exist"),
+        "corrupt": ([write(tmp_path, "corrupt.json", '{"schema": "fftgauge-time/1", "rows": [')], "not valid JSON"),
+        "foreign": ([write(tmp_path, "count.json", json.dumps({"schema": "fftgauge-count/1", "rows": []}))],
+                    "has schema 'fftgauge-count/1'"),
+        "not results": ([write(tmp_path, "list.json", "[1, 2]")], "not an fftgauge results file"),
+        "row lacks a field": ([write(tmp_path, "row.json", json.dumps(broken_row))], "row 0 lacks seconds"),
+        "gate file alone": ([write(tmp_path, "gate.json", json.dumps(gate))], "pass the folder"),
+        "empty folder": ([str(empty)], "holds no results files"),
+        "bad case": ([TIME_FILE, str(runs), "--case", "fft,float64"], "write KIND,DTYPE,N"),
+        "unknown kind in case": ([str(runs), "--case", "dct,float64,8"], "unknown transform kind"),
+        "case without a folder": ([TIME_FILE, "--case", "fft,float64,64"], "pass a folder"),
+    }
+
+
+def test_bad_inputs_are_usage_errors_naming_the_file(tmp_path, time_doc):
+    for what, (argv, message) in bad_inputs(tmp_path, time_doc).items():
+        with pytest.raises(UsageError, match=message):
+            run_report(argv + ["--out", str(tmp_path / "o"), "--no-plots"])
+        if "--case" not in argv:  # a file's fault: the message names the file
+            with pytest.raises(UsageError, match=os.path.basename(argv[0])):
+                run_report(argv + ["--out", str(tmp_path / "o"), "--no-plots"])
+    assert not (tmp_path / "o").exists()
+
+
+def test_bad_inputs_exit_2_with_one_line_through_the_cli(tmp_path, time_doc, monkeypatch, capsys):
+    """The contract's exit code 2 and one line on stderr, through harness.cli.main."""
+    for argv, message in bad_inputs(tmp_path, time_doc).values():
+        assert cli.main(["report", *argv, "--out", str(tmp_path / "o")]) == 2
+        err = capsys.readouterr().err
+        assert err.count("\n") == 1 and err.startswith("fftgauge: error: ") and message in err
+    assert cli.main(["report", TIME_FILE, "--format", "jpg"]) == 2
+    assert "invalid choice" in capsys.readouterr().err
+
+
+def test_markdown_table_escapes_pipes_and_newlines():
+    from harness.time_tables import markdown_table
+
+    assert markdown_table(["a|b", "c"], [["x|y", "1\n2"]]) == "| a\\|b | c |\n|---|---|\n| x\\|y | 1 2 |"
+
+
+def test_comparison_table_accepts_time_rows():
+    from harness.rows import TimeRow
+
+    rows = [TimeRow(backend=b, kind="rfft", dtype="float32", n=64, threads=1, plan_seconds=0.0, seconds=s,
+                    seconds_low=s, seconds_high=s, samples=5, loops=10, flops=960.0, gflops=960 / s / 1e9,
+                    ns_per_nlogn=s * 1e9 / 384, peak_bytes=None, in_place=False) for b, s in (("p", 2e-6), ("q", 1e-6))]
+    df = comparison_table(rows)
+    assert df.idxmin(axis=1).tolist() == ["q"]
+    assert "1.00 us *" in format_comparison(df)
