@@ -1,0 +1,160 @@
+"""Deliberately misbehaving backends, for the worker-process tests (tests/test_worker.py).
+
+Each plain callable is loaded through a file SPEC such as
+``tests/data/misbehaving.py:abort_fft`` and wrapped by the registry as a forward complex
+FFT backend; each one misbehaves in one way, every time it is called. ``SelectiveBackend``
+is an adapter class that misbehaves only for some sizes, so one worker can be shown to
+carry on with good jobs after bad ones. Never load this module in the test process itself:
+it aborts, crashes and hangs on purpose.
+"""
+
+from __future__ import annotations
+
+import ctypes
+import os
+import signal
+import sys
+import time
+
+import numpy as np
+
+from backends.base import Backend, Capabilities, FunctionPlan, Plan
+from harness.errors import UnsupportedCase
+
+#: Bytes the memory hog asks for: 4 TiB, beyond any test machine and any sane limit.
+HOG_BYTES = 2**42
+#: Characters the chatty backend prints to standard output per call.
+CHATTER_CHARS = 4_000_000
+#: Marker the chatty backend prints, which must never reach the parent's standard output.
+CHATTER_MARKER = "CHATTY-BACKEND-OUTPUT"
+
+
+def abort_fft(x):
+    """Abort the process (SIGABRT), as a failed C assertion does."""
+    os.abort()
+
+
+def segfault_fft(x):
+    """Read address 0: a segmentation fault (SIGSEGV)."""
+    return ctypes.string_at(0)
+
+
+def hang_fft(x):
+    """Sleep forever (a hang that SIGTERM does stop)."""
+    while True:
+        time.sleep(3600)
+
+
+def busy_fft(x):
+    """Spin forever with SIGTERM, SIGINT and SIGHUP ignored (only SIGKILL stops it)."""
+    for name in ("SIGTERM", "SIGINT", "SIGHUP"):
+        if hasattr(signal, name):
+            signal.signal(getattr(signal, name), signal.SIG_IGN)
+    while True:
+        pass
+
+
+def raise_fft(x):
+    """Raise a ValueError, as a backend rejecting its input does."""
+    raise ValueError("this backend refuses every input")
+
+
+def hog_fft(x):
+    """Ask for far too much memory (HOG_BYTES) and touch it."""
+    return np.ones(HOG_BYTES // 8)
+
+
+def wrong_shape_fft(x):
+    """Return a right transform of the wrong length (half of it)."""
+    return np.fft.fft(x)[: len(x) // 2]
+
+
+def exit_fft(x):
+    """Call sys.exit(3), as a backend whose error handling exits the process does."""
+    sys.exit(3)
+
+
+def chatty_fft(x):
+    """Print CHATTER_CHARS characters to standard output (Python and C level), then
+    return the right transform."""
+    line = CHATTER_MARKER + "-" * 80 + "\n"
+    sys.stdout.write(line * (CHATTER_CHARS // len(line)))
+    sys.stdout.flush()
+    os.write(1, line.encode())
+    return np.fft.fft(x)
+
+
+class _Unpicklable(Exception):
+    """An exception that cannot be pickled: it holds a lambda and needs two arguments."""
+
+    def __init__(self, code, detail):
+        super().__init__(f"code {code}: {detail}")
+        self.callback = lambda: code
+
+
+def unpicklable_error_fft(x):
+    """Raise an exception that pickle cannot carry."""
+    raise _Unpicklable(17, "an error that cannot be pickled")
+
+
+class _Unprintable(Exception):
+    """An exception whose message itself raises."""
+
+    def __str__(self):
+        raise RuntimeError("no message for you")
+
+
+def unprintable_error_fft(x):
+    """Raise an exception whose ``str()`` raises."""
+    raise _Unprintable()
+
+
+class SelectiveBackend(Backend):
+    """A forward-FFT adapter (numpy.fft underneath) that misbehaves for some sizes only.
+
+    ``n`` selects the behaviour (see ``BEHAVIOUR``); ``n = REFUSED_N`` is refused at
+    planning time with UnsupportedCase; every other size is a correct FFT.
+    """
+
+    name = "selective"
+    description = "numpy.fft, except for a few sizes where it raises, crashes or hangs"
+    BEHAVIOUR = {3: raise_fft, 5: segfault_fft, 7: hang_fft, 11: exit_fft}
+    REFUSED_N = 13
+
+    def capabilities(self) -> Capabilities:
+        return Capabilities(kinds=("fft",), norms=("backward",))
+
+    def plan(self, case) -> Plan:
+        if case.n == self.REFUSED_N:
+            raise UnsupportedCase(f"{self.name} refuses n = {case.n}")
+        return FunctionPlan(case, self.BEHAVIOUR.get(case.n, np.fft.fft))
+
+
+class UnsendableBackend(Backend):
+    """An adapter whose ``describe()`` returns something that cannot be pickled."""
+
+    name = "unsendable"
+
+    def capabilities(self) -> Capabilities:
+        return Capabilities()
+
+    def plan(self, case) -> Plan:
+        return FunctionPlan(case, np.fft.fft)
+
+    def describe(self):
+        return {"name": self.name, "callback": lambda: None}
+
+
+class CrashOnLoadBackend(Backend):
+    """An adapter that aborts the process in its constructor (while the worker loads it)."""
+
+    name = "crash-on-load"
+
+    def __init__(self, **opts):
+        os.abort()
+
+    def capabilities(self) -> Capabilities:
+        return Capabilities()
+
+    def plan(self, case) -> Plan:
+        raise AssertionError("never reached")

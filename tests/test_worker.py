@@ -1,0 +1,358 @@
+"""Tests for harness.worker: untrusted backends run in a child process.
+
+Every misbehaving backend (tests/data/misbehaving.py, loaded in the child only) must come
+back as a BackendFailure with a reason that says what happened, and the worker must go on
+running good jobs afterwards. Every test also checks that it leaves no worker process
+behind (the ``no_leftover_children`` fixture, with psutil). Timeouts are short (2 s) and
+their timing is never asserted, only that the call returns with the right reason.
+"""
+
+from __future__ import annotations
+
+import multiprocessing
+import os
+import signal
+import subprocess
+import sys
+import textwrap
+import threading
+import time
+
+import numpy as np
+import psutil
+import pytest
+
+from harness.cases import Case
+from harness.errors import BackendFailure, UnsupportedCase, UsageError
+from harness.worker import Worker, run_jobs
+
+HERE = os.path.dirname(os.path.abspath(__file__))
+ROOT = os.path.dirname(HERE)
+MISBEHAVING = os.path.join(HERE, "data", "misbehaving.py")
+PLAN = "harness.worker:plan_and_execute"
+DESCRIBE = "harness.worker:describe_backend"
+REASON = "harness.worker:unsupported_reason"
+TIMEOUT_SECONDS = 30.0
+SHORT_TIMEOUT_SECONDS = 2.0
+FFT8 = Case("fft", "float64", 8)
+
+
+def spec(attr: str) -> str:
+    """The file SPEC of one misbehaving backend."""
+    return f"{MISBEHAVING}:{attr}"
+
+
+def signal_x(n: int) -> np.ndarray:
+    """A reproducible complex test signal of length n."""
+    rng = np.random.default_rng(n)
+    return rng.standard_normal(n) + 1j * rng.standard_normal(n)
+
+
+def worker_children() -> set[int]:
+    """Pids of every process below this one (zombies included), except multiprocessing's
+    long-lived helpers: the resource tracker and the fork server (direct children that
+    live until the test session ends; the fork server's own children are counted)."""
+    me = os.getpid()
+    pids = set()
+    for child in psutil.Process().children(recursive=True):
+        try:
+            helper = child.ppid() == me and any("resource_tracker" in part or "forkserver" in part
+                                                for part in child.cmdline())
+            if not helper:
+                pids.add(child.pid)
+        except psutil.ZombieProcess:
+            pids.add(child.pid)
+        except psutil.NoSuchProcess:
+            pass
+    return pids
+
+
+@pytest.fixture(autouse=True)
+def no_leftover_children():
+    """Fail a test that leaves a worker process (or a zombie) behind."""
+    before = worker_children()
+    yield
+    left = worker_children() - before
+    assert not left, f"worker processes left behind: {sorted(left)}"
+
+
+@pytest.fixture(scope="module")
+def numpy_worker():
+    """One worker on the numpy backend, shared by the tests that only run good jobs."""
+    worker = Worker("numpy")
+    worker.call(DESCRIBE, timeout_seconds=TIMEOUT_SECONDS)  # start it before any test's check
+    yield worker
+    worker.close()
+
+
+# -- good jobs -----------------------------------------------------------------------------
+@pytest.mark.parametrize("kind", ["fft", "ifft", "rfft", "irfft"])
+@pytest.mark.parametrize("dtype", ["float32", "float64"])
+def test_jobs_return_numpy_arrays(numpy_worker, kind, dtype):
+    """The output crosses the pipe bit for bit. Reference: numpy.fft (the reference library
+    check-values.md lists as an independent double-precision implementation), run here in
+    the test process on the same input."""
+    case = Case(kind, dtype, 12)
+    x = signal_x(case.input_length).astype(case.complex_dtype)
+    if kind == "rfft":
+        x = x.real.astype(case.real_dtype)
+    y = numpy_worker.call(PLAN, case, x, timeout_seconds=TIMEOUT_SECONDS)
+    expected = getattr(np.fft, kind)(x, n=12)
+    assert isinstance(y, np.ndarray)
+    assert y.dtype == expected.dtype and y.shape == expected.shape
+    np.testing.assert_array_equal(y, expected)
+
+
+def test_backend_is_loaded_once_per_child(numpy_worker):
+    """Many jobs, one child: same pid, one start, and a case given as a tuple works too."""
+    pid = numpy_worker.pid
+    for n in (1, 2, 5, 64):
+        y = numpy_worker.call(PLAN, ("fft", "float64", n), signal_x(n), timeout_seconds=TIMEOUT_SECONDS)
+        np.testing.assert_array_equal(y, np.fft.fft(signal_x(n)))
+    assert numpy_worker.pid == pid and numpy_worker.starts == 1
+
+
+def test_describe_and_unsupported_reason_jobs():
+    with Worker(spec("SelectiveBackend")) as worker:
+        described = worker.call(DESCRIBE, timeout_seconds=TIMEOUT_SECONDS)
+        assert described["name"] == "selective"
+        assert described["capabilities"]["kinds"] == ["fft"]
+        assert worker.call(REASON, FFT8, timeout_seconds=TIMEOUT_SECONDS) is None
+        why = worker.call(REASON, Case("rfft", "float64", 8), timeout_seconds=TIMEOUT_SECONDS)
+        assert "does not compute rfft" in why
+
+
+# -- misbehaving backends ------------------------------------------------------------------
+LOCATION = r"misbehaving\.py:\d+ in "
+
+#: (callable in tests/data/misbehaving.py, reason pattern, the child must be replaced, Worker kwargs)
+MISBEHAVIOURS = [
+    ("abort_fft", r"^the backend aborted \(signal 6, SIGABRT\) at .*" + LOCATION + "abort_fft$", True, {}),
+    ("segfault_fft", r"^the backend crashed \(signal 11, SIGSEGV\) at .*" + LOCATION + "segfault_fft$",
+     True, {}),
+    ("hang_fft", r"^did not finish within 2 s; killed \(it was at .*" + LOCATION + r"hang_fft\)$", True, {}),
+    ("busy_fft", r"^did not finish within 2 s; killed", True, {}),
+    ("exit_fft", r"^the backend exited with code 3$", True, {}),
+    ("raise_fft", r"^ValueError: this backend refuses every input \(at .*" + LOCATION + r"raise_fft\)$",
+     False, {}),
+    ("hog_fft", r"^ran out of memory \(MemoryError: .*\) \(at .*" + LOCATION + r"hog_fft\)$",
+     False, {"memory_limit_bytes": 4 * 2**30}),
+    ("unpicklable_error_fft", r"^_Unpicklable: code 17: an error that cannot be pickled \(at .*"
+     + LOCATION + r"unpicklable_error_fft\)$", False, {}),
+    ("unprintable_error_fft", r"^_Unprintable: <_Unprintable whose message cannot be shown>", False, {}),
+]
+
+
+@pytest.mark.parametrize("attr, pattern, replaced, kwargs", MISBEHAVIOURS,
+                         ids=[m[0] for m in MISBEHAVIOURS])
+def test_misbehaving_backend_gives_reason_and_worker_goes_on(attr, pattern, replaced, kwargs):
+    with Worker(spec(attr), **kwargs) as worker:
+        with pytest.raises(BackendFailure, match=pattern) as info:
+            worker.call(PLAN, FFT8, signal_x(8), timeout_seconds=SHORT_TIMEOUT_SECONDS)
+        assert "\n" not in str(info.value)
+        failed_pid = worker.pid
+        # A good job after the bad one: runs in the same child, or in a fresh one.
+        described = worker.call(DESCRIBE, timeout_seconds=TIMEOUT_SECONDS)
+        assert described["name"] == spec(attr)
+        assert worker.starts == (2 if replaced else 1)
+        assert (failed_pid is None) == replaced
+        last_pid = worker.pid
+    assert worker.pid is None and not psutil.pid_exists(last_pid)
+
+
+def test_wrong_shape_comes_back_as_returned():
+    """Judging the shape is the checks' job: the worker returns what the backend gave.
+    Reference: numpy.fft (check-values.md), truncated as the backend truncates."""
+    x = signal_x(8)
+    with Worker(spec("wrong_shape_fft")) as worker:
+        y = worker.call(PLAN, FFT8, x, timeout_seconds=TIMEOUT_SECONDS)
+    np.testing.assert_array_equal(y, np.fft.fft(x)[:4])
+
+
+def test_chatty_backend_does_not_reach_parents_output(capfd):
+    """Millions of characters printed in the child (Python and C level) do not reach the
+    parent's file descriptors 1 or 2; the result is still right (reference: numpy.fft)."""
+    marker = "CHATTY-BACKEND-OUTPUT"  # tests/data/misbehaving.py: CHATTER_MARKER
+    x = signal_x(8)
+    with Worker(spec("chatty_fft")) as worker:
+        y = worker.call(PLAN, FFT8, x, timeout_seconds=TIMEOUT_SECONDS)
+    np.testing.assert_array_equal(y, np.fft.fft(x))
+    out, err = capfd.readouterr()
+    assert marker not in out and marker not in err
+
+
+def test_one_worker_carries_on_through_a_mixed_batch():
+    """run_jobs over good and bad sizes of one adapter: every bad job is a failure in its
+    place, every good job after it succeeds (reference: numpy.fft)."""
+    sizes = [8, 3, 8, 5, 8, 11, 13, 16]
+    with Worker(spec("SelectiveBackend")) as worker:
+        jobs = [(Case("fft", "float64", n), signal_x(n)) for n in sizes]
+        outcomes = [outcome for _, outcome in run_jobs(worker, PLAN, jobs, TIMEOUT_SECONDS)]
+        assert worker.starts == 3  # the first child, then one after SIGSEGV, one after exit(3)
+    assert len(outcomes) == len(sizes)
+    for n, outcome in zip(sizes, outcomes):
+        if n in (8, 16):
+            np.testing.assert_array_equal(outcome, np.fft.fft(signal_x(n)))
+    assert isinstance(outcomes[1], BackendFailure) and str(outcomes[1]).startswith("ValueError:")
+    assert isinstance(outcomes[3], BackendFailure) and "SIGSEGV" in str(outcomes[3])
+    assert isinstance(outcomes[5], BackendFailure) and "exited with code 3" in str(outcomes[5])
+    assert isinstance(outcomes[6], UnsupportedCase) and "refuses n = 13" in str(outcomes[6])
+
+
+@pytest.mark.parametrize("start_method", ["fork", "forkserver"])
+def test_other_start_methods(start_method):
+    """The default is spawn; fork and forkserver work too (under forkserver the child's
+    parent is the fork server, which the child's watch on its owner must allow for)."""
+    if start_method not in multiprocessing.get_all_start_methods():
+        pytest.skip(f"{start_method} is not available on this platform")
+    sizes = [8, 5, 8]
+    with Worker(spec("SelectiveBackend"), start_method=start_method) as worker:
+        jobs = [(Case("fft", "float64", n), signal_x(n)) for n in sizes]
+        outcomes = [outcome for _, outcome in run_jobs(worker, PLAN, jobs, TIMEOUT_SECONDS)]
+        assert worker.starts == 2
+    np.testing.assert_array_equal(outcomes[0], np.fft.fft(signal_x(8)))
+    assert isinstance(outcomes[1], BackendFailure) and "SIGSEGV" in str(outcomes[1])
+    np.testing.assert_array_equal(outcomes[2], np.fft.fft(signal_x(8)))
+
+
+def test_result_that_cannot_be_pickled_is_a_failure():
+    with Worker(spec("UnsendableBackend")) as worker:
+        with pytest.raises(BackendFailure, match=r"^the job's result cannot be sent back to the main "
+                                                 r"process: .*Error"):
+            worker.call(DESCRIBE, timeout_seconds=TIMEOUT_SECONDS)
+        pid = worker.pid
+        y = worker.call(PLAN, FFT8, signal_x(8), timeout_seconds=TIMEOUT_SECONDS)
+        np.testing.assert_array_equal(y, np.fft.fft(signal_x(8)))
+        assert worker.pid == pid
+
+
+def test_crash_while_loading_is_a_failure():
+    with Worker(spec("CrashOnLoadBackend")) as worker:
+        with pytest.raises(BackendFailure, match=r"^the backend aborted \(signal 6, SIGABRT\) while loading"):
+            worker.call(DESCRIBE, timeout_seconds=TIMEOUT_SECONDS)
+        assert worker.pid is None
+
+
+# -- SPECs that cannot be loaded -----------------------------------------------------------
+def test_spec_that_fails_to_load_is_a_usage_error():
+    with Worker(spec("no_such_function")) as worker:
+        with pytest.raises(UsageError, match=r"has no attribute 'no_such_function'$"):
+            worker.call(PLAN, FFT8, signal_x(8), timeout_seconds=TIMEOUT_SECONDS)
+        # Remembered: raised again at once, without starting another child.
+        with pytest.raises(UsageError, match="no_such_function"):
+            worker.call(DESCRIBE, timeout_seconds=TIMEOUT_SECONDS)
+        assert worker.starts == 1 and worker.pid is None
+    with Worker(os.path.join(HERE, "data", "no_such_file.py") + ":fft") as worker:
+        with pytest.raises(UsageError, match="no file") as info:
+            worker.call(DESCRIBE, timeout_seconds=TIMEOUT_SECONDS)
+        assert "\n" not in str(info.value)
+
+
+@pytest.mark.parametrize("kwargs", [{"threads": 0}, {"memory_limit_bytes": -1},
+                                    {"start_method": "teleport"}, {"start_timeout_seconds": 0}])
+def test_bad_worker_settings_are_usage_errors(kwargs):
+    with pytest.raises(UsageError):
+        Worker("numpy", **kwargs)
+
+
+def test_bad_job_requests(numpy_worker):
+    with pytest.raises(ValueError, match="package.module:function"):
+        numpy_worker.call("plan_and_execute", FFT8, signal_x(8), timeout_seconds=TIMEOUT_SECONDS)
+    with pytest.raises(ValueError, match="timeout_seconds"):
+        numpy_worker.call(PLAN, FFT8, signal_x(8), timeout_seconds=0)
+    with pytest.raises(RuntimeError, match="cannot be imported in the worker"):
+        numpy_worker.call("harness.worker:no_such_job", timeout_seconds=TIMEOUT_SECONDS)
+    pid = numpy_worker.pid
+    numpy_worker.call(PLAN, FFT8, signal_x(8), timeout_seconds=TIMEOUT_SECONDS)
+    assert numpy_worker.pid == pid
+
+
+# -- no process left behind ----------------------------------------------------------------
+def test_close_stops_the_child_and_is_idempotent():
+    worker = Worker(spec("SelectiveBackend"))
+    worker.call(DESCRIBE, timeout_seconds=TIMEOUT_SECONDS)
+    pid = worker.pid
+    assert pid in worker_children()
+    worker.close()
+    worker.close()
+    assert pid not in worker_children() and not psutil.pid_exists(pid)
+    with pytest.raises(RuntimeError, match="closed"):
+        worker.call(DESCRIBE, timeout_seconds=TIMEOUT_SECONDS)
+
+
+def test_keyboard_interrupt_in_parent_stops_the_child():
+    """Ctrl-C (SIGINT to this process) while a job hangs: the interrupt propagates and the
+    child is stopped, not left running."""
+    with Worker(spec("hang_fft")) as worker:
+        worker.call(DESCRIBE, timeout_seconds=TIMEOUT_SECONDS)
+        pid = worker.pid
+        timer = threading.Timer(0.5, os.kill, (os.getpid(), signal.SIGINT))
+        timer.start()
+        try:
+            with pytest.raises(KeyboardInterrupt):
+                worker.call(PLAN, FFT8, signal_x(8), timeout_seconds=60)
+        finally:
+            timer.cancel()
+        assert worker.pid is None and not psutil.pid_exists(pid)
+
+
+PARENT_SCRIPT = """
+import os, sys, time
+from harness.worker import Worker
+
+if __name__ == "__main__":
+    worker = Worker({spec!r})
+    worker.call("harness.worker:describe_backend", timeout_seconds=60)
+    print(worker.pid, flush=True)
+    if sys.argv[1] == "exit":
+        sys.exit(0)                      # no close(): the atexit hook must stop the child
+    worker.call("harness.worker:plan_and_execute", ("fft", "float64", 8), [0j] * 8,
+                timeout_seconds=600)     # hangs until this process is killed
+"""
+
+
+def _run_parent(tmp_path, mode: str) -> tuple[subprocess.Popen, int]:
+    script = tmp_path / "parent.py"
+    script.write_text(textwrap.dedent(PARENT_SCRIPT.format(spec=spec("hang_fft"))))
+    env = {**os.environ, "PYTHONPATH": ROOT + os.pathsep + os.environ.get("PYTHONPATH", ""),
+           "TMPDIR": str(tmp_path)}  # where the worker's log goes
+    proc = subprocess.Popen([sys.executable, str(script), mode], stdout=subprocess.PIPE, text=True,
+                            env=env, cwd=ROOT)
+    line = proc.stdout.readline()
+    assert line.strip().isdigit(), f"parent script printed {line!r}"
+    return proc, int(line)
+
+
+def _gone(pid: int, within_seconds: float) -> bool:
+    deadline = time.monotonic() + within_seconds
+    while time.monotonic() < deadline:
+        try:
+            if psutil.Process(pid).status() == psutil.STATUS_ZOMBIE:
+                return True
+        except psutil.NoSuchProcess:
+            return True
+        time.sleep(0.1)
+    return False
+
+
+def test_exit_without_close_stops_the_child(tmp_path):
+    proc, child = _run_parent(tmp_path, "exit")
+    assert proc.wait(timeout=60) == 0
+    assert _gone(child, within_seconds=5)
+    assert not list(tmp_path.glob("fftgauge-worker-*.log"))
+
+
+def test_killed_parent_does_not_leave_a_hanging_child(tmp_path):
+    proc, child = _run_parent(tmp_path, "hang")
+    time.sleep(0.5)  # let the hanging job start
+    proc.kill()
+    proc.wait(timeout=30)
+    try:
+        assert _gone(child, within_seconds=10), "the orphaned worker kept running"
+        assert not list(tmp_path.glob("fftgauge-worker-*.log")), "the orphaned worker left its log"
+    finally:
+        if psutil.pid_exists(child):
+            try:
+                psutil.Process(child).kill()
+            except psutil.NoSuchProcess:
+                pass
