@@ -47,6 +47,7 @@ BUILTINS: dict[str, tuple[str, str, str]] = {
     # Synthetic backends for the engine's own measurements (not FFTs; never in the defaults):
     "null": ("backends.null", "NullBackend", "reinstall fftgauge"),
     "busywait": ("backends.busywait", "BusyWaitBackend", "reinstall fftgauge"),
+    "slowed": ("backends.slowed", "SlowedBackend", "reinstall fftgauge"),
 }
 
 #: SPEC schemes for implementations outside Python: ``scheme:rest`` -> (module, function).

@@ -14,7 +14,7 @@ from harness.errors import UsageError
 from harness.sizes import parse_sizes
 
 #: Size limit applied to the pure-Python references in a run that does not name sizes.
-DEFAULT_PURE_PYTHON_MAX_N = 4096
+DEFAULT_PURE_PYTHON_MAX_N = 512
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -70,7 +70,8 @@ def run(args: argparse.Namespace) -> int:
     elapsed = time.perf_counter() - started
     df = rows_frame(doc["rows"])
     print(format_summary(df))
-    print(f"\nreference: {doc['reference']}; seed {req.seed}; {len(df)} rows in {elapsed:.1f} s; written to {path}",
+    refs = ", ".join(f"{method} for {dtype}" for dtype, method in doc["reference"].items())
+    print(f"\nreference: {refs}; seed {req.seed}; {len(df)} rows in {elapsed:.1f} s; written to {path}",
           file=sys.stdout)
     bad = df["status"].isin(["fail", "error"]).any() if not df.empty else False
     return 1 if bad else 0

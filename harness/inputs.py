@@ -11,6 +11,7 @@ evaluated after an exact reduction to the first octant (:func:`root_of_unity`).
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import math
 
@@ -27,6 +28,7 @@ DISTRIBUTIONS = ("gaussian", "uniform")
 _LONGDOUBLE_TAIL_SCALE = 2.0**-40
 
 
+@functools.lru_cache(maxsize=256)
 def _stable_hash(text: str) -> int:
     """Return a 64-bit integer digest of ``text`` that is the same in every process and on every machine."""
     return int.from_bytes(hashlib.blake2b(text.encode("utf-8"), digest_size=8).digest(), "little")
@@ -112,6 +114,24 @@ _PI_WIDE = np.arctan(np.longdouble(1)) * 4  # pi in long double (double where lo
 
 
 def root_of_unity(m, n: int) -> np.ndarray:
+    """Return ``exp(2j pi m / n)`` as complex128 for integer(s) ``m`` (any sign) and ``n >= 1``.
+
+    Looks the values up in :func:`_unity_table` (``m`` reduced modulo ``n`` exactly), which
+    the battery reuses across checks and backends of one size.
+    """
+    table = _unity_table(int(n))
+    return table[np.mod(np.asarray(m, dtype=np.int64), n)]
+
+
+@functools.lru_cache(maxsize=16)
+def _unity_table(n: int) -> np.ndarray:
+    """Return the read-only table ``exp(2j pi k / n)``, k = 0 .. n-1 (see :func:`_root_of_unity`)."""
+    table = _root_of_unity(np.arange(n, dtype=np.int64), n)
+    table.flags.writeable = False
+    return table
+
+
+def _root_of_unity(m, n: int) -> np.ndarray:
     """Return ``exp(2j pi m / n)`` as complex128 for integer(s) ``m`` (any sign) and ``n >= 1``.
 
     ``m`` is reduced modulo ``n`` exactly; the angle is then reduced exactly to [0, pi/4]

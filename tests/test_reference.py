@@ -18,6 +18,7 @@ from harness.inputs import case_rng, random_input
 from harness import reference as ref_mod
 from harness.reference import (
     LONGDOUBLE_IS_EXTENDED,
+    METHOD_DOUBLE,
     METHOD_DOUBLE_DOUBLE,
     METHOD_LONGDOUBLE,
     METHOD_MPMATH,
@@ -187,12 +188,27 @@ def test_longdouble_method_margin_against_double_double():
 def test_default_method_follows_the_platform():
     expected = METHOD_LONGDOUBLE if EPS_LD < 1e-18 else METHOD_DOUBLE_DOUBLE
     assert reference_method() == expected
-    assert reference_method("float32") == expected
+    assert reference_method("float32") == METHOD_DOUBLE
     assert reference_method("longdouble") in (METHOD_DOUBLE_DOUBLE, METHOD_MPMATH)
     case = Case("fft", "float64", 8)
     assert reference_transform(_input(case), case).method == expected
     assert reference_transform(_input(case), case, method="double-double").method == METHOD_DOUBLE_DOUBLE
     assert reference_transform(_input(case), case, method="mpmath").method == METHOD_MPMATH
+
+
+def test_float32_reference_in_double_is_1000_times_finer_than_float32():
+    """The float32 cases' reference (scipy.fft in complex128) against mpmath (arbitrary
+    precision), direct DFT at 50 digits: its error must be below eps32 / 1000 (IEEE Std
+    754-2019: eps = 2^-23 for binary32)."""
+    for n in (7, 16, 31):
+        for kind in ("fft", "ifft", "rfft", "irfft"):
+            case = Case(kind, "float32", n)
+            x = _input(case)
+            ref = reference_transform(x, case)
+            assert ref.method == METHOD_DOUBLE
+            exact = reference_transform(x, case, method="mpmath")
+            err = np.linalg.norm(ref.error(exact.values().astype(np.clongdouble))) / np.linalg.norm(exact.hi)
+            assert err < 2.0**-23 / 1000, (kind, n, err)
 
 
 def test_bad_requests_raise_clear_errors():
