@@ -50,6 +50,9 @@ BUILTINS: dict[str, tuple[str, str, str]] = {
     "slowed": ("backends.slowed", "SlowedBackend", "reinstall fftgauge"),
 }
 
+#: Built-ins that compute no transform (the timer's overhead floor, a backend of known cost).
+SYNTHETIC_BACKENDS = ("null", "busywait")
+
 #: SPEC schemes for implementations outside Python: ``scheme:rest`` -> (module, function).
 #: The function takes ``(spec, rest)`` and returns a Backend; it parses ``rest`` itself
 #: (its own syntax is documented in its module) and raises UsageError on bad input.

@@ -15,7 +15,7 @@ import mpmath
 import numpy as np
 import pytest
 
-from backends.registry import BUILTINS, load_backend
+from backends.registry import BUILTINS, SYNTHETIC_BACKENDS, load_backend
 from harness.cases import DTYPES, KINDS, NORMS, Case
 
 MP_DIGITS = 50
@@ -155,7 +155,7 @@ def load_builtin(name: str):
 
 @pytest.mark.parametrize("dtype", DTYPES)
 @pytest.mark.parametrize("kind", KINDS)
-@pytest.mark.parametrize("name", list(BUILTINS))
+@pytest.mark.parametrize("name", [b for b in BUILTINS if b not in SYNTHETIC_BACKENDS])
 def test_builtin_matches_mpmath_direct_dft(name, kind, dtype):
     """Every claimed (norm, N <= 32) agrees with mpmath (arbitrary precision), direct DFT at 50 digits."""
     backend = load_builtin(name)
