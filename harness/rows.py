@@ -56,6 +56,7 @@ class TimeRow:
     for ``gflops`` whatever the algorithm; ``peak_bytes`` the peak extra memory of one
     execution beyond input and output (None when not measured). Beyond the contract:
     ``overhead_seconds`` (the timing loop's own cost per call, already subtracted),
+    ``floor_seconds`` (what a do-nothing Python-level backend reads: the smallest meaningful time),
     ``relative_spread`` (IQR / median of the samples), ``coverage`` (exact confidence of the
     order-statistic interval), ``cold_cache``, ``memory_method``.
     """
@@ -80,6 +81,7 @@ class TimeRow:
     status: str = "ok"
     message: str = ""
     overhead_seconds: float | None = None
+    floor_seconds: float | None = None
     relative_spread: float | None = None
     coverage: float | None = None
     cold_cache: bool = False

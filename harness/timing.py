@@ -21,11 +21,13 @@ How one case is timed (:func:`time_case`, or :class:`Timer` in-process):
    :attr:`TimerSettings.min_samples`) when the per-case budget runs out. Garbage collection
    is disabled while sampling (as :mod:`timeit` does) and restored after; outputs are
    dropped at once, never kept.
-6. Overhead floor: after every sample, the same number of loops runs the null backend's
-   plan (:mod:`backends.null`: ``execute`` returns its input) on the same input. The median
-   of those null samples is the loop's own cost per call (``overhead_seconds``), subtracted
-   from every sample. A result can thus be slightly negative for a plan no dearer than the
-   loop itself (the null backend gives a median near zero).
+6. Overhead and floor: after every sample, the same number of loop iterations runs empty
+   (the loop's own cost per call, ``overhead_seconds``, subtracted from every sample), and
+   the null backend's plan (:mod:`backends.null`: ``execute`` returns its input) runs on
+   the same input: what it reads after the subtraction is the *floor* (``floor_seconds``),
+   the cost of one Python-level call, the smallest time any Python backend can report.
+   The call itself is not subtracted: a user calling the FFT pays it too, and a bare
+   ``timeit`` loop over the same plan includes it (``benchmarks/bench_timing.py``).
 7. The row reports the median per-call time with a distribution-free 95% interval
    (:func:`harness.stats.median_ci`) and the relative IQR (:func:`harness.stats.relative_spread`).
 
@@ -114,7 +116,11 @@ class Measurement:
     seconds, seconds_low, seconds_high : median per-call time and its confidence interval
         (overhead subtracted when the settings say so).
     samples, loops : samples taken and calls per sample.
-    overhead_seconds : the loop's own cost per call (median of the null-plan samples).
+    overhead_seconds : the timing loop's own cost per call (median of empty-loop samples),
+        subtracted when the settings say so.
+    floor_seconds : what a plan that does nothing (the null backend: one Python call that
+        returns its input) reads after that subtraction: the smallest time any Python-level
+        backend can report; compare small-N readings with it.
     relative_spread : IQR over median of the per-call times; ``None`` when the median is
         not positive.
     coverage : exact coverage of the interval (below ``confidence`` for fewer than 6 samples).
@@ -128,6 +134,7 @@ class Measurement:
     samples: int
     loops: int
     overhead_seconds: float
+    floor_seconds: float
     relative_spread: float | None
     coverage: float
     sample_seconds: tuple[float, ...]
@@ -208,6 +215,16 @@ def _time_loops(execute: Callable[[np.ndarray], Any], x: np.ndarray, loops: int)
     return clock() - start
 
 
+def _time_empty_loop(loops: int) -> int:
+    """Return the nanoseconds ``loops`` iterations of :func:`_time_loops`'s loop take with no call."""
+    repeat = itertools.repeat(None, loops)
+    clock = time.perf_counter_ns
+    start = clock()
+    for _ in repeat:
+        pass
+    return clock() - start
+
+
 @lru_cache(maxsize=1)
 def _eviction_buffer(size: int) -> np.ndarray:
     """Return the cold-cache buffer of ``size`` bytes, kept for the next case of the process."""
@@ -271,6 +288,7 @@ class Timer:
         started = time.perf_counter()
         raw_ns: list[int] = []
         null_ns: list[int] = []
+        loop_ns: list[int] = []
         with _gc_paused():
             self._warm_up(execute, x_in)
             loops = 1 if s.cold_cache else self._autorange(execute, x_in)
@@ -279,10 +297,12 @@ class Timer:
                     self._evict()
                 raw_ns.append(_time_loops(execute, x_in, loops))
                 null_ns.append(_time_loops(null_execute, x_in, loops))
+                loop_ns.append(_time_empty_loop(loops))
                 if (s.budget_seconds is not None and len(raw_ns) >= s.min_samples
                         and time.perf_counter() - started >= s.budget_seconds):
                     break
-        overhead = float(np.median(null_ns)) / loops * 1e-9
+        overhead = float(np.median(loop_ns)) / loops * 1e-9
+        floor = float(np.median(null_ns)) / loops * 1e-9 - overhead
         per_call = np.asarray(raw_ns, dtype=float) / loops * 1e-9
         if s.subtract_overhead:
             per_call = per_call - overhead
@@ -290,7 +310,7 @@ class Timer:
         _, _, coverage = order_statistic_ranks(per_call.size, s.confidence)
         spread = relative_spread(per_call) if med > 0 else None
         return Measurement(seconds=med, seconds_low=low, seconds_high=high, samples=int(per_call.size),
-                           loops=loops, overhead_seconds=overhead, relative_spread=spread,
+                           loops=loops, overhead_seconds=overhead, floor_seconds=floor, relative_spread=spread,
                            coverage=coverage, sample_seconds=tuple(float(v) for v in per_call),
                            cold_cache=s.cold_cache)
 
@@ -393,7 +413,7 @@ def time_case(backend: Backend, case_fields: tuple, options: dict) -> dict:
         peak_bytes=None if mem is None else mem.peak_bytes,
         in_place=in_place, norm=case.norm,
         message="" if m.seconds > 0 else "median at or below the timing loop's overhead floor",
-        overhead_seconds=m.overhead_seconds, relative_spread=m.relative_spread,
+        overhead_seconds=m.overhead_seconds, floor_seconds=m.floor_seconds, relative_spread=m.relative_spread,
         coverage=m.coverage, cold_cache=m.cold_cache, memory_method=None if mem is None else mem.method,
     )
     return row.as_dict()

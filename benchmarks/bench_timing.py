@@ -1,0 +1,97 @@
+"""Benchmarks of the timing runner (figures recorded in README.md, "Measured performance").
+
+1. overhead: for pyfftw at N = 1024 and N = 64, the median the timer reports against a
+   bare ``timeit`` loop over the same plan, measured in the same process (target: within
+   5% at 1024, 15% at 64).
+2. reproducibility: five consecutive ``fftgauge time`` runs (numpy, 2^10 .. 2^16); the
+   coefficient of variation of the medians per size (target: <= 3%).
+3. sweep: numpy, scipy and pyfftw over 2^4 .. 2^20, float32 and float64, fft and rfft
+   (target: <= 90 s).
+
+Run: ``.venv/bin/python benchmarks/bench_timing.py [overhead|reproducibility|sweep|all]``
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+import timeit
+
+HERE = os.path.dirname(os.path.abspath(__file__))
+ROOT = os.path.dirname(HERE)
+sys.path.insert(0, ROOT)
+
+
+def overhead() -> None:
+    """Timer median against a bare timeit loop over the same plan, in this process."""
+    from backends.registry import load_backend
+    from harness.cases import Case
+    from harness.inputs import case_rng, random_input
+    from harness.timing import Timer, TimerSettings
+
+    backend = load_backend("pyfftw")
+    print("overhead: pyfftw fft float64, timer median vs bare timeit median (same plan, same process)")
+    for n, target in ((1024, 0.05), (64, 0.15)):
+        case = Case("fft", "float64", n)
+        plan = backend.plan(case)
+        x = plan.prepare(random_input(case, case_rng(1234, case, "time")))
+        ratios = []
+        for _ in range(5):  # alternate the two methods so drift hits both
+            m = Timer(TimerSettings(samples=25, budget_seconds=None)).measure(plan, x)
+            loops = m.loops
+            bare = timeit.repeat("execute(x)", globals={"execute": plan.execute, "x": x}, number=loops, repeat=25)
+            bare_median = statistics.median(bare) / loops
+            ratios.append(m.seconds / bare_median)
+        r = statistics.median(ratios)
+        verdict = "meets" if abs(r - 1) <= target else "MISSES"
+        print(f"  n={n}: timer/timeit = {r:.3f} (median of 5 alternations; {m.seconds * 1e9:.0f} ns vs "
+              f"{bare_median * 1e9:.0f} ns per call; loops {loops}); target within {target:.0%}: {verdict}")
+        plan.close()
+
+
+def _fftgauge(*args: str) -> float:
+    started = time.perf_counter()
+    subprocess.run([sys.executable, "-m", "harness.cli", *args], cwd=ROOT, check=False,
+                   stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    return time.perf_counter() - started
+
+
+def reproducibility(runs: int = 5) -> None:
+    """Five consecutive `fftgauge time` runs of numpy over 2^10 .. 2^16: CV of the medians."""
+    medians: dict[tuple, list[float]] = {}
+    with tempfile.TemporaryDirectory() as tmp:
+        for i in range(runs):
+            path = os.path.join(tmp, f"run{i}.json")
+            _fftgauge("time", "--backend", "numpy", "--kinds", "fft", "--dtypes", "float64",
+                      "--sizes", "2^10..2^16", "--quiet", "--no-memory", "--json", path)
+            for row in json.load(open(path))["rows"]:
+                medians.setdefault((row["kind"], row["n"]), []).append(row["seconds"])
+    print(f"reproducibility: {runs} consecutive `fftgauge time --backend numpy --kinds fft --sizes 2^10..2^16` runs")
+    worst = 0.0
+    for (kind, n), values in sorted(medians.items()):
+        cv = statistics.stdev(values) / statistics.mean(values)
+        worst = max(worst, cv)
+        print(f"  {kind} n={n}: medians {', '.join(f'{v * 1e6:.2f}' for v in values)} us; CV {cv:.2%}")
+    print(f"  worst CV {worst:.2%}; target <= 3%: {'meets' if worst <= 0.03 else 'MISSES'}")
+
+
+def sweep() -> None:
+    """numpy, scipy, pyfftw over 2^4 .. 2^20, both precisions, fft and rfft: wall time."""
+    with tempfile.TemporaryDirectory() as tmp:
+        seconds = _fftgauge("time", "--backend", "numpy", "--backend", "scipy", "--backend", "pyfftw",
+                            "--kinds", "fft,rfft", "--dtypes", "float32,float64", "--sizes", "2^4..2^20",
+                            "--quiet", "--json", os.path.join(tmp, "sweep.json"))
+    print(f"sweep: numpy, scipy, pyfftw x 2^4..2^20 x float32,float64 x fft,rfft (204 cases, memory measured): "
+          f"{seconds:.1f} s; target <= 90 s: {'meets' if seconds <= 90 else 'MISSES'}")
+
+
+if __name__ == "__main__":
+    which = sys.argv[1] if len(sys.argv) > 1 else "all"
+    for name, fn in (("overhead", overhead), ("reproducibility", reproducibility), ("sweep", sweep)):
+        if which in (name, "all"):
+            fn()
