@@ -20,6 +20,7 @@ COMMANDS: list[tuple[str, str, str]] = [
     ("backends", "harness.cmd_backends", "list every backend found, available or not, with its capabilities"),
     ("check", "harness.cmd_check", "run the correctness battery and diagnose what is wrong"),
     ("time", "harness.cmd_time", "time planning and execution, with rates, memory and scaling"),
+    ("gate", "harness.cmd_gate", "regression gate for CI: candidate against a baseline, exit 1 on a regression"),
     ("report", "harness.cmd_report", "turn stored results into plots (PNG/SVG), a scaling analysis and Markdown/HTML tables"),
     ("count", "harness.cmd_count", "operation-count tables: direct DFT and radix-2 models against instrumented counts"),
 ]

@@ -1,0 +1,211 @@
+"""Performance of the gate itself: false-alarm and detection rates on a slowed numpy.fft.
+
+The test backend :mod:`backends.slowed` wraps numpy.fft and adds x% of each call's measured
+duration as a busy-wait. For each configuration the script runs N consecutive gate runs
+(default 20) and counts the runs whose gate fails:
+
+- ``A/B x%``: ``--old slowed[percent=0] --new slowed[percent=x]`` (the same wrapper on both
+  sides, so only the injected cost differs), x in ``--percents`` (default 0, 5, 10);
+- ``stored x%``: a folder of stored runs is first seeded with ``--last`` record-only runs of
+  ``slowed[percent=0]``, then each gate run compares ``slowed[percent=x]`` against the
+  per-case median of the last K stored runs and appends itself (``--save``), as a CI job on
+  the main branch would; x in ``--stored-percents`` (default 0);
+- with ``--competing``, the 0% configurations again with a busy process (a pure-Python
+  spin) on the machine for the whole configuration.
+
+Targets (issue 5): 0% -> no false alarm in 20 runs (both modes); 10% -> detected in at
+least 19 of 20; 5% -> at least 16 of 20 in A/B mode. The script prints a table of rates,
+which targets held, and writes everything (every run's ratios, the load average, the
+machine) to ``results/bench-gate-<UTC time>.json``.
+
+Run: ``.venv/bin/python benchmarks/bench_gate.py`` (the full version takes about an hour on
+a 2-core machine), or shorter: ``--runs 3 --sizes 1024,16384``.
+"""
+
+from __future__ import annotations
+
+import argparse
+import datetime as dt
+import os
+import subprocess
+import sys
+import tempfile
+import time
+from typing import Any
+
+sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
+
+DEFAULT_SIZES = "256,1024,4096,16384,65536"
+TARGETS = {("ab", 0.0): ("false alarms", 0), ("stored", 0.0): ("false alarms", 0),
+           ("ab", 10.0): ("detections", 19), ("ab", 5.0): ("detections", 16)}
+
+
+def gate_request(mode: str, percent: float, args: argparse.Namespace, folder: str | None, seed: int):
+    """Return the GateRequest of one gate run of a configuration."""
+    from harness.cmd_gate import load_stored_runs
+    from harness.gate import GateRequest, GateSettings
+    from harness.sizes import parse_sizes
+
+    settings = GateSettings(budget_seconds=args.budget if mode != "record" else min(args.budget, 10.0), seed=seed,
+                            analysis=args.analysis)
+    sizes = tuple(parse_sizes(args.sizes))
+    candidate = f"slowed[percent={percent:g}]"
+    if mode == "ab":
+        return GateRequest(mode="ab", old_spec="slowed[percent=0]", new_spec=candidate, kinds=(args.kind,),
+                           dtypes=("float64",), sizes=sizes, seed=seed, settings=settings)
+    if mode == "record":
+        return GateRequest(mode="record", specs=("slowed[percent=0]",), kinds=(args.kind,), dtypes=("float64",),
+                           sizes=sizes, seed=seed, settings=settings)
+    runs, warnings, notes = load_stored_runs(folder, args.last, False)
+    return GateRequest(mode="stored", specs=(candidate,), kinds=(args.kind,), dtypes=("float64",), sizes=sizes,
+                       seed=seed, settings=settings, stored_runs=runs, baseline_path=folder, baseline_label="slowed",
+                       warnings=tuple(warnings), notes=tuple(notes))
+
+
+def one_run(req: Any, save_to: str | None) -> dict[str, Any]:
+    """Run one gate; return what the benchmark keeps of it."""
+    from harness.cmd_gate import save_run
+    from harness.gate import run_gate
+
+    started = time.monotonic()
+    doc = run_gate(req)
+    if save_to and doc.get("complete"):
+        save_run(doc, save_to)
+    return {"outcome": doc["outcome"], "regressed": doc["regressed"],
+            "slower": sum(r.get("verdict") == "slower" for r in doc["rows"]),
+            "errors": sum(r.get("status") == "error" for r in doc["rows"]),
+            "wall_seconds": time.monotonic() - started, "sampling_seconds": doc.get("sampling_seconds"),
+            "yardstick_ratio": (doc.get("yardstick") or {}).get("ratio"),
+            "cases": [{"n": r["n"], "ratio": r.get("ratio"), "ratio_low": r.get("ratio_low"),
+                       "ratio_high": r.get("ratio_high"), "p_holm": r.get("p_holm"), "verdict": r.get("verdict"),
+                       "samples": r.get("samples"), "conclusive": r.get("conclusive")} for r in doc["rows"]]}
+
+
+def start_competitor() -> subprocess.Popen:
+    """Start a busy pure-Python process (the competing load); return it."""
+    return subprocess.Popen([sys.executable, "-c", "while True: pass"])
+
+
+def stop_competitor(proc: subprocess.Popen) -> None:
+    """Stop the competing process started by :func:`start_competitor`."""
+    proc.terminate()
+    try:
+        proc.wait(5)
+    except subprocess.TimeoutExpired:
+        proc.kill()
+        proc.wait()
+
+
+def run_configuration(mode: str, percent: float, args: argparse.Namespace, competing: bool) -> dict[str, Any]:
+    """Run ``args.runs`` gate runs of one configuration; return its record."""
+    label = f"{'A/B' if mode == 'ab' else 'stored'} {percent:g}%" + (" + busy process" if competing else "")
+    folder = None
+    runs = []
+    proc = start_competitor() if competing else None
+    load_before = os.getloadavg()
+    started = time.monotonic()
+    try:
+        if mode == "stored":
+            folder = tempfile.mkdtemp(prefix="fftgauge-bench-gate-")
+            for k in range(args.last):
+                one_run(gate_request("record", 0.0, args, None, args.seed + 1000 + k), folder)
+        for i in range(args.runs):
+            req = gate_request(mode, percent, args, folder, args.seed + i)
+            result = one_run(req, folder if mode == "stored" else None)
+            runs.append(result)
+            if not args.quiet:
+                ratios = " ".join(f"{c['ratio']:.3f}" if c["ratio"] is not None else "-" for c in result["cases"])
+                print(f"  {label:<26} run {i + 1:>2}/{args.runs}: {result['outcome']:<10} ratios {ratios} "
+                      f"({result['wall_seconds']:.0f} s)", flush=True)
+    finally:
+        if proc is not None:
+            stop_competitor(proc)
+    failing = sum(r["regressed"] for r in runs)
+    return {"label": label, "mode": mode, "percent": percent, "competing": competing, "runs": runs,
+            "failing_runs": failing, "detections": sum(r["slower"] > 0 for r in runs),
+            "false_alarms": sum(r["slower"] > 0 for r in runs) if percent == 0 else None,
+            "error_runs": sum(r["errors"] > 0 for r in runs), "seconds": time.monotonic() - started,
+            "load_before": load_before, "load_after": os.getloadavg()}
+
+
+def _median_ratio(config: dict[str, Any]) -> float | None:
+    import numpy as np
+
+    values = [c["ratio"] for r in config["runs"] for c in r["cases"] if c["ratio"] is not None]
+    return float(np.median(values)) if values else None
+
+
+def report(configs: list[dict[str, Any]], runs: int) -> tuple[str, list[str]]:
+    """Return the table of rates and the target lines."""
+    lines = [f"{'configuration':<28} {'runs failing the gate':>22} {'median ratio':>13} {'max wall s':>11}"]
+    for c in configs:
+        med = _median_ratio(c)
+        wall = max((r["wall_seconds"] for r in c["runs"]), default=0.0)
+        lines.append(f"{c['label']:<28} {c['detections']:>10d} / {len(c['runs']):<9d} "
+                     f"{med if med is not None else float('nan'):>13.4f} {wall:>11.1f}")
+    targets = []
+    for c in configs:
+        key = (c["mode"], c["percent"])
+        if key not in TARGETS or c["competing"]:
+            continue
+        what, need = TARGETS[key]
+        n = len(c["runs"])
+        if what == "false alarms":
+            held = c["detections"] == 0
+            targets.append(f"{c['label']}: {c['detections']} false alarm(s) in {n} runs (target 0 in 20): "
+                           f"{'held' if held else 'MISSED'}")
+        else:
+            scaled = need * n / 20
+            held = c["detections"] >= scaled
+            targets.append(f"{c['label']}: detected in {c['detections']} of {n} runs (target {need} of 20"
+                           + (f", i.e. {scaled:.1f} of {n}" if n != 20 else "") + f"): {'held' if held else 'MISSED'}")
+    return "\n".join(lines), targets
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Run the benchmark; return 0."""
+    from harness.results import dumps, machine_fingerprint, write_text_atomic
+
+    parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    parser.add_argument("--runs", type=int, default=20, help="gate runs per configuration (default 20)")
+    parser.add_argument("--sizes", default=DEFAULT_SIZES, help=f"sizes of every gate run (default {DEFAULT_SIZES})")
+    parser.add_argument("--kind", default="fft", help="transform kind (default fft)")
+    parser.add_argument("--budget", type=float, default=30.0, help="gate --budget in seconds (default 30)")
+    parser.add_argument("--percents", default="0,5,10", help="A/B injected slowdowns in %% (default 0,5,10)")
+    parser.add_argument("--stored-percents", default="0", help="stored-mode injected slowdowns in %% (default 0; "
+                                                               "empty for none)")
+    parser.add_argument("--last", type=int, default=5, help="stored runs in the baseline (default 5)")
+    parser.add_argument("--competing", action="store_true", help="also run the 0%% configurations with a busy process")
+    parser.add_argument("--analysis", choices=("paired", "pooled"), default="paired",
+                        help="A/B estimate (default paired; pooled: bootstrap ratio of medians and Mann-Whitney)")
+    parser.add_argument("--seed", type=int, default=1234)
+    parser.add_argument("--out", default=None, help="JSON output (default results/bench-gate-<UTC time>.json)")
+    parser.add_argument("--quiet", action="store_true", help="print only the table")
+    args = parser.parse_args(argv)
+    plan = [("ab", float(p), False) for p in args.percents.split(",") if p.strip()]
+    plan += [("stored", float(p), False) for p in args.stored_percents.split(",") if p.strip()]
+    if args.competing:
+        plan += [(mode, 0.0, True) for mode in ("ab", "stored")]
+    configs = []
+    for mode, percent, competing in plan:
+        if not args.quiet:
+            print(f"{mode} {percent:g}%{' + busy process' if competing else ''}:", flush=True)
+        configs.append(run_configuration(mode, percent, args, competing))
+    table, targets = report(configs, args.runs)
+    command = "python benchmarks/bench_gate.py " + " ".join(argv if argv is not None else sys.argv[1:])
+    print()
+    print(table)
+    print()
+    print("\n".join(targets))
+    out = args.out or os.path.join("results", "bench-gate-" + dt.datetime.now(dt.timezone.utc).strftime(
+        "%Y%m%d-%H%M%S") + ".json")
+    write_text_atomic(out, dumps({"schema": "fftgauge-bench-gate/1", "command": command.strip(),
+                                  "created": dt.datetime.now(dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
+                                  "machine": machine_fingerprint(), "settings": vars(args), "configurations": configs,
+                                  "targets": targets, "table": table}))
+    print(f"\nwritten to {out}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
