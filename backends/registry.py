@@ -100,7 +100,14 @@ def _one_line(text: str) -> str:
     return " ".join(str(text).split())
 
 
-def _parse_options(spec: str, text: str | None) -> dict[str, str]:
+def parse_options(spec: str, text: str | None) -> dict[str, str]:
+    """Return the ``key=value,...`` text of a SPEC's options as a dict of raw strings.
+
+    Raises
+    ------
+    UsageError
+        When an option is not written ``key=value`` or a key is given twice.
+    """
     if text is None:
         return {}
     out: dict[str, str] = {}
@@ -145,7 +152,7 @@ def parse_spec(spec: str) -> ParsedSpec:
     m = _SPEC.match(spec)
     if not m:
         raise UsageError(f"backend {spec!r} is malformed; options go in one trailing [key=value,...]")
-    body, opts = m.group("body").strip(), _parse_options(spec, m.group("opts"))
+    body, opts = m.group("body").strip(), parse_options(spec, m.group("opts"))
     if ":" in body:
         target, _, attr = body.rpartition(":")
         if not target or not attr:

@@ -45,6 +45,7 @@ import numpy as np
 
 from backends.base import Backend, Capabilities, OptionSpec, Plan
 from harness.cases import DTYPES, KINDS, NORMS, Case
+from backends.registry import parse_options
 from harness.errors import BackendFailure, UsageError
 
 SCHEME = "clib"
@@ -85,18 +86,7 @@ def split_options(spec: str, rest: str) -> tuple[str, dict[str, str]]:
     body = body.strip()
     if not body:
         raise UsageError(f"backend {spec!r}: nothing before the options; see docs/external-backends.md")
-    options: dict[str, str] = {}
-    for raw in (text or "").split(","):
-        item = raw.strip()
-        if not item:
-            continue
-        key, sep, value = item.partition("=")
-        key, value = key.strip(), value.strip()
-        if not sep or not key or not value:
-            raise UsageError(f"backend {spec!r}: option {item!r} must be written key=value")
-        if key in options:
-            raise UsageError(f"backend {spec!r}: option {key!r} is given twice")
-        options[key] = value
+    options = parse_options(spec, text)
     return body, options
 
 
