@@ -58,7 +58,9 @@ class TimeRow:
     ``overhead_seconds`` (the timing loop's own cost per call, already subtracted),
     ``floor_seconds`` (what a do-nothing Python-level backend reads: the smallest meaningful time),
     ``relative_spread`` (IQR / median of the samples), ``coverage`` (exact confidence of the
-    order-statistic interval), ``cold_cache``, ``memory_method``.
+    order-statistic interval), ``cold_cache``, ``memory_method``, ``timing_source``
+    (``harness``: wall clock around the calls; ``program``: the durations an external
+    implementation reported itself).
     """
 
     backend: str
@@ -86,6 +88,7 @@ class TimeRow:
     coverage: float | None = None
     cold_cache: bool = False
     memory_method: str | None = None
+    timing_source: str = "harness"
 
     def as_dict(self) -> dict[str, Any]:
         """Return the row as a JSON-able dict."""

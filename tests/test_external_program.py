@@ -467,3 +467,17 @@ def test_program_is_never_run_through_a_shell(tmp_path: Path, no_leftovers) -> N
         assert not marker.exists()
     finally:
         backend.close()
+
+
+def test_the_timer_uses_the_programs_own_time_when_it_reports_one():
+    """A program that reports its own elapsed time is timed by that time, and the row says so."""
+    from harness.timing import time_case
+
+    backend = load_backend(server_spec("ok"))
+    try:
+        row = time_case(backend, ("fft", "float64", 256, "backward"),
+                        {"samples": 7, "budget_seconds": 2.0, "measure_memory": False})
+    finally:
+        backend.close()
+    assert row["timing_source"] == "program" and "program itself" in row["message"]
+    assert row["loops"] == 1 and 0 < row["seconds"] < 0.01
