@@ -282,7 +282,17 @@ def test_close_stops_the_child_and_is_idempotent():
 
 def test_keyboard_interrupt_in_parent_stops_the_child():
     """Ctrl-C (SIGINT to this process) while a job hangs: the interrupt propagates and the
-    child is stopped, not left running."""
+    child is stopped, not left running. Python's own SIGINT handler is installed for the
+    test: a process started in the background by a non-interactive shell inherits SIGINT
+    ignored, and Python then never raises KeyboardInterrupt."""
+    previous = signal.signal(signal.SIGINT, signal.default_int_handler)
+    try:
+        _interrupt_a_hanging_job()
+    finally:
+        signal.signal(signal.SIGINT, previous)
+
+
+def _interrupt_a_hanging_job():
     with Worker(spec("hang_fft")) as worker:
         worker.call(DESCRIBE, timeout_seconds=TIMEOUT_SECONDS)
         pid = worker.pid
