@@ -13,7 +13,6 @@ Outside checks, with their sources:
 
 from __future__ import annotations
 
-import functools
 import math
 
 import mpmath
@@ -24,64 +23,10 @@ import backends.direct as direct_module
 from backends.direct import MAX_N, DirectBackend
 from backends.registry import load_backend
 from harness.cases import DTYPES, KINDS, NORMS, Case
+from mpmath_dft import relative_error_vs_mpmath, signal
 
 BACKEND = DirectBackend()
 EPS = {"float32": float(np.finfo(np.float32).eps), "float64": float(np.finfo(np.float64).eps)}
-
-
-def signal(case: Case) -> np.ndarray:
-    """Return a seeded random input of the case's dtype and input length."""
-    rng = np.random.default_rng([KINDS.index(case.kind), case.n, DTYPES.index(case.dtype), 7])
-    re = rng.standard_normal(case.input_length)
-    if case.kind == "rfft":
-        return re.astype(case.input_dtype)
-    return (re + 1j * rng.standard_normal(case.input_length)).astype(case.input_dtype)
-
-
-@functools.lru_cache(maxsize=None)
-def _mp_unscaled(kind: str, dtype: str, n: int) -> tuple:
-    """Return (input, 50-digit unscaled transform) of the seeded input of (kind, dtype, n).
-
-    The defining sum X[k] = sum_m x[m] exp(-+2j pi k m / n) of the exact (rounded) input,
-    with the numpy/array API conventions for the real kinds written out here.
-    """
-    x = signal(Case(kind, dtype, n))
-    with mpmath.workdps(50):
-        values = [mpmath.mpc(complex(v)) for v in x]
-        if kind == "irfft":  # Hermitian extension; Im X[0] and, for even n, Im X[n/2] ignored
-            half = [mpmath.mpc(v.real, 0) if (j == 0 or 2 * j == n) else v for j, v in enumerate(values)]
-            values = [half[k] if k <= n // 2 else mpmath.conj(half[n - k]) for k in range(n)]
-        sign = 1 if kind in ("ifft", "irfft") else -1
-        rows = n // 2 + 1 if kind == "rfft" else n
-        out = [mpmath.fsum(values[m] * mpmath.exp(sign * 2j * mpmath.pi * mpmath.mpf(k * m) / n)
-                           for m in range(n)) for k in range(rows)]
-        if kind == "irfft":
-            out = [mpmath.mpc(v.real, 0) for v in out]
-    return x, tuple(out)
-
-
-def mp_scale(kind: str, n: int, norm: str):
-    """Return the array API standard's normalisation factor at 50 digits."""
-    inverse = kind in ("ifft", "irfft")
-    with mpmath.workdps(50):
-        if norm == "ortho":
-            return 1 / mpmath.sqrt(n)
-        if (norm == "backward") == inverse:
-            return mpmath.mpf(1) / n
-        return mpmath.mpf(1)
-
-
-def relative_error_vs_mpmath(case: Case) -> float:
-    """Return norm2(y - reference) / norm2(reference) at 50 digits."""
-    x, unscaled = _mp_unscaled(case.kind, case.dtype, case.n)
-    plan = BACKEND.plan(case)
-    y = plan.execute(plan.prepare(x.copy()))
-    assert y.dtype == case.output_dtype and y.shape == (case.output_length,)
-    with mpmath.workdps(50):
-        scale = mp_scale(case.kind, case.n, case.norm)
-        diff = mpmath.sqrt(mpmath.fsum(abs(mpmath.mpc(complex(a)) - scale * b) ** 2 for a, b in zip(y, unscaled)))
-        size = mpmath.sqrt(mpmath.fsum(abs(scale * b) ** 2 for b in unscaled))
-        return float(diff / size)
 
 
 def direct_tolerance(dtype: str, n: int) -> float:
@@ -107,7 +52,7 @@ def test_agrees_with_mpmath_direct_dft(kind, norm, dtype):
     failures = []
     for n in range(1, 33):
         case = Case(kind, dtype, n, norm)
-        err = relative_error_vs_mpmath(case)
+        err = relative_error_vs_mpmath(BACKEND, case)
         if not err <= direct_tolerance(dtype, n):
             failures.append(f"n={n}: {err:.3g} > {direct_tolerance(dtype, n):.3g}")
     assert not failures, f"direct {kind} {dtype} {norm}: " + "; ".join(failures)
