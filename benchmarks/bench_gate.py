@@ -42,24 +42,26 @@ TARGETS = {("ab", 0.0): ("false alarms", 0), ("stored", 0.0): ("false alarms", 0
 
 def gate_request(mode: str, percent: float, args: argparse.Namespace, folder: str | None, seed: int):
     """Return the GateRequest of one gate run of a configuration."""
+    from harness.affinity import choose_cpus, parse_pin
     from harness.cmd_gate import load_stored_runs
     from harness.gate import GateRequest, GateSettings
     from harness.sizes import parse_sizes
 
     settings = GateSettings(budget_seconds=args.budget if mode != "record" else min(args.budget, 10.0), seed=seed,
-                            analysis=args.analysis)
+                            analysis=args.analysis, processes=args.processes)
+    cpus = choose_cpus(parse_pin(args.pin_cpu), 1)
     sizes = tuple(parse_sizes(args.sizes))
     candidate = f"slowed[percent={percent:g}]"
     if mode == "ab":
         return GateRequest(mode="ab", old_spec="slowed[percent=0]", new_spec=candidate, kinds=(args.kind,),
-                           dtypes=("float64",), sizes=sizes, seed=seed, settings=settings)
+                           dtypes=("float64",), sizes=sizes, seed=seed, settings=settings, cpus=cpus)
     if mode == "record":
         return GateRequest(mode="record", specs=("slowed[percent=0]",), kinds=(args.kind,), dtypes=("float64",),
-                           sizes=sizes, seed=seed, settings=settings)
+                           sizes=sizes, seed=seed, settings=settings, cpus=cpus)
     runs, warnings, notes = load_stored_runs(folder, args.last, False)
     return GateRequest(mode="stored", specs=(candidate,), kinds=(args.kind,), dtypes=("float64",), sizes=sizes,
                        seed=seed, settings=settings, stored_runs=runs, baseline_path=folder, baseline_label="slowed",
-                       warnings=tuple(warnings), notes=tuple(notes))
+                       warnings=tuple(warnings), notes=tuple(notes), cpus=cpus)
 
 
 def one_run(req: Any, save_to: str | None) -> dict[str, Any]:
@@ -178,6 +180,8 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--competing", action="store_true", help="also run the 0%% configurations with a busy process")
     parser.add_argument("--analysis", choices=("paired", "pooled"), default="paired",
                         help="A/B estimate (default paired; pooled: bootstrap ratio of medians and Mann-Whitney)")
+    parser.add_argument("--processes", type=int, default=3, help="worker processes per side (default 3)")
+    parser.add_argument("--pin-cpu", default="auto", help="as fftgauge gate --pin-cpu (default auto)")
     parser.add_argument("--seed", type=int, default=1234)
     parser.add_argument("--out", default=None, help="JSON output (default results/bench-gate-<UTC time>.json)")
     parser.add_argument("--quiet", action="store_true", help="print only the table")

@@ -38,7 +38,7 @@ class _Parser(argparse.ArgumentParser):
 def add_common_options(parser: argparse.ArgumentParser, *names: str) -> None:
     """Add the contract's common options named in ``names`` to ``parser``.
 
-    Known names: backend, kinds, dtypes, sizes, seed, json, csv, quiet, threads.
+    Known names: backend, kinds, dtypes, sizes, seed, json, csv, quiet, threads, pin.
     """
     table = {
         "backend": (("--backend",), dict(action="append", metavar="SPEC",
@@ -52,6 +52,9 @@ def add_common_options(parser: argparse.ArgumentParser, *names: str) -> None:
         "csv": (("--csv",), dict(metavar="PATH", help="write the result table as CSV here")),
         "quiet": (("--quiet",), dict(action="store_true", help="no progress bar, only the summary")),
         "threads": (("--threads",), dict(type=int, metavar="N", help="threads for backends that take a thread option")),
+        "pin": (("--pin-cpu",), dict(metavar="auto|off|CPUS",
+                help="run every timed process on these CPUs (comma list); auto (default): the last CPU of the "
+                     "allowed set (the last N with --threads N); off: let the OS place them")),
     }
     for name in names:
         flags, kwargs = table[name]

@@ -54,7 +54,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     mode.add_argument("--last", type=int, default=DEFAULT_LAST_RUNS, metavar="K",
                       help=f"with --baseline DIR: the baseline is the per-case median of the last K runs "
                            f"measured on this machine (default {DEFAULT_LAST_RUNS})")
-    add_common_options(parser, "backend", "kinds", "dtypes", "sizes", "seed", "json", "csv", "quiet", "threads")
+    add_common_options(parser, "backend", "kinds", "dtypes", "sizes", "seed", "json", "csv", "quiet", "threads",
+                       "pin")
     decide = parser.add_argument_group("how to decide")
     decide.add_argument("--threshold", default=DEFAULT_THRESHOLD, metavar="PERCENT",
                         help="smallest slowdown that fails the gate, as 5%% or 0.05 (default " + DEFAULT_THRESHOLD.replace("%", "%%") + ")")
@@ -179,13 +180,16 @@ def request_from_args(args: argparse.Namespace) -> GateRequest:
     else:
         sizes = sizes or tuple(parse_sizes(DEFAULT_SIZES))
         dtypes = dtypes or ("float64",)
+    from harness.affinity import choose_cpus, parse_pin
+
+    cpus = choose_cpus(parse_pin(args.pin_cpu), threads or 1)
     settings = GateSettings(threshold=threshold, alpha=args.alpha, budget_seconds=args.budget, seed=args.seed)
     return GateRequest(mode=mode, old_spec=args.old, new_spec=args.new, specs=specs, kinds=kinds, dtypes=dtypes,
                        sizes=sizes, seed=args.seed, threads=threads or 1, settings=settings,
                        accuracy=args.accuracy, accuracy_growth=args.accuracy_growth, timeout_seconds=args.timeout,
                        stored_runs=runs, baseline_path=args.baseline, baseline_label=args.baseline_backend,
                        warnings=tuple(warnings), notes=tuple(notes),
-                       commit=args.commit)
+                       commit=args.commit, cpus=cpus)
 
 
 # -- stored runs -------------------------------------------------------------------------------

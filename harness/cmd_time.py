@@ -18,7 +18,8 @@ DEFAULT_PURE_PYTHON_MAX_N = 1024
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     """Add this sub-command's options to ``parser``."""
-    add_common_options(parser, "backend", "kinds", "dtypes", "sizes", "seed", "json", "csv", "quiet", "threads")
+    add_common_options(parser, "backend", "kinds", "dtypes", "sizes", "seed", "json", "csv", "quiet", "threads",
+                       "pin")
     parser.add_argument("--norms", metavar="LIST", help="comma list of backward, ortho, forward (default backward)")
     parser.add_argument("--samples", type=int, default=25, metavar="N",
                         help="samples per case (default 25; fewer when the per-case budget runs out)")
@@ -45,6 +46,7 @@ def request_from_args(args: argparse.Namespace) -> TimingRequest:
         For any malformed option value (the message names it).
     """
     from backends.registry import default_specs
+    from harness.affinity import choose_cpus, parse_pin
 
     for name in ("samples", "budget", "timeout"):
         if getattr(args, name) <= 0:
@@ -64,7 +66,7 @@ def request_from_args(args: argparse.Namespace) -> TimingRequest:
         norms=parse_choice_list(args.norms, NORMS, "norm") or ("backward",),
         seed=args.seed, threads=args.threads or 1, samples=args.samples, budget_seconds=args.budget,
         cold_cache=args.cold_cache, measure_memory=not args.no_memory, timeout_seconds=args.timeout,
-        max_n_pure_python=limit or None,
+        max_n_pure_python=limit or None, cpus=choose_cpus(parse_pin(args.pin_cpu), args.threads or 1),
     )
 
 

@@ -110,6 +110,8 @@ class GateSettings:
     quick_resamples : bootstrap resamples while deciding whether to sample more.
     seed : seeds the block order and the bootstrap.
     analysis : A/B estimate, ``paired`` (:func:`estimate_paired`) or ``pooled`` (:func:`estimate_ab`).
+    processes : worker processes per side; blocks are drawn from them in turn
+        (:class:`harness.gate_sampling.WorkerSampler` says why).
     """
 
     threshold: float = 0.05
@@ -123,6 +125,7 @@ class GateSettings:
     quick_resamples: int = 400
     seed: int = 1234
     analysis: str = "paired"
+    processes: int = 3
 
 
 @dataclass(frozen=True)
@@ -216,6 +219,7 @@ class GateRequest:
     warnings: tuple[str, ...] = ()
     notes: tuple[str, ...] = ()
     commit: str | None = None
+    cpus: tuple[int, ...] | None = None
 
 
 @dataclass
@@ -809,13 +813,14 @@ def new_doc(req: GateRequest) -> dict[str, Any]:
     extra = {
         "mode": req.mode, "regressed": False, "outcome": "incomplete", "complete": False,
         "threshold": s.threshold, "alpha": s.alpha, "confidence": s.confidence, "budget_seconds": s.budget_seconds,
-        "threads": req.threads,
+        "threads": req.threads, "pinned_cpus": list(req.cpus) if req.cpus else None,
         "request": {"old": req.old_spec, "new": req.new_spec, "backends": list(req.specs),
                     "kinds": list(req.kinds) if req.kinds else None,
                     "dtypes": list(req.dtypes) if req.dtypes else None,
                     "sizes": list(req.sizes) if req.sizes else None, "norms": list(req.norms),
                     "accuracy": req.accuracy, "accuracy_growth": req.accuracy_growth,
                     "samples_per_block": s.samples_per_block, "initial_pairs": s.initial_pairs,
+                    "processes": s.processes,
                     "max_samples": s.max_samples},
         "baseline": None if req.mode != "stored" else {
             "path": req.baseline_path, "backend": req.baseline_label, "runs": [run.path for run in req.stored_runs],
@@ -873,7 +878,8 @@ def _worker_sampler(req: GateRequest) -> Any:
     from harness.gate_sampling import WorkerSampler
 
     sides = {"old": req.old_spec, "new": req.new_spec} if req.mode == "ab" else {s: s for s in req.specs}
-    return WorkerSampler(sides, req.threads, req.seed, req.settings.samples_per_block, req.timeout_seconds)
+    return WorkerSampler(sides, req.threads, req.seed, req.settings.samples_per_block, req.timeout_seconds,
+                         processes=req.settings.processes)
 
 
 def _prepare(items: Sequence[GateItem], sampler: Any) -> None:
@@ -915,6 +921,7 @@ def run_gate(req: GateRequest, doc: dict[str, Any] | None = None, quiet: bool = 
     UsageError
         When a SPEC cannot be loaded or a backend is not in the baseline.
     """
+    from harness.affinity import pinned
     from harness.dispatch import Progress
 
     doc = new_doc(req) if doc is None else doc
@@ -923,20 +930,22 @@ def run_gate(req: GateRequest, doc: dict[str, Any] | None = None, quiet: bool = 
     sampler = None
     started = time.monotonic()
     try:
-        sampler = (sampler_factory or _worker_sampler)(req)
-        with sampler:
-            items.extend(build_items(req, sampler, doc))
-            _prepare(items, sampler)
-            progress = Progress(total=sum(it.status == "ok" for it in items), quiet=quiet, desc="gate")
-            try:
-                doc["sampling_seconds"] = collect(
-                    items, sampler, req.settings, yardstick,
-                    on_done=lambda it: (progress.advance(note=it.case.label()), sampler.release(it)))
-            finally:
-                progress.close()
-            finalise(items, req.settings, _yardstick_summary(yardstick, req.settings.confidence))
-            if req.accuracy:
-                _check_accuracy(items, sampler, req)
+        with pinned(req.cpus) as cpus:
+            doc["pinned_cpus"] = list(cpus) if cpus else None
+            sampler = (sampler_factory or _worker_sampler)(req)
+            with sampler:
+                items.extend(build_items(req, sampler, doc))
+                _prepare(items, sampler)
+                progress = Progress(total=sum(it.status == "ok" for it in items), quiet=quiet, desc="gate")
+                try:
+                    doc["sampling_seconds"] = collect(
+                        items, sampler, req.settings, yardstick,
+                        on_done=lambda it: (progress.advance(note=it.case.label()), sampler.release(it)))
+                finally:
+                    progress.close()
+                finalise(items, req.settings, _yardstick_summary(yardstick, req.settings.confidence))
+                if req.accuracy:
+                    _check_accuracy(items, sampler, req)
         doc["complete"] = True
     finally:
         if not doc["complete"]:

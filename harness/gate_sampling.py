@@ -176,24 +176,35 @@ class Draw:
 
 
 class WorkerSampler:
-    """Runs the gate's blocks in worker processes: one per backend SPEC, one for the yardstick.
+    """Runs the gate's blocks in worker processes: ``processes`` per backend SPEC, one for the yardstick.
+
+    Why several processes per side: two processes running the same code on the same CPU can
+    differ by a few percent for their whole life (where the loader and the allocator placed
+    code and data decides which cache sets and branch-predictor entries collide; see
+    :mod:`harness.affinity` for the larger effect of CPU placement, which pinning removes).
+    A comparison of one old process with one new process would report that difference as a
+    change. Each block pair therefore takes its old and its new block from processes drawn
+    in turn from each side's set (every process of a side used equally often, the pairing
+    shuffled), so the per-pair ratios vary over process placements and their median and
+    interval describe the implementations, not one lucky or unlucky pair of processes.
 
     Parameters
     ----------
     sides : worker key -> backend SPEC (``{"old": ..., "new": ...}`` in A/B mode, where the two
         SPECs may be the same, or one key per SPEC for the stored-mode candidates).
     threads : thread option and BLAS/OpenMP cap of every backend.
-    seed : seeds the inputs and the random order of the blocks.
+    seed : seeds the inputs, the random order of the blocks and the choice of processes.
     samples_per_block : samples in one block (``count`` of :func:`sample_block`).
     timeout_seconds : how long one job (a block, a preparation, a battery case) may run.
     yardstick : also run the yardstick (default True).
+    processes : worker processes per side (at least 1).
 
     Items passed to :meth:`prepare`, :meth:`sample` and :meth:`release` need ``case``,
     ``new_key`` and ``old_key`` (None in stored mode) attributes naming their workers.
     """
 
     def __init__(self, sides: dict[str, str], threads: int | None, seed: int, samples_per_block: int,
-                 timeout_seconds: float, yardstick: bool = True):
+                 timeout_seconds: float, yardstick: bool = True, processes: int = 1):
         from harness.worker import Worker
 
         self.threads = threads
@@ -201,12 +212,14 @@ class WorkerSampler:
         self.samples_per_block = samples_per_block
         self.timeout_seconds = timeout_seconds
         self.specs = dict(sides)
-        self.workers = {key: Worker(spec, threads=threads) for key, spec in sides.items()}
+        self.workers = {key: [Worker(spec, threads=threads) for _ in range(max(1, processes))]
+                        for key, spec in sides.items()}
         self.yardstick_worker = Worker("null") if yardstick else None
         #: Why the yardstick stopped (its worker failed), or None.
         self.yardstick_failure: str | None = None
         self._rng = random.Random(seed)
-        self._loops: dict[tuple[str, Case], int] = {}
+        self._loops: dict[Case, int] = {}
+        self._turns: dict[str, list[int]] = {key: [] for key in sides}
 
     def __enter__(self) -> "WorkerSampler":
         return self
@@ -216,8 +229,9 @@ class WorkerSampler:
 
     def close(self) -> None:
         """Stop every worker."""
-        for worker in self.workers.values():
-            worker.close()
+        for replicas in self.workers.values():
+            for worker in replicas:
+                worker.close()
         if self.yardstick_worker is not None:
             self.yardstick_worker.close()
 
@@ -232,14 +246,18 @@ class WorkerSampler:
         """
         from harness.dispatch import describe_cases
 
-        return describe_cases(self.workers[key], self.specs[key], cases, None, self.timeout_seconds)
+        return describe_cases(self.workers[key][0], self.specs[key], cases, None, self.timeout_seconds)
 
     @staticmethod
     def _fields(case: Case) -> tuple:
         return (case.kind, case.dtype, case.n, case.norm)
 
     def prepare(self, item: Any) -> dict[str, dict[str, Any]]:
-        """Prepare the item's case on each of its sides; return :func:`prepare_case`'s dict per worker key.
+        """Prepare the item's case in every process of each of its sides; return the first
+        process's :func:`prepare_case` dict per worker key.
+
+        Every process of every side then runs the loops per sample the first preparation
+        chose, so the two sides' samples are of the same length.
 
         Raises
         ------
@@ -250,23 +268,31 @@ class WorkerSampler:
         """
         out = {}
         for key in self._sides(item):
-            try:
-                info = self.workers[key].call("harness.gate_sampling:prepare_case", self._fields(item.case),
-                                              self.seed, self.threads, timeout_seconds=self.timeout_seconds)
-            except BackendFailure as exc:
-                raise BackendFailure(f"{self.specs[key]}: {exc}") from None
-            self._loops[(key, item.case)] = info["loops"]
-            out[key] = info
+            for worker in self.workers[key]:
+                try:
+                    info = worker.call("harness.gate_sampling:prepare_case", self._fields(item.case),
+                                       self.seed, self.threads, timeout_seconds=self.timeout_seconds)
+                except BackendFailure as exc:
+                    raise BackendFailure(f"{self.specs[key]}: {exc}") from None
+                self._loops.setdefault(item.case, info["loops"])
+                out.setdefault(key, info)
         return out
 
     def _sides(self, item: Any) -> list[str]:
         return [item.new_key] + ([item.old_key] if item.old_key else [])
 
+    def _next_worker(self, key: str) -> Any:
+        """Return the next process of side ``key``: each once per turn, in a shuffled order."""
+        if not self._turns[key]:
+            self._turns[key] = list(range(len(self.workers[key])))
+            self._rng.shuffle(self._turns[key])
+        return self.workers[key][self._turns[key].pop()]
+
     def _block(self, key: str, case: Case) -> list[float]:
         try:
-            return self.workers[key].call("harness.gate_sampling:sample_block", self._fields(case),
-                                          self._loops.get((key, case)), self.samples_per_block, self.seed,
-                                          self.threads, timeout_seconds=self.timeout_seconds)
+            return self._next_worker(key).call("harness.gate_sampling:sample_block", self._fields(case),
+                                               self._loops.get(case), self.samples_per_block, self.seed,
+                                               self.threads, timeout_seconds=self.timeout_seconds)
         except (BackendFailure, UnsupportedCase) as exc:
             raise BackendFailure(f"{self.specs[key]}: {exc}") from None
 
@@ -315,11 +341,12 @@ class WorkerSampler:
     def release(self, item: Any) -> None:
         """Close the item's cached plans in its workers (failures are ignored: the run goes on)."""
         for key in self._sides(item):
-            try:
-                self.workers[key].call("harness.gate_sampling:release_case", self._fields(item.case), self.seed,
-                                       timeout_seconds=self.timeout_seconds)
-            except (BackendFailure, UnsupportedCase, UsageError):
-                pass
+            for worker in self.workers[key]:
+                try:
+                    worker.call("harness.gate_sampling:release_case", self._fields(item.case), self.seed,
+                                timeout_seconds=self.timeout_seconds)
+                except (BackendFailure, UnsupportedCase, UsageError):
+                    pass
 
     def run_checks(self, key: str, case: Case, seed: int) -> list[dict[str, Any]]:
         """Run the whole correctness battery on one case in worker ``key``; return its rows.
@@ -330,7 +357,7 @@ class WorkerSampler:
             When the worker fails (the message starts with its SPEC).
         """
         try:
-            return self.workers[key].call("harness.checks:run_case_checks", self._fields(case), seed, None,
+            return self.workers[key][0].call("harness.checks:run_case_checks", self._fields(case), seed, None,
                                           timeout_seconds=self.timeout_seconds)
         except (BackendFailure, UnsupportedCase) as exc:
             raise BackendFailure(f"{self.specs[key]}: {exc}") from None

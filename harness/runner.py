@@ -40,6 +40,7 @@ class TimingRequest:
     measure_memory: bool = True
     timeout_seconds: float = DEFAULT_CASE_TIMEOUT_SECONDS
     max_n_pure_python: int | None = None
+    cpus: tuple[int, ...] | None = None
 
     def timer_options(self) -> dict[str, Any]:
         """Return the options :func:`harness.timing.time_case` takes."""
@@ -75,6 +76,15 @@ def run_timing(req: TimingRequest, json_path: str | None = None, quiet: bool = T
     UsageError
         When a backend SPEC cannot be loaded.
     """
+    from harness.affinity import pinned
+
+    with pinned(req.cpus) as cpus:
+        return _run_timing_pinned(req, json_path, quiet, cpus)
+
+
+def _run_timing_pinned(req: TimingRequest, json_path: str | None, quiet: bool,
+                       cpus: tuple[int, ...] | None) -> dict[str, Any]:
+    """:func:`run_timing`'s body, run with this thread pinned to ``cpus`` (recorded in the document)."""
     from harness.worker import Worker
 
     kinds = req.kinds or KINDS
@@ -84,7 +94,7 @@ def run_timing(req: TimingRequest, json_path: str | None = None, quiet: bool = T
         claims = {spec: describe_cases(workers[spec], spec, cases, req.max_n_pure_python, req.timeout_seconds)
                   for spec in req.specs}
         doc = envelope(TIME_SCHEMA, req.seed, extra={
-            "threads": req.threads,
+            "threads": req.threads, "pinned_cpus": list(cpus) if cpus else None,
             "backends": {claims[s]["label"]: {"spec": s, **claims[s]["describe"]} for s in req.specs},
             "request": {"kinds": list(kinds), "dtypes": list(req.dtypes), "norms": list(req.norms),
                         "sizes": list(req.sizes), "samples": req.samples, "budget_seconds": req.budget_seconds,
