@@ -8,7 +8,7 @@ import time
 from harness.cases import DTYPES, KINDS, NORMS
 from harness.cli import add_common_options, default_results_path, parse_choice_list
 from harness.errors import UsageError
-from harness.runner import DEFAULT_CASE_TIMEOUT_SECONDS, TimingRequest, run_timing
+from harness.runner import DEFAULT_CASE_TIMEOUT_SECONDS, DEFAULT_ROUNDS, TimingRequest, run_timing
 from harness.sizes import parse_sizes
 
 DEFAULT_SIZES = "2^4..2^16"
@@ -25,6 +25,10 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="samples per case (default 25; fewer when the per-case budget runs out)")
     parser.add_argument("--budget", type=float, default=2.0, metavar="SECONDS",
                         help="seconds of sampling per case after which it stops once 5 samples are in (default 2)")
+    parser.add_argument("--rounds", type=int, default=DEFAULT_ROUNDS, metavar="R",
+                        help=f"split each case's samples into R rounds spread over the run, other cases timed in "
+                             f"between, so a slow stretch of the machine cannot hit one case alone "
+                             f"(default {DEFAULT_ROUNDS}; 1: each case in one go)")
     parser.add_argument("--cold-cache", action="store_true",
                         help="evict the caches before every sample (one call per sample): first-call cost")
     parser.add_argument("--no-memory", action="store_true", help="do not measure peak extra memory")
@@ -48,7 +52,7 @@ def request_from_args(args: argparse.Namespace) -> TimingRequest:
     from backends.registry import default_specs
     from harness.affinity import choose_cpus, parse_pin
 
-    for name in ("samples", "budget", "timeout"):
+    for name in ("samples", "budget", "timeout", "rounds"):
         if getattr(args, name) <= 0:
             raise UsageError(f"--{name} must be positive, got {getattr(args, name):g}")
     if args.samples < 5:
@@ -66,7 +70,8 @@ def request_from_args(args: argparse.Namespace) -> TimingRequest:
         norms=parse_choice_list(args.norms, NORMS, "norm") or ("backward",),
         seed=args.seed, threads=args.threads or 1, samples=args.samples, budget_seconds=args.budget,
         cold_cache=args.cold_cache, measure_memory=not args.no_memory, timeout_seconds=args.timeout,
-        max_n_pure_python=limit or None, cpus=choose_cpus(parse_pin(args.pin_cpu), args.threads or 1),
+        max_n_pure_python=limit or None, rounds=args.rounds,
+        cpus=choose_cpus(parse_pin(args.pin_cpu), args.threads or 1),
     )
 
 

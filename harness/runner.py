@@ -1,11 +1,20 @@
 """The timing runner's engine: cases x backends, timed in worker processes, rows streamed.
 
 :func:`run_timing` is what ``fftgauge time`` and the Python API call. Every backend gets its
-own :class:`~harness.worker.Worker`; the cases are taken one at a time and, for each case,
-every backend is timed in turn (in a shuffled order, seeded), so slow drift of the machine
-(thermal, other tenants) is spread over all backends instead of landing on the one that
-happened to run last. Backends are never timed at the same time: two timings in parallel
-on a 2-core machine would measure each other.
+own :class:`~harness.worker.Worker`, and the whole run is pinned to one CPU
+(:mod:`harness.affinity`). Backends are never timed at the same time: two timings in
+parallel on a 2-core machine would measure each other.
+
+Rounds. A machine shared with others does not keep one speed: on the project's virtual
+machine the same FFT runs 10-25% slower for stretches of one to several seconds, several
+times a minute. Timed in one go (25 samples of about 1 ms), a case sees a 50 ms snapshot of
+that, and whether the snapshot fell in a slow stretch decides its median. So each case's
+samples are split into :attr:`TimingRequest.rounds` rounds (default 5); the cases of a
+window of :data:`WINDOW_CASES` cases are timed round after round, every (case, backend) once
+per round in a new seeded random order, so each case's samples are spread over the
+window's whole duration and over every backend's turns. The worker keeps the case's plan
+between rounds (:func:`harness.timing.time_case`); the row is written when its last round
+is done, so an interrupted run loses at most the window in progress.
 """
 
 from __future__ import annotations
@@ -21,6 +30,10 @@ from harness.results import ResultsWriter, envelope
 
 TIME_SCHEMA = "fftgauge-time/1"
 DEFAULT_CASE_TIMEOUT_SECONDS = 120.0
+#: Rounds each case's samples are split into (see the module docstring).
+DEFAULT_ROUNDS = 5
+#: Cases timed together, round after round, before their rows are written.
+WINDOW_CASES = 16
 
 
 @dataclass(frozen=True)
@@ -41,11 +54,13 @@ class TimingRequest:
     timeout_seconds: float = DEFAULT_CASE_TIMEOUT_SECONDS
     max_n_pure_python: int | None = None
     cpus: tuple[int, ...] | None = None
+    rounds: int = DEFAULT_ROUNDS
 
-    def timer_options(self) -> dict[str, Any]:
-        """Return the options :func:`harness.timing.time_case` takes."""
+    def timer_options(self, round_index: int = 0) -> dict[str, Any]:
+        """Return the options :func:`harness.timing.time_case` takes for round ``round_index``."""
         return {"samples": self.samples, "budget_seconds": self.budget_seconds, "cold_cache": self.cold_cache,
-                "measure_memory": self.measure_memory, "threads": self.threads, "seed": self.seed}
+                "measure_memory": self.measure_memory, "threads": self.threads, "seed": self.seed,
+                "rounds": self.rounds, "round": round_index}
 
 
 def placeholder_row(label: str, case: Case, threads: int, status: str, message: str) -> dict[str, Any]:
@@ -56,10 +71,12 @@ def placeholder_row(label: str, case: Case, threads: int, status: str, message: 
             "in_place": None, "norm": case.norm, "status": status, "message": message}
 
 
-def _time_one(worker: Any, label: str, case: Case, req: TimingRequest) -> dict[str, Any]:
+def _time_round(worker: Any, label: str, case: Case, req: TimingRequest, round_index: int) -> dict[str, Any] | None:
+    """Run one round of ``case`` in ``worker``; return its row when the case is finished
+    (a time, a skip or an error), None when more rounds are due."""
     try:
         return worker.call("harness.timing:time_case", (case.kind, case.dtype, case.n, case.norm),
-                           req.timer_options(), timeout_seconds=req.timeout_seconds)
+                           req.timer_options(round_index), timeout_seconds=req.timeout_seconds)
     except UnsupportedCase as exc:
         return placeholder_row(label, case, req.threads, "skip", str(exc))
     except BackendFailure as exc:
@@ -98,23 +115,15 @@ def _run_timing_pinned(req: TimingRequest, json_path: str | None, quiet: bool,
             "backends": {claims[s]["label"]: {"spec": s, **claims[s]["describe"]} for s in req.specs},
             "request": {"kinds": list(kinds), "dtypes": list(req.dtypes), "norms": list(req.norms),
                         "sizes": list(req.sizes), "samples": req.samples, "budget_seconds": req.budget_seconds,
-                        "cold_cache": req.cold_cache},
+                        "cold_cache": req.cold_cache, "rounds": req.rounds},
         })
         writer = ResultsWriter(json_path, doc)
         progress = Progress(total=len(cases) * len(req.specs), quiet=quiet, desc="timing")
         order = random.Random(req.seed)
         try:
-            for index, case in enumerate(cases):
-                specs = list(req.specs)
-                order.shuffle(specs)
-                for spec in specs:
-                    label, reason = claims[spec]["label"], claims[spec]["reasons"][index]
-                    if reason is not None:
-                        row = placeholder_row(label, case, req.threads, "skip", reason)
-                    else:
-                        row = _time_one(workers[spec], label, case, req)
-                    writer.add([row])
-                    progress.advance(note=f"{label} {case.label()}")
+            for first in range(0, len(cases), WINDOW_CASES):
+                window = list(range(first, min(first + WINDOW_CASES, len(cases))))
+                _time_window(window, cases, claims, workers, req, order, writer, progress)
         finally:
             progress.close()
             writer.close()
@@ -124,3 +133,27 @@ def _run_timing_pinned(req: TimingRequest, json_path: str | None, quiet: bool,
     position = {claims[spec]["label"]: i for i, spec in enumerate(req.specs)}
     doc["rows"].sort(key=lambda r: (KINDS.index(r["kind"]), r["dtype"], r["norm"], r["n"], position[r["backend"]]))
     return doc
+
+
+def _time_window(window: list[int], cases: list[Case], claims: dict[str, Any], workers: dict[str, Any],
+                 req: TimingRequest, order: random.Random, writer: Any, progress: Any) -> None:
+    """Time the cases of ``window`` (indices into ``cases``) on every backend, round after round;
+    write each row as its case finishes."""
+    pending = []
+    for index in window:
+        for spec in req.specs:
+            label, reason = claims[spec]["label"], claims[spec]["reasons"][index]
+            if reason is not None:
+                writer.add([placeholder_row(label, cases[index], req.threads, "skip", reason)])
+                progress.advance(note=f"{label} {cases[index].label()}")
+            else:
+                pending.append((index, spec))
+    for round_index in range(req.rounds):
+        order.shuffle(pending)
+        for index, spec in list(pending):
+            label = claims[spec]["label"]
+            row = _time_round(workers[spec], label, cases[index], req, round_index)
+            if row is not None:
+                writer.add([row])
+                progress.advance(note=f"{label} {cases[index].label()}")
+                pending.remove((index, spec))

@@ -18,7 +18,9 @@ How one case is timed (:func:`time_case`, or :class:`Timer` in-process):
    process, so most samples stay clean and the median ignores the rest. Samples of 2-4 ms
    were cut almost every time on that machine. 25 samples keep a fast case near 0.05 s.
 5. Samples: :attr:`TimerSettings.samples` (25) samples, fewer (never fewer than
-   :attr:`TimerSettings.min_samples`) when the per-case budget runs out. Garbage collection
+   :attr:`TimerSettings.min_samples`) when the per-case budget runs out. The timing runner
+   takes them in rounds with other cases in between (:class:`TimingSession`,
+   :func:`time_case`; :mod:`harness.runner` says why), one untimed call before each round. Garbage collection
    is disabled while sampling (as :mod:`timeit` does) and restored after; outputs are
    dropped at once, never kept.
 6. Overhead and floor: after every sample, the same number of loop iterations runs empty
@@ -88,7 +90,8 @@ class TimerSettings:
     min_samples : fewest samples even when the budget runs out.
     target_sample_seconds : minimum duration of one sample (the autorange target).
     budget_seconds : time after which sampling stops once ``min_samples`` are in;
-        ``None`` for no budget. Counted from the start of the warm-up.
+        ``None`` for no budget. Counts the sampling only (all rounds together), not the
+        warm-up and the autorange.
     warmup_seconds : warm-up duration (at least one call).
     cold_cache : evict the caches before every sample (then ``loops = 1``).
     eviction_bytes : size of the eviction buffer; ``None`` for :func:`eviction_bytes`.
@@ -255,8 +258,9 @@ class Timer:
         """Return the loops per sample that make one sample last about the target.
 
         Doubling from 1 until a run lasts an eighth of the target, then scaling to the
-        target from the shorter of two runs (a run cut by another process is longer, never
-        shorter), so samples last about the target rather than up to twice it.
+        target from the shortest of three runs (a run cut by another process is longer,
+        never shorter; on a loaded 2-core machine two runs in a row were both cut often
+        enough to matter), so samples last about the target rather than up to twice it.
         """
         target = self._target_ns()
         loops = 1
@@ -267,7 +271,7 @@ class Timer:
             if elapsed >= target // 8:
                 break
             loops *= 2
-        elapsed = max(1, min(elapsed, _time_loops(execute, x, loops)))
+        elapsed = max(1, min(elapsed, _time_loops(execute, x, loops), _time_loops(execute, x, loops)))
         return min(MAX_LOOPS, max(loops, math.ceil(loops * target / elapsed)))
 
     def measure(self, plan: Plan, x: np.ndarray) -> Measurement:
@@ -281,29 +285,89 @@ class Timer:
         Exception
             Whatever the plan raises.
         """
-        s = self.settings
+        session = self.start(plan, x)
+        session.take(self.settings.samples)
+        return session.result()
+
+    def start(self, plan: Plan, x: np.ndarray) -> "TimingSession":
+        """Prepare ``x`` for ``plan``, warm up and choose the loops per sample; return the session
+        that takes the samples (:meth:`TimingSession.take`), in one go or in rounds.
+
+        Raises
+        ------
+        Exception
+            Whatever the plan raises.
+        """
         x_in = plan.prepare(np.array(x, copy=True))
-        null_execute = NullPlan(plan.case).execute
-        execute = plan.execute
-        started = time.perf_counter()
-        raw_ns: list[int] = []
-        null_ns: list[int] = []
-        loop_ns: list[int] = []
+        session = TimingSession(self, plan.execute, NullPlan(plan.case).execute, x_in)
         with _gc_paused():
-            self._warm_up(execute, x_in)
-            loops = 1 if s.cold_cache else self._autorange(execute, x_in)
-            while len(raw_ns) < s.samples:
+            self._warm_up(plan.execute, x_in)
+            session.loops = 1 if self.settings.cold_cache else self._autorange(plan.execute, x_in)
+        return session
+
+
+class TimingSession:
+    """The samples of one plan, taken in one go or in several rounds with other work between.
+
+    Made by :meth:`Timer.start`. Each :meth:`take` first makes one untimed call (whatever ran
+    in between may have evicted the plan's data from the caches), then appends samples; the
+    budget of the settings counts the time spent inside :meth:`take` calls only.
+    :meth:`result` summarises every sample taken so far.
+    """
+
+    def __init__(self, timer: Timer, execute: Callable[[np.ndarray], Any], null_execute: Callable[[np.ndarray], Any],
+                 x_in: np.ndarray):
+        self.timer = timer
+        self.execute = execute
+        self.null_execute = null_execute
+        self.x_in = x_in
+        self.loops = 1
+        self.raw_ns: list[int] = []
+        self.null_ns: list[int] = []
+        self.loop_ns: list[int] = []
+        self.spent_seconds = 0.0
+
+    def take(self, count: int) -> None:
+        """Take up to ``count`` more samples (fewer once the budget is spent and ``min_samples`` are in).
+
+        Raises
+        ------
+        Exception
+            Whatever the plan raises.
+        """
+        s = self.timer.settings
+        execute, null_execute, x_in, loops = self.execute, self.null_execute, self.x_in, self.loops
+        started = time.perf_counter()
+        goal = len(self.raw_ns) + count
+        with _gc_paused():
+            if self.raw_ns:
+                execute(x_in)
+            while len(self.raw_ns) < goal:
                 if s.cold_cache:
-                    self._evict()
-                raw_ns.append(_time_loops(execute, x_in, loops))
-                null_ns.append(_time_loops(null_execute, x_in, loops))
-                loop_ns.append(_time_empty_loop(loops))
-                if (s.budget_seconds is not None and len(raw_ns) >= s.min_samples
-                        and time.perf_counter() - started >= s.budget_seconds):
+                    self.timer._evict()
+                self.raw_ns.append(_time_loops(execute, x_in, loops))
+                self.null_ns.append(_time_loops(null_execute, x_in, loops))
+                self.loop_ns.append(_time_empty_loop(loops))
+                if (s.budget_seconds is not None and len(self.raw_ns) >= s.min_samples
+                        and self.spent_seconds + time.perf_counter() - started >= s.budget_seconds):
                     break
-        overhead = float(np.median(loop_ns)) / loops * 1e-9
-        floor = float(np.median(null_ns)) / loops * 1e-9 - overhead
-        per_call = np.asarray(raw_ns, dtype=float) / loops * 1e-9
+        self.spent_seconds += time.perf_counter() - started
+
+    def result(self) -> Measurement:
+        """Return the :class:`Measurement` of every sample taken so far.
+
+        Raises
+        ------
+        ValueError
+            When no sample was taken.
+        """
+        s = self.timer.settings
+        if not self.raw_ns:
+            raise ValueError("no sample was taken")
+        loops = self.loops
+        overhead = float(np.median(self.loop_ns)) / loops * 1e-9
+        floor = float(np.median(self.null_ns)) / loops * 1e-9 - overhead
+        per_call = np.asarray(self.raw_ns, dtype=float) / loops * 1e-9
         if s.subtract_overhead:
             per_call = per_call - overhead
         med, low, high = median_ci(per_call, s.confidence)
@@ -377,7 +441,7 @@ def gflops(flops: float, seconds: float) -> float:
 
 
 _SETTING_NAMES = {f.name for f in fields(TimerSettings)}
-_CASE_OPTIONS = {"threads", "seed", "measure_memory"}
+_CASE_OPTIONS = {"threads", "seed", "measure_memory", "rounds", "round"}
 
 
 def _split_options(options: dict[str, Any]) -> tuple[TimerSettings, dict[str, Any]]:
@@ -386,13 +450,55 @@ def _split_options(options: dict[str, Any]) -> tuple[TimerSettings, dict[str, An
         raise ValueError(f"unknown timing options: {', '.join(sorted(unknown))}; known: "
                          f"{', '.join(sorted(_SETTING_NAMES | _CASE_OPTIONS))}")
     settings = TimerSettings(**{k: v for k, v in options.items() if k in _SETTING_NAMES})
-    rest = {"threads": 1, "seed": 0, "measure_memory": True}
+    rest = {"threads": 1, "seed": 0, "measure_memory": True, "rounds": 1, "round": 0}
     rest.update({k: v for k, v in options.items() if k in _CASE_OPTIONS})
     return settings, rest
 
 
-def time_case(backend: Backend, case_fields: tuple, options: dict) -> dict:
-    """Plan and time one case; the job function the worker process runs.
+@dataclass
+class _OpenCase:
+    """A case being timed over several rounds in this worker: its plan, input and samples so far."""
+
+    plan: Plan
+    x: np.ndarray
+    session: TimingSession
+    plan_seconds: float
+
+
+#: Cases whose rounds are not all done, in this worker process, by (case fields, seed).
+_OPEN_CASES: dict[tuple, _OpenCase] = {}
+
+
+def _open_case(backend: Backend, case: Case, settings: TimerSettings, seed: int) -> _OpenCase:
+    """Plan ``case``, prepare its input and start its timing session (planning timed)."""
+    x = random_input(case, case_rng(seed, case, "time"))
+    start = time.perf_counter()
+    plan = backend.plan(case)
+    plan_seconds = time.perf_counter() - start
+    try:
+        session = Timer(settings).start(plan, x)
+    except BaseException:
+        plan.close()
+        raise
+    return _OpenCase(plan, x, session, plan_seconds)
+
+
+def _samples_this_round(settings: TimerSettings, rounds: int, round_index: int, taken: int) -> int:
+    """Return how many samples round ``round_index`` of ``rounds`` takes: an equal share of
+    ``settings.samples``, the last round whatever is still missing."""
+    if round_index >= rounds - 1:
+        return max(0, settings.samples - taken)
+    return max(1, math.ceil(settings.samples / rounds))
+
+
+def time_case(backend: Backend, case_fields: tuple, options: dict) -> dict | None:
+    """Plan and time one case, or one round of it; the job function the worker process runs.
+
+    With ``rounds`` > 1 the runner calls this once per round, with other cases (and other
+    backends' workers) timed in between: round 0 plans the case and starts its timing
+    session, every round takes its share of the samples (one untimed call first), and the
+    last round measures memory, closes the plan and returns the row over all the samples.
+    A worker restarted half-way (after a crash of another case) plans the case again.
 
     Parameters
     ----------
@@ -400,11 +506,15 @@ def time_case(backend: Backend, case_fields: tuple, options: dict) -> dict:
     case_fields : ``(kind, dtype, n, norm)``.
     options : :class:`TimerSettings` fields, plus ``threads`` (recorded in the row and the
         cap :func:`limit_threads` puts on BLAS/OpenMP pools; default 1), ``seed`` (of the
-        random input, :func:`harness.inputs.case_rng` with purpose ``"time"``; default 0) and ``measure_memory`` (default True).
+        random input, :func:`harness.inputs.case_rng` with purpose ``"time"``; default 0),
+        ``measure_memory`` (default True), ``rounds`` (default 1) and ``round`` (0-based,
+        default 0).
 
     Returns
     -------
-    dict : :meth:`TimeRow.as_dict` (``memory_method`` None when memory is not measured).
+    dict or None : :meth:`TimeRow.as_dict` (``memory_method`` None when memory is not
+        measured) once the case is finished (the last round, or the only call of a backend
+        that reports its own times), None after an earlier round.
 
     Raises
     ------
@@ -420,29 +530,68 @@ def time_case(backend: Backend, case_fields: tuple, options: dict) -> dict:
     reason = backend.unsupported_reason(case)
     if reason is not None:
         raise UnsupportedCase(reason)
-    x = random_input(case, case_rng(rest["seed"], case, "time"))
+    key = (tuple(case_fields), rest["seed"])
+    rounds, round_index = max(1, int(rest["rounds"])), int(rest["round"])
     with limit_threads(rest["threads"]):
-        start = time.perf_counter()
-        plan = backend.plan(case)
-        plan_seconds = time.perf_counter() - start
+        if getattr(backend, "reports_own_timing", False):
+            _close_open_case(key)
+            return _time_whole(backend, case, settings, rest)
+        if key not in _OPEN_CASES or round_index == 0:
+            _close_open_case(key)
+            _OPEN_CASES[key] = _open_case(backend, case, settings, rest["seed"])
+        open_case = _OPEN_CASES[key]
         try:
-            m = None
-            if getattr(backend, "reports_own_timing", False):
-                m = measure_self_reported(plan, x, settings)
-            source = "program" if m is not None else "harness"
-            if m is None:
-                m = Timer(settings).measure(plan, x)
-            if rest["measure_memory"]:
-                mem = measure_memory(plan, x)
-                in_place = mem.in_place
-            else:
-                mem = None
-                in_place = any(detect_in_place(plan, x))
-        finally:
-            plan.close()
+            open_case.session.take(_samples_this_round(settings, rounds, round_index,
+                                                       len(open_case.session.raw_ns)))
+            if round_index < rounds - 1:
+                return None
+            m = open_case.session.result()
+            mem, in_place = _memory(open_case.plan, open_case.x, rest["measure_memory"])
+        except BaseException:
+            _close_open_case(key)
+            raise
+        _close_open_case(key)
+    return _row(backend, case, rest["threads"], open_case.plan_seconds, m, mem, in_place, "harness")
+
+
+def _close_open_case(key: tuple) -> None:
+    """Close and forget the open case ``key`` of this worker (nothing when there is none)."""
+    open_case = _OPEN_CASES.pop(key, None)
+    if open_case is not None:
+        open_case.plan.close()
+
+
+def _memory(plan: Plan, x: np.ndarray, wanted: bool) -> tuple[Any, bool]:
+    """Return (the memory measurement or None, whether the plan works in place)."""
+    if wanted:
+        mem = measure_memory(plan, x)
+        return mem, mem.in_place
+    return None, any(detect_in_place(plan, x))
+
+
+def _time_whole(backend: Backend, case: Case, settings: TimerSettings, rest: dict[str, Any]) -> dict:
+    """Time a backend that reports its own times in one call (rounds do not apply); return the row."""
+    x = random_input(case, case_rng(rest["seed"], case, "time"))
+    start = time.perf_counter()
+    plan = backend.plan(case)
+    plan_seconds = time.perf_counter() - start
+    try:
+        m = measure_self_reported(plan, x, settings)
+        source = "program" if m is not None else "harness"
+        if m is None:
+            m = Timer(settings).measure(plan, x)
+        mem, in_place = _memory(plan, x, rest["measure_memory"])
+    finally:
+        plan.close()
+    return _row(backend, case, rest["threads"], plan_seconds, m, mem, in_place, source)
+
+
+def _row(backend: Backend, case: Case, threads: int, plan_seconds: float, m: Measurement, mem: Any,
+         in_place: bool, source: str) -> dict:
+    """Return the ``fftgauge-time/1`` row of a finished case as a dict."""
     flops = pseudo_flops(case.n, case.is_real)
     row = TimeRow(
-        backend=backend.label, kind=case.kind, dtype=case.dtype, n=case.n, threads=rest["threads"],
+        backend=backend.label, kind=case.kind, dtype=case.dtype, n=case.n, threads=threads,
         plan_seconds=plan_seconds, seconds=m.seconds, seconds_low=m.seconds_low,
         seconds_high=m.seconds_high, samples=m.samples, loops=m.loops, flops=flops,
         gflops=gflops(flops, m.seconds), ns_per_nlogn=ns_per_nlogn(m.seconds, case.n),

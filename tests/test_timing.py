@@ -270,3 +270,83 @@ def test_time_case_input_follows_the_seed():
 
     np.testing.assert_array_equal(first_input(1), first_input(1))
     assert not np.array_equal(first_input(1), first_input(2))
+
+
+# -- rounds ---------------------------------------------------------------------------------
+
+class CountingPlans(BusyWaitBackend):
+    """A busy-wait backend that counts the plans it makes and the plans closed."""
+
+    def __init__(self, seconds: float):
+        super().__init__(seconds=seconds)
+        self.planned = 0
+        self.closed = 0
+
+    def plan(self, case):
+        self.planned += 1
+        plan = super().plan(case)
+        close = plan.close
+        plan.close = lambda: (setattr(self, "closed", self.closed + 1), close())[1]
+        return plan
+
+
+def test_rounds_share_one_plan_and_the_last_round_returns_every_sample():
+    backend = CountingPlans(seconds=1e-4)
+    fields = ("fft", "float64", 256, "backward")
+    options = dict(FAST, samples=10, measure_memory=False, rounds=3)
+    assert time_case(backend, fields, dict(options, round=0)) is None
+    assert time_case(backend, fields, dict(options, round=1)) is None
+    assert backend.planned == 1 and backend.closed == 0
+    row = time_case(backend, fields, dict(options, round=2))
+    # ceil(10 / 3) = 4 samples in each early round, the rest (2) in the last
+    assert row["samples"] == 10 and backend.planned == 1 and backend.closed == 1
+    assert not timing._OPEN_CASES
+
+
+def test_a_round_without_its_open_case_plans_again():
+    """A worker restarted half-way has lost the case: the next round plans it afresh."""
+    backend = CountingPlans(seconds=1e-4)
+    fields = ("fft", "float64", 128, "backward")
+    options = dict(FAST, samples=9, measure_memory=False, rounds=3)
+    row = time_case(backend, fields, dict(options, round=2))
+    assert backend.planned == 1 and backend.closed == 1 and row["samples"] == 9
+
+
+def test_a_failing_round_closes_the_plan():
+    class FailsLater(CountingPlans):
+        calls = 0
+
+        def plan(self, case):
+            plan = super().plan(case)
+            execute = plan.execute
+
+            def maybe_fail(x):
+                FailsLater.calls += 1
+                if FailsLater.calls > 400:
+                    raise RuntimeError("gave up")
+                return execute(x)
+
+            plan.execute = maybe_fail
+            return plan
+
+    backend = FailsLater(seconds=1e-6)
+    fields = ("fft", "float64", 64, "backward")
+    options = dict(FAST, samples=1000, min_samples=1000, measure_memory=False, rounds=2)
+    with pytest.raises(RuntimeError, match="gave up"):
+        time_case(backend, fields, dict(options, round=0))
+        time_case(backend, fields, dict(options, round=1))
+    assert backend.closed == backend.planned == 1 and not timing._OPEN_CASES
+
+
+def test_runner_rounds_interleave_cases_and_write_each_row_once(tmp_path):
+    from harness.runner import TimingRequest, run_timing
+
+    req = TimingRequest(specs=("busywait[seconds=0.0001]", "null"), kinds=("fft",), dtypes=("float64",),
+                        sizes=(16, 32, 64), samples=6, budget_seconds=1.0, measure_memory=False, rounds=3)
+    doc = run_timing(req, json_path=str(tmp_path / "t.json"))
+    rows = doc["rows"]
+    assert len(rows) == 6 and all(r["status"] == "ok" for r in rows)
+    assert all(r["samples"] == 6 for r in rows)
+    assert doc["request"]["rounds"] == 3
+    assert sorted((r["backend"], r["n"]) for r in rows) == sorted(
+        (b, n) for b in ("busywait[seconds=0.0001]", "null") for n in (16, 32, 64))
