@@ -2,16 +2,37 @@
 streamed to a results file.
 
 :func:`run_battery` is what ``fftgauge check`` and the Python API call. For each backend it
-starts a :class:`~harness.worker.Worker`, asks it which cases the backend claims (the
-others become ``skip`` rows with the reason), then runs every check of every claimed case
-in the worker (:func:`harness.checks.run_case_checks`), one case per call with a timeout,
-so a crash or a hang becomes ``error`` rows and the run goes on. Backends run in parallel,
-one worker each, up to the number of cores.
+starts a :class:`~harness.worker.Worker` and asks it which cases the backend claims (the
+others become ``skip`` rows with the reason); the backends are asked in parallel. Then every
+check of every claimed case runs in a worker (:func:`run_case_job`), one case per call with
+a timeout, so a crash or a hang becomes ``error`` rows and the run goes on.
+
+How the work is spread over the cores
+-------------------------------------
+One *lane* per core (a thread of the main process driving one worker process at a time)
+takes *batches* from a shared :class:`BatchQueue` until none is left. A batch is every
+claimed case of one backend and one size (all kinds, precisions and normalisations), so
+the caches a worker keeps per size (tables of roots of unity, closed-form pairs, a
+library's plans and twiddles) serve the whole batch. Each backend's batches go largest
+size first. A lane stays on its backend while it has batches, then starts the next backend
+no lane has started (with the worker that described it), and at the end joins the backend
+with the most batches left, with a worker of its own: the lanes pull work as they finish,
+so no core waits while another has a long queue, the run ends on the smallest sizes, and
+few workers are started (about one per backend, plus one per join).
+
+Each worker caps its BLAS thread pools at ``BatteryRequest.threads`` (one by default): the
+battery already keeps every core busy with one worker process each, and a BLAS library
+that starts a thread per core in every worker (the ``direct`` backend's matrix products,
+four calls at once in the ``concurrent`` check) makes their spinning threads fight over the
+cores (measured ten times slower with two workers on two cores).
 """
 
 from __future__ import annotations
 
 import os
+import sys
+import threading
+from collections import deque
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from typing import Any, Iterable, Sequence
@@ -26,9 +47,6 @@ CHECK_SCHEMA = "fftgauge-check/1"
 
 #: The ``check`` name of the single row that stands for a case the backend does not claim.
 SKIPPED_CASE_CHECK = "all"
-
-#: A backend claiming more cases than this is split into one shard per core.
-SHARD_MIN_CASES = 100
 
 #: Seconds one case (all its checks) may take in a worker before it is killed.
 DEFAULT_CASE_TIMEOUT_SECONDS = 120.0
@@ -61,8 +79,8 @@ def _rows_for(label: str, case: Case, check_names: Iterable[str], status: str, m
 
 
 @dataclass(frozen=True)
-class _Shard:
-    """A share of one backend's claimed cases, run by one worker process."""
+class Batch:
+    """Every claimed case of one backend and one size, run one after another by one worker."""
 
     spec: str
     label: str
@@ -70,42 +88,155 @@ class _Shard:
     indices: tuple[int, ...]
 
 
-def _shards(req: BatteryRequest, claims: dict[str, dict[str, Any]], parallel: int) -> list[_Shard]:
-    """Split each backend's claimed cases into shards, longest first (for a balanced pool).
-
-    A backend with more than :data:`SHARD_MIN_CASES` claimed cases is split into ``parallel``
-    shards of interleaved cases (so each gets its share of the large sizes); the others stay
-    whole. Sorting the shards longest first keeps one slow backend from running alone at the end.
+class BatchQueue:
+    """The battery's work: per backend, its batches largest size first; lanes take them with
+    :meth:`next`. Thread-safe.
     """
-    out = []
-    for spec in req.specs:
-        claimed = [i for i, reason in enumerate(claims[spec]["reasons"]) if reason is None]
-        k = parallel if len(claimed) > SHARD_MIN_CASES else 1
-        for j in range(k):
-            if claimed[j::k]:
-                out.append(_Shard(spec, claims[spec]["label"], claims[spec]["describe"]["capabilities"],
-                                  tuple(claimed[j::k])))
-    return sorted(out, key=lambda sh: -len(sh.indices))
+
+    def __init__(self, req: "BatteryRequest", claims: dict[str, dict[str, Any]], cases: list[Case]):
+        self._order = list(req.specs)
+        self._left: dict[str, deque[Batch]] = {}
+        for spec in req.specs:
+            by_size: dict[int, list[int]] = {}
+            for i, reason in enumerate(claims[spec]["reasons"]):
+                if reason is None:
+                    by_size.setdefault(cases[i].n, []).append(i)
+            self._left[spec] = deque(Batch(spec, claims[spec]["label"], claims[spec]["describe"]["capabilities"],
+                                           tuple(by_size[n])) for n in sorted(by_size, reverse=True))
+        #: How many cases the queue held at the start.
+        self.total_cases = sum(len(b.indices) for q in self._left.values() for b in q)
+        #: How many batches the queue held at the start.
+        self.total_batches = sum(len(q) for q in self._left.values())
+        self._started: set[str] = set()
+        self._lock = threading.Lock()
+
+    def next(self, spec: str | None) -> Batch | None:
+        """Return the next batch for a lane now working on backend ``spec`` (None: on none yet),
+        or None when the lane should stop.
+
+        In order of preference: the next batch of the lane's own backend (its worker is
+        running); the first batch of the first backend no lane has started (in the order
+        asked; its describing worker is waiting); a batch of the backend with the most batches
+        left, when it has at least two (a lane that joins a backend starts a worker for it,
+        which a single batch, the backend's smallest size, does not repay).
+        """
+        with self._lock:
+            if spec is not None and self._left.get(spec):
+                return self._left[spec].popleft()
+            for other in self._order:
+                if other not in self._started and self._left[other]:
+                    self._started.add(other)
+                    return self._left[other].popleft()
+            busiest = max(self._order, key=lambda s: len(self._left[s]), default=None)
+            if busiest is not None and len(self._left[busiest]) >= 2:
+                return self._left[busiest].popleft()
+            return None
 
 
-def _run_shard(shard: _Shard, worker: Any, cases: list[Case], req: BatteryRequest,
-               check_names: list[str] | None, writer: ResultsWriter, progress: Progress) -> None:
-    """Run the cases of one shard in its worker, writing rows as they come; closes the worker."""
+#: Worker job name of :func:`run_case_job`.
+CASE_JOB = "harness.battery:run_case_job"
+
+#: (cap, len(sys.modules)) when this process last capped its BLAS pools (worker side).
+_BLAS_CAP: list[tuple[int, int]] = []
+
+
+def run_case_job(backend: Any, case_fields: tuple, seed: int, check_names: list[str],
+                 blas_threads: int | None = 1) -> list[dict]:
+    """Worker job of the battery: :func:`harness.checks.run_case_checks` in a worker whose BLAS
+    thread pools are capped at ``blas_threads`` (None leaves them alone).
+
+    The cap (threadpoolctl) holds for the rest of the worker's life. It is applied before
+    the first case and again after any case that imported new modules, since a BLAS library
+    arrives with an import (numpy's at start-up, scipy's when the reference first imports
+    scipy.fft); asking threadpoolctl costs milliseconds, so it is not asked on every case.
+
+    Returns the rows as dicts; raises what :func:`~harness.checks.run_case_checks` raises.
+    """
+    from harness.checks import run_case_checks
+
+    _cap_blas(blas_threads)
+    rows = run_case_checks(backend, case_fields, seed, check_names)
+    _cap_blas(blas_threads)
+    return rows
+
+
+def _cap_blas(threads: int | None) -> None:
+    """Cap this process's BLAS pools at ``threads`` unless done already since the last import."""
+    if threads is None or _BLAS_CAP == [(threads, len(sys.modules))]:
+        return
+    from threadpoolctl import threadpool_limits
+
+    threadpool_limits(limits=threads, user_api="blas")
+    _BLAS_CAP[:] = [(threads, len(sys.modules))]
+
+
+class _Lane:
+    """One core's share of the run: what a thread of the main process uses to drive one worker
+    process at a time. ``spare_workers`` (SPEC -> describing worker) is shared by the lanes,
+    under ``lock``; the first lane to reach a backend takes its describing worker."""
+
+    def __init__(self, spare_workers: dict[str, Any], lock: threading.Lock, req: "BatteryRequest"):
+        self._spare, self._lock, self._req = spare_workers, lock, req
+        #: The SPEC of the backend the lane's worker runs (None before the first batch).
+        self.spec: str | None = None
+        self._worker: Any = None
+
+    def worker_for(self, spec: str) -> Any:
+        """Return a worker for ``spec``: the current one, else the spare (describing) one, else a new one."""
+        from harness.worker import Worker
+
+        if spec != self.spec:
+            self.close()
+            with self._lock:
+                self._worker = self._spare.pop(spec, None)
+            self._worker = self._worker or Worker(spec, threads=self._req.threads)
+            self.spec = spec
+        return self._worker
+
+    def close(self) -> None:
+        """Close the current worker (if any)."""
+        if self._worker is not None:
+            self._worker.close()
+        self._worker, self.spec = None, None
+
+
+def _run_lane(lane: _Lane, queue: BatchQueue, cases: list[Case], req: "BatteryRequest",
+              check_names: list[str] | None, writer: ResultsWriter, progress: Progress) -> None:
+    """Take batches from ``queue`` until it is empty, writing rows as they come; closes the lane's worker."""
     from harness.checks import CHECKS, applicable_checks
 
     try:
-        for index in shard.indices:
-            case = cases[index]
-            names = [c for c in (check_names or list(CHECKS)) if c in applicable_checks(case, shard.capabilities)]
-            try:
-                rows = worker.call("harness.checks:run_case_checks", (case.kind, case.dtype, case.n, case.norm),
-                                   req.seed, names, timeout_seconds=req.timeout_seconds)
-            except BackendFailure as exc:
-                rows = _rows_for(shard.label, case, names, "error", str(exc))
-            writer.add(rows)
-            progress.advance(note=f"{shard.label} {case.label()}")
+        while (batch := queue.next(lane.spec)) is not None:
+            worker = lane.worker_for(batch.spec)
+            for index in batch.indices:
+                case = cases[index]
+                names = [c for c in (check_names or list(CHECKS)) if c in applicable_checks(case, batch.capabilities)]
+                try:
+                    rows = worker.call(CASE_JOB, (case.kind, case.dtype, case.n, case.norm), req.seed, names,
+                                       req.threads or 1, timeout_seconds=req.timeout_seconds)
+                except BackendFailure as exc:
+                    rows = _rows_for(batch.label, case, names, "error", str(exc))
+                writer.add(rows)
+                progress.advance(note=f"{batch.label} {case.label()}")
     finally:
-        worker.close()
+        lane.close()
+
+
+def _describe_all(workers: dict[str, Any], req: "BatteryRequest", cases: list[Case],
+                  parallel: int) -> dict[str, dict[str, Any]]:
+    """Return :func:`harness.dispatch.describe_cases` for every SPEC, asked ``parallel`` at a time.
+
+    Raises
+    ------
+    UsageError
+        The first SPEC's (in the order asked) that cannot be loaded or fails to describe itself.
+    """
+    def describe(spec: str) -> dict[str, Any]:
+        return describe_cases(workers[spec], spec, cases, req.max_n_pure_python, req.timeout_seconds)
+
+    with ThreadPoolExecutor(max_workers=max(1, min(parallel, len(req.specs)))) as pool:
+        futures = {spec: pool.submit(describe, spec) for spec in req.specs}
+        return {spec: futures[spec].result() for spec in req.specs}
 
 
 def _skip_rows(req: BatteryRequest, claims: dict[str, dict[str, Any]], cases: list[Case]) -> list[dict]:
@@ -145,9 +276,10 @@ def run_battery(req: BatteryRequest, json_path: str | None = None, quiet: bool =
     check_names = list(req.checks) if req.checks else None
     kinds = req.kinds or ("fft", "ifft", "rfft", "irfft")
     cases = build_cases(req, kinds)
+    parallel = max(1, os.cpu_count() or 1)
     workers = {spec: Worker(spec, threads=req.threads) for spec in req.specs}
     try:
-        claims = {spec: describe_cases(workers[spec], spec, cases, req.max_n_pure_python, req.timeout_seconds) for spec in req.specs}
+        claims = _describe_all(workers, req, cases, parallel)
         doc = envelope(CHECK_SCHEMA, req.seed, extra={
             "reference": {dtype: reference_method(dtype) for dtype in req.dtypes},
             "backends": {claims[s]["label"]: {"spec": s, **claims[s]["describe"]} for s in req.specs},
@@ -156,16 +288,14 @@ def run_battery(req: BatteryRequest, json_path: str | None = None, quiet: bool =
         })
         writer = ResultsWriter(json_path, doc)
         writer.add(_skip_rows(req, claims, cases))
-        parallel = max(1, os.cpu_count() or 1)
-        shards = _shards(req, claims, parallel)
-        progress = Progress(total=sum(len(sh.indices) for sh in shards), quiet=quiet)
+        queue = BatchQueue(req, claims, cases)
+        progress = Progress(total=queue.total_cases, quiet=quiet)
+        spare_lock = threading.Lock()
+        lanes = [_Lane(workers, spare_lock, req) for _ in range(min(parallel, max(1, queue.total_batches)))]
         try:
-            with ThreadPoolExecutor(max_workers=min(parallel, max(1, len(shards)))) as pool:
-                futures = []
-                for shard in shards:
-                    # the describing worker runs the backend's first shard; other shards get their own
-                    worker = workers.pop(shard.spec, None) or Worker(shard.spec, threads=req.threads)
-                    futures.append(pool.submit(_run_shard, shard, worker, cases, req, check_names, writer, progress))
+            with ThreadPoolExecutor(max_workers=len(lanes)) as pool:
+                futures = [pool.submit(_run_lane, lane, queue, cases, req, check_names, writer, progress)
+                           for lane in lanes]
                 for fut in futures:
                     fut.result()
         finally:

@@ -33,6 +33,7 @@ geometric can. The magnitude-only Zadoff-Chu comparison shows neither sign nor s
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 from typing import Callable
@@ -289,6 +290,20 @@ PAIRS: tuple[Pair, ...] = (
          lambda n: inputs.periodic_gaussian(n).astype(np.complex128),
          lambda n: math.sqrt(n) * inputs.periodic_gaussian(n).astype(np.complex128), real=True),
 )
+
+
+@functools.lru_cache(maxsize=64)
+def pair_values(pair: Pair, n: int) -> tuple[np.ndarray, np.ndarray]:
+    """Return ``(pair.signal(n), pair.transform(n))`` as read-only complex128 arrays.
+
+    Computed once per pair and length in a process and shared by every case of that length
+    (four kinds, each precision and normalisation: the closed forms do not depend on them).
+    """
+    signal = np.array(pair.signal(n), dtype=np.complex128)
+    transform = np.array(pair.transform(n), dtype=np.complex128)
+    signal.flags.writeable = False
+    transform.flags.writeable = False
+    return signal, transform
 
 
 def pair_named(name: str) -> Pair:

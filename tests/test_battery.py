@@ -1,0 +1,227 @@
+"""Tests of the battery's engine (harness/battery.py) and of the pieces of the checks that
+make it quick without changing what they measure (harness/checks.py).
+
+Sources: exact integer arithmetic (Python integers, numpy int64) for the exact circular
+convolution; the in-process :func:`harness.checks.check_case` for what the worker
+processes must report; threadpoolctl's own report for the BLAS thread cap.
+"""
+
+from __future__ import annotations
+
+import textwrap
+import threading
+
+import numpy as np
+import psutil
+import pytest
+
+from backends.registry import load_backend
+from harness import battery, checks
+from harness.cases import Case
+
+
+def _worker_pids() -> set[int]:
+    """Pids of the processes below this one, except multiprocessing's resource tracker."""
+    pids = set()
+    for child in psutil.Process().children(recursive=True):
+        try:
+            if not any("resource_tracker" in part for part in child.cmdline()):
+                pids.add(child.pid)
+        except psutil.ZombieProcess:
+            pids.add(child.pid)
+        except psutil.NoSuchProcess:
+            pass
+    return pids
+
+
+# -- exact circular convolution ----------------------------------------------------------------
+
+def _python_circular_convolution(x: list[complex], y: list[complex]) -> list[complex]:
+    """The defining sum z[k] = sum_j x[j] y[(k - j) mod n] in Python integers (exact)."""
+    n = len(x)
+    xs = [(int(v.real), int(v.imag)) for v in x]
+    ys = [(int(v.real), int(v.imag)) for v in y]
+    out = []
+    for k in range(n):
+        re = im = 0
+        for j in range(n):
+            a, b = xs[j]
+            c, d = ys[(k - j) % n]
+            re += a * c - b * d
+            im += a * d + b * c
+        out.append(complex(re, im))
+    return out
+
+
+@pytest.mark.parametrize("n", [1, 2, 3, 16, 61, 200])
+def test_exact_circular_convolution_equals_integer_sums(n):
+    """The float64 sums of the convolution check equal the defining sum in Python integers."""
+    rng = np.random.default_rng(n)
+    r = checks.CONVOLUTION_RANGE
+    x = rng.integers(-r, r + 1, n) + 1j * rng.integers(-r, r + 1, n)
+    y = rng.integers(-r, r + 1, n) + 1j * rng.integers(-r, r + 1, n)
+    got = checks._exact_circular_convolution(x, y)
+    assert got.tolist() == _python_circular_convolution(x.tolist(), y.tolist())
+
+
+def test_exact_circular_convolution_is_exact_at_the_largest_values():
+    """At DIRECT_CONVOLUTION_MAX_N with every input at the range's edge (the largest sums the
+    check can meet) the float64 sums equal int64 sums (exact integer arithmetic)."""
+    n = checks.DIRECT_CONVOLUTION_MAX_N
+    r = checks.CONVOLUTION_RANGE
+    rng = np.random.default_rng(1)
+    signs = lambda: rng.choice([-r, r], n)  # noqa: E731
+    xr, xi, yr, yi = signs(), signs(), signs(), signs()
+    xr[:] = r  # one all-equal part: sums reach n r^2 in magnitude
+    yr[:] = r
+
+    def circ(a, b):
+        lin = np.convolve(a.astype(np.int64), b.astype(np.int64))
+        out = lin[:n].copy()
+        out[: lin.size - n] += lin[n:]
+        return out
+
+    want_re = circ(xr, yr) - circ(xi, yi)
+    want_im = circ(xr, yi) + circ(xi, yr)
+    assert np.max(np.abs(want_re)) >= n * r * r
+    got = checks._exact_circular_convolution(xr + 1j * xi, yr + 1j * yi)
+    assert np.array_equal(got.real, want_re.astype(np.float64))
+    assert np.array_equal(got.imag, want_im.astype(np.float64))
+
+
+# -- the concurrent check's threads ----------------------------------------------------------
+
+def test_thread_crew_runs_its_tasks_at_the_same_time():
+    """Four tasks that each wait for all four at a barrier finish only if they run at once."""
+    crew = checks.ThreadCrew(4)
+    barrier = threading.Barrier(4, timeout=10)
+    names = []
+
+    def task():
+        barrier.wait()
+        names.append(threading.current_thread().name)
+
+    assert crew.run([task] * 4, timeout_seconds=30)
+    assert len(set(names)) == 4
+    names.clear()
+    assert crew.run([task] * 4, timeout_seconds=30)  # the same threads again
+    assert len(set(names)) == 4
+
+
+def test_thread_crew_reports_an_overrun_and_is_replaced():
+    release = threading.Event()
+    crew = checks._thread_crew()
+    try:
+        assert not crew.run([release.wait, lambda: None], timeout_seconds=0.2)
+        assert crew.broken
+        with pytest.raises(RuntimeError, match="still busy"):
+            crew.run([lambda: None], timeout_seconds=1)
+        fresh = checks._thread_crew()
+        assert fresh is not crew and fresh.run([lambda: None] * checks.CONCURRENT_THREADS, timeout_seconds=30)
+    finally:
+        release.set()
+
+
+def test_thread_crew_survives_a_task_that_raises():
+    crew = checks.ThreadCrew(2)
+
+    def bad():
+        raise ValueError("boom")
+
+    assert crew.run([bad, bad], timeout_seconds=30)
+    assert crew.run([lambda: None, lambda: None], timeout_seconds=30)
+
+
+# -- the queue of batches ---------------------------------------------------------------------
+
+def _claims(specs_reasons: dict[str, list]) -> dict:
+    return {spec: {"label": spec, "describe": {"capabilities": {}}, "reasons": reasons}
+            for spec, reasons in specs_reasons.items()}
+
+
+def _queue(sizes=(4, 64, 8, 2)):
+    req = battery.BatteryRequest(specs=("a", "b"), kinds=("fft", "rfft"), dtypes=("float64",), sizes=sizes)
+    cases = battery.build_cases(req, ("fft", "rfft"))
+    claims = _claims({"a": [None] * len(cases), "b": [None if c.n != 8 else "no" for c in cases]})
+    return battery.BatchQueue(req, claims, cases), cases
+
+
+def test_batch_queue_batches_cover_the_claimed_cases_once():
+    queue, cases = _queue()
+    assert (queue.total_cases, queue.total_batches) == (14, 7)
+    taken, spec = [], None
+    while (batch := queue.next(spec)) is not None:
+        taken.append(batch)
+        spec = batch.spec
+    assert len(taken) == 7
+    assert all(len({cases[i].n for i in b.indices}) == 1 for b in taken)
+    assert sorted((b.spec, i) for b in taken for i in b.indices) == sorted(
+        [("a", i) for i in range(len(cases))] + [("b", i) for i, c in enumerate(cases) if c.n != 8])
+
+
+def test_batch_queue_keeps_lanes_on_their_backend_largest_size_first():
+    """A lane keeps its backend, largest size first; a new lane takes the backend no lane has
+    started; a lane whose backend is done joins the one with two or more batches left, and
+    stops when the others have one left (the lane on it takes it)."""
+    queue, cases = _queue()
+    n_of = lambda batch: cases[batch.indices[0]].n  # noqa: E731
+    first, second = queue.next(None), queue.next(None)
+    assert (first.spec, n_of(first), second.spec, n_of(second)) == ("a", 64, "b", 64)
+    assert [n_of(queue.next("a")) for _ in range(3)] == [8, 4, 2]
+    joined = queue.next("a")  # a is done; b has 4 and 2 left
+    assert (joined.spec, n_of(joined)) == ("b", 4)
+    assert queue.next("a") is None  # b has one batch left
+    last = queue.next("b")
+    assert (last.spec, n_of(last)) == ("b", 2) and queue.next("b") is None and queue.next(None) is None
+
+
+# -- the worker job --------------------------------------------------------------------------
+
+def test_case_job_caps_blas_threads_in_the_worker(tmp_path, monkeypatch):
+    """After a battery job, the worker's BLAS pools report the cap (threadpoolctl's report);
+    the rows are those of the in-process check."""
+    from harness.worker import Worker
+
+    (tmp_path / "blas_report.py").write_text(textwrap.dedent('''
+        def blas_threads(backend):
+            from threadpoolctl import threadpool_info
+            return sorted({p["num_threads"] for p in threadpool_info() if p["user_api"] == "blas"})
+    '''))
+    monkeypatch.syspath_prepend(str(tmp_path))
+    fields = ("fft", "float64", 16, "backward")
+    with Worker("numpy") as worker:
+        rows = worker.call(battery.CASE_JOB, fields, 3, ["accuracy", "shape"], 1, timeout_seconds=60)
+        capped = worker.call("blas_report:blas_threads", timeout_seconds=60)
+    assert capped == [1]
+    here = checks.run_case_checks(load_backend("numpy"), fields, 3, ["accuracy", "shape"])
+    assert rows == here
+
+
+# -- the whole engine -------------------------------------------------------------------------
+
+@pytest.mark.timeout(300)
+def test_battery_rows_equal_the_in_process_checks():
+    """run_battery's rows (worker processes, batches, lanes) are the rows check_case gives in
+    this process, case by case, sorted; unclaimed cases are one skip row each."""
+    req = battery.BatteryRequest(specs=("numpy", "radix2-dit"), kinds=("fft", "irfft"), dtypes=("float32", "float64"),
+                                 sizes=(1, 8, 12, 64), seed=5)
+    before = _worker_pids()
+    doc = battery.run_battery(req, quiet=True)
+    assert _worker_pids() <= before
+    rows = doc["rows"]
+    skips = [r for r in rows if r["status"] == "skip" and r["check"] == battery.SKIPPED_CASE_CHECK]
+    assert {(r["backend"], r["n"]) for r in skips} == {("radix2-dit", 12)} and len(skips) == 4
+    want = []
+    for spec in req.specs:
+        backend = load_backend(spec)
+        for case in battery.build_cases(req, req.kinds):
+            if backend.unsupported_reason(case) is None:
+                names = checks.applicable_checks(case)
+                want += [r.as_dict() for r in checks.check_case(backend, case, req.seed, names)]
+    got = [r for r in rows if r not in skips]
+    key = lambda r: (r["backend"], r["kind"], r["dtype"], r["n"], r["check"])  # noqa: E731
+    assert sorted(got, key=key) == sorted(want, key=key)
+    assert all(r["status"] in ("pass", "skip") for r in got), [r for r in got if r["status"] not in ("pass", "skip")]
+    order = [(req.specs.index(r["backend"]), ("fft", "ifft", "rfft", "irfft").index(r["kind"]), r["dtype"], r["n"])
+             for r in rows]
+    assert order == sorted(order)
