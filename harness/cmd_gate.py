@@ -228,7 +228,8 @@ def _usable_rows(path: str, doc: dict[str, Any]) -> list[dict[str, Any]]:
             raise UsageError(f"baseline {path!r}: row {i} holds an impossible case ({row.get('backend')!r}, "
                              f"{row.get('kind')!r}, {row.get('dtype')!r}, n={n!r}); the file is corrupt")
         if not _number(row["seconds"]) or any(row.get(k) is not None and not _number(row.get(k))
-                                              for k in ("seconds_low", "seconds_high")):
+                                              for k in ("seconds_low", "seconds_high", "seconds_p10",
+                                                        "seconds_p10_low", "seconds_p10_high")):
             raise UsageError(f"baseline {path!r}: row {i} has a non-numeric time; the file is corrupt")
         if row["seconds"] > 0:
             rows.append(row)

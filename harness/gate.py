@@ -26,6 +26,13 @@ Modes
   measured; the baseline of a case is a per-case summary of the last K stored runs
   (:func:`stored_baseline`) and the estimate is formed on the log scale
   (:func:`estimate_stored`), corrected by the yardstick when every stored run has one.
+  The times compared are the 10th percentiles of the per-call samples
+  (:data:`harness.stats.LOW_QUANTILE`) whenever every stored run holds them (runs of this
+  version do), the medians otherwise: the two sides of a stored comparison ran at different
+  moments, under different load from the machine's other tenants, and load only ever adds
+  time, which moves the median and leaves the fastest samples mostly alone
+  (:func:`harness.stats.quantile_ci`). The A/B mode needs no such help (both sides share
+  every moment) and keeps the median of paired blocks.
 - **Record** (candidates and a folder to save to, nothing to compare): measures and stores.
 
 The yardstick correction (stored mode)
@@ -80,7 +87,7 @@ import scipy.stats
 from harness import bounds
 from harness.cases import KINDS, Case
 from harness.errors import BackendFailure, UnsupportedCase, UsageError
-from harness.stats import holm_bonferroni, mann_whitney_p, median_ci, ratio_ci
+from harness.stats import LOW_QUANTILE, holm_bonferroni, mann_whitney_p, median_ci, quantile_ci, ratio_ci
 
 GATE_SCHEMA = "fftgauge-gate/1"
 VERDICTS = ("slower", "faster", "same", "accuracy")
@@ -91,6 +98,37 @@ MACHINE_KEYS = ("cpu", "cores", "caches", "machine", "python")
 DEFAULT_LAST_RUNS = 5
 #: An accuracy error counts as grown only above this many eps (tiny errors vary freely).
 ACCURACY_FLOOR_EPS_UNITS = 1.0
+#: The statistics a stored record may hold, and the keys of (value, low, high) of each.
+STATISTICS = {"median": ("seconds", "seconds_low", "seconds_high"),
+              "p10": ("seconds_p10", "seconds_p10_low", "seconds_p10_high")}
+
+
+def stat_triple(record: dict[str, Any], statistic: str) -> tuple[float, float, float] | None:
+    """Return ``(value, low, high)`` of ``statistic`` in a stored row or yardstick record, or
+    None when the record lacks a positive value of it (a missing bound reads as 0)."""
+    keys = STATISTICS[statistic]
+    value = record.get(keys[0])
+    if not isinstance(value, (int, float)) or isinstance(value, bool) or not value > 0:
+        return None
+    return float(value), float(record.get(keys[1]) or 0.0), float(record.get(keys[2]) or 0.0)
+
+
+def common_statistic(records: Sequence[dict[str, Any]]) -> str:
+    """Return ``p10`` when every record holds a 10th percentile, else ``median``."""
+    return "p10" if records and all(stat_triple(r, "p10") is not None for r in records) else "median"
+
+
+def sample_statistic(samples: Sequence[float], statistic: str, confidence: float) -> tuple[float, float, float]:
+    """Return ``(value, low, high)`` of ``statistic`` over fresh samples (order-statistic intervals).
+
+    Raises
+    ------
+    ValueError
+        When ``samples`` is empty.
+    """
+    if statistic == "p10":
+        return quantile_ci(samples, LOW_QUANTILE, confidence)
+    return median_ci(samples, confidence)
 
 
 @dataclass(frozen=True)
@@ -167,6 +205,9 @@ class StoredBaseline:
         for a single run.
     runs : stored runs that hold the case.
     corrected : values are in yardstick units.
+    statistic : what the values are (:data:`STATISTICS`): ``p10``, the 10th percentile of
+        the per-call times, when every run holding the case stored it, else ``median``.
+    yardstick_statistic : the same for the yardstick records of a corrected baseline.
     """
 
     value: float
@@ -176,6 +217,8 @@ class StoredBaseline:
     dof: int | None
     runs: int
     corrected: bool
+    statistic: str = "median"
+    yardstick_statistic: str = "median"
 
 
 @dataclass(frozen=True)
@@ -358,16 +401,18 @@ def estimate_paired(old: Sequence[float], new: Sequence[float], samples_per_bloc
 
 
 def stored_baseline(values: Sequence[tuple[float, float, float]],
-                    yardsticks: Sequence[dict[str, Any]] | None = None,
-                    confidence: float = 0.95) -> StoredBaseline:
+                    yardsticks: Sequence[tuple[float, float, float]] | None = None,
+                    confidence: float = 0.95, statistic: str = "median",
+                    yardstick_statistic: str = "median") -> StoredBaseline:
     """Return a case's baseline from the stored runs that hold it.
 
     Parameters
     ----------
-    values : per run ``(seconds, seconds_low, seconds_high)``: its median and interval.
-    yardsticks : per run the yardstick record (``seconds``, ``seconds_low``,
-        ``seconds_high``) to put the values in yardstick units, or None for raw seconds.
+    values : per run ``(value, low, high)`` of ``statistic``: its estimate and interval.
+    yardsticks : per run ``(value, low, high)`` of the yardstick's ``yardstick_statistic``,
+        to put the values in yardstick units, or None for raw seconds.
     confidence : coverage of the stored intervals.
+    statistic, yardstick_statistic : recorded in the result (:data:`STATISTICS`).
 
     Method (one-way random-effects decomposition on the log scale; common practice): with
     ``l_i = log v_i`` (``v_i`` the run's value, divided by its yardstick when given) and
@@ -391,28 +436,27 @@ def stored_baseline(values: Sequence[tuple[float, float, float]],
     within = np.array([log_variance_from_interval(*v, confidence) for v in values])
     scaled = raw.copy()
     if yardsticks is not None:
-        ys = np.array([y["seconds"] for y in yardsticks], dtype=float)
+        ys = np.array([y[0] for y in yardsticks], dtype=float)
         scaled = raw / ys
-        within = within + np.array([log_variance_from_interval(y["seconds"], y.get("seconds_low") or 0.0,
-                                                               y.get("seconds_high") or 0.0, confidence)
-                                    for y in yardsticks])
+        within = within + np.array([log_variance_from_interval(*y, confidence) for y in yardsticks])
     k = len(values)
+    kinds = {"corrected": yardsticks is not None, "statistic": statistic, "yardstick_statistic": yardstick_statistic}
     if k == 1:
         return StoredBaseline(value=float(scaled[0]), raw_seconds=float(raw[0]), centre_var=float(within[0]),
-                              between_var=0.0, dof=None, runs=1, corrected=yardsticks is not None)
+                              between_var=0.0, dof=None, runs=1, **kinds)
     logs = np.log(scaled)
     s2 = max(float(np.var(logs, ddof=1)), float(np.mean(within)))
     return StoredBaseline(value=float(np.median(scaled)), raw_seconds=float(np.median(raw)), centre_var=s2 / k,
-                          between_var=max(0.0, s2 - float(np.mean(within))), dof=k - 1,
-                          runs=k, corrected=yardsticks is not None)
+                          between_var=max(0.0, s2 - float(np.mean(within))), dof=k - 1, runs=k, **kinds)
 
 
 def estimate_stored(baseline: StoredBaseline, new: Sequence[float], yardstick_now: dict[str, Any] | None,
                     confidence: float = 0.95) -> Estimate:
     """Return the stored-mode estimate of one case (log scale, delta method).
 
-    ``log ratio = log(m / Y_now) - log(value)`` (``m`` the candidate's median; ``Y_now`` this
-    run's yardstick, only when ``baseline.corrected``), with variance
+    ``log ratio = log(m / Y_now) - log(value)`` (``m`` the candidate's ``baseline.statistic``,
+    median or 10th percentile, of its samples; ``Y_now`` this run's yardstick in
+    ``baseline.yardstick_statistic``, only when ``baseline.corrected``), with variance
     ``var_m + var_Y + centre_var + between_var`` (the candidate's and the yardstick's
     within-run variances from their distribution-free median intervals, the baseline
     centre's, and the run-to-run variance a new run shows even when nothing changed). The
@@ -428,16 +472,16 @@ def estimate_stored(baseline: StoredBaseline, new: Sequence[float], yardstick_no
         When ``new`` is empty, its median is not positive, or ``baseline.corrected`` and
         ``yardstick_now`` is None.
     """
-    med, low, high = median_ci(new, confidence)
+    med, low, high = sample_statistic(new, baseline.statistic, confidence)
     if not med > 0:
-        raise ValueError("the candidate's median time is at or below the timing loop's overhead floor")
+        raise ValueError(f"the candidate's {baseline.statistic} time is at or below the timing loop's overhead floor")
     value, var = med, log_variance_from_interval(med, low, high, confidence)
     if baseline.corrected:
-        if yardstick_now is None:
+        yard = None if yardstick_now is None else stat_triple(yardstick_now, baseline.yardstick_statistic)
+        if yard is None:
             raise ValueError("a yardstick-corrected baseline needs this run's yardstick")
-        value = med / yardstick_now["seconds"]
-        var += log_variance_from_interval(yardstick_now["seconds"], yardstick_now["seconds_low"],
-                                          yardstick_now["seconds_high"], confidence)
+        value = med / yard[0]
+        var += log_variance_from_interval(*yard, confidence)
     stored_var = baseline.centre_var + baseline.between_var
     var += stored_var
     log_ratio = math.log(value) - math.log(baseline.value)
@@ -453,7 +497,7 @@ def estimate_stored(baseline: StoredBaseline, new: Sequence[float], yardstick_no
                     ratio_high=math.exp(log_ratio + q * se), p_value=min(1.0, p), seconds=med, seconds_low=low,
                     seconds_high=high, baseline_seconds=baseline.raw_seconds, ratio_raw=med / baseline.raw_seconds,
                     corrected=baseline.corrected,
-                    method=f"log-scale interval over {baseline.runs} stored run(s)"
+                    method=f"{baseline.statistic} times, log-scale interval over {baseline.runs} stored run(s)"
                            + (", yardstick-corrected" if baseline.corrected else ", uncorrected"))
 
 
@@ -726,12 +770,15 @@ def baseline_for(runs: Sequence[StoredRun], label: str, case: Case,
             if row["backend"] == label and _case_of(row) == case:
                 holding.append((run, row))
                 break
-    values = [(float(r["seconds"]), float(r.get("seconds_low") or 0.0), float(r.get("seconds_high") or 0.0))
-              for _, r in holding]
-    raw = stored_baseline(values, None, confidence)
+    statistic = common_statistic([r for _, r in holding])
+    values = [stat_triple(r, statistic) for _, r in holding]
+    raw = stored_baseline(values, None, confidence, statistic)
     corrected = None
     if all(comparable(run.yardstick) for run, _ in holding):
-        corrected = stored_baseline(values, [run.yardstick for run, _ in holding], confidence)
+        records = [run.yardstick for run, _ in holding]
+        yard_statistic = common_statistic(records)
+        corrected = stored_baseline(values, [stat_triple(y, yard_statistic) for y in records], confidence,
+                                    statistic, yard_statistic)
     accuracy = None
     for run, row in reversed(holding):  # runs are oldest first
         if row.get("battery_failures") is not None:
@@ -832,7 +879,7 @@ def new_doc(req: GateRequest) -> dict[str, Any]:
     return envelope(GATE_SCHEMA, req.seed, extra=extra)
 
 
-def item_row(it: GateItem) -> dict[str, Any]:
+def item_row(it: GateItem, confidence: float = 0.95) -> dict[str, Any]:
     """Return the ``fftgauge-gate/1`` row of an item (contract fields first)."""
     e = it.estimate
     acc = it.accuracy or {}
@@ -851,12 +898,24 @@ def item_row(it: GateItem) -> dict[str, Any]:
         "samples": len(it.new_samples), "baseline_samples": len(it.old_samples) if it.old_key else None,
         "baseline_runs": it.baseline.runs if it.baseline is not None else None,
         "method": None if e is None else e.method,
+        **_p10_fields(it.new_samples, it.baseline, confidence),
         "sampling_seconds": it.pair_seconds * it.pairs_taken, "plan_seconds": it.plan_seconds,
     }
     if it.accuracy is not None:
         for key in ("eps_units", "baseline_eps_units", "bound_eps_units", "battery_failures", "new_battery_failures"):
             row[key] = acc.get(key)
     return row
+
+
+def _p10_fields(samples: Sequence[float], baseline: StoredBaseline | None, confidence: float) -> dict[str, Any]:
+    """Return the candidate's 10th-percentile fields of a row (None without samples), and the
+    statistic a stored-mode comparison used."""
+    out: dict[str, Any] = dict.fromkeys(STATISTICS["p10"])
+    if len(samples):
+        out.update(zip(STATISTICS["p10"], sample_statistic(samples, "p10", confidence)))
+    if baseline is not None:
+        out["compared_statistic"] = baseline.statistic
+    return out
 
 
 def outcome_of(rows: Sequence[dict[str, Any]], complete: bool) -> tuple[str, bool]:
@@ -952,7 +1011,7 @@ def run_gate(req: GateRequest, doc: dict[str, Any] | None = None, quiet: bool = 
             for it in items:
                 if it.status == "ok" and it.estimate is None:
                     it.status, it.message = "incomplete", "the run stopped before this case was decided"
-        doc["rows"] = [item_row(it) for it in items]
+        doc["rows"] = [item_row(it, req.settings.confidence) for it in items]
         doc["elapsed_seconds"] = time.monotonic() - started
         _record_yardstick(doc, req, yardstick, getattr(sampler, "yardstick_failure", None))
         doc["outcome"], doc["regressed"] = outcome_of(doc["rows"], doc["complete"])

@@ -60,7 +60,9 @@ class TimeRow:
     ``relative_spread`` (IQR / median of the samples), ``coverage`` (exact confidence of the
     order-statistic interval), ``cold_cache``, ``memory_method``, ``timing_source``
     (``harness``: wall clock around the calls; ``program``: the durations an external
-    implementation reported itself).
+    implementation reported itself), ``seconds_p10``/``seconds_p10_low``/``seconds_p10_high``
+    (the 10th percentile of the per-call times and its interval: the time with the machine's
+    other load mostly filtered out; the gate's stored mode compares it).
     """
 
     backend: str
@@ -89,6 +91,9 @@ class TimeRow:
     cold_cache: bool = False
     memory_method: str | None = None
     timing_source: str = "harness"
+    seconds_p10: float | None = None
+    seconds_p10_low: float | None = None
+    seconds_p10_high: float | None = None
 
     def as_dict(self) -> dict[str, Any]:
         """Return the row as a JSON-able dict."""

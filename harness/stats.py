@@ -9,6 +9,7 @@ order statistics, the bootstrap, ranks.
 
 from __future__ import annotations
 
+import math
 from fractions import Fraction
 from math import comb
 from typing import Sequence
@@ -91,6 +92,56 @@ def median_ci(samples: Sequence[float], confidence: float = 0.95) -> tuple[float
     arr = np.sort(_as_samples(samples))
     lo, hi, _ = order_statistic_ranks(arr.size, confidence)
     return float(np.median(arr)), float(arr[lo - 1]), float(arr[hi - 1])
+
+
+#: The low quantile the timing rows report beside the median, and the statistic the gate's
+#: stored mode compares (see :func:`quantile_ci`).
+LOW_QUANTILE = 0.10
+
+
+def quantile_ci(samples: Sequence[float], q: float, confidence: float = 0.95) -> tuple[float, float, float]:
+    """Return the sample ``q``-quantile and a distribution-free confidence interval for it.
+
+    The estimate is the order statistic of rank ``ceil(q n)`` (at least 1); the interval is
+    ``[x_(lo), x_(hi)]`` with ``lo`` the largest rank such that ``P(B <= lo - 1) <= a/2`` and
+    ``hi`` the smallest such that ``P(B >= hi) <= a/2``, ``B ~ Binomial(n, q)`` and
+    ``a = 1 - confidence``; where no rank satisfies a side (few samples, extreme ``q``) that
+    side is the sample's extreme, and the interval covers less than ``confidence``.
+
+    Why a low quantile at all: noise from a shared machine (another process taking the
+    CPU, interrupts, a busy neighbour) only ever *adds* time, so on a loaded machine the
+    median moves with the load while the fastest samples keep describing the code (Chen &
+    Revels, "Robust benchmarking in noisy environments", arXiv:1608.04295, 2016, argue for the
+    minimum on this ground; from memory). The 10th percentile keeps most of that robustness
+    without resting on a single sample. ``benchmarks/bench_timing.py reproducibility`` and
+    ``benchmarks/bench_gate.py`` measure what it buys here.
+
+    Source: Conover, Practical Nonparametric Statistics, 3rd ed. (1999), confidence interval
+    for a quantile; common practice.
+
+    Returns
+    -------
+    (value, low, high) : floats with ``low <= value <= high``.
+
+    Raises
+    ------
+    ValueError
+        When ``samples`` is empty, or ``q`` or ``confidence`` is not in (0, 1).
+    """
+    if not 0.0 < q < 1.0:
+        raise ValueError(f"q must be in (0, 1), got {q!r}")
+    if not 0.0 < confidence < 1.0:
+        raise ValueError(f"confidence must be in (0, 1), got {confidence!r}")
+    arr = np.sort(_as_samples(samples))
+    n = arr.size
+    rank = min(n, max(1, math.ceil(q * n)))
+    tail = (1.0 - confidence) / 2.0
+    cdf = scipy.stats.binom.cdf(np.arange(n + 1), n, q)  # cdf[k] = P(B <= k)
+    lows = [r for r in range(1, rank + 1) if cdf[r - 1] <= tail]
+    highs = [r for r in range(rank, n + 1) if 1.0 - cdf[r - 1] <= tail]
+    lo = max(lows) if lows else 1
+    hi = min(highs) if highs else n
+    return float(arr[rank - 1]), float(arr[lo - 1]), float(arr[hi - 1])
 
 
 def _rng(rng: int | np.random.Generator | None) -> np.random.Generator:

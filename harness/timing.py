@@ -66,7 +66,7 @@ from harness.inputs import case_rng, random_input
 from harness.memory import detect_in_place, measure_memory
 from harness.opcount import pseudo_flops
 from harness.rows import TimeRow
-from harness.stats import median_ci, order_statistic_ranks, relative_spread
+from harness.stats import LOW_QUANTILE, median_ci, order_statistic_ranks, quantile_ci, relative_spread
 
 #: Duration of one sample (seconds); see the module docstring for why.
 TARGET_SAMPLE_SECONDS = 1e-3
@@ -129,6 +129,10 @@ class Measurement:
     coverage : exact coverage of the interval (below ``confidence`` for fewer than 6 samples).
     sample_seconds : every per-call sample time, in the order taken.
     cold_cache : whether the caches were evicted before every sample.
+    seconds_p10, seconds_p10_low, seconds_p10_high : the 10th percentile of the per-call
+        times (:data:`harness.stats.LOW_QUANTILE`) and its interval
+        (:func:`harness.stats.quantile_ci`): what the code takes when the machine leaves it
+        alone, far less moved by other load than the median.
     """
 
     seconds: float
@@ -142,6 +146,9 @@ class Measurement:
     coverage: float
     sample_seconds: tuple[float, ...]
     cold_cache: bool
+    seconds_p10: float | None = None
+    seconds_p10_low: float | None = None
+    seconds_p10_high: float | None = None
 
 
 def clock_resolution_seconds() -> float:
@@ -373,10 +380,12 @@ class TimingSession:
         med, low, high = median_ci(per_call, s.confidence)
         _, _, coverage = order_statistic_ranks(per_call.size, s.confidence)
         spread = relative_spread(per_call) if med > 0 else None
+        p10, p10_low, p10_high = quantile_ci(per_call, LOW_QUANTILE, s.confidence)
         return Measurement(seconds=med, seconds_low=low, seconds_high=high, samples=int(per_call.size),
                            loops=loops, overhead_seconds=overhead, floor_seconds=floor, relative_spread=spread,
                            coverage=coverage, sample_seconds=tuple(float(v) for v in per_call),
-                           cold_cache=s.cold_cache)
+                           cold_cache=s.cold_cache, seconds_p10=p10, seconds_p10_low=p10_low,
+                           seconds_p10_high=p10_high)
 
 
 def measure_self_reported(plan: Plan, x: np.ndarray, settings: TimerSettings) -> Measurement | None:
@@ -404,10 +413,12 @@ def measure_self_reported(plan: Plan, x: np.ndarray, settings: TimerSettings) ->
     values = np.asarray(seconds)
     med, low, high = median_ci(values, settings.confidence)
     _, _, coverage = order_statistic_ranks(values.size, settings.confidence)
+    p10, p10_low, p10_high = quantile_ci(values, LOW_QUANTILE, settings.confidence)
     return Measurement(seconds=med, seconds_low=low, seconds_high=high, samples=int(values.size), loops=1,
                        overhead_seconds=0.0, floor_seconds=0.0,
                        relative_spread=relative_spread(values) if med > 0 else None, coverage=coverage,
-                       sample_seconds=tuple(float(v) for v in values), cold_cache=False)
+                       sample_seconds=tuple(float(v) for v in values), cold_cache=False,
+                       seconds_p10=p10, seconds_p10_low=p10_low, seconds_p10_high=p10_high)
 
 
 def measure(plan: Plan, x: np.ndarray, settings: TimerSettings | None = None, **overrides: Any) -> Measurement:
@@ -602,5 +613,6 @@ def _row(backend: Backend, case: Case, threads: int, plan_seconds: float, m: Mea
         timing_source=source,
         overhead_seconds=m.overhead_seconds, floor_seconds=m.floor_seconds, relative_spread=m.relative_spread,
         coverage=m.coverage, cold_cache=m.cold_cache, memory_method=None if mem is None else mem.method,
+        seconds_p10=m.seconds_p10, seconds_p10_low=m.seconds_p10_low, seconds_p10_high=m.seconds_p10_high,
     )
     return row.as_dict()

@@ -46,7 +46,7 @@ from typing import Any, Sequence
 
 import numpy as np
 
-from harness.stats import median_ci
+from harness.stats import LOW_QUANTILE, median_ci, quantile_ci
 
 #: Version of the workload; runs of different versions are not compared.
 YARDSTICK_VERSION = 1
@@ -103,6 +103,7 @@ def summarise(samples: Sequence[float], confidence: float = 0.95) -> dict[str, A
     """Return the yardstick record a run stores: median seconds per call, its interval, the count.
 
     Keys: ``seconds``, ``seconds_low``, ``seconds_high`` (:func:`harness.stats.median_ci`),
+    ``seconds_p10``, ``seconds_p10_low``, ``seconds_p10_high`` (:func:`harness.stats.quantile_ci`),
     ``samples``, ``version`` (:data:`YARDSTICK_VERSION`) and ``rounds``
     (:data:`YARDSTICK_ROUNDS`); ``None`` for no samples.
 
@@ -113,8 +114,11 @@ def summarise(samples: Sequence[float], confidence: float = 0.95) -> dict[str, A
     """
     if len(samples) == 0:
         return None
-    med, low, high = median_ci(np.asarray(samples, dtype=float), confidence)
-    return {"seconds": med, "seconds_low": low, "seconds_high": high, "samples": len(samples),
+    values = np.asarray(samples, dtype=float)
+    med, low, high = median_ci(values, confidence)
+    p10, p10_low, p10_high = quantile_ci(values, LOW_QUANTILE, confidence)
+    return {"seconds": med, "seconds_low": low, "seconds_high": high, "seconds_p10": p10,
+            "seconds_p10_low": p10_low, "seconds_p10_high": p10_high, "samples": len(samples),
             "version": YARDSTICK_VERSION, "rounds": YARDSTICK_ROUNDS}
 
 

@@ -102,3 +102,56 @@ def test_a_crashing_backend_still_writes_the_summary_and_exits_1(tmp_path):
     doc = json.loads(js.read_text())
     assert doc["rows"] and doc["rows"][0]["status"] == "error" and "SIGABRT" in doc["rows"][0]["message"]
     assert md.exists() and ET.parse(xml_path).getroot() is not None
+
+
+def _stored_run(path, seconds, p10, yard=None):
+    from harness.gate import StoredRun
+
+    row = {"backend": "numpy", "kind": "fft", "dtype": "float64", "n": 1024, "norm": "backward",
+           "seconds": seconds, "seconds_low": seconds * 0.98, "seconds_high": seconds * 1.02}
+    if p10 is not None:
+        row.update(seconds_p10=p10, seconds_p10_low=p10 * 0.99, seconds_p10_high=p10 * 1.01)
+    return StoredRun(path=path, created="2026-12-01T00:00:00Z", schema="fftgauge-time/1", machine={},
+                     yardstick=yard, rows=(row,), backends={"numpy": "numpy"})
+
+
+def test_stored_mode_compares_10th_percentiles_when_every_run_has_them():
+    """A baseline recorded on a loaded machine (medians 30% above the fast samples) against a
+    candidate measured on a quiet one: the medians would read 0.77, the 10th percentiles
+    (what load moves least) read about 1."""
+    from harness.cases import Case
+    from harness.gate import baseline_for, estimate_stored
+
+    case = Case("fft", "float64", 1024)
+    runs = [_stored_run(f"r{i}", 13e-6 * (1 + 0.01 * i), 10e-6 * (1 + 0.005 * i)) for i in range(3)]
+    raw, corrected, _ = baseline_for(runs, "numpy", case, 0.95)
+    assert corrected is None and raw.statistic == "p10" and raw.runs == 3
+    rng = np.random.default_rng(5)
+    quiet = list(10.05e-6 * (1 + np.abs(rng.normal(0, 0.01, 60))) / 1.0)
+    est = estimate_stored(raw, quiet, None)
+    assert 0.97 < est.ratio < 1.05 and "p10 times" in est.method
+    assert timing_verdict(est, True, 0.05) == "same"
+
+    # one stored run without the percentile (an older file): medians for every run
+    runs[1] = _stored_run("r1", 13e-6, None)
+    raw, _, _ = baseline_for(runs, "numpy", case, 0.95)
+    assert raw.statistic == "median"
+    assert estimate_stored(raw, quiet, None).ratio < 0.85
+
+
+def test_stored_mode_yardstick_statistic_follows_its_records():
+    from harness.cases import Case
+    from harness.gate import baseline_for, estimate_stored
+    from harness.yardstick import YARDSTICK_ROUNDS, YARDSTICK_VERSION, summarise
+
+    yard = summarise([1e-3 * (1 + 0.001 * k) for k in range(40)])
+    assert yard["version"] == YARDSTICK_VERSION and yard["rounds"] == YARDSTICK_ROUNDS
+    assert yard["seconds_p10"] <= yard["seconds"]
+    runs = [_stored_run(f"r{i}", 13e-6, 10e-6, yard) for i in range(2)]
+    raw, corrected, _ = baseline_for(runs, "numpy", Case("fft", "float64", 1024), 0.95)
+    assert corrected.statistic == "p10" and corrected.yardstick_statistic == "p10"
+    # the machine is now uniformly 20% slower: case and yardstick alike; the corrected ratio stays 1
+    slower_yard = summarise([1.2e-3 * (1 + 0.001 * k) for k in range(40)])
+    samples = list(np.linspace(12e-6, 15e-6, 50))
+    est = estimate_stored(corrected, samples, slower_yard)
+    assert est.corrected and est.ratio == pytest.approx(est.ratio_raw / 1.2, rel=0.02)

@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 import scipy.stats
 
-from harness.stats import (bootstrap_median_ci, holm_bonferroni, mann_whitney_p, median_ci,
+from harness.stats import (bootstrap_median_ci, holm_bonferroni, mann_whitney_p, median_ci, quantile_ci,
                            order_statistic_ranks, ratio_ci, relative_spread)
 
 
@@ -200,3 +200,39 @@ def test_holm_matches_adjusted_p_formulation():
 def test_holm_rejects_bad_alpha():
     with pytest.raises(ValueError, match="alpha"):
         holm_bonferroni([0.1], alpha=0.0)
+
+
+# -- quantile_ci ------------------------------------------------------------------------------
+
+def test_quantile_ci_ranks_from_the_binomial_n100_q10():
+    """n = 100, q = 0.1, 95%: the ranks follow from Binomial(100, 0.1) (Conover 1999, interval
+    for a quantile): P(B <= 4) = 0.0237 <= 0.025 < P(B <= 5), so the low rank is 5;
+    P(B >= 17) = 0.0206 <= 0.025 < P(B >= 16), so the high rank is 17. The probabilities are
+    scipy.stats.binom's, checked here rather than trusted from the text."""
+    binom = scipy.stats.binom(100, 0.1)
+    assert binom.cdf(4) <= 0.025 < binom.cdf(5)
+    assert binom.sf(16) <= 0.025 < binom.sf(15)
+    x = np.arange(1.0, 101.0)  # the sorted sample is its own rank
+    value, low, high = quantile_ci(np.random.default_rng(3).permutation(x), 0.1)
+    assert (value, low, high) == (10.0, 5.0, 17.0)
+
+
+def test_quantile_ci_coverage_monte_carlo():
+    """Seeded Monte Carlo: the interval holds the true 10th percentile of an exponential
+    distribution (-ln 0.9) in at least ~95% of 2000 samples of 40."""
+    rng = np.random.default_rng(11)
+    true = -math.log(0.9)
+    hits = sum(low <= true <= high for _, low, high in (quantile_ci(rng.exponential(size=40), 0.1)
+                                                          for _ in range(2000)))
+    assert hits / 2000 >= 0.94
+
+
+def test_quantile_ci_few_samples_falls_back_to_the_extremes_and_rejects_bad_input():
+    value, low, high = quantile_ci([3.0, 1.0, 2.0], 0.1)
+    assert (value, low, high) == (1.0, 1.0, 3.0)
+    with pytest.raises(ValueError):
+        quantile_ci([], 0.1)
+    with pytest.raises(ValueError, match="q must be"):
+        quantile_ci([1.0, 2.0], 1.0)
+    with pytest.raises(ValueError, match="confidence"):
+        quantile_ci([1.0, 2.0], 0.1, confidence=1.5)
