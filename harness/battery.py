@@ -30,6 +30,7 @@ cores (measured ten times slower with two workers on two cores).
 from __future__ import annotations
 
 import os
+import queue
 import sys
 import threading
 from collections import deque
@@ -200,13 +201,55 @@ class _Lane:
         self._worker, self.spec = None, None
 
 
-def _run_lane(lane: _Lane, queue: BatchQueue, cases: list[Case], req: "BatteryRequest",
-              check_names: list[str] | None, writer: ResultsWriter, progress: Progress) -> None:
-    """Take batches from ``queue`` until it is empty, writing rows as they come; closes the lane's worker."""
+class RowSink:
+    """Passes rows to a :class:`~harness.results.ResultsWriter` from a thread of its own, so a
+    lane hands its rows over and goes on at once, never waiting while the writer rewrites the
+    file (a rewrite of tens of thousands of rows takes a good fraction of a second, during
+    which every worker would otherwise sit idle).
+    """
+
+    def __init__(self, writer: ResultsWriter):
+        self._writer = writer
+        self._queue: "queue.SimpleQueue[list[dict] | None]" = queue.SimpleQueue()
+        self._error: BaseException | None = None
+        self._thread = threading.Thread(target=self._drain, name="fftgauge-rows", daemon=True)
+        self._thread.start()
+
+    def _drain(self) -> None:
+        while (rows := self._queue.get()) is not None:
+            if self._error is None:
+                try:
+                    self._writer.add(rows)
+                except BaseException as exc:  # noqa: BLE001 - raised again by close()
+                    self._error = exc
+
+    def add(self, rows: list[dict]) -> None:
+        """Queue ``rows`` for the writer."""
+        self._queue.put(rows)
+
+    def close(self) -> None:
+        """Wait until every queued row is with the writer (the writer itself stays open).
+
+        Raises
+        ------
+        BaseException
+            Whatever the writer raised while taking rows (for example a
+            :class:`~harness.errors.UsageError` for a results file that cannot be written).
+        """
+        self._queue.put(None)
+        self._thread.join()
+        if self._error is not None:
+            raise self._error
+
+
+def _run_lane(lane: _Lane, batches: BatchQueue, cases: list[Case], req: "BatteryRequest",
+              check_names: list[str] | None, sink: RowSink, progress: Progress) -> None:
+    """Take batches from ``batches`` until it has none for this lane, passing rows to ``sink``
+    as they come; closes the lane's worker."""
     from harness.checks import CHECKS, applicable_checks
 
     try:
-        while (batch := queue.next(lane.spec)) is not None:
+        while (batch := batches.next(lane.spec)) is not None:
             worker = lane.worker_for(batch.spec)
             for index in batch.indices:
                 case = cases[index]
@@ -216,7 +259,7 @@ def _run_lane(lane: _Lane, queue: BatchQueue, cases: list[Case], req: "BatteryRe
                                        req.threads or 1, timeout_seconds=req.timeout_seconds)
                 except BackendFailure as exc:
                     rows = _rows_for(batch.label, case, names, "error", str(exc))
-                writer.add(rows)
+                sink.add(rows)
                 progress.advance(note=f"{batch.label} {case.label()}")
     finally:
         lane.close()
@@ -288,20 +331,24 @@ def run_battery(req: BatteryRequest, json_path: str | None = None, quiet: bool =
         })
         writer = ResultsWriter(json_path, doc)
         writer.add(_skip_rows(req, claims, cases))
-        queue = BatchQueue(req, claims, cases)
-        progress = Progress(total=queue.total_cases, quiet=quiet)
+        batches = BatchQueue(req, claims, cases)
+        progress = Progress(total=batches.total_cases, quiet=quiet)
         spare_lock = threading.Lock()
-        lanes = [_Lane(workers, spare_lock, req) for _ in range(min(parallel, max(1, queue.total_batches)))]
+        lanes = [_Lane(workers, spare_lock, req) for _ in range(min(parallel, max(1, batches.total_batches)))]
+        sink = RowSink(writer)
         try:
             with ThreadPoolExecutor(max_workers=len(lanes)) as pool:
-                futures = [pool.submit(_run_lane, lane, queue, cases, req, check_names, writer, progress)
+                futures = [pool.submit(_run_lane, lane, batches, cases, req, check_names, sink, progress)
                            for lane in lanes]
                 for fut in futures:
                     fut.result()
         finally:
             progress.close()
-            _sort_rows(doc["rows"], req, claims, list(CHECKS))
-            writer.close()
+            try:
+                sink.close()
+            finally:
+                _sort_rows(doc["rows"], req, claims, list(CHECKS))
+                writer.close()
     finally:
         for worker in workers.values():
             worker.close()

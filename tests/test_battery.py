@@ -225,3 +225,29 @@ def test_battery_rows_equal_the_in_process_checks():
     order = [(req.specs.index(r["backend"]), ("fft", "ifft", "rfft", "irfft").index(r["kind"]), r["dtype"], r["n"])
              for r in rows]
     assert order == sorted(order)
+
+
+# -- rows to the results file -------------------------------------------------------------------
+
+def test_row_sink_hands_every_row_to_the_writer_in_order(tmp_path):
+    from harness.results import ResultsWriter
+
+    doc = {"schema": "x", "rows": []}
+    writer = ResultsWriter(str(tmp_path / "r.json"), doc, min_interval_seconds=0.0)
+    sink = battery.RowSink(writer)
+    for i in range(200):
+        sink.add([{"i": i}, {"i": i + 0.5}])
+    sink.close()
+    assert [r["i"] for r in doc["rows"]] == [v for i in range(200) for v in (i, i + 0.5)]
+
+
+def test_row_sink_raises_the_writers_error_on_close():
+    class FailingWriter:
+        def add(self, rows):
+            raise OSError("disk full")
+
+    sink = battery.RowSink(FailingWriter())
+    sink.add([{"i": 1}])
+    sink.add([{"i": 2}])
+    with pytest.raises(OSError, match="disk full"):
+        sink.close()
