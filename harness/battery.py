@@ -94,7 +94,7 @@ class BatchQueue:
     :meth:`next`. Thread-safe.
     """
 
-    def __init__(self, req: "BatteryRequest", claims: dict[str, dict[str, Any]], cases: list[Case]):
+    def __init__(self, req: BatteryRequest, claims: dict[str, dict[str, Any]], cases: list[Case]):
         self._order = list(req.specs)
         self._left: dict[str, deque[Batch]] = {}
         for spec in req.specs:
@@ -176,7 +176,7 @@ class _Lane:
     process at a time. ``spare_workers`` (SPEC -> describing worker) is shared by the lanes,
     under ``lock``; the first lane to reach a backend takes its describing worker."""
 
-    def __init__(self, spare_workers: dict[str, Any], lock: threading.Lock, req: "BatteryRequest"):
+    def __init__(self, spare_workers: dict[str, Any], lock: threading.Lock, req: BatteryRequest):
         self._spare, self._lock, self._req = spare_workers, lock, req
         #: The SPEC of the backend the lane's worker runs (None before the first batch).
         self.spec: str | None = None
@@ -242,7 +242,7 @@ class RowSink:
             raise self._error
 
 
-def _run_lane(lane: _Lane, batches: BatchQueue, cases: list[Case], req: "BatteryRequest",
+def _run_lane(lane: _Lane, batches: BatchQueue, cases: list[Case], req: BatteryRequest,
               check_names: list[str] | None, sink: RowSink, progress: Progress) -> None:
     """Take batches from ``batches`` until it has none for this lane, passing rows to ``sink``
     as they come; closes the lane's worker."""
@@ -265,7 +265,7 @@ def _run_lane(lane: _Lane, batches: BatchQueue, cases: list[Case], req: "Battery
         lane.close()
 
 
-def _describe_all(workers: dict[str, Any], req: "BatteryRequest", cases: list[Case],
+def _describe_all(workers: dict[str, Any], req: BatteryRequest, cases: list[Case],
                   parallel: int) -> dict[str, dict[str, Any]]:
     """Return :func:`harness.dispatch.describe_cases` for every SPEC, asked ``parallel`` at a time.
 

@@ -20,16 +20,15 @@ from harness import battery, checks
 from harness.cases import Case
 
 
-def _worker_pids() -> set[int]:
-    """Pids of the processes below this one, except multiprocessing's resource tracker."""
+def _spawned_workers() -> set[int]:
+    """Pids of the live worker processes below this one: spawned children run ``spawn_main``
+    (multiprocessing's resource tracker, which outlives every worker, does not)."""
     pids = set()
     for child in psutil.Process().children(recursive=True):
         try:
-            if not any("resource_tracker" in part for part in child.cmdline()):
+            if any("spawn_main" in part for part in child.cmdline()):
                 pids.add(child.pid)
-        except psutil.ZombieProcess:
-            pids.add(child.pid)
-        except psutil.NoSuchProcess:
+        except (psutil.NoSuchProcess, psutil.ZombieProcess):
             pass
     return pids
 
@@ -205,9 +204,9 @@ def test_battery_rows_equal_the_in_process_checks():
     this process, case by case, sorted; unclaimed cases are one skip row each."""
     req = battery.BatteryRequest(specs=("numpy", "radix2-dit"), kinds=("fft", "irfft"), dtypes=("float32", "float64"),
                                  sizes=(1, 8, 12, 64), seed=5)
-    before = _worker_pids()
+    before = _spawned_workers()
     doc = battery.run_battery(req, quiet=True)
-    assert _worker_pids() <= before
+    assert _spawned_workers() <= before
     rows = doc["rows"]
     skips = [r for r in rows if r["status"] == "skip" and r["check"] == battery.SKIPPED_CASE_CHECK]
     assert {(r["backend"], r["n"]) for r in skips} == {("radix2-dit", 12)} and len(skips) == 4
