@@ -20,9 +20,9 @@ How one case is timed (:func:`time_case`, or :class:`Timer` in-process):
 5. Samples: :attr:`TimerSettings.samples` (25) samples, fewer (never fewer than
    :attr:`TimerSettings.min_samples`) when the per-case budget runs out. The timing runner
    takes them in rounds with other cases in between (:class:`TimingSession`,
-   :func:`time_case`; :mod:`harness.runner` says why), one untimed call before each round. Garbage collection
-   is disabled while sampling (as :mod:`timeit` does) and restored after; outputs are
-   dropped at once, never kept.
+   :func:`time_case`; :mod:`harness.runner` says why), one untimed call before each round
+   and at least one sample per round. Garbage collection is disabled while sampling (as
+   :mod:`timeit` does) and restored after; outputs are dropped at once, never kept.
 6. Overhead and floor: after every sample, the same number of loop iterations runs empty
    (the loop's own cost per call, ``overhead_seconds``, subtracted from every sample), and
    the null backend's plan (:mod:`backends.null`: ``execute`` returns its input) runs on
