@@ -10,6 +10,11 @@ duration as a busy-wait. For each configuration the script runs N consecutive ga
   ``slowed[percent=0]``, then each gate run compares ``slowed[percent=x]`` against the
   per-case median of the last K stored runs and appends itself (``--save``), as a CI job on
   the main branch would; x in ``--stored-percents`` (default 0);
+- ``referenced x%``: a folder is first seeded with ``--last`` saved A/B runs of
+  ``--old numpy --new slowed[percent=0]``; each gate run then measures
+  ``--old numpy --new slowed[percent=x]`` in pairs and compares this run's ratio with the
+  stored ratios (``--baseline-backend slowed``), appending itself, as a main-branch job
+  with a fixed reference implementation would; x in ``--referenced-percents`` (0, 10);
 - with ``--competing``, the 0% configurations again with a busy process (a pure-Python
   spin) on the machine for the whole configuration.
 
@@ -37,7 +42,9 @@ sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 
 DEFAULT_SIZES = "256,1024,4096,16384,65536"
 TARGETS = {("ab", 0.0): ("false alarms", 0), ("stored", 0.0): ("false alarms", 0),
+           ("referenced", 0.0): ("false alarms", 0),
            ("ab", 10.0): ("detections", 19), ("ab", 5.0): ("detections", 16)}
+MODE_LABELS = {"ab": "A/B", "stored": "stored", "referenced": "referenced"}
 
 
 def gate_request(mode: str, percent: float, args: argparse.Namespace, folder: str | None, seed: int):
@@ -58,7 +65,15 @@ def gate_request(mode: str, percent: float, args: argparse.Namespace, folder: st
     if mode == "record":
         return GateRequest(mode="record", specs=("slowed[percent=0]",), kinds=(args.kind,), dtypes=("float64",),
                            sizes=sizes, seed=seed, settings=settings, cpus=cpus)
+    if mode == "record-ab":
+        return GateRequest(mode="ab", old_spec="numpy", new_spec="slowed[percent=0]", kinds=(args.kind,),
+                           dtypes=("float64",), sizes=sizes, seed=seed, settings=settings, cpus=cpus)
     runs, warnings, notes = load_stored_runs(folder, args.last, False)
+    if mode == "referenced":
+        return GateRequest(mode="referenced", old_spec="numpy", new_spec=candidate, kinds=(args.kind,),
+                           dtypes=("float64",), sizes=sizes, seed=seed, settings=settings, stored_runs=runs,
+                           baseline_path=folder, baseline_label="slowed", warnings=tuple(warnings),
+                           notes=tuple(notes), cpus=cpus)
     return GateRequest(mode="stored", specs=(candidate,), kinds=(args.kind,), dtypes=("float64",), sizes=sizes,
                        seed=seed, settings=settings, stored_runs=runs, baseline_path=folder, baseline_label="slowed",
                        warnings=tuple(warnings), notes=tuple(notes), cpus=cpus)
@@ -100,20 +115,21 @@ def stop_competitor(proc: subprocess.Popen) -> None:
 
 def run_configuration(mode: str, percent: float, args: argparse.Namespace, competing: bool) -> dict[str, Any]:
     """Run ``args.runs`` gate runs of one configuration; return its record."""
-    label = f"{'A/B' if mode == 'ab' else 'stored'} {percent:g}%" + (" + busy process" if competing else "")
+    label = f"{MODE_LABELS[mode]} {percent:g}%" + (" + busy process" if competing else "")
     folder = None
     runs = []
     proc = start_competitor() if competing else None
     load_before = os.getloadavg()
     started = time.monotonic()
     try:
-        if mode == "stored":
+        if mode in ("stored", "referenced"):
             folder = tempfile.mkdtemp(prefix="fftgauge-bench-gate-")
+            seeding = "record" if mode == "stored" else "record-ab"
             for k in range(args.last):
-                one_run(gate_request("record", 0.0, args, None, args.seed + 1000 + k), folder)
+                one_run(gate_request(seeding, 0.0, args, None, args.seed + 1000 + k), folder)
         for i in range(args.runs):
             req = gate_request(mode, percent, args, folder, args.seed + i)
-            result = one_run(req, folder if mode == "stored" else None)
+            result = one_run(req, folder if mode in ("stored", "referenced") else None)
             runs.append(result)
             if not args.quiet:
                 ratios = " ".join(f"{c['ratio']:.3f}" if c["ratio"] is not None else "-" for c in result["cases"])
@@ -176,6 +192,8 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--percents", default="0,5,10", help="A/B injected slowdowns in %% (default 0,5,10)")
     parser.add_argument("--stored-percents", default="0", help="stored-mode injected slowdowns in %% (default 0; "
                                                                "empty for none)")
+    parser.add_argument("--referenced-percents", default="0,10", help="referenced-mode injected slowdowns in %% "
+                                                                      "(default 0,10; empty for none)")
     parser.add_argument("--last", type=int, default=5, help="stored runs in the baseline (default 5)")
     parser.add_argument("--competing", action="store_true", help="also run the 0%% configurations with a busy process")
     parser.add_argument("--analysis", choices=("paired", "pooled"), default="paired",
@@ -188,8 +206,9 @@ def main(argv: list[str] | None = None) -> int:
     args = parser.parse_args(argv)
     plan = [("ab", float(p), False) for p in args.percents.split(",") if p.strip()]
     plan += [("stored", float(p), False) for p in args.stored_percents.split(",") if p.strip()]
+    plan += [("referenced", float(p), False) for p in args.referenced_percents.split(",") if p.strip()]
     if args.competing:
-        plan += [(mode, 0.0, True) for mode in ("ab", "stored")]
+        plan += [(mode, 0.0, True) for mode in ("ab", "stored", "referenced")]
     configs = []
     for mode, percent, competing in plan:
         if not args.quiet:

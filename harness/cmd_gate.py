@@ -127,14 +127,14 @@ def _mode(args: argparse.Namespace) -> str:
 
     if bool(args.old) != bool(args.new):
         raise UsageError("A/B mode needs both --old SPEC and --new SPEC")
-    if args.old and args.baseline:
-        raise UsageError("give either --old/--new (A/B in one run) or --baseline (stored results), not both")
     if args.old:
         if args.backend:
             raise UsageError("--backend is for --baseline mode; in A/B mode name the two sides with --old and --new")
+        if args.baseline_backend and not args.baseline:
+            raise UsageError("--baseline-backend goes with --baseline")
         parse_spec(args.old)
         parse_spec(args.new)
-        return "ab"
+        return "referenced" if args.baseline else "ab"
     for spec in args.backend or ():
         parse_spec(spec)
     if args.baseline_backend and not args.baseline:
@@ -177,6 +177,15 @@ def request_from_args(args: argparse.Namespace) -> GateRequest:
             specs = default_specs_of(runs)
         if threads is None:
             threads = stored_threads(runs)
+    elif mode == "referenced":
+        runs, warnings, notes = load_stored_runs(args.baseline, args.last, args.allow_other_machine)
+        if not any(r.get("ab_ratio") or (r.get("ratio") and r.get("baseline_runs") is None)
+                   for run in runs for r in run.rows):
+            raise UsageError(f"the baseline {args.baseline!r} holds no A/B ratios; with --old/--new, --baseline "
+                             f"takes a folder of saved A/B gate runs (seed it with fftgauge gate --old REF "
+                             f"--new SPEC --save DIR)")
+        sizes = sizes or tuple(parse_sizes(DEFAULT_SIZES))
+        dtypes = dtypes or ("float64",)
     else:
         sizes = sizes or tuple(parse_sizes(DEFAULT_SIZES))
         dtypes = dtypes or ("float64",)

@@ -91,7 +91,7 @@ from harness.stats import LOW_QUANTILE, holm_bonferroni, mann_whitney_p, median_
 
 GATE_SCHEMA = "fftgauge-gate/1"
 VERDICTS = ("slower", "faster", "same", "accuracy")
-MODES = ("ab", "stored", "record")
+MODES = ("ab", "referenced", "stored", "record")
 #: Machine fingerprint fields that must agree with a stored baseline's (see docs/ci-gate.md).
 MACHINE_KEYS = ("cpu", "cores", "caches", "machine", "python")
 #: Default number of stored runs whose per-case median forms the baseline.
@@ -100,7 +100,9 @@ DEFAULT_LAST_RUNS = 5
 ACCURACY_FLOOR_EPS_UNITS = 1.0
 #: The statistics a stored record may hold, and the keys of (value, low, high) of each.
 STATISTICS = {"median": ("seconds", "seconds_low", "seconds_high"),
-              "p10": ("seconds_p10", "seconds_p10_low", "seconds_p10_high")}
+              "p10": ("seconds_p10", "seconds_p10_low", "seconds_p10_high"),
+              "ratio": ("ratio", "ratio_low", "ratio_high"),
+              "ab_ratio": ("ab_ratio", "ab_ratio_low", "ab_ratio_high")}
 
 
 def stat_triple(record: dict[str, Any], statistic: str) -> tuple[float, float, float] | None:
@@ -290,6 +292,7 @@ class GateItem:
     timing_verdict: str | None = None
     accuracy: dict[str, Any] | None = None
     plan_seconds: float | None = None
+    ab_estimate: Estimate | None = None
 
     def fail(self, message: str) -> None:
         """Mark the item as failed (an ``error`` row) with ``message``."""
@@ -482,8 +485,28 @@ def estimate_stored(baseline: StoredBaseline, new: Sequence[float], yardstick_no
             raise ValueError("a yardstick-corrected baseline needs this run's yardstick")
         value = med / yard[0]
         var += log_variance_from_interval(*yard, confidence)
+    ratio, ratio_low, ratio_high, p = against_baseline(value, var, baseline, confidence)
+    return Estimate(ratio=ratio, ratio_low=ratio_low, ratio_high=ratio_high, p_value=p, seconds=med, seconds_low=low,
+                    seconds_high=high, baseline_seconds=baseline.raw_seconds, ratio_raw=med / baseline.raw_seconds,
+                    corrected=baseline.corrected,
+                    method=f"{baseline.statistic} times, log-scale interval over {baseline.runs} stored run(s)"
+                           + (", yardstick-corrected" if baseline.corrected else ", uncorrected"))
+
+
+def against_baseline(value: float, log_var: float, baseline: StoredBaseline,
+                     confidence: float) -> tuple[float, float, float, float]:
+    """Return ``(ratio, low, high, p)`` of a value measured now against a stored baseline.
+
+    ``log ratio = log(value) - log(baseline.value)`` with variance ``log_var`` (this run's,
+    on the log scale) ``+ centre_var + between_var``; the interval and the two-sided p-value
+    use Student's t with the Welch-Satterthwaite degrees of freedom
+    ``V^2 / ((centre_var + between_var)^2 / dof)`` (this run's variance counted as exact), or
+    the normal distribution for a single stored run. Sources: delta method and
+    Welch-Satterthwaite approximation (Satterthwaite, Biometrics Bulletin 2 (1946) 110-114);
+    common practice.
+    """
     stored_var = baseline.centre_var + baseline.between_var
-    var += stored_var
+    var = log_var + stored_var
     log_ratio = math.log(value) - math.log(baseline.value)
     se = math.sqrt(var)
     if baseline.dof is None or stored_var == 0.0:
@@ -493,12 +516,51 @@ def estimate_stored(baseline: StoredBaseline, new: Sequence[float], yardstick_no
         dist = scipy.stats.t(dof)
     q = float(dist.ppf(0.5 + confidence / 2.0))
     p = 1.0 if se == 0.0 and log_ratio == 0.0 else (0.0 if se == 0.0 else float(2 * dist.sf(abs(log_ratio) / se)))
-    return Estimate(ratio=math.exp(log_ratio), ratio_low=math.exp(log_ratio - q * se),
-                    ratio_high=math.exp(log_ratio + q * se), p_value=min(1.0, p), seconds=med, seconds_low=low,
-                    seconds_high=high, baseline_seconds=baseline.raw_seconds, ratio_raw=med / baseline.raw_seconds,
-                    corrected=baseline.corrected,
-                    method=f"{baseline.statistic} times, log-scale interval over {baseline.runs} stored run(s)"
-                           + (", yardstick-corrected" if baseline.corrected else ", uncorrected"))
+    return math.exp(log_ratio), math.exp(log_ratio - q * se), math.exp(log_ratio + q * se), min(1.0, p)
+
+
+def estimate_referenced(ab: Estimate, baseline: StoredBaseline, confidence: float = 0.95) -> Estimate:
+    """Return the referenced-mode estimate: this run's A/B ratio (candidate against a
+    reference implementation, measured in pairs) against the stored runs' A/B ratios.
+
+    Whatever slowed the machine in this run slowed the reference in the same moments, so it
+    divides out of the A/B ratio; what is left to compare with history is the candidate's
+    own change. ``ab`` is :func:`estimate_paired` (or :func:`estimate_ab`) of this run;
+    ``baseline`` the :func:`stored_baseline` of the stored ratios. The combination is
+    :func:`against_baseline`.
+    """
+    var = log_variance_from_interval(ab.ratio, ab.ratio_low, ab.ratio_high, confidence)
+    ratio, ratio_low, ratio_high, p = against_baseline(ab.ratio, var, baseline, confidence)
+    return Estimate(ratio=ratio, ratio_low=ratio_low, ratio_high=ratio_high, p_value=p, seconds=ab.seconds,
+                    seconds_low=ab.seconds_low, seconds_high=ab.seconds_high, baseline_seconds=ab.baseline_seconds,
+                    ratio_raw=ab.ratio, corrected=False,
+                    method=f"this run's A/B ratio ({ab.method}) against the A/B ratios of {baseline.runs} "
+                           f"stored run(s), log-scale interval")
+
+
+def ratio_baseline_for(runs: Sequence[StoredRun], label: str, reference: str, case: Case,
+                       confidence: float) -> StoredBaseline | None:
+    """Return the stored A/B ratios of ``label`` against ``reference`` for ``case`` as a
+    baseline, or None when no stored run holds one.
+
+    A row's ratio is ``ab_ratio``/``ab_ratio_low``/``ab_ratio_high`` (written by A/B and
+    referenced runs), or for A/B rows of older files their ``ratio`` fields; only rows whose
+    ``baseline_backend`` is ``reference`` count.
+    """
+    values = []
+    for run in runs:
+        for row in run.rows:
+            if row["backend"] != label or row.get("baseline_backend") != reference or _case_of(row) != case:
+                continue
+            triple = stat_triple(row, "ab_ratio")
+            if triple is None and row.get("baseline_runs") is None:
+                triple = stat_triple(row, "ratio")
+            if triple is not None:
+                values.append(triple)
+            break
+    if not values:
+        return None
+    return stored_baseline(values, None, confidence, statistic="ab_ratio")
 
 
 def record_estimate(new: Sequence[float], confidence: float = 0.95) -> Estimate:
@@ -618,18 +680,22 @@ def compare_accuracy(case: Case, new_rows: Sequence[dict[str, Any]], old_rows: S
 # -- the adaptive loop -------------------------------------------------------------------------
 def evaluate(item: GateItem, settings: GateSettings, yardstick_now: dict[str, Any] | None,
              resamples: int) -> Estimate:
-    """Return the item's estimate from its samples so far (A/B, stored or record).
+    """Return the item's estimate from its samples so far (A/B, referenced, stored or record);
+    with two sides the A/B estimate is also kept in ``item.ab_estimate``.
 
     Raises
     ------
     ValueError
         When the samples cannot form a ratio (a median at or below the overhead floor).
     """
-    if item.old_key is not None and settings.analysis == "paired":
-        return estimate_paired(item.old_samples, item.new_samples, settings.samples_per_block, settings.confidence)
     if item.old_key is not None:
-        seed = (settings.seed * 1_000_003 + zlib.crc32(item.case.label().encode())) % 2**32
-        return estimate_ab(item.old_samples, item.new_samples, settings.confidence, resamples, seed)
+        if settings.analysis == "paired":
+            ab = estimate_paired(item.old_samples, item.new_samples, settings.samples_per_block, settings.confidence)
+        else:
+            seed = (settings.seed * 1_000_003 + zlib.crc32(item.case.label().encode())) % 2**32
+            ab = estimate_ab(item.old_samples, item.new_samples, settings.confidence, resamples, seed)
+        item.ab_estimate = ab
+        return ab if item.baseline is None else estimate_referenced(ab, item.baseline, settings.confidence)
     if item.baseline is None:
         return record_estimate(item.new_samples, settings.confidence)
     baseline = item.baseline if (item.baseline.corrected and yardstick_now is not None) else item.baseline_raw
@@ -795,7 +861,7 @@ def build_items(req: GateRequest, sampler: Any, doc: dict[str, Any]) -> list[Gat
     UsageError
         When a SPEC cannot be loaded, or (stored mode) a backend has no rows in the baseline.
     """
-    if req.mode == "ab":
+    if req.mode in ("ab", "referenced"):
         cases = request_cases(req)
         old = sampler.claims("old", cases)
         new = sampler.claims("new", cases)
@@ -810,7 +876,20 @@ def build_items(req: GateRequest, sampler: Any, doc: dict[str, Any]) -> list[Gat
             if reason is not None:
                 side = "new" if new["reasons"][i] else "old"
                 it.status, it.message = "skip", f"{side} backend: {reason}"
+            elif req.mode == "referenced":
+                stored_label = req.baseline_label or new["label"]
+                it.baseline = ratio_baseline_for(req.stored_runs, stored_label, old["label"], case,
+                                                 req.settings.confidence)
+                if it.baseline is None:
+                    it.status, it.message = "skip", (f"no stored A/B ratio of {stored_label} against "
+                                                     f"{old['label']} for this case in the baseline")
             items.append(it)
+        if req.mode == "referenced" and not any(it.baseline is not None for it in items):
+            held = sorted({f"{r['backend']} against {r.get('baseline_backend')}" for run in req.stored_runs
+                           for r in run.rows if r.get("baseline_backend")})
+            raise UsageError(f"the baseline holds no A/B ratio of {req.baseline_label or new['label']} against "
+                             f"{old['label']} for the cases asked (it holds: {', '.join(held) or 'none'}); "
+                             f"use the same --old, or --baseline-backend LABEL for the stored candidate's label")
         return items
     items = []
     doc["backends"] = {}
@@ -869,7 +948,7 @@ def new_doc(req: GateRequest) -> dict[str, Any]:
                     "samples_per_block": s.samples_per_block, "initial_pairs": s.initial_pairs,
                     "processes": s.processes,
                     "max_samples": s.max_samples},
-        "baseline": None if req.mode != "stored" else {
+        "baseline": None if req.mode not in ("stored", "referenced") else {
             "path": req.baseline_path, "backend": req.baseline_label, "runs": [run.path for run in req.stored_runs],
             "created": [run.created for run in req.stored_runs]},
         "warnings": list(req.warnings), "notes": list(req.notes),
@@ -899,6 +978,7 @@ def item_row(it: GateItem, confidence: float = 0.95) -> dict[str, Any]:
         "baseline_runs": it.baseline.runs if it.baseline is not None else None,
         "method": None if e is None else e.method,
         **_p10_fields(it.new_samples, it.baseline, confidence),
+        **_ab_fields(it),
         "sampling_seconds": it.pair_seconds * it.pairs_taken, "plan_seconds": it.plan_seconds,
     }
     if it.accuracy is not None:
@@ -916,6 +996,16 @@ def _p10_fields(samples: Sequence[float], baseline: StoredBaseline | None, confi
     if baseline is not None:
         out["compared_statistic"] = baseline.statistic
     return out
+
+
+def _ab_fields(it: GateItem) -> dict[str, Any]:
+    """Return the row's ``ab_ratio`` fields: this run's new/old ratio and interval (two-sided
+    modes only), which a later referenced run compares with."""
+    if it.old_key is None:
+        return {}
+    ab = it.ab_estimate
+    return dict(zip(STATISTICS["ab_ratio"], (None, None, None) if ab is None else (ab.ratio, ab.ratio_low,
+                                                                                   ab.ratio_high)))
 
 
 def outcome_of(rows: Sequence[dict[str, Any]], complete: bool) -> tuple[str, bool]:
@@ -936,7 +1026,8 @@ def outcome_of(rows: Sequence[dict[str, Any]], complete: bool) -> tuple[str, boo
 def _worker_sampler(req: GateRequest) -> Any:
     from harness.gate_sampling import WorkerSampler
 
-    sides = {"old": req.old_spec, "new": req.new_spec} if req.mode == "ab" else {s: s for s in req.specs}
+    sides = ({"old": req.old_spec, "new": req.new_spec} if req.mode in ("ab", "referenced")
+             else {s: s for s in req.specs})
     return WorkerSampler(sides, req.threads, req.seed, req.settings.samples_per_block, req.timeout_seconds,
                          processes=req.settings.processes)
 

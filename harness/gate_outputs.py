@@ -23,7 +23,8 @@ from typing import Any, Sequence
 
 from harness.errors import UsageError
 
-_MODE_WORDS = {"ab": "A/B run", "stored": "against stored results", "record": "record only"}
+_MODE_WORDS = {"ab": "A/B run", "referenced": "A/B ratio against stored A/B ratios", "stored": "against stored results",
+               "record": "record only"}
 
 
 def _case_label(row: dict[str, Any]) -> str:
@@ -87,9 +88,12 @@ def headline(doc: dict[str, Any]) -> str:
 def _settings_line(doc: dict[str, Any]) -> str:
     mode = doc.get("mode")
     parts = [_MODE_WORDS.get(mode, str(mode))]
-    if mode == "ab":
+    if mode in ("ab", "referenced"):
         old, new = doc.get("old") or {}, doc.get("new") or {}
         parts[0] += f": new `{new.get('spec', '?')}` against old `{old.get('spec', '?')}`"
+    if mode == "referenced":
+        base = doc.get("baseline") or {}
+        parts[0] += f", {len(base.get('runs') or [])} stored run(s) from `{base.get('path', '?')}`"
     elif mode == "stored":
         base = doc.get("baseline") or {}
         parts[0] += f": {len(base.get('runs') or [])} stored run(s) from `{base.get('path', '?')}`"
@@ -141,7 +145,8 @@ def markdown_summary(doc: dict[str, Any]) -> str:
             lines.append(f"| {r['backend']} | {_case_label(r)} | {_num(r.get('seconds'))} s | "
                          f"{_num(r.get('seconds_low'))} – {_num(r.get('seconds_high'))} | {r.get('samples', 0)} |")
     elif rows:
-        ratio_name = "new / old" if doc.get("mode") == "ab" else "now / baseline"
+        ratio_name = {"ab": "new / old", "referenced": "(new / old) now / stored"}.get(doc.get("mode"),
+                                                                                     "now / baseline")
         with_acc = any("eps_units" in r for r in rows)
         header = f"| backend | case | {ratio_name} | change | 95% interval | p (Holm) | verdict |"
         rule = "|---|---|---:|---:|---|---:|---|"

@@ -155,3 +155,61 @@ def test_stored_mode_yardstick_statistic_follows_its_records():
     samples = list(np.linspace(12e-6, 15e-6, 50))
     est = estimate_stored(corrected, samples, slower_yard)
     assert est.corrected and est.ratio == pytest.approx(est.ratio_raw / 1.2, rel=0.02)
+
+
+# -- referenced mode: this run's A/B ratio against stored A/B ratios --------------------------
+
+def test_referenced_mode_end_to_end(tmp_path):
+    """Two saved A/B runs of numpy against numpy seed the history; the same comparison passes
+    against it, and a candidate 50% slower than the reference fails (the stored candidate's
+    label named with --baseline-backend)."""
+    history = tmp_path / "history"
+    for i in range(2):
+        code, *_ = _ab(tmp_path, "numpy", sizes="1024", extra=("--save", str(history)))
+        assert code == 0
+    code, md, xml_path, js = _ab(tmp_path, "numpy", sizes="1024", extra=("--baseline", str(history)))
+    doc = json.loads(js.read_text())
+    assert code == 0 and doc["mode"] == "referenced" and doc["regressed"] is False
+    (row,) = doc["rows"]
+    assert row["baseline_runs"] == 2 and row["ab_ratio"] > 0 and row["verdict"] == "same"
+    assert "stored A/B ratios" in md.read_text()
+
+    code, md, xml_path, js = _ab(tmp_path, "slowed[percent=50]", sizes="1024",
+                                 extra=("--baseline", str(history), "--baseline-backend", "numpy"))
+    doc = json.loads(js.read_text())
+    assert code == 1 and doc["rows"][0]["verdict"] == "slower" and doc["rows"][0]["ratio"] > 1.2
+
+
+def test_referenced_mode_needs_stored_ratios(tmp_path, capsys):
+    history = tmp_path / "history"
+    _ab(tmp_path, "numpy", sizes="1024", extra=("--save", str(history)))
+    code = cli.main(["gate", "--old", "numpy", "--new", "numpy", "--sizes", "1024", "--kinds", "fft", "--quiet",
+                     "--baseline", str(history), "--baseline-backend", "nothing"])
+    assert code == 2 and "holds no A/B ratio of nothing against numpy" in capsys.readouterr().err
+
+
+def test_ratio_baseline_prefers_ab_ratio_and_reads_older_ab_rows():
+    from harness.cases import Case
+    from harness.gate import StoredRun, estimate_referenced, estimate_paired, ratio_baseline_for
+
+    def run(path, **fields):
+        row = {"backend": "mine", "baseline_backend": "numpy", "kind": "fft", "dtype": "float64", "n": 64,
+               "seconds": 1e-6, **fields}
+        return StoredRun(path=path, created="2026-12-01T00:00:00Z", schema="fftgauge-gate/1", machine={},
+                         yardstick=None, rows=(row,), backends={})
+
+    case = Case("fft", "float64", 64)
+    runs = [run("a", ratio=1.5, ratio_low=1.4, ratio_high=1.6, baseline_runs=3, ab_ratio=1.02, ab_ratio_low=1.0,
+                ab_ratio_high=1.04),
+            run("b", ratio=0.98, ratio_low=0.97, ratio_high=0.99, baseline_runs=None)]
+    base = ratio_baseline_for(runs, "mine", "numpy", case, 0.95)
+    assert base.runs == 2 and base.value == pytest.approx(np.median([1.02, 0.98]))
+    assert ratio_baseline_for(runs, "mine", "scipy", case, 0.95) is None
+    # this run: the candidate 10% slower than the reference, in 40 block pairs
+    rng = np.random.default_rng(9)
+    old = list(1e-5 * np.exp(rng.normal(0, 0.01, 200)))
+    new = list(1.1e-5 * np.exp(rng.normal(0, 0.01, 200)))
+    ab = estimate_paired(old, new, 5)
+    est = estimate_referenced(ab, base)
+    assert est.ratio == pytest.approx(ab.ratio / base.value) and est.ratio_raw == ab.ratio
+    assert est.ratio_low < est.ratio < est.ratio_high
