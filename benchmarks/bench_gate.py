@@ -8,13 +8,13 @@ duration as a busy-wait. For each configuration the script runs N consecutive ga
   sides, so only the injected cost differs), x in ``--percents`` (default 0, 5, 10);
 - ``stored x%``: a folder of stored runs is first seeded with ``--last`` record-only runs of
   ``slowed[percent=0]``, then each gate run compares ``slowed[percent=x]`` against the
-  per-case median of the last K stored runs and appends itself (``--save``), as a CI job on
-  the main branch would; x in ``--stored-percents`` (default 0);
+  per-case median of the last K stored runs and, at 0%, appends itself (``--save``), as a
+  CI job on the main branch would; x in ``--stored-percents`` (default 0);
 - ``referenced x%``: a folder is first seeded with ``--last`` saved A/B runs of
   ``--old numpy --new slowed[percent=0]``; each gate run then measures
   ``--old numpy --new slowed[percent=x]`` in pairs and compares this run's ratio with the
-  stored ratios (``--baseline-backend slowed``), appending itself, as a main-branch job
-  with a fixed reference implementation would; x in ``--referenced-percents`` (0, 10);
+  stored ratios (``--baseline-backend slowed``), appending itself at 0%, as a main-branch
+  job with a fixed reference implementation would; x in ``--referenced-percents`` (0, 10);
 - with ``--competing``, the 0% configurations again with a busy process (a pure-Python
   spin) on the machine for the whole configuration.
 
@@ -129,7 +129,9 @@ def run_configuration(mode: str, percent: float, args: argparse.Namespace, compe
                 one_run(gate_request(seeding, 0.0, args, None, args.seed + 1000 + k), folder)
         for i in range(args.runs):
             req = gate_request(mode, percent, args, folder, args.seed + i)
-            result = one_run(req, folder if mode in ("stored", "referenced") else None)
+            # like a main-branch job, a run without injected cost joins the history; a slowed
+            # candidate is a pull request's run and does not
+            result = one_run(req, folder if mode in ("stored", "referenced") and percent == 0 else None)
             runs.append(result)
             if not args.quiet:
                 ratios = " ".join(f"{c['ratio']:.3f}" if c["ratio"] is not None else "-" for c in result["cases"])
@@ -196,6 +198,8 @@ def main(argv: list[str] | None = None) -> int:
                                                                       "(default 0,10; empty for none)")
     parser.add_argument("--last", type=int, default=5, help="stored runs in the baseline (default 5)")
     parser.add_argument("--competing", action="store_true", help="also run the 0%% configurations with a busy process")
+    parser.add_argument("--competing-modes", default="ab,stored,referenced",
+                        help="with --competing: the modes to run so (default ab,stored,referenced)")
     parser.add_argument("--analysis", choices=("paired", "pooled"), default="paired",
                         help="A/B estimate (default paired; pooled: bootstrap ratio of medians and Mann-Whitney)")
     parser.add_argument("--processes", type=int, default=3, help="worker processes per side (default 3)")
@@ -208,7 +212,7 @@ def main(argv: list[str] | None = None) -> int:
     plan += [("stored", float(p), False) for p in args.stored_percents.split(",") if p.strip()]
     plan += [("referenced", float(p), False) for p in args.referenced_percents.split(",") if p.strip()]
     if args.competing:
-        plan += [(mode, 0.0, True) for mode in ("ab", "stored", "referenced")]
+        plan += [(mode.strip(), 0.0, True) for mode in args.competing_modes.split(",") if mode.strip()]
     configs = []
     for mode, percent, competing in plan:
         if not args.quiet:
