@@ -1114,11 +1114,15 @@ def _record_yardstick(doc: dict[str, Any], req: GateRequest, samples: list[float
 
     record = _yardstick_summary(samples, req.settings.confidence)
     if record is not None and req.mode == "stored":
-        stored = [run.yardstick["seconds"] for run in req.stored_runs if comparable(run.yardstick)]
-        if stored:
-            record["baseline_seconds"] = float(np.median(stored))
-            record["ratio"] = record["seconds"] / record["baseline_seconds"]
-        if len(stored) < len(req.stored_runs):
+        records = [run.yardstick for run in req.stored_runs if comparable(run.yardstick)]
+        if records:
+            # the statistic the correction uses (harness.gate.baseline_for), so the ratio shown is the one applied
+            statistic = common_statistic(records)
+            key = STATISTICS[statistic][0]
+            record["ratio_statistic"] = statistic
+            record["baseline_seconds"] = float(np.median([r[key] for r in records]))
+            record["ratio"] = record[key] / record["baseline_seconds"]
+        if len(records) < len(req.stored_runs):
             doc["notes"].append("some stored runs have no yardstick record (plain fftgauge time files): cases they "
                                 "hold are compared in raw seconds, without the machine-speed correction")
     if failure:

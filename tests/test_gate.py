@@ -213,3 +213,25 @@ def test_ratio_baseline_prefers_ab_ratio_and_reads_older_ab_rows():
     est = estimate_referenced(ab, base)
     assert est.ratio == pytest.approx(ab.ratio / base.value) and est.ratio_raw == ab.ratio
     assert est.ratio_low < est.ratio < est.ratio_high
+
+
+def test_stored_mode_end_to_end_compares_10th_percentiles(tmp_path):
+    """Two recorded runs of numpy seed a history; numpy against it passes, a candidate three
+    times as slow fails. The threshold is 50% here so that the machine's own run-to-run
+    swings (see README, measured performance) cannot make the test flaky."""
+    history = tmp_path / "history"
+    for _ in range(2):
+        assert cli.main(["gate", "--backend", "numpy", "--kinds", "fft", "--sizes", "1024", "--budget", "2",
+                         "--quiet", "--save", str(history), "--json", str(tmp_path / "r.json")]) == 0
+    js = tmp_path / "s.json"
+    code = cli.main(["gate", "--backend", "numpy", "--baseline", str(history), "--threshold", "50%", "--budget", "2",
+                     "--quiet", "--json", str(js)])
+    doc = json.loads(js.read_text())
+    assert code == 0 and doc["mode"] == "stored"
+    (row,) = doc["rows"]
+    assert row["compared_statistic"] == "p10" and row["seconds_p10"] <= row["seconds"] and row["verdict"] == "same"
+    assert doc["yardstick"]["ratio_statistic"] == "p10"
+    code = cli.main(["gate", "--backend", "slowed[percent=200]", "--baseline-backend", "numpy", "--baseline",
+                     str(history), "--threshold", "50%", "--budget", "2", "--quiet", "--json", str(js)])
+    doc = json.loads(js.read_text())
+    assert code == 1 and doc["rows"][0]["verdict"] == "slower" and doc["rows"][0]["ratio"] > 2
