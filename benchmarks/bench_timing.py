@@ -61,11 +61,14 @@ def _fftgauge(*args: str) -> float:
     return time.perf_counter() - started
 
 
-#: The configurations the reproducibility benchmark compares: as shipped, and the way the
-#: runner worked before rounds and pinning (each case in one go, processes placed by the OS).
+#: The configurations the reproducibility benchmark compares: as shipped, with a quarter of the
+#: samples in half the rounds, and the way the runner worked before rounds and pinning (25
+#: samples, each case in one go, processes placed by the OS).
 REPRODUCIBILITY_CONFIGS = {
-    "as shipped (5 rounds, pinned)": (),
-    "one go, unpinned": ("--rounds", "1", "--pin-cpu", "off"),
+    "as shipped (100 samples in 10 rounds, pinned)": (),
+    "25 samples in 5 rounds, pinned": ("--samples", "25", "--rounds", "5"),
+    "25 samples in one go, unpinned (before this version)": ("--samples", "25", "--rounds", "1", "--pin-cpu", "off",
+                                                             "--budget", "2"),
 }
 
 
@@ -78,7 +81,7 @@ def reproducibility(runs: int = 5) -> None:
     with tempfile.TemporaryDirectory() as tmp:
         for i in range(runs):
             for name, extra in REPRODUCIBILITY_CONFIGS.items():
-                path = os.path.join(tmp, f"run{i}-{len(extra)}.json")
+                path = os.path.join(tmp, f"run{i}-{abs(hash(name))}.json")
                 _fftgauge("time", "--backend", "numpy", "--kinds", "fft", "--dtypes", "float64",
                           "--sizes", "2^10..2^16", "--quiet", "--no-memory", "--json", path, *extra)
                 for row in json.load(open(path))["rows"]:

@@ -8,7 +8,8 @@ import time
 from harness.cases import DTYPES, KINDS, NORMS
 from harness.cli import add_common_options, default_results_path, parse_choice_list
 from harness.errors import UsageError
-from harness.runner import DEFAULT_CASE_TIMEOUT_SECONDS, DEFAULT_ROUNDS, TimingRequest, run_timing
+from harness.runner import (DEFAULT_BUDGET_SECONDS, DEFAULT_CASE_TIMEOUT_SECONDS, DEFAULT_ROUNDS, DEFAULT_SAMPLES,
+                            TimingRequest, run_timing)
 from harness.sizes import parse_sizes
 
 DEFAULT_SIZES = "2^4..2^16"
@@ -21,10 +22,11 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     add_common_options(parser, "backend", "kinds", "dtypes", "sizes", "seed", "json", "csv", "quiet", "threads",
                        "pin")
     parser.add_argument("--norms", metavar="LIST", help="comma list of backward, ortho, forward (default backward)")
-    parser.add_argument("--samples", type=int, default=25, metavar="N",
-                        help="samples per case (default 25; fewer when the per-case budget runs out)")
-    parser.add_argument("--budget", type=float, default=2.0, metavar="SECONDS",
-                        help="seconds of sampling per case after which it stops once 5 samples are in (default 2)")
+    parser.add_argument("--samples", type=int, default=DEFAULT_SAMPLES, metavar="N",
+                        help=f"samples per case (default {DEFAULT_SAMPLES}; fewer when the per-case budget runs out)")
+    parser.add_argument("--budget", type=float, default=DEFAULT_BUDGET_SECONDS, metavar="SECONDS",
+                        help=f"seconds of sampling per case after which it stops once 5 samples are in "
+                             f"(default {DEFAULT_BUDGET_SECONDS:g})")
     parser.add_argument("--rounds", type=int, default=DEFAULT_ROUNDS, metavar="R",
                         help=f"split each case's samples into R rounds spread over the run, other cases timed in "
                              f"between, so a slow stretch of the machine cannot hit one case alone "

@@ -17,8 +17,9 @@ How one case is timed (:func:`time_case`, or :class:`Timer` in-process):
    shared (about 3-4 ms measured on a loaded 2-core Linux machine) is rarely cut by another
    process, so most samples stay clean and the median ignores the rest. Samples of 2-4 ms
    were cut almost every time on that machine. 25 samples keep a fast case near 0.05 s.
-5. Samples: :attr:`TimerSettings.samples` (25) samples, fewer (never fewer than
-   :attr:`TimerSettings.min_samples`) when the per-case budget runs out. The timing runner
+5. Samples: :attr:`TimerSettings.samples` (25 in-process; the timing runner asks for 100)
+   samples, fewer (never fewer than :attr:`TimerSettings.min_samples`) when the per-case
+   budget runs out. The timing runner
    takes them in rounds with other cases in between (:class:`TimingSession`,
    :func:`time_case`; :mod:`harness.runner` says why), one untimed call before each round
    and at least one sample per round. Garbage collection is disabled while sampling (as
@@ -204,9 +205,11 @@ def limit_threads(threads: int | None) -> Iterator[None]:
 
 
 @contextmanager
-def _gc_paused() -> Iterator[None]:
+def _gc_paused(collect: bool = True) -> Iterator[None]:
+    """Disable garbage collection inside the block (after a full collection when ``collect``)."""
     was_enabled = gc.isenabled()
-    gc.collect()
+    if collect:
+        gc.collect()
     gc.disable()
     try:
         yield
@@ -346,7 +349,9 @@ class TimingSession:
         execute, null_execute, x_in, loops = self.execute, self.null_execute, self.x_in, self.loops
         started = time.perf_counter()
         goal = len(self.raw_ns) + count
-        with _gc_paused():
+        # a full collection walks every object of the process (10-20 ms with scipy and pyFFTW
+        # loaded): once per case, before its first round, not before every round
+        with _gc_paused(collect=not self.raw_ns):
             if self.raw_ns:
                 execute(x_in)
             while len(self.raw_ns) < goal:
