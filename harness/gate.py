@@ -33,6 +33,12 @@ Modes
   time, which moves the median and leaves the fastest samples mostly alone
   (:func:`harness.stats.quantile_ci`). The A/B mode needs no such help (both sides share
   every moment) and keeps the median of paired blocks.
+- **Referenced** (``old`` and ``new`` SPECs and a folder of saved A/B runs): measured exactly as
+  A/B, with ``old`` a fixed reference implementation; this run's A/B ratio is then compared
+  with the stored runs' A/B ratios of the same pair (:func:`ratio_baseline_for`,
+  :func:`estimate_referenced`). A slower machine slows the reference in the same moments,
+  so it divides out of both ratios: history without a yardstick that must guess how the
+  machine's slowdown affects an FFT.
 - **Record** (candidates and a folder to save to, nothing to compare): measures and stores.
 
 The yardstick correction (stored mode)
