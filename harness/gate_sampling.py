@@ -218,7 +218,7 @@ class WorkerSampler:
         #: Why the yardstick stopped (its worker failed), or None.
         self.yardstick_failure: str | None = None
         self._rng = random.Random(seed)
-        self._loops: dict[Case, int] = {}
+        self._loops: dict[tuple[str, Case], int] = {}
         self._turns: dict[str, list[int]] = {key: [] for key in sides}
 
     def __enter__(self) -> "WorkerSampler":
@@ -256,8 +256,8 @@ class WorkerSampler:
         """Prepare the item's case in every process of each of its sides; return the first
         process's :func:`prepare_case` dict per worker key.
 
-        Every process of every side then runs the loops per sample the first preparation
-        chose, so the two sides' samples are of the same length.
+        Every process of every side of the item then runs the loops per sample the first
+        preparation chose, so the two sides' samples are of the same length.
 
         Raises
         ------
@@ -274,7 +274,7 @@ class WorkerSampler:
                                        self.seed, self.threads, timeout_seconds=self.timeout_seconds)
                 except BackendFailure as exc:
                     raise BackendFailure(f"{self.specs[key]}: {exc}") from None
-                self._loops.setdefault(item.case, info["loops"])
+                self._loops.setdefault((item.new_key, item.case), info["loops"])
                 out.setdefault(key, info)
         return out
 
@@ -288,10 +288,10 @@ class WorkerSampler:
             self._rng.shuffle(self._turns[key])
         return self.workers[key][self._turns[key].pop()]
 
-    def _block(self, key: str, case: Case) -> list[float]:
+    def _block(self, key: str, case: Case, loops: int | None) -> list[float]:
         try:
             return self._next_worker(key).call("harness.gate_sampling:sample_block", self._fields(case),
-                                               self._loops.get(case), self.samples_per_block, self.seed,
+                                               loops, self.samples_per_block, self.seed,
                                                self.threads, timeout_seconds=self.timeout_seconds)
         except (BackendFailure, UnsupportedCase) as exc:
             raise BackendFailure(f"{self.specs[key]}: {exc}") from None
@@ -316,6 +316,7 @@ class WorkerSampler:
             When a side fails (the message starts with its SPEC).
         """
         draw = Draw()
+        loops = self._loops.get((item.new_key, item.case))
         yardstick_round = self._rng.randrange(pairs)
         for k in range(pairs):
             steps = self._sides(item)
@@ -326,9 +327,9 @@ class WorkerSampler:
                 if key is None:
                     draw.yardstick.extend(self._yardstick_block())
                 elif key == item.new_key:
-                    draw.new.extend(self._block(key, item.case))
+                    draw.new.extend(self._block(key, item.case, loops))
                 else:
-                    draw.old.extend(self._block(key, item.case))
+                    draw.old.extend(self._block(key, item.case, loops))
         return draw
 
     def yardstick(self, blocks: int) -> list[float]:
