@@ -102,6 +102,8 @@ MODES = ("ab", "referenced", "stored", "record")
 MACHINE_KEYS = ("cpu", "cores", "caches", "machine", "python")
 #: Default number of stored runs whose per-case median forms the baseline.
 DEFAULT_LAST_RUNS = 5
+#: Block pairs an item takes per turn while the items of a round take turns (:func:`collect`).
+PAIRS_PER_VISIT = 2
 #: An accuracy error counts as grown only above this many eps (tiny errors vary freely).
 ACCURACY_FLOOR_EPS_UNITS = 1.0
 #: The statistics a stored record may hold, and the keys of (value, low, high) of each.
@@ -714,7 +716,11 @@ def collect(items: Sequence[GateItem], sampler: Any, settings: GateSettings, yar
     """Sample the items until each is conclusive, full, or the budget is spent; return the seconds used.
 
     Round 1 gives every item :attr:`GateSettings.initial_pairs` block pairs, whatever the
-    budget. Each later round re-evaluates the items (with
+    budget. Within a round the items take turns, :data:`PAIRS_PER_VISIT` pairs at a time, so
+    each case's samples are spread over the whole round rather than taken in one burst: a
+    slow stretch of the machine (one to several seconds, see :mod:`harness.runner`) then
+    lands on every case a little instead of on one case entirely, which matters most in
+    stored mode, where nothing measured at the same moment divides it out. Each later round re-evaluates the items (with
     :attr:`GateSettings.quick_resamples`) and gives each inconclusive one as many pairs as it
     has had so far (doubling), at most what keeps it under
     :attr:`GateSettings.max_samples` and its share of the remaining budget (from its
@@ -732,22 +738,18 @@ def collect(items: Sequence[GateItem], sampler: Any, settings: GateSettings, yar
     first = True
     while active:
         rng.shuffle(active)
-        for it in active:
+        owed = {id(it): pairs[id(it)] for it in active}
+        while any(owed[id(it)] > 0 and it.status == "ok" for it in active):
             if not first and clock() - start >= settings.budget_seconds:
                 break
-            t0 = clock()
-            try:
-                draw = sampler.sample(it, pairs[id(it)])
-            except BackendFailure as exc:
-                it.fail(f"failed while being timed: {exc}")
-                continue
-            spent = clock() - t0
-            n = pairs[id(it)]
-            it.pair_seconds = (it.pair_seconds * it.pairs_taken + spent) / (it.pairs_taken + n)
-            it.pairs_taken += n
-            it.old_samples.extend(draw.old)
-            it.new_samples.extend(draw.new)
-            yardstick.extend(draw.yardstick)
+            for it in active:
+                if owed[id(it)] <= 0 or it.status != "ok":
+                    continue
+                if not first and clock() - start >= settings.budget_seconds:
+                    break
+                n = min(PAIRS_PER_VISIT, owed[id(it)])
+                owed[id(it)] -= n
+                _take(it, sampler, n, yardstick, clock)
         first = False
         yard_now = _yardstick_summary(yardstick, settings.confidence)
         still = []
@@ -776,6 +778,23 @@ def collect(items: Sequence[GateItem], sampler: Any, settings: GateSettings, yar
             pairs[id(it)] = max(1, min(it.pairs_taken, room, afford))
         active = still
     return clock() - start
+
+
+def _take(it: GateItem, sampler: Any, n: int, yardstick: list[float], clock: Callable[[], float]) -> None:
+    """Take ``n`` block pairs of ``it`` and keep its samples and seconds per pair (a failing
+    backend makes the item an error)."""
+    t0 = clock()
+    try:
+        draw = sampler.sample(it, n)
+    except BackendFailure as exc:
+        it.fail(f"failed while being timed: {exc}")
+        return
+    spent = clock() - t0
+    it.pair_seconds = (it.pair_seconds * it.pairs_taken + spent) / (it.pairs_taken + n)
+    it.pairs_taken += n
+    it.old_samples.extend(draw.old)
+    it.new_samples.extend(draw.new)
+    yardstick.extend(draw.yardstick)
 
 
 def _yardstick_summary(samples: Sequence[float], confidence: float) -> dict[str, Any] | None:
