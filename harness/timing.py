@@ -382,15 +382,22 @@ class TimingSession:
         per_call = np.asarray(self.raw_ns, dtype=float) / loops * 1e-9
         if s.subtract_overhead:
             per_call = per_call - overhead
-        med, low, high = median_ci(per_call, s.confidence)
-        _, _, coverage = order_statistic_ranks(per_call.size, s.confidence)
-        spread = relative_spread(per_call) if med > 0 else None
-        p10, p10_low, p10_high = quantile_ci(per_call, LOW_QUANTILE, s.confidence)
-        return Measurement(seconds=med, seconds_low=low, seconds_high=high, samples=int(per_call.size),
-                           loops=loops, overhead_seconds=overhead, floor_seconds=floor, relative_spread=spread,
-                           coverage=coverage, sample_seconds=tuple(float(v) for v in per_call),
-                           cold_cache=s.cold_cache, seconds_p10=p10, seconds_p10_low=p10_low,
-                           seconds_p10_high=p10_high)
+        return _summarise(per_call, s.confidence, loops=loops, overhead_seconds=overhead, floor_seconds=floor,
+                          cold_cache=s.cold_cache)
+
+
+def _summarise(per_call: np.ndarray, confidence: float, loops: int, overhead_seconds: float,
+               floor_seconds: float, cold_cache: bool) -> Measurement:
+    """Return the :class:`Measurement` of per-call times: median and 10th percentile with
+    their order-statistic intervals, the interval's exact coverage and the relative spread."""
+    med, low, high = median_ci(per_call, confidence)
+    _, _, coverage = order_statistic_ranks(per_call.size, confidence)
+    p10, p10_low, p10_high = quantile_ci(per_call, LOW_QUANTILE, confidence)
+    return Measurement(seconds=med, seconds_low=low, seconds_high=high, samples=int(per_call.size), loops=loops,
+                       overhead_seconds=overhead_seconds, floor_seconds=floor_seconds,
+                       relative_spread=relative_spread(per_call) if med > 0 else None, coverage=coverage,
+                       sample_seconds=tuple(float(v) for v in per_call), cold_cache=cold_cache,
+                       seconds_p10=p10, seconds_p10_low=p10_low, seconds_p10_high=p10_high)
 
 
 def measure_self_reported(plan: Plan, x: np.ndarray, settings: TimerSettings) -> Measurement | None:
@@ -415,15 +422,8 @@ def measure_self_reported(plan: Plan, x: np.ndarray, settings: TimerSettings) ->
         if (settings.budget_seconds is not None and len(seconds) >= settings.min_samples
                 and time.perf_counter() - started >= settings.budget_seconds):
             break
-    values = np.asarray(seconds)
-    med, low, high = median_ci(values, settings.confidence)
-    _, _, coverage = order_statistic_ranks(values.size, settings.confidence)
-    p10, p10_low, p10_high = quantile_ci(values, LOW_QUANTILE, settings.confidence)
-    return Measurement(seconds=med, seconds_low=low, seconds_high=high, samples=int(values.size), loops=1,
-                       overhead_seconds=0.0, floor_seconds=0.0,
-                       relative_spread=relative_spread(values) if med > 0 else None, coverage=coverage,
-                       sample_seconds=tuple(float(v) for v in values), cold_cache=False,
-                       seconds_p10=p10, seconds_p10_low=p10_low, seconds_p10_high=p10_high)
+    return _summarise(np.asarray(seconds), settings.confidence, loops=1, overhead_seconds=0.0, floor_seconds=0.0,
+                      cold_cache=False)
 
 
 def measure(plan: Plan, x: np.ndarray, settings: TimerSettings | None = None, **overrides: Any) -> Measurement:
