@@ -13,7 +13,7 @@ and plain functions (numpy.fft) both fit:
 A backend declares what it can do in :class:`Capabilities`; the engine asks
 :meth:`Backend.unsupported_reason` before planning and turns a non-``None`` answer into a
 ``skip`` row. A new backend is a subclass of :class:`Backend` in one file, registered in
-:mod:`backends.registry` or under the entry-point group ``fftgauge.backends``.
+:mod:`fftgauge.backends.registry` or under the entry-point group ``fftgauge.backends``.
 
 Conventions every backend follows (those of numpy and the array API standard):
 
@@ -34,7 +34,7 @@ from typing import Any, Callable, Mapping
 
 import numpy as np
 
-from harness.cases import KINDS, NORMS, Case, is_power_of_two
+from fftgauge.harness.cases import KINDS, NORMS, Case, is_power_of_two
 
 
 @dataclass(frozen=True)

@@ -12,9 +12,9 @@ import time
 
 import numpy as np
 
-from backends.base import Backend, Capabilities, OptionSpec, Plan
-from harness.cases import DTYPES, Case
-from harness.errors import UsageError
+from fftgauge.backends.base import Backend, Capabilities, OptionSpec, Plan
+from fftgauge.harness.cases import DTYPES, Case
+from fftgauge.harness.errors import UsageError
 
 
 class BusyWaitPlan(Plan):

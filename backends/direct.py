@@ -34,10 +34,10 @@ from __future__ import annotations
 
 import numpy as np
 
-from backends.base import Backend, Capabilities, OpCount, Plan
-from harness import __version__
-from harness.cases import Case, norm_factor
-from harness.opcount import OperationTally
+from fftgauge.backends.base import Backend, Capabilities, OpCount, Plan
+from fftgauge import __version__
+from fftgauge.harness.cases import Case, norm_factor
+from fftgauge.harness.timing.opcount import OperationTally
 
 #: Largest size the direct DFT claims: O(N^2) time and memory traffic (a 4096-point
 #: transform gathers 16.8 million matrix entries).

@@ -1,6 +1,6 @@
 """An FFT in another program, spoken to over its stdin/stdout in a small binary protocol.
 
-SPEC (the part after ``exec:`` is parsed here; docs/external-backends.md has the full
+SPEC (the part after ``exec:`` is parsed here; docs/external-fftgauge.backends.md has the full
 reference, the protocol included)::
 
     exec:PROGRAM [ARG ...][key=value,...]
@@ -46,14 +46,14 @@ from typing import Any, BinaryIO
 
 import numpy as np
 
-from backends.base import Backend, Capabilities, OptionSpec, Plan
-from backends.shared_library import split_options
-from harness.cases import KINDS, NORMS, Case
-from harness.errors import BackendFailure, UsageError
+from fftgauge.backends.base import Backend, Capabilities, OptionSpec, Plan
+from fftgauge.backends.shared_library import split_options
+from fftgauge.harness.cases import KINDS, NORMS, Case
+from fftgauge.harness.errors import BackendFailure, UsageError
 
 SCHEME = "exec"
 
-# -- the protocol, version 1 (docs/external-backends.md, "The pipe protocol") ---------------
+# -- the protocol, version 1 (docs/external-fftgauge.backends.md, "The pipe protocol") ---------------
 
 PROTOCOL_VERSION = 1
 REQUEST_MAGIC = b"FGRQ"
@@ -710,7 +710,7 @@ def backend_from_spec(spec: str, rest: str) -> ExternalProgramBackend:
         executable, one that cannot be started, exits at once, never answers the hello
         (within ``start_timeout``) or answers it wrongly (garbage, another protocol version).
     """
-    from backends.registry import coerce_options
+    from fftgauge.backends.registry import coerce_options
 
     if os.name != "posix":
         raise UsageError(f"backend {spec!r}: exec: backends need a POSIX system (Linux, macOS)")

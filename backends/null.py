@@ -10,8 +10,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from backends.base import Backend, Capabilities, Plan
-from harness.cases import DTYPES, Case
+from fftgauge.backends.base import Backend, Capabilities, Plan
+from fftgauge.harness.cases import DTYPES, Case
 
 
 class NullPlan(Plan):

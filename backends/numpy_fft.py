@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from backends.base import Backend, Capabilities, FunctionPlan, Plan
-from harness.cases import Case
+from fftgauge.backends.base import Backend, Capabilities, FunctionPlan, Plan
+from fftgauge.harness.cases import Case
 
 
 class NumpyBackend(Backend):

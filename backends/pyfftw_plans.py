@@ -22,9 +22,9 @@ from typing import Any
 import numpy as np
 import pyfftw
 
-from backends.base import Backend, Capabilities, OptionSpec, Plan
-from harness.cases import Case, norm_factor
-from harness.errors import UsageError
+from fftgauge.backends.base import Backend, Capabilities, OptionSpec, Plan
+from fftgauge.harness.cases import Case, norm_factor
+from fftgauge.harness.errors import UsageError
 
 #: The ``effort`` option's values and the FFTW planner flag each one stands for.
 EFFORT_FLAGS = {"estimate": "FFTW_ESTIMATE", "measure": "FFTW_MEASURE", "patient": "FFTW_PATIENT"}
@@ -77,7 +77,7 @@ def _buffer(length: int, dtype: np.dtype, aligned: bool) -> np.ndarray:
 def _scale(case: Case) -> np.floating | None:
     """Return the factor FFTW's unscaled output is multiplied by, or None when it is 1.
 
-    Which side is scaled, and by what, is :func:`harness.cases.norm_factor`'s rule (the
+    Which side is scaled, and by what, is :func:`fftgauge.harness.cases.norm_factor`'s rule (the
     array API standard's ``norm``); the factor is evaluated here in the case's own real
     precision, so that a long-double transform is not scaled by a double.
     """
@@ -96,7 +96,7 @@ class PyfftwPlan(Plan):
 
     - the fast path, for timing: ``y = plan.execute(plan.prepare(x))`` runs FFTW on the
       prepared buffer with no copy and returns the plan's output buffer, which the next
-      call overwrites (as :class:`~backends.base.Plan` allows): copy it to keep it. Not for
+      call overwrites (as :class:`~fftgauge.backends.base.Plan` allows): copy it to keep it. Not for
       several threads at once (they would share the buffers).
     - any other array: ``plan.execute(x)`` copies ``x`` in, runs under the plan's lock and
       returns a fresh array, so it is safe from several threads at once.

@@ -39,7 +39,7 @@ Choices this reference makes (and documents):
   that is what a reference should be.
 - **Sizes**: powers of two only, up to :data:`MAX_N` (pure Python is slow).
 
-Counting mode: the same loops take an optional :class:`harness.opcount.OperationTally` and
+Counting mode: the same loops take an optional :class:`fftgauge.harness.timing.opcount.OperationTally` and
 increment it for every complex multiplication and addition they perform (a butterfly is 1
 complex multiplication by its twiddle and 2 complex additions, one of them a subtraction).
 With ``count_trivial=False`` the multiplication by W^0 = 1 is skipped (not performed and
@@ -57,10 +57,10 @@ import math
 
 import numpy as np
 
-from backends.base import Backend, Capabilities, OpCount, Plan
-from harness import __version__
-from harness.cases import Case, norm_factor
-from harness.opcount import OperationTally
+from fftgauge.backends.base import Backend, Capabilities, OpCount, Plan
+from fftgauge import __version__
+from fftgauge.harness.cases import Case, norm_factor
+from fftgauge.harness.timing.opcount import OperationTally
 
 #: Largest size the pure-Python reference claims: a 2**14-point transform is about
 #: 115,000 butterflies, a fraction of a second in CPython.

@@ -9,12 +9,12 @@ SPEC forms (see the contracts)::
     clib:...                  a C function in a shared library (backends/shared_library.py)
     exec:...                  an external program speaking a pipe protocol (backends/external_program.py)
 
-Any form may carry ``[key=value,...]``. ``attr`` is a :class:`~backends.base.Backend`
+Any form may carry ``[key=value,...]``. ``attr`` is a :class:`~fftgauge.backends.base.Backend`
 subclass, an instance of one, or a plain callable (wrapped by
-:class:`~backends.user_function.FunctionBackend`). Third-party packages register adapters
+:class:`~fftgauge.backends.user_function.FunctionBackend`). Third-party packages register adapters
 under the entry-point group ``fftgauge.backends``.
 
-Every problem with a SPEC raises :class:`~harness.errors.UsageError` with a one-line
+Every problem with a SPEC raises :class:`~fftgauge.harness.errors.UsageError` with a one-line
 message that names the bad part and says how to fix it.
 """
 
@@ -29,8 +29,8 @@ import sys
 from dataclasses import dataclass, field
 from typing import Any
 
-from backends.base import Backend, OptionSpec
-from harness.errors import UsageError
+from fftgauge.backends.base import Backend, OptionSpec
+from fftgauge.harness.errors import UsageError
 
 ENTRY_POINT_GROUP = "fftgauge.backends"
 
@@ -38,16 +38,16 @@ ENTRY_POINT_GROUP = "fftgauge.backends"
 #: module imports its library at the top, so a missing library shows up as an ImportError
 #: when the backend is loaded.
 BUILTINS: dict[str, tuple[str, str, str]] = {
-    "numpy": ("backends.numpy_fft", "NumpyBackend", "pip install numpy"),
-    "scipy": ("backends.scipy_fft", "ScipyBackend", "pip install scipy"),
-    "pyfftw": ("backends.pyfftw_plans", "PyfftwBackend", "pip install 'fftgauge[pyfftw]'"),
-    "radix2-dit": ("backends.radix2", "Radix2DitBackend", "reinstall fftgauge"),
-    "radix2-dif": ("backends.radix2", "Radix2DifBackend", "reinstall fftgauge"),
-    "direct": ("backends.direct", "DirectBackend", "reinstall fftgauge"),
+    "numpy": ("fftgauge.backends.numpy_fft", "NumpyBackend", "pip install numpy"),
+    "scipy": ("fftgauge.backends.scipy_fft", "ScipyBackend", "pip install scipy"),
+    "pyfftw": ("fftgauge.backends.pyfftw_plans", "PyfftwBackend", "pip install 'fftgauge[pyfftw]'"),
+    "radix2-dit": ("fftgauge.backends.radix2", "Radix2DitBackend", "reinstall fftgauge"),
+    "radix2-dif": ("fftgauge.backends.radix2", "Radix2DifBackend", "reinstall fftgauge"),
+    "direct": ("fftgauge.backends.direct", "DirectBackend", "reinstall fftgauge"),
     # Synthetic backends for the engine's own measurements (not FFTs; never in the defaults):
-    "null": ("backends.null", "NullBackend", "reinstall fftgauge"),
-    "busywait": ("backends.busywait", "BusyWaitBackend", "reinstall fftgauge"),
-    "slowed": ("backends.slowed", "SlowedBackend", "reinstall fftgauge"),
+    "null": ("fftgauge.backends.null", "NullBackend", "reinstall fftgauge"),
+    "busywait": ("fftgauge.backends.busywait", "BusyWaitBackend", "reinstall fftgauge"),
+    "slowed": ("fftgauge.backends.slowed", "SlowedBackend", "reinstall fftgauge"),
 }
 
 #: Built-ins that compute no transform (the timer's overhead floor, a backend of known cost).
@@ -57,8 +57,8 @@ SYNTHETIC_BACKENDS = ("null", "busywait")
 #: The function takes ``(spec, rest)`` and returns a Backend; it parses ``rest`` itself
 #: (its own syntax is documented in its module) and raises UsageError on bad input.
 SCHEMES: dict[str, tuple[str, str]] = {
-    "clib": ("backends.shared_library", "backend_from_spec"),
-    "exec": ("backends.external_program", "backend_from_spec"),
+    "clib": ("fftgauge.backends.shared_library", "backend_from_spec"),
+    "exec": ("fftgauge.backends.external_program", "backend_from_spec"),
 }
 
 #: The backends a command uses when no --backend is given (those available on this machine).
@@ -261,7 +261,7 @@ def _construct(spec: str, factory: Any, *args: Any, **kwargs: Any) -> Backend:
 
 def _from_object(parsed: ParsedSpec, obj: Any, extra: dict[str, Any]) -> Backend:
     """Return a backend for ``obj``: a Backend subclass, an instance of one, or a callable."""
-    from backends.user_function import FunctionBackend
+    from fftgauge.backends.user_function import FunctionBackend
 
     spec = parsed.text
     if isinstance(obj, type) and issubclass(obj, Backend):

@@ -7,9 +7,9 @@ from typing import Any
 import scipy
 import scipy.fft
 
-from backends.base import Backend, Capabilities, FunctionPlan, OptionSpec, Plan
-from harness.cases import Case
-from harness.errors import UsageError
+from fftgauge.backends.base import Backend, Capabilities, FunctionPlan, OptionSpec, Plan
+from fftgauge.harness.cases import Case
+from fftgauge.harness.errors import UsageError
 
 
 class ScipyBackend(Backend):
@@ -53,7 +53,7 @@ class ScipyBackend(Backend):
         return Capabilities(dtypes=("float32", "float64", "longdouble"), thread_option="workers")
 
     def plan(self, case: Case) -> Plan:
-        """Return a :class:`~backends.base.FunctionPlan` calling ``scipy.fft.<kind>``; no planning."""
+        """Return a :class:`~fftgauge.backends.base.FunctionPlan` calling ``scipy.fft.<kind>``; no planning."""
         fn = getattr(scipy.fft, case.kind)
         n, norm, workers = case.n, case.norm, self.opts["workers"]
         return FunctionPlan(case, lambda x: fn(x, n=n, norm=norm, workers=workers))

@@ -1,6 +1,6 @@
 """A C function in a shared library (``.so``, ``.dylib``, ``.dll``), called through ctypes.
 
-SPEC (the part after ``clib:`` is parsed here; docs/external-backends.md has the full
+SPEC (the part after ``clib:`` is parsed here; docs/external-fftgauge.backends.md has the full
 reference)::
 
     clib:PATH:SYMBOL[key=value,...]
@@ -43,10 +43,10 @@ from typing import Any
 
 import numpy as np
 
-from backends.base import Backend, Capabilities, OptionSpec, Plan
-from harness.cases import DTYPES, KINDS, NORMS, Case
-from backends.registry import parse_options
-from harness.errors import BackendFailure, UsageError
+from fftgauge.backends.base import Backend, Capabilities, OptionSpec, Plan
+from fftgauge.harness.cases import DTYPES, KINDS, NORMS, Case
+from fftgauge.backends.registry import parse_options
+from fftgauge.harness.errors import BackendFailure, UsageError
 
 SCHEME = "clib"
 
@@ -85,7 +85,7 @@ def split_options(spec: str, rest: str) -> tuple[str, dict[str, str]]:
     body, text = (m.group("body"), m.group("opts")) if m else (rest, None)
     body = body.strip()
     if not body:
-        raise UsageError(f"backend {spec!r}: nothing before the options; see docs/external-backends.md")
+        raise UsageError(f"backend {spec!r}: nothing before the options; see docs/external-fftgauge.backends.md")
     options = parse_options(spec, text)
     return body, options
 
@@ -452,7 +452,7 @@ def backend_from_spec(spec: str, rest: str) -> SharedLibraryBackend:
         Malformed SPEC, unknown option or value (``dtype=float16``, ``kind=blah``), a
         library that is missing or does not load, a function it does not export.
     """
-    from backends.registry import coerce_options
+    from fftgauge.backends.registry import coerce_options
 
     body, raw = split_options(spec, rest)
     path, symbol = parse_target(spec, body)

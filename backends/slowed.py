@@ -36,9 +36,9 @@ import time
 
 import numpy as np
 
-from backends.base import Backend, Capabilities, OptionSpec, Plan
-from harness.cases import Case
-from harness.errors import UsageError
+from fftgauge.backends.base import Backend, Capabilities, OptionSpec, Plan
+from fftgauge.harness.cases import Case
+from fftgauge.harness.errors import UsageError
 
 #: Spins measured to calibrate the busy-wait's overshoot, and the wait each one asks for.
 CALIBRATION_SPINS = 201
@@ -150,7 +150,7 @@ class SlowedBackend(Backend):
         if any(c in base_name for c in "[]:,=") or base_name == self.name:
             raise UsageError(f"backend slowed: option base={base_name!r} must be a plain backend name such as "
                              f"numpy or scipy")
-        from backends.registry import load_backend
+        from fftgauge.backends.registry import load_backend
 
         self.base = load_backend(base_name)
 
@@ -185,8 +185,8 @@ class SlowedBackend(Backend):
 
 def _base_seconds(plan: SlowedPlan) -> float:
     """Return the median per-call time of ``plan``'s base plan inside the wrapper (no busy-wait)."""
-    from harness.inputs import case_rng, random_input
-    from harness.timing import Timer, _gc_paused, _time_loops
+    from fftgauge.harness.battery.inputs import case_rng, random_input
+    from fftgauge.harness.timing.timer import Timer, _gc_paused, _time_loops
 
     x = plan.prepare(random_input(plan.case, case_rng(CALIBRATION_SEED, plan.case, "slowed-calibration")))
     fraction, plan.fraction = plan.fraction, 0.0

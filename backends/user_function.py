@@ -17,8 +17,8 @@ from typing import Any, Callable
 
 import numpy as np
 
-from backends.base import Backend, Capabilities, FunctionPlan, OptionSpec, Plan
-from harness.cases import DTYPES, KINDS, Case
+from fftgauge.backends.base import Backend, Capabilities, FunctionPlan, OptionSpec, Plan
+from fftgauge.harness.cases import DTYPES, KINDS, Case
 
 
 def _dtypes(text: str) -> tuple[str, ...]:

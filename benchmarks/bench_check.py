@@ -40,7 +40,7 @@ if __name__ == "__main__":
         load_before = _load()
         cpu_before = _children_cpu_seconds()
         started = time.perf_counter()
-        proc = subprocess.run([sys.executable, "-m", "harness.cli", "check", "--quiet", "--json", path],
+        proc = subprocess.run([sys.executable, "-m", "fftgauge", "check", "--quiet", "--json", path],
                               cwd=ROOT, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
         seconds = time.perf_counter() - started
         cpu_seconds = _children_cpu_seconds() - cpu_before

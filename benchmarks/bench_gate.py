@@ -1,6 +1,6 @@
 """Performance of the gate itself: false-alarm and detection rates on a slowed numpy.fft.
 
-The test backend :mod:`backends.slowed` wraps numpy.fft and adds x% of each call's measured
+The test backend :mod:`fftgauge.backends.slowed` wraps numpy.fft and adds x% of each call's measured
 duration as a busy-wait. For each configuration the script runs N consecutive gate runs
 (default 20) and counts the runs whose gate fails:
 
@@ -49,10 +49,10 @@ MODE_LABELS = {"ab": "A/B", "stored": "stored", "referenced": "referenced"}
 
 def gate_request(mode: str, percent: float, args: argparse.Namespace, folder: str | None, seed: int):
     """Return the GateRequest of one gate run of a configuration."""
-    from harness.affinity import choose_cpus, parse_pin
-    from harness.cmd_gate import load_stored_runs
-    from harness.gate import GateRequest, GateSettings
-    from harness.sizes import parse_sizes
+    from fftgauge.harness.timing.affinity import choose_cpus, parse_pin
+    from fftgauge.harness.cli.gate import load_stored_runs
+    from fftgauge.harness.gate.run import GateRequest, GateSettings
+    from fftgauge.harness.sizes import parse_sizes
 
     settings = GateSettings(budget_seconds=args.budget if mode != "record" else min(args.budget, 10.0), seed=seed,
                             analysis=args.analysis, processes=args.processes)
@@ -81,8 +81,8 @@ def gate_request(mode: str, percent: float, args: argparse.Namespace, folder: st
 
 def one_run(req: Any, save_to: str | None) -> dict[str, Any]:
     """Run one gate; return what the benchmark keeps of it."""
-    from harness.cmd_gate import save_run
-    from harness.gate import run_gate
+    from fftgauge.harness.cli.gate import save_run
+    from fftgauge.harness.gate.run import run_gate
 
     started = time.monotonic()
     doc = run_gate(req)
@@ -184,7 +184,7 @@ def report(configs: list[dict[str, Any]], runs: int) -> tuple[str, list[str]]:
 
 def main(argv: list[str] | None = None) -> int:
     """Run the benchmark; return 0."""
-    from harness.results import dumps, machine_fingerprint, write_text_atomic
+    from fftgauge.harness.results import dumps, machine_fingerprint, write_text_atomic
 
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     parser.add_argument("--runs", type=int, default=20, help="gate runs per configuration (default 20)")

@@ -3,11 +3,11 @@ the gate's several processes per side (harness/affinity.py, harness/gate_samplin
 
 For each size, ``--pairs-of-processes`` times, the script starts a fresh pair of worker
 processes running the *same* backend (numpy by default), interleaves ``--blocks`` block
-pairs of them exactly as the gate does (:class:`harness.gate_sampling.WorkerSampler` with one
-process per side) and prints the paired ratio (:func:`harness.gate.estimate_paired`). Since
+pairs of them exactly as the gate does (:class:`fftgauge.harness.gate.sampling.WorkerSampler` with one
+process per side) and prints the paired ratio (:func:`fftgauge.harness.gate.run.estimate_paired`). Since
 both sides run identical code, every ratio away from 1 is an effect of the processes: the
 CPU each was placed on, and where code and data landed in memory. The same is done with the
-whole run pinned to one CPU (:func:`harness.affinity.pinned`), alternating the two ways so
+whole run pinned to one CPU (:func:`fftgauge.harness.timing.affinity.pinned`), alternating the two ways so
 that machine drift hits both alike. The spread of the ratios across process pairs is what a
 gate built on a single pair of processes would mistake for a change.
 
@@ -26,9 +26,9 @@ sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 
 def one_pair(spec: str, n: int, blocks: int, seed: int) -> float:
     """Return the paired new/old ratio of one fresh pair of processes running ``spec`` at size ``n``."""
-    from harness.cases import Case
-    from harness.gate import estimate_paired
-    from harness.gate_sampling import WorkerSampler
+    from fftgauge.harness.cases import Case
+    from fftgauge.harness.gate.run import estimate_paired
+    from fftgauge.harness.gate.sampling import WorkerSampler
 
     class Item:
         case = Case("fft", "float64", n)
@@ -44,7 +44,7 @@ def one_pair(spec: str, n: int, blocks: int, seed: int) -> float:
 
 def main(argv: list[str] | None = None) -> int:
     """Run the comparison and print one line per size and placement; return 0."""
-    from harness.affinity import choose_cpus, pinned
+    from fftgauge.harness.timing.affinity import choose_cpus, pinned
 
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     parser.add_argument("--spec", default="numpy", help="backend on both sides (default numpy)")

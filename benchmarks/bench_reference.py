@@ -1,4 +1,4 @@
-"""Time the ground-truth transform (harness.reference) and print the figures.
+"""Time the ground-truth transform (fftgauge.harness.battery.reference) and print the figures.
 
 Run from the repository root:
 
@@ -20,9 +20,9 @@ import time
 
 import numpy as np
 
-from harness.cases import Case
-from harness.inputs import case_rng, random_input
-from harness.reference import reference_method, reference_transform
+from fftgauge.harness.cases import Case
+from fftgauge.harness.battery.inputs import case_rng, random_input
+from fftgauge.harness.battery.reference import reference_method, reference_transform
 
 TARGET_SECONDS = 2.0
 

@@ -29,10 +29,10 @@ sys.path.insert(0, ROOT)
 
 def overhead() -> None:
     """Timer median against a bare timeit loop over the same plan, in this process."""
-    from backends.registry import load_backend
-    from harness.cases import Case
-    from harness.inputs import case_rng, random_input
-    from harness.timing import Timer, TimerSettings
+    from fftgauge.backends.registry import load_backend
+    from fftgauge.harness.cases import Case
+    from fftgauge.harness.battery.inputs import case_rng, random_input
+    from fftgauge.harness.timing.timer import Timer, TimerSettings
 
     backend = load_backend("pyfftw")
     print("overhead: pyfftw fft float64, timer median vs bare timeit median (same plan, same process)")
@@ -56,7 +56,7 @@ def overhead() -> None:
 
 def _fftgauge(*args: str) -> float:
     started = time.perf_counter()
-    subprocess.run([sys.executable, "-m", "harness.cli", *args], cwd=ROOT, check=False,
+    subprocess.run([sys.executable, "-m", "fftgauge", *args], cwd=ROOT, check=False,
                    stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
     return time.perf_counter() - started
 

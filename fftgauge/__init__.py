@@ -12,17 +12,47 @@ Examples
 
 from __future__ import annotations
 
-from typing import Sequence
+__version__ = "0.2.0"
 
-from backends.registry import list_backends, load_backend
-from harness import __version__
-from harness.cases import DTYPES, KINDS, NORMS, Case
+
+def _map_source_folders() -> None:
+    """In a source checkout, make ``fftgauge.harness`` and ``fftgauge.backends`` the
+    repository-root folders ``harness/`` and ``backends/``.
+
+    An installed wheel holds them inside this package (setuptools ``package-dir``), and
+    nothing is changed. Run from a checkout (``python -m pytest`` at the repository root
+    puts the root first on ``sys.path``, so this folder is imported, not the installed
+    copy), the two folders sit beside this one; the root is added to this package's
+    ``__path__`` only when it holds this project's ``pyproject.toml``, so an unrelated
+    ``harness/`` next to an installed copy is never picked up.
+    """
+    import os
+
+    here = os.path.dirname(os.path.abspath(__file__))
+    if os.path.isdir(os.path.join(here, "harness")):
+        return
+    root = os.path.dirname(here)
+    try:
+        with open(os.path.join(root, "pyproject.toml"), encoding="utf-8") as f:
+            ours = 'name = "fftgauge"' in f.read()
+    except OSError:
+        return
+    if ours and all(os.path.isfile(os.path.join(root, d, "__init__.py")) for d in ("harness", "backends")):
+        __path__.append(root)  # noqa: F821 - a package's own __path__
+
+
+_map_source_folders()
+
+from typing import Sequence  # noqa: E402
+
+from fftgauge.backends.registry import list_backends, load_backend  # noqa: E402
+from fftgauge.harness.cases import DTYPES, KINDS, NORMS, Case
 
 __all__ = ["__version__", "Case", "check", "list_backends", "load_backend"]
 
 
 def _as_tuple(value: str | Sequence[str] | None, allowed: Sequence[str], what: str) -> tuple[str, ...] | None:
-    from harness.cli import parse_choice_list
+    from fftgauge.harness.cli import parse_choice_list
 
     if value is None or isinstance(value, str):
         return parse_choice_list(value, allowed, what)
@@ -41,14 +71,14 @@ def check(backends: Sequence[str] | None = None, sizes: str = "@default", kinds=
 
     Raises
     ------
-    harness.errors.UsageError
+    fftgauge.harness.errors.UsageError
         For an unknown backend, a malformed size list or an unknown kind/dtype/check.
     """
-    from backends.registry import default_specs
-    from harness.battery import BatteryRequest, run_battery
-    from harness.check_report import rows_frame
-    from harness.checks import CHECKS
-    from harness.sizes import parse_sizes
+    from fftgauge.backends.registry import default_specs
+    from fftgauge.harness.battery.run import BatteryRequest, run_battery
+    from fftgauge.harness.report.check_tables import rows_frame
+    from fftgauge.harness.battery.checks import CHECKS
+    from fftgauge.harness.sizes import parse_sizes
 
     req = BatteryRequest(
         specs=tuple(backends) if backends else tuple(default_specs()),

@@ -1,7 +1,5 @@
 """fftgauge's engine: cases, inputs, ground truth, checks, timing, statistics, gate, results.
 
 Nothing in this package imports a particular FFT library; every library-specific line
-lives in :mod:`backends`.
+lives in :mod:`fftgauge.backends`.
 """
-
-__version__ = "0.1.0"

@@ -18,7 +18,7 @@ Parametrised battery
 test per case, each named like ``fft-float64-1024``::
 
     import pytest
-    from harness.pytest_plugin import battery_params
+    from fftgauge.harness.pytest_plugin import battery_params
 
     @pytest.mark.parametrize("case", battery_params("my_fft.py:fft", sizes="1..64,2^7..2^12"))
     def test_my_fft(fftgauge_check, case):
@@ -31,7 +31,7 @@ from typing import Any, Callable, Sequence
 
 import pytest
 
-from harness.cases import Case
+from fftgauge.harness.cases import Case
 
 
 def battery_params(spec: str, sizes: str = "@default", kinds: Sequence[str] | None = None,
@@ -40,11 +40,11 @@ def battery_params(spec: str, sizes: str = "@default", kinds: Sequence[str] | No
 
     Raises
     ------
-    harness.errors.UsageError
+    fftgauge.harness.errors.UsageError
         For a malformed size list or a SPEC that does not load (at collection time).
     """
-    from backends.registry import load_backend
-    from harness.sizes import parse_sizes
+    from fftgauge.backends.registry import load_backend
+    from fftgauge.harness.sizes import parse_sizes
 
     backend = load_backend(spec)
     kinds = kinds or backend.capabilities().kinds
@@ -63,8 +63,8 @@ def _failure_text(rows: list) -> str:
 def fftgauge_check() -> Callable[..., list]:
     """Return ``check(spec, case, checks=None, seed=1234)``: run the battery on one case and
     fail the test (with each failing check's diagnosis) unless every check passes or skips."""
-    from backends.registry import load_backend
-    from harness.checks import check_case
+    from fftgauge.backends.registry import load_backend
+    from fftgauge.harness.battery.checks import check_case
 
     def check(spec: str, case: Case, checks: Sequence[str] | None = None, seed: int = 1234) -> list:
         rows = check_case(load_backend(spec), case, seed, list(checks) if checks else None)
@@ -80,8 +80,8 @@ def fftgauge_check() -> Callable[..., list]:
 def fftgauge_timer(request: pytest.FixtureRequest) -> Callable[..., Any]:
     """Return ``timer(spec, kind="fft", n=1024, dtype="float64", seed=1234)``, which times one
     planned case through pytest-benchmark's ``benchmark`` fixture (planning not timed)."""
-    from backends.registry import load_backend
-    from harness.inputs import case_rng, random_input
+    from fftgauge.backends.registry import load_backend
+    from fftgauge.harness.battery.inputs import case_rng, random_input
 
     benchmark = request.getfixturevalue("benchmark")
 

@@ -19,8 +19,8 @@ import threading
 import time
 from typing import Any, Iterable
 
-from harness import __version__
-from harness.errors import UsageError
+from fftgauge import __version__
+from fftgauge.harness.errors import UsageError
 
 
 def write_text_atomic(path: str, text: str) -> None:

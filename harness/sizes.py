@@ -16,7 +16,7 @@ import re
 
 import numpy as np
 
-from harness.errors import UsageError
+from fftgauge.harness.errors import UsageError
 
 #: Sizes above this are refused: a single complex128 array would need more than 16 GiB.
 MAX_SIZE = 2**30

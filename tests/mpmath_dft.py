@@ -13,7 +13,7 @@ import functools
 import mpmath
 import numpy as np
 
-from harness.cases import DTYPES, KINDS, Case
+from fftgauge.harness.cases import DTYPES, KINDS, Case
 
 
 def signal(case: Case) -> np.ndarray:

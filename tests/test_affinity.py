@@ -10,8 +10,8 @@ from collections import Counter
 
 import pytest
 
-from harness.affinity import allowed_cpus, choose_cpus, parse_pin, pinned
-from harness.errors import UsageError
+from fftgauge.harness.timing.affinity import allowed_cpus, choose_cpus, parse_pin, pinned
+from fftgauge.harness.errors import UsageError
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
 needs_affinity = pytest.mark.skipif(allowed_cpus() is None, reason="this platform cannot pin processes to CPUs")
@@ -69,8 +69,8 @@ def test_pinned_restores_the_previous_set_and_children_inherit_it():
 def test_gate_workers_run_on_the_pinned_cpu_and_blocks_use_every_process():
     """Every worker the sampler starts inside the pinned block runs on the pinned CPU, and
     the blocks of a side are drawn from each of its processes."""
-    from harness.cases import Case
-    from harness.gate_sampling import WorkerSampler
+    from fftgauge.harness.cases import Case
+    from fftgauge.harness.gate.sampling import WorkerSampler
 
     class Item:
         case = Case("fft", "float64", 64)
@@ -103,7 +103,7 @@ def test_gate_workers_run_on_the_pinned_cpu_and_blocks_use_every_process():
 
 
 def test_bad_pin_cpu_is_a_usage_error_with_exit_2():
-    out = subprocess.run([sys.executable, "-m", "harness.cli", "time", "--backend", "numpy", "--sizes", "16",
+    out = subprocess.run([sys.executable, "-m", "fftgauge", "time", "--backend", "numpy", "--sizes", "16",
                           "--pin-cpu", "fast", "--quiet"], capture_output=True, text=True, cwd=ROOT)
     assert out.returncode == 2
     assert "--pin-cpu 'fast'" in out.stderr and "Traceback" not in out.stderr

@@ -2,7 +2,7 @@
 make it quick without changing what they measure (harness/checks.py).
 
 Sources: exact integer arithmetic (Python integers, numpy int64) for the exact circular
-convolution; the in-process :func:`harness.checks.check_case` for what the worker
+convolution; the in-process :func:`fftgauge.harness.battery.checks.check_case` for what the worker
 processes must report; threadpoolctl's own report for the BLAS thread cap.
 """
 
@@ -15,9 +15,10 @@ import numpy as np
 import psutil
 import pytest
 
-from backends.registry import load_backend
-from harness import battery, checks
-from harness.cases import Case
+from fftgauge.backends.registry import load_backend
+from fftgauge.harness.battery import run as battery
+from fftgauge.harness.battery import checks
+from fftgauge.harness.cases import Case
 
 
 def _spawned_workers() -> set[int]:
@@ -179,7 +180,7 @@ def test_batch_queue_keeps_lanes_on_their_backend_largest_size_first():
 def test_case_job_caps_blas_threads_in_the_worker(tmp_path, monkeypatch):
     """After a battery job, the worker's BLAS pools report the cap (threadpoolctl's report);
     the rows are those of the in-process check."""
-    from harness.worker import Worker
+    from fftgauge.harness.execution.worker import Worker
 
     (tmp_path / "blas_report.py").write_text(textwrap.dedent('''
         def blas_threads(backend):
@@ -229,7 +230,7 @@ def test_battery_rows_equal_the_in_process_checks():
 # -- rows to the results file -------------------------------------------------------------------
 
 def test_row_sink_hands_every_row_to_the_writer_in_order(tmp_path):
-    from harness.results import ResultsWriter
+    from fftgauge.harness.results import ResultsWriter
 
     doc = {"schema": "x", "rows": []}
     writer = ResultsWriter(str(tmp_path / "r.json"), doc, min_interval_seconds=0.0)

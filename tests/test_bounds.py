@@ -1,4 +1,4 @@
-"""Tests of harness.bounds: the formulas by hand, no false alarms on real libraries, and detection.
+"""Tests of fftgauge.harness.battery.bounds: the formulas by hand, no false alarms on real libraries, and detection.
 
 Sources (as the project's check-value list names them):
 - "IEEE Std 754-2019": unit roundoff u = 2^-24 (binary32), 2^-53 (binary64), eps = 2u.
@@ -11,7 +11,7 @@ Sources (as the project's check-value list names them):
   much faster with N (measured below: the recurrence-twiddle FFT exceeds the bound from
   N = 2^10 on, by about 6x at 2^10, 20x at 2^12, 100x at 2^14, 200x at 2^16, while the same
   code with accurate twiddles stays near 0.05 of it).
-Ground truth: harness.reference (scipy.fft on clongdouble / double-double), itself checked
+Ground truth: fftgauge.harness.battery.reference (scipy.fft on clongdouble / double-double), itself checked
 against mpmath in tests/test_reference.py.
 """
 
@@ -24,7 +24,7 @@ import numpy as np
 import pytest
 import scipy.fft
 
-from harness.bounds import (
+from fftgauge.harness.battery.bounds import (
     accuracy_limit,
     effective_stages,
     eps_units,
@@ -34,9 +34,9 @@ from harness.bounds import (
     machine_epsilon,
     unit_roundoff,
 )
-from harness.cases import Case
-from harness.inputs import case_rng, random_input
-from harness.reference import reference_transform
+from fftgauge.harness.cases import Case
+from fftgauge.harness.battery.inputs import case_rng, random_input
+from fftgauge.harness.battery.reference import reference_transform
 
 pyfftw_fft = pytest.importorskip("pyfftw.interfaces.numpy_fft")
 

@@ -22,13 +22,13 @@ import mpmath
 import numpy as np
 import pytest
 
-from backends.registry import load_backend
-from harness import checks
-from harness.cases import Case, norm_factor
-from harness.checks import CHECKS, applicable_checks, check_case, run_case_checks
-from harness.errors import UsageError
-from harness.rows import DIAGNOSES, STATUSES
-from harness.sizes import parse_sizes
+from fftgauge.backends.registry import load_backend
+from fftgauge.harness.battery import checks
+from fftgauge.harness.cases import Case, norm_factor
+from fftgauge.harness.battery.checks import CHECKS, applicable_checks, check_case, run_case_checks
+from fftgauge.harness.errors import UsageError
+from fftgauge.harness.rows import DIAGNOSES, STATUSES
+from fftgauge.harness.sizes import parse_sizes
 
 BROKEN = str(Path(__file__).parent / "data" / "broken_ffts.py")
 
@@ -296,7 +296,7 @@ def test_pairs_use_the_closed_forms():
 
 def test_pair_setup_for_inverse_and_real_kinds():
     """ifft uses conj(signal) -> conj(transform); irfft the duality half(conj(X)) -> N x[-n]."""
-    from harness.pairs import pair_named
+    from fftgauge.harness.battery.pairs import pair_named
 
     pair = pair_named("rect-dirichlet")
     n = 12
@@ -374,9 +374,9 @@ def test_applicable_checks():
 
 def test_runs_in_a_worker_process():
     """The job function is importable and picklable in the worker's child process."""
-    from harness.worker import Worker
+    from fftgauge.harness.execution.worker import Worker
 
     with Worker("numpy") as worker:
-        rows = worker.call("harness.checks:run_case_checks", ("fft", "float64", 32, "backward"), 1,
+        rows = worker.call("fftgauge.harness.battery.checks:run_case_checks", ("fft", "float64", 32, "backward"), 1,
                            ["accuracy", "concurrent"], timeout_seconds=60)
     assert [(r["check"], r["status"]) for r in rows] == [("accuracy", "pass"), ("concurrent", "pass")]

@@ -10,8 +10,8 @@ import textwrap
 from pathlib import Path
 
 
-from backends.registry import BUILTINS
-from harness.cli import main
+from fftgauge.backends.registry import BUILTINS
+from fftgauge.harness.cli import main
 
 REPO_ROOT = Path(__file__).resolve().parent.parent
 LIBRARY_BACKENDS = ("numpy", "scipy", "pyfftw")
@@ -33,7 +33,7 @@ def _listed(stdout: str) -> dict[str, str]:
 
 def _run_cli(*args: str, cwd: Path = REPO_ROOT, env_extra: dict | None = None) -> subprocess.CompletedProcess:
     env = {**os.environ, "PYTHONPATH": str(REPO_ROOT), **(env_extra or {})}
-    return subprocess.run([sys.executable, "-m", "harness.cli", *args], cwd=cwd, env=env,
+    return subprocess.run([sys.executable, "-m", "fftgauge", *args], cwd=cwd, env=env,
                           capture_output=True, text=True, timeout=120)
 
 
@@ -66,7 +66,7 @@ def test_json_to_stdout_has_the_schema(capsys):
 
 
 def test_json_to_a_file(tmp_path, capsys):
-    path = tmp_path / "out" / "backends.json"
+    path = tmp_path / "out" / "fftgauge.backends.json"
     assert main(["backends", "--json", str(path)]) == 0
     doc = json.loads(path.read_text(encoding="utf-8"))
     assert doc["schema"] == "fftgauge-backends/1"
@@ -112,8 +112,8 @@ def test_users_own_file_from_the_command_line(tmp_path, write_module):
     """))
     script = textwrap.dedent("""
         import numpy as np
-        from backends.registry import load_backend
-        from harness.cases import Case
+        from fftgauge.backends.registry import load_backend
+        from fftgauge.harness.cases import Case
         b = load_backend("my_fft.py:fft")
         x = np.arange(8) + 1j
         y = b.plan(Case("fft", "float64", 8)).execute(x)
@@ -127,8 +127,8 @@ def test_users_own_file_from_the_command_line(tmp_path, write_module):
 
 
 def test_users_own_file_in_process(tmp_path, write_module, monkeypatch):
-    from backends.registry import load_backend
-    from harness.cases import Case
+    from fftgauge.backends.registry import load_backend
+    from fftgauge.harness.cases import Case
 
     import numpy as np
 

@@ -14,11 +14,11 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from backends.registry import load_backend
-from harness.cases import Case
-from harness.checks import check_case
-from harness.diagnosis import bit_reversal_permutation, diagnose, diagnose_round_trip, factor_name
-from harness.inputs import case_rng, random_input
+from fftgauge.backends.registry import load_backend
+from fftgauge.harness.cases import Case
+from fftgauge.harness.battery.checks import check_case
+from fftgauge.harness.battery.diagnosis import bit_reversal_permutation, diagnose, diagnose_round_trip, factor_name
+from fftgauge.harness.battery.inputs import case_rng, random_input
 
 BROKEN = str(Path(__file__).parent / "data" / "broken_ffts.py")
 

@@ -19,10 +19,10 @@ import mpmath
 import numpy as np
 import pytest
 
-import backends.direct as direct_module
-from backends.direct import MAX_N, DirectBackend
-from backends.registry import load_backend
-from harness.cases import DTYPES, KINDS, NORMS, Case
+import fftgauge.backends.direct as direct_module
+from fftgauge.backends.direct import MAX_N, DirectBackend
+from fftgauge.backends.registry import load_backend
+from fftgauge.harness.cases import DTYPES, KINDS, NORMS, Case
 from mpmath_dft import relative_error_vs_mpmath, signal
 
 BACKEND = DirectBackend()

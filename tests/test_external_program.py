@@ -5,13 +5,13 @@ The C server is built with the system C compiler into a temporary folder (skippe
 reason, when there is none). Outside checks, with their sources:
 
 - results against numpy.fft (check-values.md: numpy.fft, "an independent double-precision
-  implementation (not ground truth)") within twice ``harness.bounds.accuracy_limit`` (both
+  implementation (not ground truth)") within twice ``fftgauge.harness.battery.bounds.accuracy_limit`` (both
   are within the limit of the exact transform: Higham, Accuracy and Stability of Numerical
   Algorithms, 2nd ed., SIAM 2002, Theorem 24.2 (from memory); triangle inequality);
 - the broken server's output equals numpy's in bit-reversed order (common practice: the
   definition of bit reversal);
 - the protocol's byte layout: the Python test servers are written from the specification
-  in docs/external-backends.md with their own struct layouts, and the request header is
+  in docs/external-fftgauge.backends.md with their own struct layouts, and the request header is
   checked here byte by byte against that specification.
 
 Every misbehaviour runs under short timeouts; pytest-timeout stops a test that hangs, and
@@ -34,11 +34,11 @@ import numpy as np
 import psutil
 import pytest
 
-from backends.external_program import (ExternalProgramBackend, ProgramExited, ProgramStatus, ProgramTimeout,
+from fftgauge.backends.external_program import (ExternalProgramBackend, ProgramExited, ProgramStatus, ProgramTimeout,
                                        ProtocolError, encode_hello, encode_transform)
-from backends.registry import load_backend
-from harness.cases import Case
-from harness.errors import BackendFailure, UsageError
+from fftgauge.backends.registry import load_backend
+from fftgauge.harness.cases import Case
+from fftgauge.harness.errors import BackendFailure, UsageError
 
 ROOT = Path(__file__).resolve().parent.parent
 EXAMPLE = ROOT / "examples" / "c_radix2"
@@ -121,7 +121,7 @@ def relative_error(y: np.ndarray, ref: np.ndarray) -> float:
 
 
 def accuracy_limit(case: Case) -> float:
-    from harness.bounds import accuracy_limit as limit
+    from fftgauge.harness.battery.bounds import accuracy_limit as limit
     return limit(case)
 
 
@@ -133,7 +133,7 @@ def bit_reversal(n: int) -> np.ndarray:
 # -- the protocol's bytes ----------------------------------------------------------------------
 
 def test_request_headers_match_the_specification() -> None:
-    # docs/external-backends.md: magic "FGRQ", u16 version 1, u16 op, u8 kind, u8 precision,
+    # docs/external-fftgauge.backends.md: magic "FGRQ", u16 version 1, u16 op, u8 kind, u8 precision,
     # u8 norm, u8 reserved, u32 count, u64 n, u64 payload bytes; little-endian, 32 bytes.
     assert encode_hello() == b"FGRQ" + bytes([1, 0, 1, 0]) + bytes(24)
     header = encode_transform(Case("irfft", "float32", 1024, "ortho"), 3, 3 * 513 * 8)
@@ -204,7 +204,7 @@ def test_c_server_refuses_unsupported_requests_and_stays_up(c_servers: Path, no_
 
 @pytest.mark.timeout(120)
 def test_c_server_passes_the_battery(c_servers: Path, no_leftovers) -> None:
-    checks = pytest.importorskip("harness.checks")
+    checks = pytest.importorskip("fftgauge.harness.battery.checks")
     backend = load_backend(f"exec:{c_servers / 'radix2_server'}")
     try:
         for kind in ("fft", "ifft", "rfft", "irfft"):
@@ -232,7 +232,7 @@ def test_broken_c_server_is_caught(c_servers: Path, no_leftovers) -> None:
 
 @pytest.mark.timeout(60)
 def test_the_battery_diagnoses_the_broken_server_as_bit_reversed(c_servers: Path, no_leftovers) -> None:
-    checks = pytest.importorskip("harness.checks")
+    checks = pytest.importorskip("fftgauge.harness.battery.checks")
     backend = load_backend(f"exec:{c_servers / 'radix2_server_broken'}")
     try:
         rows = checks.run_case_checks(backend, ("fft", "float64", 1024, "backward"), 1234, ["accuracy"])
@@ -243,13 +243,13 @@ def test_the_battery_diagnoses_the_broken_server_as_bit_reversed(c_servers: Path
 
 @pytest.mark.timeout(120)
 def test_runs_in_a_worker_process(c_servers: Path, no_leftovers) -> None:
-    worker_mod = pytest.importorskip("harness.worker")
+    worker_mod = pytest.importorskip("fftgauge.harness.execution.worker")
     case = Case("ifft", "float32", 256)
     x = signal_for(case)
     worker = worker_mod.Worker(f"exec:{c_servers / 'radix2_server'}")
     try:
-        y = worker.call("harness.worker:plan_and_execute", case, x, timeout_seconds=60)
-        d = worker.call("harness.worker:describe_backend", timeout_seconds=60)
+        y = worker.call("fftgauge.harness.execution.worker:plan_and_execute", case, x, timeout_seconds=60)
+        d = worker.call("fftgauge.harness.execution.worker:describe_backend", timeout_seconds=60)
     finally:
         worker.close()
     assert relative_error(y, numpy_result(case, x)) <= 2 * accuracy_limit(case)
@@ -385,8 +385,8 @@ def test_a_timeout_kills_the_programs_own_children(no_leftovers) -> None:
 
 @pytest.mark.timeout(60)
 def test_misbehaviour_in_a_worker_becomes_error_rows(no_leftovers) -> None:
-    battery = pytest.importorskip("harness.battery")
-    pytest.importorskip("harness.worker")
+    battery = pytest.importorskip("fftgauge.harness.battery.run")
+    pytest.importorskip("fftgauge.harness.execution.worker")
     req = battery.BatteryRequest(specs=(server_spec("wrong-length", "timeout=1,start_timeout=20"),),
                                  kinds=("fft",), dtypes=("float64",), sizes=(8,), checks=("accuracy", "shape"),
                                  timeout_seconds=60)
@@ -406,12 +406,12 @@ def processes_with(marker: str) -> list[psutil.Process]:
 
 @pytest.mark.timeout(60)
 def test_a_hung_program_does_not_outlive_a_killed_worker(no_leftovers) -> None:
-    worker_mod = pytest.importorskip("harness.worker")
+    worker_mod = pytest.importorskip("fftgauge.harness.execution.worker")
     marker = f"fftgauge-test-{uuid.uuid4().hex}"  # an extra argument the server ignores
     worker = worker_mod.Worker(server_spec(f"hang {marker}", "timeout=60,start_timeout=20"))
     try:
         with pytest.raises(BackendFailure, match="did not finish within 3 s"):
-            worker.call("harness.worker:plan_and_execute", Case("fft", "float64", 8), np.zeros(8, complex),
+            worker.call("fftgauge.harness.execution.worker:plan_and_execute", Case("fft", "float64", 8), np.zeros(8, complex),
                         timeout_seconds=3)
     finally:
         worker.close()
@@ -450,7 +450,7 @@ def test_missing_or_not_executable_programs_are_usage_errors(tmp_path: Path, no_
 
 
 def test_cli_bad_exec_spec_exits_2_with_one_line(tmp_path: Path) -> None:
-    proc = subprocess.run([sys.executable, "-m", "harness.cli", "check", "--backend",
+    proc = subprocess.run([sys.executable, "-m", "fftgauge", "check", "--backend",
                            f"exec:{tmp_path / 'nope'} --fast", "--sizes", "8", "--quiet"],
                           capture_output=True, text=True, timeout=120, cwd=ROOT)
     assert proc.returncode == 2
@@ -471,7 +471,7 @@ def test_program_is_never_run_through_a_shell(tmp_path: Path, no_leftovers) -> N
 
 def test_the_timer_uses_the_programs_own_time_when_it_reports_one():
     """A program that reports its own elapsed time is timed by that time, and the row says so."""
-    from harness.timing import time_case
+    from fftgauge.harness.timing.timer import time_case
 
     backend = load_backend(server_spec("ok"))
     try:

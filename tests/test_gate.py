@@ -9,9 +9,9 @@ import numpy as np
 import pytest
 from scipy import stats as sps
 
-from harness import cli
-from harness.gate import decide, estimate_ab, holm_adjusted, is_conclusive, timing_verdict
-from harness.stats import holm_bonferroni, mann_whitney_p
+from fftgauge.harness import cli
+from fftgauge.harness.gate.run import decide, estimate_ab, holm_adjusted, is_conclusive, timing_verdict
+from fftgauge.harness.stats import holm_bonferroni, mann_whitney_p
 
 RNG = np.random.default_rng(20261202)
 
@@ -105,7 +105,7 @@ def test_a_crashing_backend_still_writes_the_summary_and_exits_1(tmp_path):
 
 
 def _stored_run(path, seconds, p10, yard=None):
-    from harness.gate import StoredRun
+    from fftgauge.harness.gate.run import StoredRun
 
     row = {"backend": "numpy", "kind": "fft", "dtype": "float64", "n": 1024, "norm": "backward",
            "seconds": seconds, "seconds_low": seconds * 0.98, "seconds_high": seconds * 1.02}
@@ -119,8 +119,8 @@ def test_stored_mode_compares_10th_percentiles_when_every_run_has_them():
     """A baseline recorded on a loaded machine (medians 30% above the fast samples) against a
     candidate measured on a quiet one: the medians would read 0.77, the 10th percentiles
     (what load moves least) read about 1."""
-    from harness.cases import Case
-    from harness.gate import baseline_for, estimate_stored
+    from fftgauge.harness.cases import Case
+    from fftgauge.harness.gate.run import baseline_for, estimate_stored
 
     case = Case("fft", "float64", 1024)
     runs = [_stored_run(f"r{i}", 13e-6 * (1 + 0.01 * i), 10e-6 * (1 + 0.005 * i)) for i in range(3)]
@@ -140,9 +140,9 @@ def test_stored_mode_compares_10th_percentiles_when_every_run_has_them():
 
 
 def test_stored_mode_yardstick_statistic_follows_its_records():
-    from harness.cases import Case
-    from harness.gate import baseline_for, estimate_stored
-    from harness.yardstick import YARDSTICK_ROUNDS, YARDSTICK_VERSION, summarise
+    from fftgauge.harness.cases import Case
+    from fftgauge.harness.gate.run import baseline_for, estimate_stored
+    from fftgauge.harness.gate.yardstick import YARDSTICK_ROUNDS, YARDSTICK_VERSION, summarise
 
     yard = summarise([1e-3 * (1 + 0.001 * k) for k in range(40)])
     assert yard["version"] == YARDSTICK_VERSION and yard["rounds"] == YARDSTICK_ROUNDS
@@ -189,8 +189,8 @@ def test_referenced_mode_needs_stored_ratios(tmp_path, capsys):
 
 
 def test_ratio_baseline_prefers_ab_ratio_and_reads_older_ab_rows():
-    from harness.cases import Case
-    from harness.gate import StoredRun, estimate_referenced, estimate_paired, ratio_baseline_for
+    from fftgauge.harness.cases import Case
+    from fftgauge.harness.gate.run import StoredRun, estimate_referenced, estimate_paired, ratio_baseline_for
 
     def run(path, **fields):
         row = {"backend": "mine", "baseline_backend": "numpy", "kind": "fft", "dtype": "float64", "n": 64,

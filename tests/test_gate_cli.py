@@ -4,8 +4,8 @@ import json
 
 import pytest
 
-from harness import cli
-from harness.results import envelope
+from fftgauge.harness import cli
+from fftgauge.harness.results import envelope
 
 
 @pytest.fixture

@@ -1,4 +1,4 @@
-"""Tests of harness.inputs (seeded inputs, structured signals) and harness.pairs (closed forms).
+"""Tests of fftgauge.harness.battery.inputs (seeded inputs, structured signals) and fftgauge.harness.battery.pairs (closed forms).
 
 Every closed form is checked against a 50-digit direct DFT in mpmath of the stored signal
 ("mpmath (arbitrary precision): direct DFT at 50 digits for small N", the project's
@@ -18,12 +18,12 @@ import mpmath
 import numpy as np
 import pytest
 
-from harness.bounds import accuracy_limit
-from harness.cases import Case
-from harness.errors import UsageError
-from harness import inputs
-from harness.inputs import case_rng, random_input, root_of_unity
-from harness.pairs import (
+from fftgauge.harness.battery.bounds import accuracy_limit
+from fftgauge.harness.cases import Case
+from fftgauge.harness.errors import UsageError
+from fftgauge.harness.battery import inputs
+from fftgauge.harness.battery.inputs import case_rng, random_input, root_of_unity
+from fftgauge.harness.battery.pairs import (
     CLOSED_FORM_UNITS,
     PAIRS,
     chirp_dft,
@@ -51,7 +51,7 @@ def test_case_rng_is_deterministic_and_separates_its_arguments():
 
 def test_case_rng_is_the_same_in_another_process():
     """The string hashes are stable across processes (Python's hash() is salted per process)."""
-    code = ("from harness.cases import Case; from harness.inputs import case_rng; "
+    code = ("from fftgauge.harness.cases import Case; from fftgauge.harness.battery.inputs import case_rng; "
             "print(repr(case_rng(5, Case('rfft', 'float32', 100, 'ortho'), 'x').integers(0, 2**62, 3).tolist()))")
     outs = set()
     for salt in ("1", "2"):
@@ -177,7 +177,7 @@ PAIR_SIZES = (1, 2, 3, 4, 5, 6, 7, 8, 9, 12, 13, 16, 17, 31)
 
 @pytest.mark.parametrize("pair", PAIRS, ids=[p.name for p in PAIRS])
 def test_closed_form_matches_a_50_digit_direct_dft(pair):
-    """Each closed form (sources in harness.pairs; several "from memory") verified numerically.
+    """Each closed form (sources in fftgauge.harness.battery.pairs; several "from memory") verified numerically.
 
     The closed form must equal the 50-digit DFT of the stored signal to within
     CLOSED_FORM_UNITS units of 2^-53, relative to norm2(X), in the pair's compare mode.
@@ -288,7 +288,7 @@ def test_pair_bookkeeping():
     with pytest.raises(KeyError):
         pair_named("sawtooth")
     # The Dirichlet kernel's L = N limit: the n = 1 pulse fills the signal; bins k > 0 vanish.
-    from harness.pairs import dirichlet_dft
+    from fftgauge.harness.battery.pairs import dirichlet_dft
     full = dirichlet_dft(6, 6)
     assert full[0] == 6 and np.all(full[1:] == 0)
     # chirp_dft at n = 1 is the single value 1.
@@ -297,9 +297,9 @@ def test_pair_bookkeeping():
 
 @pytest.mark.parametrize("pair", PAIRS, ids=[p.name for p in PAIRS])
 def test_closed_form_against_the_reference_at_large_n(pair):
-    """Against harness.reference (scipy.fft on clongdouble, or double-double): closed form within
+    """Against fftgauge.harness.battery.reference (scipy.fft on clongdouble, or double-double): closed form within
     CLOSED_FORM_UNITS units of 2^-53 at N up to 65537 (measured worst: geometric, 5.5 units)."""
-    from harness.reference import reference_transform
+    from fftgauge.harness.battery.reference import reference_transform
 
     for n in (4096, 4097, 65536, 65537):
         if not pair.applies(n):

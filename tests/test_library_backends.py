@@ -2,7 +2,7 @@
 
 Ground truth: mpmath (arbitrary precision), direct DFT at 50 digits, for N = 1..32, every
 kind, norm and precision a backend claims. The built-ins are taken from
-``backends.registry.BUILTINS``; a backend whose module (or library) is not there yet is
+``fftgauge.backends.registry.BUILTINS``; a backend whose module (or library) is not there yet is
 skipped, so the reference implementations are covered as soon as they exist.
 """
 
@@ -15,8 +15,8 @@ import mpmath
 import numpy as np
 import pytest
 
-from backends.registry import BUILTINS, SYNTHETIC_BACKENDS, load_backend
-from harness.cases import DTYPES, KINDS, NORMS, Case
+from fftgauge.backends.registry import BUILTINS, SYNTHETIC_BACKENDS, load_backend
+from fftgauge.harness.cases import DTYPES, KINDS, NORMS, Case
 
 MP_DIGITS = 50
 SIZES = range(1, 33)
@@ -215,7 +215,7 @@ PYFFTW_SIZES = (1, 2, 7, 16, 30, 64, 100)
 
 @pytest.fixture(scope="module")
 def pyfftw_module():
-    return pytest.importorskip("backends.pyfftw_plans")
+    return pytest.importorskip("fftgauge.backends.pyfftw_plans")
 
 
 def _random_input(case: Case, seed: int = 7) -> np.ndarray:
@@ -395,7 +395,7 @@ def test_pyfftw_precision_probe_agrees_with_pyfftw_list(pyfftw_module, monkeypat
 
 @pytest.mark.parametrize("spec", ["pyfftw[threads=0]", "scipy[workers=0]", "scipy[workers=-2]"])
 def test_thread_counts_below_one_are_usage_errors(spec):
-    from harness.errors import UsageError
+    from fftgauge.harness.errors import UsageError
 
     pytest.importorskip(BUILTINS[spec.split("[")[0]][0])
     with pytest.raises(UsageError, match="at least 1"):

@@ -1,4 +1,4 @@
-"""harness.memory: the peak extra memory of one call and in-place detection, measured on
+"""fftgauge.harness.timing.memory: the peak extra memory of one call and in-place detection, measured on
 synthetic plans whose allocations are known by construction, and on numpy.fft."""
 
 from __future__ import annotations
@@ -9,11 +9,11 @@ import ctypes.util
 import numpy as np
 import pytest
 
-from backends.base import Plan
-from backends.null import NullBackend
-from backends.numpy_fft import NumpyBackend
-from harness.cases import Case
-from harness.memory import detect_in_place, measure_memory, resident_method_available
+from fftgauge.backends.base import Plan
+from fftgauge.backends.null import NullBackend
+from fftgauge.backends.numpy_fft import NumpyBackend
+from fftgauge.harness.cases import Case
+from fftgauge.harness.timing.memory import detect_in_place, measure_memory, resident_method_available
 
 MiB = 2**20
 CASE = Case("fft", "float64", 1024)

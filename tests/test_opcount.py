@@ -23,10 +23,10 @@ import pathlib
 import pandas as pd
 import pytest
 
-import harness.cmd_count as cmd_count
-import harness.opcount as opcount
-from harness.errors import UsageError
-from harness.opcount import (count_table, direct_complex_adds, direct_complex_mults, pseudo_flops,
+import fftgauge.harness.cli.count as cmd_count
+import fftgauge.harness.timing.opcount as opcount
+from fftgauge.harness.errors import UsageError
+from fftgauge.harness.timing.opcount import (count_table, direct_complex_adds, direct_complex_mults, pseudo_flops,
                              radix2_complex_adds, radix2_complex_mults, radix2_unit_twiddle_butterflies,
                              real_equivalents, split_radix_real_ops)
 
@@ -141,7 +141,7 @@ def test_count_table_rows():
 def test_count_table_without_trivial_twiddles_and_chosen_backends():
     """Skipping W^0: counted radix-2 mults are the model minus N - 1 (the W^0 butterflies);
     a role mapped to None is not counted; radix2-dif may be the counting backend."""
-    from backends.registry import load_backend
+    from fftgauge.backends.registry import load_backend
 
     rows = count_table([8, 64], {"radix2": load_backend("radix2-dif"), "direct": None}, count_trivial=False)
     for row in rows:

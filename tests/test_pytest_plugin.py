@@ -15,7 +15,7 @@ def wrong_sign(x):
 """)
     pytester.makepyfile(test_user="""
 import pytest
-from harness.pytest_plugin import battery_params
+from fftgauge.harness.pytest_plugin import battery_params
 
 @pytest.mark.parametrize("case", battery_params("my_fft.py:fft", sizes="1..4,16", dtypes=["float64"]))
 def test_good(fftgauge_check, case):

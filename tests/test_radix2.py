@@ -18,9 +18,9 @@ import mpmath
 import numpy as np
 import pytest
 
-from backends.radix2 import MAX_N, Radix2DifBackend, Radix2DitBackend, bit_reverse_permutation
-from backends.registry import load_backend
-from harness.cases import DTYPES, KINDS, NORMS, Case
+from fftgauge.backends.radix2 import MAX_N, Radix2DifBackend, Radix2DitBackend, bit_reverse_permutation
+from fftgauge.backends.registry import load_backend
+from fftgauge.harness.cases import DTYPES, KINDS, NORMS, Case
 from mpmath_dft import relative_error_vs_mpmath, signal
 
 BACKENDS = {"radix2-dit": Radix2DitBackend(), "radix2-dif": Radix2DifBackend()}

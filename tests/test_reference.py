@@ -1,8 +1,8 @@
-"""Tests of harness.reference: the ground truth checked against an independent mpmath DFT.
+"""Tests of fftgauge.harness.battery.reference: the ground truth checked against an independent mpmath DFT.
 
 Source of the ground truth for the ground truth: "mpmath (arbitrary precision): direct DFT at
 50 digits for small N" (the project's check-value list). The direct DFT here is written
-independently of harness.reference (mpmath.expjpi of the unreduced angle, at 50 digits).
+independently of fftgauge.harness.battery.reference (mpmath.expjpi of the unreduced angle, at 50 digits).
 The second reference library is "scipy.fft on clongdouble" (extended precision where
 np.finfo(np.longdouble).eps is below 1e-18).
 """
@@ -13,10 +13,10 @@ import mpmath
 import numpy as np
 import pytest
 
-from harness.cases import KINDS, NORMS, Case, norm_factor
-from harness.inputs import case_rng, random_input
-from harness import reference as ref_mod
-from harness.reference import (
+from fftgauge.harness.cases import KINDS, NORMS, Case, norm_factor
+from fftgauge.harness.battery.inputs import case_rng, random_input
+from fftgauge.harness.battery import reference as ref_mod
+from fftgauge.harness.battery.reference import (
     LONGDOUBLE_IS_EXTENDED,
     METHOD_DOUBLE,
     METHOD_DOUBLE_DOUBLE,

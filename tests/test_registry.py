@@ -8,11 +8,11 @@ import textwrap
 import numpy as np
 import pytest
 
-from backends import registry
-from backends.registry import BUILTINS, ParsedSpec, list_backends, load_backend, parse_spec
-from backends.user_function import FunctionBackend
-from harness.cases import Case
-from harness.errors import UsageError
+from fftgauge.backends import registry
+from fftgauge.backends.registry import BUILTINS, ParsedSpec, list_backends, load_backend, parse_spec
+from fftgauge.backends.user_function import FunctionBackend
+from fftgauge.harness.cases import Case
+from fftgauge.harness.errors import UsageError
 
 
 def _usage_error(spec: str, **kwargs) -> str:
@@ -117,10 +117,10 @@ def test_builtin_options_are_typed():
 
 
 def test_missing_builtin_module_says_how_to_install(monkeypatch):
-    monkeypatch.setitem(BUILTINS, "ghost", ("backends.fftgauge_no_such_module", "GhostBackend", "pip install ghost"))
+    monkeypatch.setitem(BUILTINS, "ghost", ("fftgauge.backends.fftgauge_no_such_module", "GhostBackend", "pip install ghost"))
     message = _usage_error("ghost")
     assert "backend 'ghost' is not available" in message
-    assert "backends.fftgauge_no_such_module" in message and "to fix: pip install ghost" in message
+    assert "fftgauge.backends.fftgauge_no_such_module" in message and "to fix: pip install ghost" in message
     (ghost,) = [info for info in list_backends() if info.name == "ghost"]
     assert not ghost.available and ghost.version is None
     assert ghost.reason.startswith("No module named") and ghost.reason.endswith("to fix: pip install ghost")
@@ -295,7 +295,7 @@ def test_negative_max_n_is_a_usage_error(data_dir):
 
 PLUGIN_SOURCE = '''
 import numpy as np
-from backends.base import Backend, Capabilities, FunctionPlan, OptionSpec
+from fftgauge.backends.base import Backend, Capabilities, FunctionPlan, OptionSpec
 
 
 class PluginBackend(Backend):

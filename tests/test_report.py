@@ -1,5 +1,5 @@
-"""Tests of the plots (harness.plots), the comparison tables (harness.time_tables) and the
-``fftgauge report`` sub-command (harness.cmd_report).
+"""Tests of the plots (fftgauge.harness.report.plots), the comparison tables (fftgauge.harness.report.time_tables) and the
+``fftgauge report`` sub-command (fftgauge.harness.cli.report).
 
 tests/data/sample_time.json and sample_check.json are DEMO results files with invented
 numbers (their "note" field says so): they exercise drawing and tables, they measure nothing.
@@ -18,10 +18,12 @@ import xml.etree.ElementTree as ET
 import numpy as np
 import pytest
 
-from harness import cli, cmd_report, plots
-from harness.cases import Case
-from harness.errors import UsageError
-from harness.time_tables import comparison_table, format_comparison, format_seconds, markdown_comparison
+from fftgauge.harness import cli
+from fftgauge.harness.cli import report as cmd_report
+from fftgauge.harness.report import plots
+from fftgauge.harness.cases import Case
+from fftgauge.harness.errors import UsageError
+from fftgauge.harness.report.time_tables import comparison_table, format_comparison, format_seconds, markdown_comparison
 
 DATA = os.path.join(os.path.dirname(__file__), "data")
 TIME_FILE = os.path.join(DATA, "sample_time.json")
@@ -420,7 +422,7 @@ def test_bad_inputs_are_usage_errors_naming_the_file(tmp_path, time_doc):
 
 
 def test_bad_inputs_exit_2_with_one_line_through_the_cli(tmp_path, time_doc, monkeypatch, capsys):
-    """The contract's exit code 2 and one line on stderr, through harness.cli.main."""
+    """The contract's exit code 2 and one line on stderr, through fftgauge.harness.cli.main."""
     for argv, message in bad_inputs(tmp_path, time_doc).values():
         assert cli.main(["report", *argv, "--out", str(tmp_path / "o")]) == 2
         err = capsys.readouterr().err
@@ -430,13 +432,13 @@ def test_bad_inputs_exit_2_with_one_line_through_the_cli(tmp_path, time_doc, mon
 
 
 def test_markdown_table_escapes_pipes_and_newlines():
-    from harness.time_tables import markdown_table
+    from fftgauge.harness.report.time_tables import markdown_table
 
     assert markdown_table(["a|b", "c"], [["x|y", "1\n2"]]) == "| a\\|b | c |\n|---|---|\n| x\\|y | 1 2 |"
 
 
 def test_comparison_table_accepts_time_rows():
-    from harness.rows import TimeRow
+    from fftgauge.harness.rows import TimeRow
 
     rows = [TimeRow(backend=b, kind="rfft", dtype="float32", n=64, threads=1, plan_seconds=0.0, seconds=s,
                     seconds_low=s, seconds_high=s, samples=5, loops=10, flops=960.0, gflops=960 / s / 1e9,

@@ -1,4 +1,4 @@
-"""Tests of harness.scaling: fitted exponents on synthetic times of known growth, the outlier
+"""Tests of fftgauge.harness.timing.scaling: fitted exponents on synthetic times of known growth, the outlier
 rule and the words it uses.
 
 The rows here are synthetic (times computed from a formula), not measurements: the tests
@@ -12,8 +12,8 @@ import math
 import numpy as np
 import pytest
 
-from harness.rows import TimeRow
-from harness.scaling import (
+from fftgauge.harness.rows import TimeRow
+from fftgauge.harness.timing.scaling import (
     FIT_MIN_N,
     OUTLIER_FACTOR,
     data_caches,

@@ -4,13 +4,13 @@ The example is built with the system C compiler into a temporary folder (the tes
 skipped, with the reason, when there is none). Outside checks, with their sources:
 
 - results against numpy.fft (check-values.md: numpy.fft, "an independent double-precision
-  implementation (not ground truth)") within twice ``harness.bounds.accuracy_limit``: both
+  implementation (not ground truth)") within twice ``fftgauge.harness.battery.bounds.accuracy_limit``: both
   are within the limit of the exact transform (Higham, Accuracy and Stability of Numerical
   Algorithms, 2nd ed., SIAM 2002, Theorem 24.2 (from memory); its numbers are verified by
   harness/bounds.py's own tests), so they differ by at most twice that (triangle inequality);
 - the broken variant's output equals numpy's in bit-reversed order (common practice: the
   definition of bit reversal; the table for N = 8 is spelled out and checked below);
-- the battery (harness.checks) over the backend, whose checks carry their own sources.
+- the battery (fftgauge.harness.battery.checks) over the backend, whose checks carry their own sources.
 """
 
 from __future__ import annotations
@@ -26,10 +26,10 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from backends.registry import load_backend
-from backends.shared_library import ForeignCallError, HandlePlan, SharedLibraryBackend
-from harness.cases import Case
-from harness.errors import BackendFailure, UsageError
+from fftgauge.backends.registry import load_backend
+from fftgauge.backends.shared_library import ForeignCallError, HandlePlan, SharedLibraryBackend
+from fftgauge.harness.cases import Case
+from fftgauge.harness.errors import BackendFailure, UsageError
 
 EXAMPLE = Path(__file__).resolve().parent.parent / "examples" / "c_radix2"
 TARGETS = ("libradix2.so", "libradix2_broken.so")
@@ -98,7 +98,7 @@ def test_bit_reversal_table_for_8_is_the_textbook_one() -> None:
 
 
 def accuracy_limit(case: Case) -> float:
-    from harness.bounds import accuracy_limit as limit
+    from fftgauge.harness.battery.bounds import accuracy_limit as limit
     return limit(case)
 
 
@@ -161,7 +161,7 @@ BATTERY_SPECS = [("radix2_fft", "sizes=pow2"), ("radix2", "shape=plan,kind=fft+i
 
 @pytest.mark.parametrize("symbol,options", BATTERY_SPECS, ids=[s[0] for s in BATTERY_SPECS])
 def test_the_c_example_passes_the_battery(c_libs: Path, symbol: str, options: str) -> None:
-    checks = pytest.importorskip("harness.checks")
+    checks = pytest.importorskip("fftgauge.harness.battery.checks")
     backend = load_backend(spec(c_libs, symbol, options))
     for kind in backend.capabilities().kinds:
         for n in (1, 16, 1024):
@@ -195,7 +195,7 @@ def test_missing_bit_reversal_gives_numpy_output_in_bit_reversed_order(c_libs: P
 @pytest.mark.parametrize("symbol,options", [("radix2_fft", "sizes=pow2"),
                                             ("radix2", "shape=plan,kind=fft+ifft,sizes=pow2")])
 def test_the_battery_diagnoses_the_broken_variant_as_bit_reversed(c_libs: Path, symbol: str, options: str) -> None:
-    checks = pytest.importorskip("harness.checks")
+    checks = pytest.importorskip("fftgauge.harness.battery.checks")
     backend = load_backend(spec(c_libs, symbol, options, lib="libradix2_broken.so"))
     rows = checks.run_case_checks(backend, ("fft", "float64", 1024, "backward"), 1234, ["accuracy"])
     assert [(r["check"], r["status"], r["diagnosis"]) for r in rows] == [("accuracy", "fail", "bit-reversed")]
@@ -210,7 +210,7 @@ def test_a_non_zero_return_code_raises_with_the_code(c_libs: Path) -> None:
 
 
 def test_a_non_zero_return_code_becomes_error_rows_with_the_code(c_libs: Path) -> None:
-    checks = pytest.importorskip("harness.checks")
+    checks = pytest.importorskip("fftgauge.harness.battery.checks")
     backend = load_backend(spec(c_libs, "radix2_fft"))
     rows = checks.run_case_checks(backend, ("fft", "float64", 12, "backward"), 1234, ["accuracy", "linearity"])
     assert [r["status"] for r in rows] == ["error", "error"]
@@ -274,7 +274,7 @@ def test_long_double_data_cross_the_call_intact(c_libs: Path, tmp_path: Path) ->
     """dtype=longdouble: a direct DFT in C long double passes the accuracy check, whose ground
     truth is scipy.fft on clongdouble (check-values.md), on machines where long double is
     wider than double."""
-    checks = pytest.importorskip("harness.checks")
+    checks = pytest.importorskip("fftgauge.harness.battery.checks")
     if np.finfo(np.longdouble).eps >= 1e-18:
         pytest.skip("long double is not wider than double here")
     source = tmp_path / "ldft.c"
@@ -346,7 +346,7 @@ def test_missing_library_symbol_and_malformed_specs(c_libs: Path, tmp_path: Path
 
 
 def test_cli_bad_clib_spec_exits_2_with_one_line(tmp_path: Path) -> None:
-    proc = subprocess.run([sys.executable, "-m", "harness.cli", "check", "--backend",
+    proc = subprocess.run([sys.executable, "-m", "fftgauge", "check", "--backend",
                            f"clib:{tmp_path / 'nope.so'}:fft", "--sizes", "8", "--quiet"],
                           capture_output=True, text=True, timeout=120, cwd=EXAMPLE.parent.parent)
     assert proc.returncode == 2
@@ -366,12 +366,12 @@ def test_pickles_as_its_spec(c_libs: Path) -> None:
 
 
 def test_runs_in_a_worker_process(c_libs: Path) -> None:
-    worker_mod = pytest.importorskip("harness.worker")
+    worker_mod = pytest.importorskip("fftgauge.harness.execution.worker")
     case = Case("fft", "float64", 256)
     x = signal_for(case)
     with worker_mod.Worker(spec(c_libs, "radix2", "shape=plan,kind=fft+ifft")) as worker:
         try:
-            y = worker.call("harness.worker:plan_and_execute", case, x, timeout_seconds=60)
+            y = worker.call("fftgauge.harness.execution.worker:plan_and_execute", case, x, timeout_seconds=60)
         finally:
             worker.close()
     assert relative_error(y, numpy_result(case, x)) <= 2 * accuracy_limit(case)
@@ -381,14 +381,14 @@ def test_runs_in_a_worker_process(c_libs: Path) -> None:
                     reason="needs the C library by its Linux soname")
 def test_a_segfault_in_c_code_is_a_failure_not_the_end_of_the_run() -> None:
     # strlen called with the "n" argument as its pointer: strlen((char *) 8) crashes.
-    worker_mod = pytest.importorskip("harness.worker")
+    worker_mod = pytest.importorskip("fftgauge.harness.execution.worker")
     libc = ctypes.util.find_library("c")
     with worker_mod.Worker(f"clib:{libc}:strlen") as worker:
         try:
             with pytest.raises(BackendFailure, match="SIGSEGV"):
-                worker.call("harness.worker:plan_and_execute", Case("fft", "float64", 8), np.zeros(8, complex),
+                worker.call("fftgauge.harness.execution.worker:plan_and_execute", Case("fft", "float64", 8), np.zeros(8, complex),
                             timeout_seconds=60)
             # the run goes on: the next call gets a fresh child
-            assert worker.call("harness.worker:describe_backend", timeout_seconds=60)["name"].startswith("clib:")
+            assert worker.call("fftgauge.harness.execution.worker:describe_backend", timeout_seconds=60)["name"].startswith("clib:")
         finally:
             worker.close()

@@ -2,8 +2,8 @@
 
 import pytest
 
-from harness.errors import UsageError
-from harness.sizes import NAMED_SETS, is_prime, parse_sizes
+from fftgauge.harness.errors import UsageError
+from fftgauge.harness.sizes import NAMED_SETS, is_prime, parse_sizes
 
 
 def test_every_item_form():

@@ -1,4 +1,4 @@
-"""harness.stats against outside sources: scipy.stats (binomial, Mann-Whitney), hand
+"""fftgauge.harness.stats against outside sources: scipy.stats (binomial, Mann-Whitney), hand
 computations of published procedures (Holm 1979, the normal approximation of U), and seeded
 Monte Carlo coverage on distributions whose median is known in closed form."""
 
@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 import scipy.stats
 
-from harness.stats import (bootstrap_median_ci, holm_bonferroni, mann_whitney_p, median_ci, quantile_ci,
+from fftgauge.harness.stats import (bootstrap_median_ci, holm_bonferroni, mann_whitney_p, median_ci, quantile_ci,
                            order_statistic_ranks, ratio_ci, relative_spread)
 
 

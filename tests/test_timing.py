@@ -1,4 +1,4 @@
-"""harness.timing: the timer on synthetic plans of known cost, the overhead floor, the row
+"""fftgauge.harness.timing.timer: the timer on synthetic plans of known cost, the overhead floor, the row
 fields and their formulas, and the job function the worker runs.
 
 The busy-wait tests are the one place where a measured time is asserted, as the timing
@@ -19,17 +19,17 @@ from concurrent.futures import ProcessPoolExecutor
 import numpy as np
 import pytest
 
-from backends.base import Plan
-from backends.busywait import BusyWaitBackend
-from backends.null import NullBackend
-from backends.numpy_fft import NumpyBackend
-from harness.cases import Case
-from harness.errors import UnsupportedCase, UsageError
-from harness.inputs import case_rng, random_input
-from harness.rows import TimeRow
-from harness.timing import (FALLBACK_EVICTION_BYTES, TimerSettings, Timer, gflops, last_level_cache_bytes,
+from fftgauge.backends.base import Plan
+from fftgauge.backends.busywait import BusyWaitBackend
+from fftgauge.backends.null import NullBackend
+from fftgauge.backends.numpy_fft import NumpyBackend
+from fftgauge.harness.cases import Case
+from fftgauge.harness.errors import UnsupportedCase, UsageError
+from fftgauge.harness.battery.inputs import case_rng, random_input
+from fftgauge.harness.rows import TimeRow
+from fftgauge.harness.timing.timer import (FALLBACK_EVICTION_BYTES, TimerSettings, Timer, gflops, last_level_cache_bytes,
                             limit_threads, measure, ns_per_nlogn, time_case)
-import harness.timing as timing
+import fftgauge.harness.timing.timer as timing
 
 CASE = Case("fft", "float64", 1024)
 X = random_input(CASE, case_rng(0, CASE))
@@ -343,7 +343,7 @@ def test_a_failing_round_closes_the_plan():
 
 
 def test_runner_rounds_interleave_cases_and_write_each_row_once(tmp_path):
-    from harness.runner import TimingRequest, run_timing
+    from fftgauge.harness.timing.runner import TimingRequest, run_timing
 
     req = TimingRequest(specs=("busywait[seconds=0.0001]", "null"), kinds=("fft",), dtypes=("float64",),
                         sizes=(16, 32, 64), samples=6, budget_seconds=1.0, measure_memory=False, rounds=3)

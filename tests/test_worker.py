@@ -1,4 +1,4 @@
-"""Tests for harness.worker: untrusted backends run in a child process.
+"""Tests for fftgauge.harness.execution.worker: untrusted backends run in a child process.
 
 Every misbehaving backend (tests/data/misbehaving.py, loaded in the child only) must come
 back as a BackendFailure with a reason that says what happened, and the worker must go on
@@ -22,16 +22,16 @@ import numpy as np
 import psutil
 import pytest
 
-from harness.cases import Case
-from harness.errors import BackendFailure, UnsupportedCase, UsageError
-from harness.worker import Worker, run_jobs
+from fftgauge.harness.cases import Case
+from fftgauge.harness.errors import BackendFailure, UnsupportedCase, UsageError
+from fftgauge.harness.execution.worker import Worker, run_jobs
 
 HERE = os.path.dirname(os.path.abspath(__file__))
 ROOT = os.path.dirname(HERE)
 MISBEHAVING = os.path.join(HERE, "data", "misbehaving.py")
-PLAN = "harness.worker:plan_and_execute"
-DESCRIBE = "harness.worker:describe_backend"
-REASON = "harness.worker:unsupported_reason"
+PLAN = "fftgauge.harness.execution.worker:plan_and_execute"
+DESCRIBE = "fftgauge.harness.execution.worker:describe_backend"
+REASON = "fftgauge.harness.execution.worker:unsupported_reason"
 TIMEOUT_SECONDS = 30.0
 SHORT_TIMEOUT_SECONDS = 2.0
 FFT8 = Case("fft", "float64", 8)
@@ -261,7 +261,7 @@ def test_bad_job_requests(numpy_worker):
     with pytest.raises(ValueError, match="timeout_seconds"):
         numpy_worker.call(PLAN, FFT8, signal_x(8), timeout_seconds=0)
     with pytest.raises(RuntimeError, match="cannot be imported in the worker"):
-        numpy_worker.call("harness.worker:no_such_job", timeout_seconds=TIMEOUT_SECONDS)
+        numpy_worker.call("fftgauge.harness.execution.worker:no_such_job", timeout_seconds=TIMEOUT_SECONDS)
     pid = numpy_worker.pid
     numpy_worker.call(PLAN, FFT8, signal_x(8), timeout_seconds=TIMEOUT_SECONDS)
     assert numpy_worker.pid == pid
@@ -308,15 +308,15 @@ def _interrupt_a_hanging_job():
 
 PARENT_SCRIPT = """
 import os, sys, time
-from harness.worker import Worker
+from fftgauge.harness.execution.worker import Worker
 
 if __name__ == "__main__":
     worker = Worker({spec!r})
-    worker.call("harness.worker:describe_backend", timeout_seconds=60)
+    worker.call("fftgauge.harness.execution.worker:describe_backend", timeout_seconds=60)
     print(worker.pid, flush=True)
     if sys.argv[1] == "exit":
         sys.exit(0)                      # no close(): the atexit hook must stop the child
-    worker.call("harness.worker:plan_and_execute", ("fft", "float64", 8), [0j] * 8,
+    worker.call("fftgauge.harness.execution.worker:plan_and_execute", ("fft", "float64", 8), [0j] * 8,
                 timeout_seconds=600)     # hangs until this process is killed
 """
 

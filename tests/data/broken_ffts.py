@@ -14,8 +14,8 @@ import time
 
 import numpy as np
 
-from backends.base import Backend, Capabilities, FunctionPlan, Plan
-from harness.cases import Case
+from fftgauge.backends.base import Backend, Capabilities, FunctionPlan, Plan
+from fftgauge.harness.cases import Case
 
 
 def _next_pow2(n: int) -> int:

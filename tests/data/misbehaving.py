@@ -18,8 +18,8 @@ import time
 
 import numpy as np
 
-from backends.base import Backend, Capabilities, FunctionPlan, Plan
-from harness.errors import UnsupportedCase
+from fftgauge.backends.base import Backend, Capabilities, FunctionPlan, Plan
+from fftgauge.harness.errors import UnsupportedCase
 
 #: Bytes the memory hog asks for: 4 TiB, beyond any test machine and any sane limit.
 HOG_BYTES = 2**42

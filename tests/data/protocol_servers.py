@@ -1,7 +1,7 @@
 """Test servers for fftgauge's pipe protocol, version 1: one well-behaved, the others each
 misbehaving in one documented way. Run as ``python protocol_servers.py MODE [ignored arguments]``.
 
-Written from the protocol's specification in docs/external-backends.md, independently of
+Written from the protocol's specification in docs/external-fftgauge.backends.md, independently of
 backends/external_program.py (the struct layouts are spelled out again here on purpose).
 The correct modes compute with numpy.fft.
 

@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from backends.base import Backend, Capabilities, FunctionPlan, OptionSpec
-from harness.cases import Case
+from fftgauge.backends.base import Backend, Capabilities, FunctionPlan, OptionSpec
+from fftgauge.harness.cases import Case
 
 #: Not callable, not an adapter: naming it is a usage error.
 ANSWER = 42

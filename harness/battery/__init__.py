@@ -1,0 +1,1 @@
+"""fftgauge.harness.battery: the correctness battery: inputs, ground truth, bounds, checks, diagnosis."""

@@ -1,0 +1,466 @@
+"""Bug diagnosis: when an output is wrong, which common FFT bug explains it.
+
+:func:`diagnose` takes an input ``x``, the output ``y`` a backend gave for it and the
+ground truth (through a reference function), and tests one hypothesis after another. Each
+hypothesis is a *candidate* output, built from the exact transform by the change a
+particular bug makes (reversing the frequency axis, conjugating, bit-reversing the order,
+rolling it, dropping the input's imaginary part, changing the length). A candidate matches
+when ``y`` equals it up to one constant factor (fitted by least squares) to within
+:data:`MATCH_RELATIVE`; the constant itself names the ``scale`` bug (N, 1/N, sqrt(N),
+1/sqrt(N), ...). When no candidate matches, the size of the error is compared with the
+precisions below the one asked for (``precision``, or ``dtype`` when the output array itself
+has a lower-precision dtype); else the code is ``unknown``.
+
+Codes and what is tested, in this order (the first match wins when two explain ``y``
+equally well, for example on an input whose transform is symmetric):
+
+============== =======================================================================
+code            hypothesis
+============== =======================================================================
+dtype           output not of a floating-point dtype (or, after the structural tests,
+                of a lower precision than asked, with errors at that precision's level)
+shape           output not 1-D, or of a length no changed transform size explains
+truncated-size  output equals the transform of the input zero-padded or truncated to
+                another length m (next or previous power of two, N +- 1, 2N, the nearest
+                5-smooth sizes), whether the output has length m or N
+nonfinite       NaN or Inf in the output of a finite input
+scale           output equals the exact transform times a constant
+sign            output equals the opposite-sign transform (X[k] <-> X[N-k]) or the
+                complex conjugate, possibly scaled (an inverse computed for a forward)
+bit-reversed    output equals the exact transform in bit-reversed order (N = 2^t >= 4)
+shifted         output equals the exact transform circularly shifted by s bins
+real-only       output equals the transform of the real part of the input
+precision       right structure, error between 0.1 unit roundoff and a few times the
+                accuracy limit of a lower precision (float32 under float64 or long
+                double, float64 under long double, float16 under float32)
+unknown         none of the above
+============== =======================================================================
+"""
+
+from __future__ import annotations
+
+from typing import Any, Callable
+
+import numpy as np
+
+from fftgauge.harness.cases import Case, is_power_of_two, norm_factor
+
+#: A candidate matches when ``norm(y - a * candidate) / norm(a * candidate)`` is below this
+#: for the best constant ``a``. Far above any FFT's rounding error in float32 (about 1e-6)
+#: and far below the distance between two different hypotheses for a generic input (of
+#: order 1), so a match is unambiguous.
+MATCH_RELATIVE = 1e-3
+
+#: A fitted constant within this relative distance of 1 is "no scaling".
+UNIT_FACTOR_RELATIVE = 1e-3
+
+#: ``precision``: the error must be at least this many unit roundoffs of the lower
+#: precision (rounding a result to that precision alone gives about 0.3 of one).
+PRECISION_LOW_UNITS = 0.1
+#: ``precision``: and at most this many times the accuracy limit scaled to that precision.
+PRECISION_HIGH_FACTOR = 8.0
+
+_LOWER_PRECISIONS = {
+    "float32": ("float16",),
+    "float64": ("float32",),
+    "longdouble": ("float64", "float32"),
+}
+_EPS = {
+    "float16": float(np.finfo(np.float16).eps),
+    "float32": float(np.finfo(np.float32).eps),
+    "float64": float(np.finfo(np.float64).eps),
+    "longdouble": float(np.finfo(np.longdouble).eps),
+}
+
+ReferenceFn = Callable[[np.ndarray, Case], Any]
+
+
+# -- small helpers ---------------------------------------------------------------------------
+
+def _norm(v: np.ndarray) -> float:
+    """Return the 2-norm of ``v`` as a float (computed in the array's own precision)."""
+    v = np.asarray(v)
+    if v.size == 0:
+        return 0.0
+    return float(np.sqrt(np.sum(np.abs(v) ** 2)))
+
+
+def bit_reversal_permutation(n: int) -> np.ndarray:
+    """Return the bit-reversal permutation of ``0 .. n-1`` for ``n`` a power of two.
+
+    ``out[k]`` is ``k`` with its ``log2(n)`` bits in reverse order.
+    """
+    bits = n.bit_length() - 1
+    idx = np.arange(n, dtype=np.int64)
+    rev = np.zeros(n, dtype=np.int64)
+    for _ in range(bits):
+        rev = (rev << 1) | (idx & 1)
+        idx >>= 1
+    return rev
+
+
+def _fit(candidate: np.ndarray, y: np.ndarray) -> tuple[complex, float]:
+    """Return ``(a, r)``: the least-squares constant ``a`` with ``y ~ a * candidate`` and the
+    relative residual ``norm(y - a c) / norm(a c)`` (``inf`` when ``a c`` is zero)."""
+    cc = np.vdot(candidate, candidate).real
+    if cc == 0.0 or not np.isfinite(cc):
+        return 0j, float("inf")
+    a = complex(np.vdot(candidate, y) / cc)
+    scaled = a * candidate
+    denom = _norm(scaled)
+    if denom == 0.0:
+        return a, float("inf")
+    return a, _norm(y - scaled) / denom
+
+
+def factor_name(value: float, n: int) -> str:
+    """Return a plain name for a positive scale factor: ``N``, ``1/N``, ``sqrt(N)``, ``1/sqrt(N)``, ``1``.
+
+    Falls back to the number (``'2.5'``) when it is none of these for this ``n``.
+    """
+    if n > 1:
+        named = ((1.0, "1"), (float(n), "N"), (1.0 / n, "1/N"), (np.sqrt(n), "sqrt(N)"),
+                 (1.0 / np.sqrt(n), "1/sqrt(N)"), (n * np.sqrt(n), "N sqrt(N)"), (float(n) ** 2, "N^2"),
+                 (1.0 / n**2, "1/N^2"))
+        for v, name in named:
+            if abs(value - v) <= UNIT_FACTOR_RELATIVE * v:
+                return name
+    elif abs(value - 1.0) <= UNIT_FACTOR_RELATIVE:
+        return "1"
+    return f"{value:.6g}"
+
+
+def _is_unit(a: complex) -> bool:
+    return abs(a - 1.0) <= UNIT_FACTOR_RELATIVE
+
+
+def _scale_words(case: Case, a: complex, n: int) -> str:
+    """Return the plain-words account of an output that is ``a`` times the right one."""
+    if abs(a.imag) > UNIT_FACTOR_RELATIVE * abs(a) or a.real <= 0:
+        return f"output is off by a constant factor {a:.4g}"
+    ratio = a.real
+    due = norm_factor(n, case.norm, case.is_inverse)
+    got = due * ratio
+    if ratio > 1:
+        head = f"output is {factor_name(ratio, n)} times too large"
+    else:
+        head = f"output is {factor_name(1.0 / ratio, n)} times too small"
+    due_name, got_name = factor_name(due, n), factor_name(got, n)
+    words = f"{head}: it is scaled by {got_name} where {due_name} is due"
+    if got_name == "1" and due_name == "1/N":
+        which = "inverse transform" if case.is_inverse else "forward transform (norm='forward')"
+        words += f" (the 1/N of the {which} is missing)"
+    elif got_name == "1" and due_name == "1/sqrt(N)":
+        words += " (the 1/sqrt(N) of norm='ortho' is missing)"
+    elif got_name == "1/N" and due_name == "1":
+        words += " (a 1/N is applied where the convention puts none)"
+    elif got_name == "1/sqrt(N)" and due_name != "1/sqrt(N)":
+        words += " (ortho scaling applied)"
+    return words
+
+
+def _with_scale(words: str, a: complex, n: int) -> str:
+    if _is_unit(a):
+        return words
+    if abs(a.imag) <= UNIT_FACTOR_RELATIVE * abs(a) and a.real > 0:
+        return f"{words}, and scaled by {factor_name(a.real, n)}"
+    return f"{words}, and multiplied by {a:.4g}"
+
+
+def _plausible_sizes(n: int) -> list[int]:
+    """Return lengths a buggy backend may have used instead of ``n``: next/previous power of two,
+    n +- 1, 2n, the nearest 5-smooth sizes above and below."""
+    out = []
+    up = 1 << max(0, (n - 1).bit_length())
+    if up == n:
+        up = 2 * n
+    out.append(up)
+    down = 1 << max(0, n.bit_length() - 1)
+    if down == n:
+        down = n // 2
+    out.append(down)
+    out += [n + 1, n - 1, 2 * n]
+
+    def smooth(m: int) -> bool:
+        for p in (2, 3, 5):
+            while m % p == 0:
+                m //= p
+        return m == 1
+
+    above = n + 1
+    while not smooth(above):
+        above += 1
+    below = n - 1
+    while below > 1 and not smooth(below):
+        below -= 1
+    out += [above, below]
+    seen: list[int] = []
+    for m in out:
+        if m >= 1 and m != n and m not in seen:
+            seen.append(m)
+    return seen
+
+
+def _resize_input(x: np.ndarray, length: int) -> np.ndarray:
+    """Return ``x`` zero-padded or truncated to ``length`` values."""
+    out = np.zeros(length, dtype=x.dtype)
+    k = min(length, x.shape[0])
+    out[:k] = x[:k]
+    return out
+
+
+def _hermitian_full(half: np.ndarray, n: int) -> np.ndarray:
+    """Return the length-n Hermitian spectrum whose first n//2 + 1 values are ``half``."""
+    full = np.zeros(n, dtype=np.complex128)
+    full[: n // 2 + 1] = half[: n // 2 + 1]
+    k = np.arange(1, (n + 1) // 2)
+    full[n - k] = np.conj(half[k])
+    return full
+
+
+def _shift_candidates(truth: np.ndarray, y: np.ndarray) -> list[int]:
+    """Return the circular shifts worth testing: fftshift/ifftshift, +-1, and those that line
+    up the largest values of ``y`` with the largest of the truth."""
+    length = truth.shape[0]
+    if length < 2:
+        return []
+    shifts = [length // 2, (length + 1) // 2, 1, length - 1]
+    top = min(3, length)
+    peaks_t = np.argsort(-np.abs(truth))[:top]
+    peaks_y = np.argsort(-np.abs(y))[:top]
+    shifts += [int((py - pt) % length) for py in peaks_y for pt in peaks_t]
+    out: list[int] = []
+    for s in shifts:
+        s %= length
+        if s and s not in out:
+            out.append(s)
+    return out
+
+
+def _shift_words(s: int, length: int) -> str:
+    if s == length // 2:
+        what = "an fftshift-centred spectrum (zero frequency moved to the middle)"
+    elif s == (length + 1) // 2:
+        what = "an ifftshift applied to the spectrum"
+    else:
+        what = "the output index is offset"
+    return f"outputs are right but circularly shifted by {s} bin{'s' if s != 1 else ''}: {what}"
+
+
+# -- the candidates ----------------------------------------------------------------------------
+
+def _candidates(case: Case, x: np.ndarray, truth: np.ndarray, y: np.ndarray,
+                reference_fn: ReferenceFn) -> list[tuple[str, str, np.ndarray]]:
+    """Return ``(code, words, candidate)`` for every structural hypothesis, the truth itself first."""
+    n, kind = case.n, case.kind
+    out: list[tuple[str, str, np.ndarray]] = [("scale", "", truth)]
+    forward = not case.is_inverse
+    wanted, other = ("-", "+") if forward else ("+", "-")
+    opposite = (f"output matches the transform with the opposite exponent sign ({other} where {wanted} is "
+                f"required): X[k] and X[N-k] are swapped")
+    if kind in ("fft", "ifft"):
+        out.append(("sign", opposite, truth[(-np.arange(n)) % n]))
+        out.append(("sign", "output is the complex conjugate of the right one", np.conj(truth)))
+    elif kind == "rfft":
+        out.append(("sign", opposite + " (for a real input: the conjugate)", np.conj(truth)))
+    else:  # irfft: the output is real, the opposite sign reverses it in time
+        out.append(("sign", opposite + " (for irfft: the output is reversed in time)", truth[(-np.arange(n)) % n]))
+    if is_power_of_two(n) and n >= 4:
+        perm = bit_reversal_permutation(n)
+        words = ("outputs are right but in bit-reversed order: the final reordering of a "
+                 "decimation-in-frequency FFT is missing")
+        if kind == "rfft":
+            full = _hermitian_full(truth, n)
+            out.append(("bit-reversed", words, full[perm][: truth.shape[0]]))
+        else:
+            out.append(("bit-reversed", words, truth[perm]))
+    for s in _shift_candidates(truth, y):
+        out.append(("shifted", _shift_words(s, truth.shape[0]), np.roll(truth, s)))
+    if kind != "rfft" and np.any(np.imag(x) != 0):
+        xr = np.real(x).astype(x.dtype)
+        ref = reference_fn(xr, case)
+        out.append(("real-only", "output matches the transform of the real part of the input: the imaginary "
+                                 "part is ignored", _values128(ref)))
+    for m in _plausible_sizes(n):
+        other_case = Case(kind, case.dtype, m, case.norm)
+        if other_case.output_length < truth.shape[0]:
+            # the input truncated to m values, transformed at the asked length
+            xt = _resize_input(_resize_input(x, other_case.input_length), case.input_length)
+            dropped = case.input_length - other_case.input_length
+            words = (f"output is the transform of the input truncated to {other_case.input_length} values "
+                     f"(the last {dropped} ignored, as for a transform of size {m})")
+            out.append(("truncated-size", words, _values128(reference_fn(xt, case))))
+        else:
+            xp = _resize_input(x, other_case.input_length)
+            full = _values128(reference_fn(xp, other_case))
+            words = (f"output is the first {truth.shape[0]} values of the transform of the input zero-padded "
+                     f"to {m}{' (the next power of two)' if is_power_of_two(m) and m > n else ''}")
+            out.append(("truncated-size", words, full[: truth.shape[0]]))
+    return out
+
+
+def _values128(ref: Any) -> np.ndarray:
+    """Return a reference's values as complex128 (plenty for telling hypotheses apart)."""
+    return np.asarray(ref.values()).astype(np.complex128)
+
+
+def _wrong_length(case: Case, x: np.ndarray, y: np.ndarray, reference_fn: ReferenceFn) -> tuple[str, str]:
+    """Diagnose an output of the wrong length: a changed transform size, else ``shape``."""
+    length, expected = y.shape[0], case.output_length
+    sizes = [length] if case.kind != "rfft" else [2 * (length - 1), 2 * length - 1]
+    yc = y.astype(np.complex128)
+    for m in sizes:
+        if m < 1 or m == case.n:
+            continue
+        other_case = Case(case.kind, case.dtype, m, case.norm)
+        if other_case.output_length != length:
+            continue
+        cand = _values128(reference_fn(_resize_input(x, other_case.input_length), other_case))
+        a, r = _fit(cand, yc)
+        if r <= MATCH_RELATIVE:
+            how = "zero-padded" if m > case.n else "truncated"
+            extra = " (the next power of two)" if how == "zero-padded" and is_power_of_two(m) else ""
+            return ("truncated-size", _with_scale(
+                f"output has {length} values where {expected} are due: it is the transform of the input "
+                f"{how} to {m}{extra}", a, m))
+    return "shape", f"output has {length} values where {expected} are due"
+
+
+def _precision_level(case: Case, err: float, limit: float) -> str | None:
+    """Return the lower precision whose level ``err`` is at, or None."""
+    for lower in _LOWER_PRECISIONS.get(case.dtype, ()):
+        u_lower = _EPS[lower] / 2
+        high = PRECISION_HIGH_FACTOR * limit * _EPS[lower] / _EPS[case.dtype]
+        if PRECISION_LOW_UNITS * u_lower <= err <= high:
+            return lower
+    return None
+
+
+def _lower_dtype(case: Case, y: np.ndarray) -> bool:
+    """True when ``y``'s dtype is of lower precision than the case's output dtype."""
+    return float(np.finfo(y.dtype).eps) > float(np.finfo(case.output_dtype).eps)
+
+
+# -- the entry points --------------------------------------------------------------------------
+
+def diagnose(case: Case, x: np.ndarray, y: Any, reference_fn: ReferenceFn | None = None,
+             limit: float | None = None) -> tuple[str, str]:
+    """Return the most likely bug behind a wrong output, as ``(code, message)``.
+
+    Parameters
+    ----------
+    case : the transform that was asked for.
+    x : the input exactly as the backend received it.
+    y : what the backend returned (any array-like; wrong shapes and dtypes are diagnosed).
+    reference_fn : ``reference_fn(x, case) -> Reference`` (an object with ``values()``);
+        :func:`fftgauge.harness.battery.reference.reference_transform` when None.
+    limit : the relative 2-norm error limit of ``case``
+        (:func:`fftgauge.harness.battery.bounds.accuracy_limit` when None); used to place an error at the
+        level of a lower precision.
+
+    Returns
+    -------
+    tuple of str
+        ``code`` from the contracts' diagnosis vocabulary (never ``None``: call this only
+        for an output that failed) and a one-line message in plain words, for example
+        ``("bit-reversed", "outputs are right but in bit-reversed order: ...")``.
+
+    Raises
+    ------
+    Whatever ``reference_fn`` raises (for example ``ValueError`` for an ``x`` of the wrong
+    length); a wrong ``y`` never raises.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> x = np.random.default_rng(0).normal(size=16) + 0j
+    >>> diagnose(Case("fft", "float64", 16), x, 16 * np.fft.fft(x))[0]   # doctest: +SKIP
+    'scale'
+    """
+    if reference_fn is None:
+        from fftgauge.harness.battery.reference import reference_transform as reference_fn  # noqa: N813
+    if limit is None:
+        from fftgauge.harness.battery.bounds import accuracy_limit
+        limit = accuracy_limit(case)
+    x = np.asarray(x)
+    try:
+        y = np.asarray(y)
+    except Exception:  # noqa: BLE001 - whatever it is, it is not an array
+        return "dtype", f"output is a {type(y).__name__}, not an array of numbers"
+    if y.dtype.kind not in "fc":
+        return "dtype", f"output has dtype {y.dtype}, not a floating-point or complex type"
+    if y.ndim != 1:
+        if y.size == case.output_length:
+            return "shape", f"output has shape {y.shape} where a 1-D array of {case.output_length} is due"
+        return "shape", f"output has shape {y.shape} where ({case.output_length},) is due"
+    if y.shape[0] != case.output_length:
+        return _wrong_length(case, x, y, reference_fn)
+    if np.all(np.isfinite(x)) and not np.all(np.isfinite(y)):
+        bad = int(np.count_nonzero(~np.isfinite(y)))
+        return "nonfinite", f"output has {bad} NaN/Inf value{'s' if bad != 1 else ''} for a finite input"
+
+    ref = reference_fn(x, case)
+    truth = _values128(ref)
+    truth_norm = _norm(truth)
+    err = float(np.linalg.norm(ref.error(y))) / truth_norm if truth_norm else float("inf")
+    if truth_norm == 0.0:
+        return "unknown", "the exact transform of this input is zero, and the output is not"
+    y128 = y.astype(np.complex128)
+    matches = []
+    for code, words, cand in _candidates(case, x, truth, y128, reference_fn):
+        if code != "scale" and _norm(cand - truth) <= MATCH_RELATIVE * truth_norm:
+            continue  # the hypothesis is the truth itself for this input: nothing to tell apart
+        a, r = _fit(cand, y128)
+        if r > MATCH_RELATIVE or r * 4 >= max(err, 1e-300):
+            continue
+        if code == "scale" and _is_unit(a):
+            continue
+        matches.append((r, len(matches), code, words, a))
+    if matches:
+        _, _, code, words, a = min(matches)
+        if code == "scale":
+            return "scale", _scale_words(case, a, case.n)
+        return code, _with_scale(words, a, case.n)
+
+    eps_case = _EPS[case.dtype]
+    units = err / eps_case
+    if _lower_dtype(case, y):
+        return "dtype", (f"output has dtype {y.dtype}, lower precision than the {case.output_dtype} asked for; "
+                         f"relative rms error {units:.3g} eps")
+    level = _precision_level(case, err, limit)
+    if level is not None:
+        return "precision", (f"errors at the level of {level}: relative rms error {units:.3g} eps of "
+                             f"{case.dtype} ({err / _EPS[level]:.3g} eps of {level}) with the right structure; "
+                             f"the transform appears to be computed in {level}")
+    return "unknown", (f"relative rms error {err:.3g} ({units:.3g} eps); no single common bug (sign, scale, "
+                       f"order, shift, lower precision, changed size, dropped imaginary part) explains it")
+
+
+def diagnose_round_trip(x: np.ndarray, z: np.ndarray, n: int, reversed_ok: bool = True,
+                        subject: str = "the round trip gives the input") -> tuple[str, str]:
+    """Return ``(code, message)`` for a round trip ``z`` that should have given back ``x``.
+
+    Tests ``z = a x`` (``scale``: the pair's normalisations do not multiply to 1) and
+    ``z = a x[-n]`` (``sign``: both transforms use the same exponent sign, so the trip
+    reverses the signal); else ``unknown``. ``reversed_ok`` False skips the reversal test
+    (for half spectra, where it has no meaning). ``subject`` starts the message.
+    """
+    x = np.asarray(x).astype(np.complex128)
+    z = np.asarray(z).astype(np.complex128)
+    base_err = _norm(z - x) / max(_norm(x), 1e-300)
+    a, r = _fit(x, z)
+    if r <= MATCH_RELATIVE and not _is_unit(a):
+        if abs(a.imag) <= UNIT_FACTOR_RELATIVE * abs(a) and a.real > 0:
+            ratio = a.real
+            big = ratio > 1
+            name = factor_name(ratio if big else 1 / ratio, n)
+            return "scale", (f"{subject} {name} times too {'large' if big else 'small'}: "
+                             f"the two normalisations do not multiply to 1")
+        return "scale", f"{subject} times {a:.4g}"
+    if reversed_ok and n > 2:
+        rev = x[(-np.arange(x.shape[0])) % x.shape[0]]
+        a, r = _fit(rev, z)
+        if r <= MATCH_RELATIVE and r * 4 < base_err:
+            return "sign", _with_scale(f"{subject} reversed in time: both transforms use the same exponent sign",
+                                       a, n)
+    return "unknown", f"{subject} off by a relative {base_err:.3g}"

@@ -1,0 +1,355 @@
+"""The correctness battery's engine: cases x backends, run in worker processes, rows
+streamed to a results file.
+
+:func:`run_battery` is what ``fftgauge check`` and the Python API call. For each backend it
+starts a :class:`~fftgauge.harness.execution.worker.Worker` and asks it which cases the backend claims (the
+others become ``skip`` rows with the reason); the backends are asked in parallel. Then every
+check of every claimed case runs in a worker (:func:`run_case_job`), one case per call with
+a timeout, so a crash or a hang becomes ``error`` rows and the run goes on.
+
+How the work is spread over the cores
+-------------------------------------
+One *lane* per core (a thread of the main process driving one worker process at a time)
+takes *batches* from a shared :class:`BatchQueue` until none is left. A batch is every
+claimed case of one backend and one size (all kinds, precisions and normalisations), so
+the caches a worker keeps per size (tables of roots of unity, closed-form pairs, a
+library's plans and twiddles) serve the whole batch. Each backend's batches go largest
+size first. A lane stays on its backend while it has batches, then starts the next backend
+no lane has started (with the worker that described it), and at the end joins the backend
+with the most batches left, with a worker of its own: the lanes pull work as they finish,
+so no core waits while another has a long queue, the run ends on the smallest sizes, and
+few workers are started (about one per backend, plus one per join).
+
+Each worker caps its BLAS thread pools at ``BatteryRequest.threads`` (one by default): the
+battery already keeps every core busy with one worker process each, and a BLAS library
+that starts a thread per core in every worker (the ``direct`` backend's matrix products,
+four calls at once in the ``concurrent`` check) makes their spinning threads fight over the
+cores (measured ten times slower with two workers on two cores).
+"""
+
+from __future__ import annotations
+
+import os
+import queue
+import sys
+import threading
+from collections import deque
+from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass
+from typing import Any, Iterable, Sequence
+
+from fftgauge.harness.cases import Case
+from fftgauge.harness.execution.dispatch import Progress, describe_cases
+from fftgauge.harness.errors import BackendFailure, UsageError
+from fftgauge.harness.results import ResultsWriter, envelope
+from fftgauge.harness.rows import CheckRow
+
+CHECK_SCHEMA = "fftgauge-check/1"
+
+#: The ``check`` name of the single row that stands for a case the backend does not claim.
+SKIPPED_CASE_CHECK = "all"
+
+#: Seconds one case (all its checks) may take in a worker before it is killed.
+DEFAULT_CASE_TIMEOUT_SECONDS = 120.0
+
+
+@dataclass(frozen=True)
+class BatteryRequest:
+    """What to run: validated at the boundary (CLI or API), trusted here."""
+
+    specs: tuple[str, ...]
+    kinds: tuple[str, ...] | None
+    dtypes: tuple[str, ...]
+    sizes: tuple[int, ...]
+    norms: tuple[str, ...] = ("backward",)
+    checks: tuple[str, ...] | None = None
+    seed: int = 1234
+    threads: int | None = None
+    timeout_seconds: float = DEFAULT_CASE_TIMEOUT_SECONDS
+    max_n_pure_python: int | None = None
+
+
+def build_cases(req: BatteryRequest, kinds: Sequence[str]) -> list[Case]:
+    """Return the cases of ``req`` for the given kinds, in a stable order (kind, dtype, norm, n)."""
+    return [Case(k, d, n, norm) for k in kinds for d in req.dtypes for norm in req.norms for n in req.sizes]
+
+
+def _rows_for(label: str, case: Case, check_names: Iterable[str], status: str, message: str) -> list[dict]:
+    return [CheckRow(backend=label, kind=case.kind, dtype=case.dtype, n=case.n, norm=case.norm, check=name,
+                     status=status, message=message).as_dict() for name in check_names]
+
+
+@dataclass(frozen=True)
+class Batch:
+    """Every claimed case of one backend and one size, run one after another by one worker."""
+
+    spec: str
+    label: str
+    capabilities: dict[str, Any]
+    indices: tuple[int, ...]
+
+
+class BatchQueue:
+    """The battery's work: per backend, its batches largest size first; lanes take them with
+    :meth:`next`. Thread-safe.
+    """
+
+    def __init__(self, req: BatteryRequest, claims: dict[str, dict[str, Any]], cases: list[Case]):
+        self._order = list(req.specs)
+        self._left: dict[str, deque[Batch]] = {}
+        for spec in req.specs:
+            by_size: dict[int, list[int]] = {}
+            for i, reason in enumerate(claims[spec]["reasons"]):
+                if reason is None:
+                    by_size.setdefault(cases[i].n, []).append(i)
+            self._left[spec] = deque(Batch(spec, claims[spec]["label"], claims[spec]["describe"]["capabilities"],
+                                           tuple(by_size[n])) for n in sorted(by_size, reverse=True))
+        #: How many cases the queue held at the start.
+        self.total_cases = sum(len(b.indices) for q in self._left.values() for b in q)
+        #: How many batches the queue held at the start.
+        self.total_batches = sum(len(q) for q in self._left.values())
+        self._started: set[str] = set()
+        self._lock = threading.Lock()
+
+    def next(self, spec: str | None) -> Batch | None:
+        """Return the next batch for a lane now working on backend ``spec`` (None: on none yet),
+        or None when the lane should stop.
+
+        In order of preference: the next batch of the lane's own backend (its worker is
+        running); the first batch of the first backend no lane has started (in the order
+        asked; its describing worker is waiting); a batch of the backend with the most batches
+        left, when it has at least two (a lane that joins a backend starts a worker for it,
+        which a single batch, the backend's smallest size, does not repay).
+        """
+        with self._lock:
+            if spec is not None and self._left.get(spec):
+                return self._left[spec].popleft()
+            for other in self._order:
+                if other not in self._started and self._left[other]:
+                    self._started.add(other)
+                    return self._left[other].popleft()
+            busiest = max(self._order, key=lambda s: len(self._left[s]), default=None)
+            if busiest is not None and len(self._left[busiest]) >= 2:
+                return self._left[busiest].popleft()
+            return None
+
+
+#: Worker job name of :func:`run_case_job`.
+CASE_JOB = "fftgauge.harness.battery.run:run_case_job"
+
+#: (cap, len(sys.modules)) when this process last capped its BLAS pools (worker side).
+_BLAS_CAP: list[tuple[int, int]] = []
+
+
+def run_case_job(backend: Any, case_fields: tuple, seed: int, check_names: list[str],
+                 blas_threads: int | None = 1) -> list[dict]:
+    """Worker job of the battery: :func:`fftgauge.harness.battery.checks.run_case_checks` in a worker whose BLAS
+    thread pools are capped at ``blas_threads`` (None leaves them alone).
+
+    The cap (threadpoolctl) holds for the rest of the worker's life. It is applied before
+    the first case and again after any case that imported new modules, since a BLAS library
+    arrives with an import (numpy's at start-up, scipy's when the reference first imports
+    scipy.fft); asking threadpoolctl costs milliseconds, so it is not asked on every case.
+
+    Returns the rows as dicts; raises what :func:`~fftgauge.harness.battery.checks.run_case_checks` raises.
+    """
+    from fftgauge.harness.battery.checks import run_case_checks
+
+    _cap_blas(blas_threads)
+    rows = run_case_checks(backend, case_fields, seed, check_names)
+    _cap_blas(blas_threads)
+    return rows
+
+
+def _cap_blas(threads: int | None) -> None:
+    """Cap this process's BLAS pools at ``threads`` unless done already since the last import."""
+    if threads is None or _BLAS_CAP == [(threads, len(sys.modules))]:
+        return
+    from threadpoolctl import threadpool_limits
+
+    threadpool_limits(limits=threads, user_api="blas")
+    _BLAS_CAP[:] = [(threads, len(sys.modules))]
+
+
+class _Lane:
+    """One core's share of the run: what a thread of the main process uses to drive one worker
+    process at a time. ``spare_workers`` (SPEC -> describing worker) is shared by the lanes,
+    under ``lock``; the first lane to reach a backend takes its describing worker."""
+
+    def __init__(self, spare_workers: dict[str, Any], lock: threading.Lock, req: BatteryRequest):
+        self._spare, self._lock, self._req = spare_workers, lock, req
+        #: The SPEC of the backend the lane's worker runs (None before the first batch).
+        self.spec: str | None = None
+        self._worker: Any = None
+
+    def worker_for(self, spec: str) -> Any:
+        """Return a worker for ``spec``: the current one, else the spare (describing) one, else a new one."""
+        from fftgauge.harness.execution.worker import Worker
+
+        if spec != self.spec:
+            self.close()
+            with self._lock:
+                self._worker = self._spare.pop(spec, None)
+            self._worker = self._worker or Worker(spec, threads=self._req.threads)
+            self.spec = spec
+        return self._worker
+
+    def close(self) -> None:
+        """Close the current worker (if any)."""
+        if self._worker is not None:
+            self._worker.close()
+        self._worker, self.spec = None, None
+
+
+class RowSink:
+    """Passes rows to a :class:`~fftgauge.harness.results.ResultsWriter` from a thread of its own, so a
+    lane hands its rows over and goes on at once, never waiting while the writer rewrites the
+    file (a rewrite of tens of thousands of rows takes a good fraction of a second, during
+    which every worker would otherwise sit idle).
+    """
+
+    def __init__(self, writer: ResultsWriter):
+        self._writer = writer
+        self._queue: "queue.SimpleQueue[list[dict] | None]" = queue.SimpleQueue()
+        self._error: BaseException | None = None
+        self._thread = threading.Thread(target=self._drain, name="fftgauge-rows", daemon=True)
+        self._thread.start()
+
+    def _drain(self) -> None:
+        while (rows := self._queue.get()) is not None:
+            if self._error is None:
+                try:
+                    self._writer.add(rows)
+                except BaseException as exc:  # noqa: BLE001 - raised again by close()
+                    self._error = exc
+
+    def add(self, rows: list[dict]) -> None:
+        """Queue ``rows`` for the writer."""
+        self._queue.put(rows)
+
+    def close(self) -> None:
+        """Wait until every queued row is with the writer (the writer itself stays open).
+
+        Raises
+        ------
+        BaseException
+            Whatever the writer raised while taking rows (for example a
+            :class:`~fftgauge.harness.errors.UsageError` for a results file that cannot be written).
+        """
+        self._queue.put(None)
+        self._thread.join()
+        if self._error is not None:
+            raise self._error
+
+
+def _run_lane(lane: _Lane, batches: BatchQueue, cases: list[Case], req: BatteryRequest,
+              check_names: list[str] | None, sink: RowSink, progress: Progress) -> None:
+    """Take batches from ``batches`` until it has none for this lane, passing rows to ``sink``
+    as they come; closes the lane's worker."""
+    from fftgauge.harness.battery.checks import CHECKS, applicable_checks
+
+    try:
+        while (batch := batches.next(lane.spec)) is not None:
+            worker = lane.worker_for(batch.spec)
+            for index in batch.indices:
+                case = cases[index]
+                names = [c for c in (check_names or list(CHECKS)) if c in applicable_checks(case, batch.capabilities)]
+                try:
+                    rows = worker.call(CASE_JOB, (case.kind, case.dtype, case.n, case.norm), req.seed, names,
+                                       req.threads or 1, timeout_seconds=req.timeout_seconds)
+                except BackendFailure as exc:
+                    rows = _rows_for(batch.label, case, names, "error", str(exc))
+                sink.add(rows)
+                progress.advance(note=f"{batch.label} {case.label()}")
+    finally:
+        lane.close()
+
+
+def _describe_all(workers: dict[str, Any], req: BatteryRequest, cases: list[Case],
+                  parallel: int) -> dict[str, dict[str, Any]]:
+    """Return :func:`fftgauge.harness.execution.dispatch.describe_cases` for every SPEC, asked ``parallel`` at a time.
+
+    Raises
+    ------
+    UsageError
+        The first SPEC's (in the order asked) that cannot be loaded or fails to describe itself.
+    """
+    def describe(spec: str) -> dict[str, Any]:
+        return describe_cases(workers[spec], spec, cases, req.max_n_pure_python, req.timeout_seconds)
+
+    with ThreadPoolExecutor(max_workers=max(1, min(parallel, len(req.specs)))) as pool:
+        futures = {spec: pool.submit(describe, spec) for spec in req.specs}
+        return {spec: futures[spec].result() for spec in req.specs}
+
+
+def _skip_rows(req: BatteryRequest, claims: dict[str, dict[str, Any]], cases: list[Case]) -> list[dict]:
+    """Return one ``skip`` row per case a backend does not claim (the reason as its message)."""
+    return [row for spec in req.specs for case, reason in zip(cases, claims[spec]["reasons"]) if reason is not None
+            for row in _rows_for(claims[spec]["label"], case, [SKIPPED_CASE_CHECK], "skip", reason)]
+
+
+def _sort_rows(rows: list[dict], req: BatteryRequest, claims: dict[str, dict[str, Any]], order: list[str]) -> None:
+    """Sort rows in place: backend (as asked), kind, dtype, norm, n, check (battery order)."""
+    backend_pos = {claims[spec]["label"]: i for i, spec in enumerate(req.specs)}
+    check_pos = {name: i for i, name in enumerate([SKIPPED_CASE_CHECK] + order)}
+    kinds = ("fft", "ifft", "rfft", "irfft")
+    rows.sort(key=lambda r: (backend_pos.get(r["backend"], 0), kinds.index(r["kind"]), r["dtype"], r["norm"],
+                             r["n"], check_pos.get(r["check"], len(check_pos))))
+
+
+def run_battery(req: BatteryRequest, json_path: str | None = None, quiet: bool = True) -> dict[str, Any]:
+    """Run the battery and return the ``fftgauge-check/1`` document (rows included).
+
+    Rows are streamed to ``json_path`` (when given) as cases finish, so an interrupted run
+    keeps what it finished.
+
+    Raises
+    ------
+    UsageError
+        When a backend SPEC cannot be loaded or a check name is unknown.
+    """
+    from fftgauge.harness.battery.checks import CHECKS
+    from fftgauge.harness.battery.reference import reference_method
+    from fftgauge.harness.execution.worker import Worker
+
+    if req.checks:
+        unknown = [c for c in req.checks if c not in CHECKS]
+        if unknown:
+            raise UsageError(f"unknown check {unknown[0]!r}; checks: {', '.join(CHECKS)}")
+    check_names = list(req.checks) if req.checks else None
+    kinds = req.kinds or ("fft", "ifft", "rfft", "irfft")
+    cases = build_cases(req, kinds)
+    parallel = max(1, os.cpu_count() or 1)
+    workers = {spec: Worker(spec, threads=req.threads) for spec in req.specs}
+    try:
+        claims = _describe_all(workers, req, cases, parallel)
+        doc = envelope(CHECK_SCHEMA, req.seed, extra={
+            "reference": {dtype: reference_method(dtype) for dtype in req.dtypes},
+            "backends": {claims[s]["label"]: {"spec": s, **claims[s]["describe"]} for s in req.specs},
+            "request": {"kinds": list(kinds), "dtypes": list(req.dtypes), "norms": list(req.norms),
+                        "sizes": list(req.sizes), "checks": check_names or list(CHECKS)},
+        })
+        writer = ResultsWriter(json_path, doc)
+        writer.add(_skip_rows(req, claims, cases))
+        batches = BatchQueue(req, claims, cases)
+        progress = Progress(total=batches.total_cases, quiet=quiet)
+        spare_lock = threading.Lock()
+        lanes = [_Lane(workers, spare_lock, req) for _ in range(min(parallel, max(1, batches.total_batches)))]
+        sink = RowSink(writer)
+        try:
+            with ThreadPoolExecutor(max_workers=len(lanes)) as pool:
+                futures = [pool.submit(_run_lane, lane, batches, cases, req, check_names, sink, progress)
+                           for lane in lanes]
+                for fut in futures:
+                    fut.result()
+        finally:
+            progress.close()
+            try:
+                sink.close()
+            finally:
+                _sort_rows(doc["rows"], req, claims, list(CHECKS))
+                writer.close()
+    finally:
+        for worker in workers.values():
+            worker.close()
+    return doc

@@ -1,0 +1,136 @@
+"""``fftgauge time``: planning and execution times, rates and memory, as comparable tables."""
+
+from __future__ import annotations
+
+import argparse
+import time
+
+from fftgauge.harness.cases import DTYPES, KINDS, NORMS
+from fftgauge.harness.cli import add_common_options, default_results_path, parse_choice_list
+from fftgauge.harness.errors import UsageError
+from fftgauge.harness.timing.runner import (DEFAULT_BUDGET_SECONDS, DEFAULT_CASE_TIMEOUT_SECONDS, DEFAULT_ROUNDS, DEFAULT_SAMPLES,
+                            TimingRequest, run_timing)
+from fftgauge.harness.sizes import parse_sizes
+
+DEFAULT_SIZES = "2^4..2^16"
+#: Size limit applied to the pure-Python references when --sizes is not given.
+DEFAULT_PURE_PYTHON_MAX_N = 1024
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    """Add this sub-command's options to ``parser``."""
+    add_common_options(parser, "backend", "kinds", "dtypes", "sizes", "seed", "json", "csv", "quiet", "threads",
+                       "pin")
+    parser.add_argument("--norms", metavar="LIST", help="comma list of backward, ortho, forward (default backward)")
+    parser.add_argument("--samples", type=int, default=DEFAULT_SAMPLES, metavar="N",
+                        help=f"samples per case (default {DEFAULT_SAMPLES}; fewer when the per-case budget runs out)")
+    parser.add_argument("--budget", type=float, default=DEFAULT_BUDGET_SECONDS, metavar="SECONDS",
+                        help=f"seconds of sampling per case after which it stops once 5 samples are in "
+                             f"(default {DEFAULT_BUDGET_SECONDS:g})")
+    parser.add_argument("--rounds", type=int, default=DEFAULT_ROUNDS, metavar="R",
+                        help=f"split each case's samples into R rounds spread over the run, other cases timed in "
+                             f"between, so a slow stretch of the machine cannot hit one case alone "
+                             f"(default {DEFAULT_ROUNDS}; 1: each case in one go)")
+    parser.add_argument("--cold-cache", action="store_true",
+                        help="evict the caches before every sample (one call per sample): first-call cost")
+    parser.add_argument("--no-memory", action="store_true", help="do not measure peak extra memory")
+    parser.add_argument("--timeout", type=float, default=DEFAULT_CASE_TIMEOUT_SECONDS, metavar="SECONDS",
+                        help=f"seconds one case may take before the backend is killed "
+                             f"(default {DEFAULT_CASE_TIMEOUT_SECONDS:g})")
+    parser.add_argument("--pure-python-max-n", type=int, default=None, metavar="N",
+                        help=f"largest size given to the pure-Python references (default {DEFAULT_PURE_PYTHON_MAX_N} "
+                             f"when --sizes is not given, else no limit; 0: no limit)")
+    parser.add_argument("--plot", metavar="PATH", help="also draw time against N (PNG or SVG by the extension)")
+
+
+def request_from_args(args: argparse.Namespace) -> TimingRequest:
+    """Return the validated :class:`TimingRequest` the options describe.
+
+    Raises
+    ------
+    UsageError
+        For any malformed option value (the message names it).
+    """
+    from fftgauge.backends.registry import default_specs
+    from fftgauge.harness.timing.affinity import choose_cpus, parse_pin
+
+    for name in ("samples", "budget", "timeout", "rounds"):
+        if getattr(args, name) <= 0:
+            raise UsageError(f"--{name} must be positive, got {getattr(args, name):g}")
+    if args.samples < 5:
+        raise UsageError(f"--samples must be at least 5 for a meaningful interval, got {args.samples}")
+    if args.threads is not None and args.threads < 1:
+        raise UsageError(f"--threads must be a positive integer, got {args.threads}")
+    limit = args.pure_python_max_n
+    if limit is None:
+        limit = DEFAULT_PURE_PYTHON_MAX_N if args.sizes is None else 0
+    return TimingRequest(
+        specs=tuple(args.backend) if args.backend else tuple(default_specs()),
+        kinds=parse_choice_list(args.kinds, KINDS, "kind"),
+        dtypes=parse_choice_list(args.dtypes, DTYPES, "dtype") or ("float64",),
+        sizes=tuple(parse_sizes(args.sizes or DEFAULT_SIZES)),
+        norms=parse_choice_list(args.norms, NORMS, "norm") or ("backward",),
+        seed=args.seed, threads=args.threads or 1, samples=args.samples, budget_seconds=args.budget,
+        cold_cache=args.cold_cache, measure_memory=not args.no_memory, timeout_seconds=args.timeout,
+        max_n_pure_python=limit or None, rounds=args.rounds,
+        cpus=choose_cpus(parse_pin(args.pin_cpu), args.threads or 1),
+    )
+
+
+def summary_text(doc: dict) -> str:
+    """Return the terminal report of a timing document: the comparison tables, the
+    planning times of backends that plan, the scaling analysis and any error rows."""
+    from fftgauge.harness.timing.scaling import scaling_report
+    from fftgauge.harness.report.time_tables import comparison_table, format_comparison, format_seconds
+
+    rows = doc["rows"]
+    parts = [format_comparison(comparison_table(rows))]
+    planned = [r for r in rows if r.get("status") == "ok" and (r.get("plan_seconds") or 0) > 1e-4]
+    if planned:
+        worst = max(planned, key=lambda r: r["plan_seconds"])
+        parts.append(f"planning: {len(planned)} case(s) took over 0.1 ms to plan; the longest, "
+                     f"{worst['backend']} {worst['kind']} n={worst['n']}, took {format_seconds(worst['plan_seconds'])}")
+    parts.append(scaling_report(rows, doc.get("machine")))
+    errors = [r for r in rows if r.get("status") == "error"]
+    if errors:
+        parts.append("errors:\n" + "\n".join(f"  {r['backend']} {r['kind']} {r['dtype']} n={r['n']}: {r['message']}"
+                                             for r in errors[:10]))
+    return "\n\n".join(parts)
+
+
+def write_csv(doc: dict, path: str) -> None:
+    """Write the rows of a timing document as CSV (one line per backend x case).
+
+    Raises
+    ------
+    UsageError
+        When the path cannot be written.
+    """
+    import pandas as pd
+
+    from fftgauge.harness.results import write_text_atomic
+
+    write_text_atomic(path, pd.DataFrame(doc["rows"]).to_csv(index=False))
+
+
+def run(args: argparse.Namespace) -> int:
+    """Time the cases; print the tables; return 0, or 1 when a backend errored on a case."""
+    req = request_from_args(args)
+    if args.plot:
+        from fftgauge.harness.report.plots import check_plot_path, require_matplotlib
+        check_plot_path(args.plot)
+        require_matplotlib()
+    path = args.json or default_results_path("time")
+    started = time.perf_counter()
+    doc = run_timing(req, json_path=path, quiet=args.quiet)
+    elapsed = time.perf_counter() - started
+    print(summary_text(doc))
+    if args.csv:
+        write_csv(doc, args.csv)
+    written = [path] + ([args.csv] if args.csv else [])
+    if args.plot:
+        from fftgauge.harness.report.plots import plot_time
+        written.append(plot_time(doc["rows"], args.plot))
+    print(f"\nthreads {req.threads}; seed {req.seed}; {len(doc['rows'])} rows in {elapsed:.1f} s; "
+          f"written to {', '.join(written)}")
+    return 1 if any(r.get("status") == "error" for r in doc["rows"]) else 0

@@ -1,0 +1,1 @@
+"""fftgauge.harness.execution: running untrusted backend code in worker processes."""

@@ -1,0 +1,751 @@
+"""Worker processes: untrusted backend code runs in a child, so that a crash, a hang or a
+runaway allocation becomes a :class:`~fftgauge.harness.errors.BackendFailure`, never the end of a run.
+
+A :class:`Worker` owns one child process that loads one backend from its SPEC string (once
+per child) and runs *jobs* on it: a job is a function ``func(backend, *args)`` named
+``"package.module:function"`` and importable in the child. The job functions the engine
+needs are in this module (:func:`plan_and_execute`, :func:`describe_backend`,
+:func:`unsupported_reason`); other modules may add their own.
+
+How the child is run, and why
+-----------------------------
+- **Start method.** ``spawn`` by default: a fresh interpreter, so no lock, thread pool or
+  OpenMP runtime of the parent is inherited half-initialised (``fork`` after threads have
+  started is unsafe, and numpy's BLAS, pyFFTW and scipy's workers all start threads).
+  Spawn re-imports what the child needs: this module (standard library, numpy,
+  :mod:`fftgauge.harness.cases`), the registry and the one backend. It also imports the parent's
+  main *script* if it was started as a file (``python -m`` mains are skipped), so a
+  console-script entry point should import its sub-commands lazily, and a script that
+  creates a :class:`Worker` must guard its top level with ``if __name__ == "__main__":``
+  (as for any spawn-started process).
+- **Talking.** One :func:`multiprocessing.Pipe`. The child first reports that the backend
+  loaded (or why it did not); then each call sends ``(func, args)`` and waits with
+  :func:`multiprocessing.connection.wait` on both the pipe and the process sentinel, so a
+  dead child is noticed at once, not when the timeout runs out. The job's exception is
+  turned into a one-line reason *in the child* and sent as text, so an exception that
+  cannot be pickled still comes back readable.
+- **Timeouts.** When a job overruns, the child is asked (SIGUSR1, through
+  :mod:`faulthandler`) where it is, then stopped with ``terminate()`` and, after
+  :data:`KILL_GRACE_SECONDS`, ``kill()``; it is always joined, so no zombie is left. The
+  next call starts a fresh child, so the remaining jobs go on.
+- **Output.** The child's standard output goes to ``os.devnull`` (at the file-descriptor
+  level, so C code that prints is silenced too): a chatty backend must not garble the
+  parent's terminal or progress bar, and nothing a backend prints is a result. Its
+  standard error goes to a private log file that the parent reads after a crash:
+  :mod:`faulthandler` writes the crashing Python stack there, and the reason names the
+  innermost frame in the backend's code. The log is emptied before every job, so it stays
+  small. SIGINT is ignored in the child: on Ctrl-C the parent decides, and stops it. Core
+  dumps are switched off in the child (``RLIMIT_CORE`` = 0).
+- **Memory.** ``memory_limit_bytes`` (Linux; POSIX systems that enforce ``RLIMIT_AS``) caps
+  the child's *address space* with :func:`resource.setrlimit`; an allocation beyond it
+  fails, and a :class:`MemoryError` in a job becomes "ran out of memory (MemoryError ...)".
+  The default is ``None`` (off) on purpose: ``RLIMIT_AS`` counts virtual reservations, not
+  memory in use, and healthy threaded backends reserve a lot they never touch (8 MiB of
+  stack per thread, glibc's 64 MiB malloc arena per thread, OpenBLAS/OpenMP/FFTW
+  per-thread buffers), so any limit tight enough to catch a runaway early would kill good
+  backends on many-core machines. Without a limit a runaway is still contained: it gets a
+  MemoryError, or the kernel's out-of-memory killer picks the child (the biggest process),
+  which becomes "was killed (signal 9, SIGKILL)". When you set a limit, be generous (for
+  example 2 GiB plus 16 times the largest input in bytes).
+- **Leftovers.** :meth:`Worker.close` (also on leaving a ``with`` block) stops the child; an
+  exception in the parent during a call (KeyboardInterrupt included) stops it too; an
+  :mod:`atexit` hook closes every worker still open; and the child watches its parent and
+  exits when the parent has gone (a pure-Python hang included; code that holds the GIL
+  forever is only stopped by the parent). A worker dropped without :meth:`Worker.close`
+  closes its pipe when collected, and its child then exits; closing explicitly is still
+  the rule (a ``with`` block). Under ``fork`` a child inherits every open descriptor of
+  the parent, other workers' pipes included; it closes its own worker's end, and the
+  watch on the parent covers the rest.
+
+A :class:`Worker` is not thread-safe: use each one from one thread.
+
+Examples
+--------
+>>> import numpy as np
+>>> from fftgauge.harness.cases import Case
+>>> with Worker("numpy") as worker:                                 # doctest: +SKIP
+...     y = worker.call("fftgauge.harness.execution.worker:plan_and_execute", Case("fft", "float64", 8),
+...                     np.ones(8, complex), timeout_seconds=30)
+>>> y[0]                                                            # doctest: +SKIP
+np.complex128(8+0j)
+"""
+
+from __future__ import annotations
+
+import atexit
+import faulthandler
+import importlib
+import math
+import multiprocessing
+import multiprocessing.connection
+import multiprocessing.util  # noqa: F401 - its atexit hook must be registered before ours
+import os
+import re
+import signal
+import sys
+import sysconfig
+import tempfile
+import threading
+import time
+import traceback
+import weakref
+from multiprocessing.reduction import ForkingPickler
+from typing import Any, Callable, Iterable, Iterator
+
+import numpy as np
+
+from fftgauge.harness.cases import Case
+from fftgauge.harness.errors import BackendFailure, UnsupportedCase, UsageError
+
+#: Seconds a child gets to exit after ``terminate()`` (SIGTERM) before ``kill()`` (SIGKILL).
+KILL_GRACE_SECONDS = 1.0
+#: Default seconds a fresh child gets to start and load its backend (imports included).
+START_TIMEOUT_SECONDS = 120.0
+#: Seconds the parent waits for a timed-out child to report where it is.
+STACK_DUMP_WAIT_SECONDS = 0.5
+#: How often, in seconds, the child checks that its parent is still there.
+ORPHAN_CHECK_SECONDS = 0.5
+#: Exit code of a child that found its owner gone.
+ORPHAN_EXIT_CODE = 70
+#: Longest job exception message kept in a reason, in characters.
+MESSAGE_CHARS = 300
+
+_FUNC = re.compile(r"^[A-Za-z_][\w.]*:[A-Za-z_]\w*$")
+_STACK_HEADER = re.compile(r"^(?:(?:Current thread|Thread) (?P<ident>0x[0-9a-fA-F]+)|Stack) "
+                           r"\(most recent call first\):\s*$")
+_STACK_FRAME = re.compile(r'^\s*File "(?P<file>.*)", line (?P<line>\d+) in (?P<name>.*?)\s*$')
+_CRASH_SIGNALS = {"SIGSEGV", "SIGBUS", "SIGILL", "SIGFPE"}
+_LIVE_WORKERS: "weakref.WeakSet[Worker]" = weakref.WeakSet()
+
+
+# -- job functions (run in the child) ----------------------------------------------------------
+def plan_and_execute(backend: Any, case: Case | tuple, x: np.ndarray) -> np.ndarray:
+    """Plan ``case`` on ``backend``, run the plan once on ``x`` and return the output.
+
+    The job the engine runs in a worker for one correctness probe: ``backend.plan(case)``,
+    ``plan.prepare(x)``, ``plan.execute(...)``, ``plan.close()``. The output is returned as
+    a fresh numpy array (a plan may reuse its output buffer), whatever its shape or dtype:
+    judging those is the checks' job. Note that the caller's ``x`` travels to the child as a
+    copy, so a check that the input was left intact must run inside the child.
+
+    Parameters
+    ----------
+    backend : the adapter the worker loaded (passed by the worker).
+    case : a :class:`~fftgauge.harness.cases.Case`, or a tuple ``(kind, dtype, n[, norm])``.
+    x : the input array.
+
+    Returns
+    -------
+    numpy.ndarray
+        A copy of what the plan returned.
+
+    Raises
+    ------
+    UnsupportedCase
+        When the backend's plan refuses the case (the worker passes it on as such).
+    TypeError
+        When the backend returned something that is not a numeric array (no numbers, or
+        Python objects); the worker turns it into a :class:`BackendFailure`.
+    Exception
+        Whatever the backend raised; the worker turns it into a :class:`BackendFailure`.
+    """
+    if not isinstance(case, Case):
+        case = Case(*case)
+    plan = backend.plan(case)
+    try:
+        out = plan.execute(plan.prepare(x))
+        y = np.array(out, copy=True)
+    finally:
+        plan.close()
+    if y.dtype.kind not in "biufc":
+        raise TypeError(f"the backend returned {type(out).__name__} of dtype {y.dtype}, "
+                        f"not a numeric array")
+    return y
+
+
+def describe_backend(backend: Any) -> dict[str, Any]:
+    """Return ``backend.describe()``: name, version, description, options, capabilities.
+
+    Lets the parent learn what a backend claims without importing its code.
+    """
+    return backend.describe()
+
+
+def unsupported_reason(backend: Any, case: Case | tuple) -> str | None:
+    """Return ``backend.unsupported_reason(case)``: why the case is outside its claims, or None."""
+    if not isinstance(case, Case):
+        case = Case(*case)
+    return backend.unsupported_reason(case)
+
+
+# -- the parent's side -------------------------------------------------------------------------
+class Worker:
+    """A child process that loads one backend from its SPEC string and runs jobs on it.
+
+    Parameters
+    ----------
+    spec : the backend SPEC (``numpy``, ``pyfftw[threads=2]``, ``file.py:fn``, ...). It is
+        parsed and loaded in the child only, on the first call.
+    threads : passed to :func:`fftgauge.backends.registry.load_backend` in the child.
+    memory_limit_bytes : cap on the child's address space (``RLIMIT_AS``), or ``None`` (the
+        default: off; see the module docstring for why).
+    start_method : multiprocessing start method; ``spawn`` (the default) is the safe one.
+    start_timeout_seconds : how long a fresh child may take to start and load the backend.
+
+    Raises
+    ------
+    UsageError
+        For a start method this platform lacks, or a non-positive ``threads``,
+        ``memory_limit_bytes`` or ``start_timeout_seconds``.
+    """
+
+    def __init__(self, spec: str, threads: int | None = None, memory_limit_bytes: int | None = None,
+                 start_method: str = "spawn", start_timeout_seconds: float = START_TIMEOUT_SECONDS):
+        if start_method not in multiprocessing.get_all_start_methods():
+            raise UsageError(f"start method {start_method!r} is not available here; use one of "
+                             f"{', '.join(multiprocessing.get_all_start_methods())}")
+        for name, value in (("threads", threads), ("memory_limit_bytes", memory_limit_bytes)):
+            if value is not None and (not isinstance(value, (int, np.integer)) or value < 1):
+                raise UsageError(f"{name} must be a positive integer, got {value!r}")
+        if not start_timeout_seconds > 0:
+            raise UsageError(f"start_timeout_seconds must be positive, got {start_timeout_seconds!r}")
+        self.spec = spec
+        self.threads = threads
+        self.memory_limit_bytes = memory_limit_bytes
+        self.start_method = start_method
+        self.start_timeout_seconds = float(start_timeout_seconds)
+        #: How many children this worker has started (a crash or timeout costs one more).
+        self.starts = 0
+        self._ctx = multiprocessing.get_context(start_method)
+        self._process: Any = None
+        self._conn: Any = None
+        self._main_ident: int | None = None
+        self._log_path: str | None = None
+        self._log_remover: Any = None
+        self._usage_error: str | None = None
+        self._closed = False
+        _LIVE_WORKERS.add(self)
+
+    # -- public ------------------------------------------------------------------------------
+    @property
+    def pid(self) -> int | None:
+        """Process id of the current child, or ``None`` when none is running."""
+        return self._process.pid if self._process is not None else None
+
+    def call(self, func: str, *args: Any, timeout_seconds: float) -> Any:
+        """Run ``func(backend, *args)`` in the child and return its (picklable) result.
+
+        Parameters
+        ----------
+        func : ``"package.module:function"``, importable in the child.
+        *args : picklable arguments after the backend.
+        timeout_seconds : how long the job may run (the child's start-up is not counted).
+
+        Returns
+        -------
+        Any
+            What the function returned.
+
+        Raises
+        ------
+        UsageError
+            When the SPEC cannot be loaded in the child (the child's one-line message; the
+            worker remembers it and raises it again on later calls without a new child).
+        UnsupportedCase
+            When the job raised :class:`UnsupportedCase` (the backend refused the case).
+        BackendFailure
+            When the job raised (reason: ``"ValueError: ... (at file.py:12 in fn)"``), the
+            child died (``"the backend crashed (signal 11, SIGSEGV) ..."``, ``"the backend
+            aborted (signal 6, SIGABRT) ..."``, ``"the backend exited with code 3"``), the job
+            overran (``"did not finish within 30 s; killed ..."``), ran out of memory
+            (``"ran out of memory (MemoryError ...)"``) or returned something that cannot be
+            sent back. After a death or timeout the next call starts a fresh child.
+        ValueError
+            When ``func`` is not written ``module:function`` or ``timeout_seconds`` is not
+            positive (a programming error, not the user's).
+        RuntimeError
+            When the worker is closed, or ``func`` cannot be imported in the child.
+        """
+        if not isinstance(func, str) or not _FUNC.match(func):
+            raise ValueError(f"job function must be written 'package.module:function', got {func!r}")
+        if not timeout_seconds > 0:
+            raise ValueError(f"timeout_seconds must be positive, got {timeout_seconds!r}")
+        if math.isinf(timeout_seconds):
+            timeout_seconds = None  # wait() takes None for "no limit"
+        if self._closed:
+            raise RuntimeError("this worker is closed")
+        if self._usage_error is not None:
+            raise UsageError(self._usage_error)
+        request = bytes(ForkingPickler.dumps((func, args)))  # unpicklable args: the caller's bug
+        try:
+            self._ensure_child()
+            _truncate(self._log_path)
+            try:
+                self._conn.send_bytes(request)
+            except OSError:  # the child died between jobs and after the liveness check
+                raise self._death_failure(during="") from None
+            status, payload = self._await_reply(timeout_seconds, loading=False)
+        except (BackendFailure, UsageError):
+            raise
+        except BaseException:  # KeyboardInterrupt included: a child in an unknown state goes
+            self._stop_child()
+            raise
+        if status == "ok":
+            return payload
+        if status == "unsupported":
+            raise UnsupportedCase(payload)
+        if status == "bad-func":
+            raise RuntimeError(payload)
+        raise BackendFailure(payload)
+
+    def close(self) -> None:
+        """Stop the child (asking it first, then terminate/kill) and remove its log. Idempotent."""
+        self._closed = True
+        if self._process is not None and self._process.is_alive() and self._conn is not None:
+            try:
+                self._conn.send_bytes(bytes(ForkingPickler.dumps(None)))
+                self._process.join(KILL_GRACE_SECONDS)
+            except (OSError, ValueError):
+                pass
+        self._stop_child()
+        if self._log_remover is not None:
+            self._log_remover()
+            self._log_path = self._log_remover = None
+        _LIVE_WORKERS.discard(self)
+
+    def __enter__(self) -> "Worker":
+        return self
+
+    def __exit__(self, *exc_info: Any) -> None:
+        self.close()
+
+    def __repr__(self) -> str:
+        state = "closed" if self._closed else f"pid {self.pid}" if self.pid else "idle"
+        return f"Worker({self.spec!r}, {state})"
+
+    # -- the child's life --------------------------------------------------------------------
+    def _ensure_child(self) -> None:
+        """Start a child and wait until it has loaded the backend, unless one is running."""
+        if self._process is not None:
+            if self._process.is_alive():
+                return
+            self._stop_child()  # it died between jobs: start afresh, blame no job
+        if self._log_path is None:
+            fd, self._log_path = tempfile.mkstemp(prefix="fftgauge-worker-", suffix=".log")
+            os.close(fd)
+            # Removed by close(), or when a worker nobody closed is collected or at exit.
+            self._log_remover = weakref.finalize(self, _remove_file, self._log_path)
+        _truncate(self._log_path)
+        parent_conn, child_conn = self._ctx.Pipe(duplex=True)
+        # A forked child inherits the parent's end too; it must close it, or it would never
+        # see end-of-file when the parent goes. Spawned children get only what is passed.
+        inherited = parent_conn if self.start_method == "fork" else None
+        process = self._ctx.Process(
+            target=_child_main, name=f"fftgauge-worker {self.spec}",
+            args=(child_conn, self.spec, self.threads, self.memory_limit_bytes, self._log_path,
+                  os.getpid(), inherited))
+        process.start()
+        child_conn.close()
+        self._process, self._conn = process, parent_conn
+        self.starts += 1
+        status, payload = self._await_reply(self.start_timeout_seconds, loading=True)
+        if status == "usage":
+            self._usage_error = payload
+            self._stop_child()
+            raise UsageError(payload)
+        self._main_ident = payload["main_thread"]
+
+    def _await_reply(self, timeout_seconds: float | None, loading: bool) -> tuple[str, Any]:
+        """Return the child's next message, or stop the child and raise BackendFailure."""
+        during = " while loading" if loading else ""
+        ready = multiprocessing.connection.wait([self._conn, self._process.sentinel], timeout_seconds)
+        if self._conn in ready:
+            try:
+                data = self._conn.recv_bytes()
+            except (EOFError, OSError):
+                raise self._death_failure(during) from None
+            try:
+                return ForkingPickler.loads(data)
+            except Exception as exc:  # the child is fine; only its answer is unreadable here
+                raise BackendFailure(f"the job's result cannot be read in the main process: "
+                                     f"{_describe_exception(exc)}") from None
+        if ready:
+            raise self._death_failure(during)
+        where = self._ask_where()
+        self._stop_child()
+        what = "finish loading" if loading else "finish"
+        raise BackendFailure(f"did not {what} within {timeout_seconds:g} s; killed"
+                             + (f" (it was at {where})" if where else ""))
+
+    def _death_failure(self, during: str) -> BackendFailure:
+        """Reap the dead (or dying) child and return the BackendFailure saying how it died."""
+        self._process.join(KILL_GRACE_SECONDS)
+        code = self._process.exitcode
+        log = _read_tail(self._log_path)
+        self._stop_child()
+        if code is None:  # the pipe broke but the process lived on: it has been stopped now
+            return BackendFailure(f"the backend closed its connection to the main process{during}; "
+                                  f"stopped")
+        return BackendFailure(_death_reason(code, log, during, self.memory_limit_bytes))
+
+    def _ask_where(self) -> str | None:
+        """Return where the running child's main thread is, via faulthandler's SIGUSR1 dump."""
+        if not hasattr(signal, "SIGUSR1") or self._process is None or not self._process.is_alive():
+            return None
+        try:
+            os.kill(self._process.pid, signal.SIGUSR1)
+        except OSError:
+            return None
+        deadline = time.monotonic() + STACK_DUMP_WAIT_SECONDS
+        while time.monotonic() < deadline:
+            time.sleep(0.05)
+            frames = _stack_of_thread(_read_tail(self._log_path), self._main_ident)
+            if frames:
+                return _user_location(frames)
+        return None
+
+    def _stop_child(self) -> None:
+        """Terminate, then kill, then join the child; close the pipe. Safe to call twice."""
+        process, conn = self._process, self._conn
+        self._process = self._conn = None
+        if conn is not None:
+            conn.close()
+        if process is None:
+            return
+        if process.exitcode is None:
+            process.terminate()
+            process.join(KILL_GRACE_SECONDS)
+        if process.exitcode is None:
+            process.kill()
+        process.join()
+        process.close()
+
+
+def run_jobs(worker: Worker, func: str, arg_list: Iterable[tuple], timeout_seconds: float
+             ) -> Iterator[tuple[tuple, Any]]:
+    """Run ``func(backend, *args)`` for every ``args`` in ``arg_list``, each with its own timeout.
+
+    Yields
+    ------
+    (args, outcome)
+        ``outcome`` is the job's result, or the :class:`BackendFailure` or
+        :class:`UnsupportedCase` it ended with; a failed job never stops the batch (the
+        worker restarts its child when needed).
+
+    Raises
+    ------
+    UsageError
+        When the SPEC cannot be loaded (no job of the batch can run).
+    """
+    for args in arg_list:
+        args = tuple(args)
+        try:
+            yield args, worker.call(func, *args, timeout_seconds=timeout_seconds)
+        except (BackendFailure, UnsupportedCase) as exc:
+            yield args, exc
+
+
+@atexit.register
+def _close_all_workers() -> None:
+    """Close every worker still open when the interpreter exits."""
+    for worker in list(_LIVE_WORKERS):
+        try:
+            worker.close()
+        except Exception:  # noqa: BLE001 - exiting anyway; never mask the real exit
+            pass
+
+
+# -- reasons -----------------------------------------------------------------------------------
+def _one_line(text: str, limit: int = MESSAGE_CHARS) -> str:
+    text = " ".join(str(text).split())
+    return text if len(text) <= limit else text[: limit - 3] + "..."
+
+
+def _safe_str(exc: BaseException) -> str:
+    try:
+        return str(exc)
+    except Exception:  # noqa: BLE001 - a broken __str__ must not hide the failure
+        return f"<{type(exc).__name__} whose message cannot be shown>"
+
+
+def _describe_exception(exc: BaseException) -> str:
+    """Return ``"TypeName: message"`` on one line (just the name when the message is empty)."""
+    message = _one_line(_safe_str(exc))
+    return f"{type(exc).__name__}: {message}" if message else type(exc).__name__
+
+
+def _not_user_dirs() -> tuple[str, ...]:
+    """Folders whose frames are never 'the user's code': the standard library,
+    site-packages and this package (the engine)."""
+    paths = sysconfig.get_paths()
+    dirs = {paths.get(k) for k in ("stdlib", "platstdlib", "purelib", "platlib")}
+    dirs.add(os.path.dirname(os.path.abspath(__file__)))
+    return tuple(os.path.join(os.path.realpath(d), "") for d in dirs if d)
+
+
+def _show_path(path: str) -> str:
+    """Return ``path`` relative to the current folder when it lies inside it."""
+    full = os.path.abspath(path)
+    here = os.path.join(os.getcwd(), "")
+    return os.path.relpath(full) if full.startswith(here) else path
+
+
+def _user_location(frames: list[tuple[str, int, str]]) -> str | None:
+    """Return ``"file:line in name"`` of the innermost frame in the user's code.
+
+    ``frames`` run from outermost to innermost. The user's code is anything outside the
+    standard library, site-packages and :mod:`harness`; when every frame is there, the
+    innermost frame is named.
+    """
+    if not frames:
+        return None
+    skip = _not_user_dirs()
+    chosen = frames[-1]
+    for frame in reversed(frames):
+        if not os.path.realpath(frame[0]).startswith(skip) and not frame[0].startswith("<"):
+            chosen = frame
+            break
+    file, line, name = chosen
+    return f"{_show_path(file)}:{line} in {name}"
+
+
+def _job_failure_reason(exc: BaseException) -> str:
+    """Return the one-line reason for an exception a job raised, with its location."""
+    frames = [(f.filename, f.lineno or 0, f.name) for f in traceback.extract_tb(exc.__traceback__)]
+    where = _user_location(frames)
+    at = f" (at {where})" if where else ""
+    if isinstance(exc, MemoryError):
+        message = _one_line(_safe_str(exc))
+        return f"ran out of memory (MemoryError{': ' + message if message else ''}){at}"
+    return f"{_describe_exception(exc)}{at}"
+
+
+def _death_reason(exitcode: int | None, log: str, during: str, memory_limit_bytes: int | None) -> str:
+    """Return the one-line reason for a child that died with ``exitcode`` (negative: signal)."""
+    if exitcode is not None and exitcode < 0:
+        number = -exitcode
+        try:
+            name = signal.Signals(number).name
+        except ValueError:
+            name = f"signal {number}"
+        how = (f"crashed (signal {number}, {name})" if name in _CRASH_SIGNALS
+               else f"aborted (signal {number}, {name})" if name == "SIGABRT"
+               else f"was killed (signal {number}, {name})" if name == "SIGKILL"
+               else f"died (signal {number}, {name})")
+        frames = _last_crash_stack(log)
+        where = _user_location(frames) if frames else None
+        reason = f"the backend {how}{during}" + (f" at {where}" if where else "")
+        if name == "SIGKILL":
+            reason += ", perhaps by the system's out-of-memory killer"
+        if memory_limit_bytes is not None and name in _CRASH_SIGNALS | {"SIGABRT", "SIGKILL"}:
+            reason += f" (memory limit {memory_limit_bytes / 2**20:.0f} MiB in force)"
+        return reason
+    if exitcode == 0:
+        return f"the backend exited (code 0){during or ' in the middle of a job'}"
+    reason = f"the backend exited with code {exitcode}{during}"
+    last = _last_line(log)
+    return reason + (f"; its last message: {last}" if last else "")
+
+
+def _stack_blocks(log: str) -> list[tuple[int | None, list[tuple[str, int, str]]]]:
+    """Parse faulthandler dumps in ``log``: ``(thread ident or None, frames outermost first)``."""
+    blocks: list[tuple[int | None, list[tuple[str, int, str]]]] = []
+    current: list[tuple[str, int, str]] | None = None
+    for line in log.splitlines():
+        header = _STACK_HEADER.match(line)
+        if header:
+            ident = int(header.group("ident"), 16) if header.group("ident") else None
+            current = []
+            blocks.append((ident, current))
+            continue
+        frame = _STACK_FRAME.match(line) if current is not None else None
+        if frame:
+            current.append((frame.group("file"), int(frame.group("line")), frame.group("name")))
+        else:
+            current = None
+    return [(ident, list(reversed(frames))) for ident, frames in blocks]
+
+
+def _last_crash_stack(log: str) -> list[tuple[str, int, str]]:
+    """Return the frames of the last fatal-error dump (``Stack (most recent call first)``)."""
+    stacks = [frames for ident, frames in _stack_blocks(log) if ident is None]
+    return stacks[-1] if stacks else []
+
+
+def _stack_of_thread(log: str, ident: int | None) -> list[tuple[str, int, str]]:
+    """Return the frames of thread ``ident`` in the last all-threads dump in ``log``."""
+    for block_ident, frames in reversed(_stack_blocks(log)):
+        if block_ident is not None and block_ident == ident:
+            return frames
+    return []
+
+
+def _last_line(log: str) -> str | None:
+    lines = [line for line in log.splitlines() if line.strip()]
+    return _one_line(lines[-1], 200) if lines else None
+
+
+def _remove_file(path: str) -> None:
+    try:
+        os.unlink(path)
+    except OSError:
+        pass
+
+
+def _truncate(path: str | None) -> None:
+    if path is not None:
+        try:
+            os.truncate(path, 0)
+        except OSError:
+            pass
+
+
+def _read_tail(path: str | None, nbytes: int = 65536) -> str:
+    if path is None:
+        return ""
+    try:
+        with open(path, "rb") as fh:
+            fh.seek(0, os.SEEK_END)
+            fh.seek(max(0, fh.tell() - nbytes))
+            return fh.read().decode("utf-8", "replace")
+    except OSError:
+        return ""
+
+
+# -- the child's side --------------------------------------------------------------------------
+def _child_main(conn: Any, spec: str, threads: int | None, memory_limit_bytes: int | None,
+                log_path: str, parent_pid: int, parents_end: Any = None) -> None:
+    """Entry point of the child: load the backend, say so, then serve jobs until told to stop
+    (or until the parent's end of the pipe closes)."""
+    if parents_end is not None:  # fork: the copy of the parent's end this child inherited
+        parents_end.close()
+    _redirect_outputs(log_path)
+    faulthandler.enable(all_threads=False)
+    if hasattr(signal, "SIGUSR1"):
+        faulthandler.register(signal.SIGUSR1, all_threads=True, chain=False)
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    _watch_parent(parent_pid, log_path)
+    _no_core_dumps()
+    if memory_limit_bytes is not None:
+        _limit_address_space(memory_limit_bytes)
+    try:
+        from fftgauge.backends.registry import load_backend
+        backend = load_backend(spec, threads=threads)
+    except UsageError as exc:
+        conn.send(("usage", _one_line(_safe_str(exc), 1000)))
+        return
+    except Exception as exc:  # noqa: BLE001 - an adapter's own constructor may raise anything
+        hint = (f" (the memory limit of {memory_limit_bytes / 2**20:.0f} MiB may be too small)"
+                if isinstance(exc, MemoryError) and memory_limit_bytes else "")
+        conn.send(("usage", f"backend {spec!r} failed to load: {_describe_exception(exc)}{hint}"))
+        return
+    conn.send(("ready", {"main_thread": threading.main_thread().ident}))
+    funcs: dict[str, Callable[..., Any]] = {}
+    while True:
+        try:
+            request = conn.recv()
+        except (EOFError, OSError):  # the parent has gone
+            return
+        if request is None:
+            return
+        conn.send_bytes(_run_job(backend, funcs, *request))
+
+
+def _run_job(backend: Any, funcs: dict[str, Callable[..., Any]], func: str, args: tuple) -> bytes:
+    """Run one job and return the pickled ``(status, payload)`` reply."""
+    try:
+        fn = funcs.get(func) or _resolve(func)
+        funcs[func] = fn
+    except Exception as exc:  # noqa: BLE001
+        return bytes(ForkingPickler.dumps(("bad-func", f"job function {func!r} cannot be imported "
+                                                       f"in the worker: {_describe_exception(exc)}")))
+    try:
+        value = fn(backend, *args)
+    except SystemExit:  # the backend asked the process to exit: let it (the parent reports it)
+        raise
+    except UnsupportedCase as exc:
+        return bytes(ForkingPickler.dumps(("unsupported", _one_line(_safe_str(exc)))))
+    except BaseException as exc:  # noqa: BLE001 - any failure of backend code is a result
+        return bytes(ForkingPickler.dumps(("failed", _job_failure_reason(exc))))
+    try:
+        return bytes(ForkingPickler.dumps(("ok", value)))
+    except Exception as exc:  # noqa: BLE001
+        return bytes(ForkingPickler.dumps(("failed", f"the job's result cannot be sent back to the "
+                                                     f"main process: {_describe_exception(exc)}")))
+
+
+def _resolve(func: str) -> Callable[..., Any]:
+    module_name, _, attr = func.partition(":")
+    fn = getattr(importlib.import_module(module_name), attr)
+    if not callable(fn):
+        raise TypeError(f"{func} is a {type(fn).__name__}, not a function")
+    return fn
+
+
+def _redirect_outputs(log_path: str) -> None:
+    """Send fd 1 to ``os.devnull`` and fd 2 to ``log_path`` (appending), for C code as well."""
+    for stream in (sys.stdout, sys.stderr):
+        try:
+            stream.flush()
+        except Exception:  # noqa: BLE001 - a closed stream: nothing to flush
+            pass
+    devnull = os.open(os.devnull, os.O_WRONLY)
+    log = os.open(log_path, os.O_WRONLY | os.O_APPEND | os.O_CREAT, 0o600)
+    os.dup2(devnull, 1)
+    os.dup2(log, 2)
+    os.close(devnull)
+    os.close(log)
+
+
+def _watch_parent(parent_pid: int, log_path: str) -> None:
+    """Exit the child, removing its log, when the process that owns the worker has gone.
+
+    A daemon thread checks every :data:`ORPHAN_CHECK_SECONDS` that ``parent_pid`` still
+    exists and that the child has not been re-parented (under ``forkserver`` the child's
+    parent is the fork server, not the worker's owner, hence both checks).
+    """
+    first_ppid = os.getppid()
+
+    def gone() -> bool:
+        if os.getppid() != first_ppid:
+            return True
+        try:
+            os.kill(parent_pid, 0)
+        except ProcessLookupError:
+            return True
+        except OSError:  # exists, but not ours to signal
+            pass
+        return False
+
+    def watch() -> None:
+        while True:
+            if gone():
+                try:
+                    os.unlink(log_path)
+                except OSError:
+                    pass
+                os._exit(ORPHAN_EXIT_CODE)
+            time.sleep(ORPHAN_CHECK_SECONDS)
+
+    threading.Thread(target=watch, name="fftgauge-parent-watch", daemon=True).start()
+
+
+def _no_core_dumps() -> None:
+    """Set ``RLIMIT_CORE`` to 0: a battery that crashes a backend on purpose, case after
+    case, must not fill the disk with core files."""
+    try:
+        import resource
+        resource.setrlimit(resource.RLIMIT_CORE, (0, resource.getrlimit(resource.RLIMIT_CORE)[1]))
+    except (ImportError, ValueError, OSError):
+        pass
+
+
+def _limit_address_space(limit_bytes: int) -> None:
+    """Cap the address space (``RLIMIT_AS``) at ``limit_bytes`` (never above the hard limit)."""
+    try:
+        import resource
+    except ImportError:  # not POSIX: no limit is applied
+        return
+    soft, hard = resource.getrlimit(resource.RLIMIT_AS)
+    new = limit_bytes if hard == resource.RLIM_INFINITY else min(limit_bytes, hard)
+    resource.setrlimit(resource.RLIMIT_AS, (new, hard))

@@ -1,0 +1,1 @@
+"""fftgauge.harness.gate: the regression gate: sampling, estimates, decisions, stored history, outputs."""

@@ -1,0 +1,288 @@
+"""What the gate writes for CI: a Markdown summary, JUnit XML, CSV, the terminal summary, and
+the ``fftgauge-gate/1`` JSON (through :mod:`fftgauge.harness.results`).
+
+Every writer takes the gate document (:func:`fftgauge.harness.gate.run.run_gate`) as it stands, complete
+or not, so a run stopped half-way still explains itself.
+
+- Markdown (:func:`markdown_summary`): a headline verdict, the run's mode and settings, any
+  warnings, then one table row per case with the ratio, its 95% interval, the
+  Holm-adjusted p-value and the verdict; regressions in bold. Made for a CI job summary or a
+  pull-request comment.
+- JUnit XML (:func:`junit_xml`): one ``testsuite`` with one ``testcase`` per case
+  (``classname`` ``fftgauge.gate.<backend>``, ``name`` the case's label); a regression is a
+  ``failure`` (type ``slower`` or ``accuracy``), a backend failure an ``error``, a skipped
+  case ``skipped``. CI systems that read test reports show each case on its own.
+- CSV (:func:`csv_text`): the rows, lists joined by ``;``.
+"""
+
+from __future__ import annotations
+
+import math
+import xml.etree.ElementTree as ET
+from typing import Any, Sequence
+
+from fftgauge.harness.errors import UsageError
+
+_MODE_WORDS = {"ab": "A/B run", "referenced": "A/B ratio against stored A/B ratios", "stored": "against stored results",
+               "record": "record only"}
+
+
+def _case_label(row: dict[str, Any]) -> str:
+    norm = row.get("norm") or "backward"
+    return f"{row['kind']} {row['dtype']} n={row['n']}" + ("" if norm == "backward" else f" norm={norm}")
+
+
+def _num(value: Any, digits: int = 4) -> str:
+    if value is None or (isinstance(value, float) and math.isnan(value)):
+        return "–"
+    return f"{value:.{digits}g}" if abs(value) < 1e4 else f"{value:.3e}"
+
+
+def _p(value: Any) -> str:
+    if value is None or (isinstance(value, float) and math.isnan(value)):
+        return "–"
+    return "<1e-99" if value < 1e-99 else f"{value:.2g}"
+
+
+def _percent(ratio: Any) -> str:
+    if ratio is None or (isinstance(ratio, float) and math.isnan(ratio)):
+        return ""
+    change = (ratio - 1.0) * 100.0
+    return f"{change:+.1f}%"
+
+
+def counts(doc: dict[str, Any]) -> dict[str, int]:
+    """Return how many rows have each verdict, and how many were skipped, errored or left undecided."""
+    out = {"slower": 0, "faster": 0, "same": 0, "accuracy": 0, "skip": 0, "error": 0, "incomplete": 0,
+           "recorded": 0}
+    for row in doc.get("rows", []):
+        status = row.get("status")
+        if status in ("skip", "error", "incomplete"):
+            out[status] += 1
+        elif row.get("verdict") in out:
+            out[row["verdict"]] += 1
+        else:
+            out["recorded"] += 1
+    return out
+
+
+def headline(doc: dict[str, Any]) -> str:
+    """Return the one-line verdict of a gate run, e.g. ``FAIL: 2 of 20 cases slower``."""
+    c = counts(doc)
+    compared = c["slower"] + c["faster"] + c["same"] + c["accuracy"]
+    outcome = doc.get("outcome")
+    if outcome == "regression":
+        parts = [f"{c[k]} {k if k != 'accuracy' else 'accuracy regression(s)'}" for k in ("slower", "accuracy") if c[k]]
+        return f"FAIL: {' and '.join(parts)} of {compared} case(s)"
+    if outcome == "error":
+        return f"FAIL: {c['error']} case(s) could not be measured or checked (backend failure)"
+    if outcome == "incomplete":
+        why = f": {doc['error']}" if doc.get("error") else ""
+        return f"INCOMPLETE: the run stopped before every case was decided{why}"
+    if doc.get("mode") == "record":
+        return f"RECORDED: {c['recorded']} case(s) measured, nothing compared"
+    faster = f", {c['faster']} faster" if c["faster"] else ""
+    return f"PASS: no regression in {compared} case(s){faster}"
+
+
+def _settings_line(doc: dict[str, Any]) -> str:
+    mode = doc.get("mode")
+    parts = [_MODE_WORDS.get(mode, str(mode))]
+    if mode in ("ab", "referenced"):
+        old, new = doc.get("old") or {}, doc.get("new") or {}
+        parts[0] += f": new `{new.get('spec', '?')}` against old `{old.get('spec', '?')}`"
+    if mode == "referenced":
+        base = doc.get("baseline") or {}
+        parts[0] += f", {len(base.get('runs') or [])} stored run(s) from `{base.get('path', '?')}`"
+    elif mode == "stored":
+        base = doc.get("baseline") or {}
+        parts[0] += f": {len(base.get('runs') or [])} stored run(s) from `{base.get('path', '?')}`"
+    threshold = doc.get("threshold")
+    if threshold is not None and mode != "record":
+        parts.append(f"threshold {threshold * 100:g}%")
+        parts.append(f"Holm-corrected at alpha {doc.get('alpha', 0.05):g}")
+    if doc.get("sampling_seconds") is not None:
+        parts.append(f"{doc['sampling_seconds']:.1f} s of sampling (budget {doc.get('budget_seconds', 0):g} s)")
+    y = doc.get("yardstick")
+    if y:
+        text = f"yardstick {y['seconds'] * 1e3:.3f} ms"
+        if y.get("ratio"):
+            text += f" ({_percent(y['ratio'])} against the baseline's: the machine's speed change, corrected for)"
+        parts.append(text)
+    if doc.get("commit"):
+        parts.append(f"commit `{doc['commit']}`")
+    return " · ".join(parts)
+
+
+def _verdict_cell(row: dict[str, Any]) -> str:
+    status = row.get("status")
+    if status != "ok":
+        return status or "?"
+    verdict = row.get("verdict")
+    if verdict is None:
+        return "recorded"
+    if verdict in ("slower", "accuracy"):
+        return f"**{verdict}**"
+    return verdict + ("" if row.get("conclusive") in (True, None) else " (inconclusive)")
+
+
+def markdown_summary(doc: dict[str, Any]) -> str:
+    """Return the Markdown summary of a gate document (see the module docstring)."""
+    lines = [f"## fftgauge gate: {headline(doc)}", "", _settings_line(doc), ""]
+    for warning in doc.get("warnings") or []:
+        lines += [f"> **Warning:** {warning}", ""]
+    rows = doc.get("rows") or []
+    failing = [r for r in rows if r.get("verdict") in ("slower", "accuracy")]
+    if failing:
+        lines.append("Regressions: " + ", ".join(f"{r['backend']} {_case_label(r)} ({r['verdict']}"
+                                                 + (f", {_percent(r['ratio'])}" if r.get("verdict") == "slower" else "")
+                                                 + ")" for r in failing))
+        lines.append("")
+    if doc.get("mode") == "record":
+        header = "| backend | case | median time | 95% interval | samples |"
+        lines += [header, "|---|---|---:|---|---:|"]
+        for r in rows:
+            lines.append(f"| {r['backend']} | {_case_label(r)} | {_num(r.get('seconds'))} s | "
+                         f"{_num(r.get('seconds_low'))} – {_num(r.get('seconds_high'))} | {r.get('samples', 0)} |")
+    elif rows:
+        ratio_name = {"ab": "new / old", "referenced": "(new / old) now / stored"}.get(doc.get("mode"),
+                                                                                     "now / baseline")
+        with_acc = any("eps_units" in r for r in rows)
+        header = f"| backend | case | {ratio_name} | change | 95% interval | p (Holm) | verdict |"
+        rule = "|---|---|---:|---:|---|---:|---|"
+        if with_acc:
+            header += " error (eps) | bound (eps) |"
+            rule += "---:|---:|"
+        lines += [header, rule]
+        for r in rows:
+            line = (f"| {r['backend']} | {_case_label(r)} | {_num(r.get('ratio'))} | {_percent(r.get('ratio'))} | "
+                    f"{_num(r.get('ratio_low'))} – {_num(r.get('ratio_high'))} | {_p(r.get('p_holm'))} | "
+                    f"{_verdict_cell(r)} |")
+            if with_acc:
+                eps = _num(r.get("eps_units"), 3)
+                if r.get("baseline_eps_units") is not None:
+                    eps += f" (was {_num(r['baseline_eps_units'], 3)})"
+                line += f" {eps} | {_num(r.get('bound_eps_units'), 3)} |"
+            lines.append(line)
+    messages = [(r, r["message"]) for r in rows if r.get("message")]
+    if messages:
+        lines += ["", "Notes on cases:", ""]
+        lines += [f"- {r['backend']} {_case_label(r)} ({r.get('status')}): {m}" for r, m in messages]
+    notes = doc.get("notes") or []
+    if notes:
+        lines += ["", "Run notes:", ""] + [f"- {n}" for n in notes]
+    lines += ["", f"<sub>fftgauge {doc.get('versions', {}).get('fftgauge', '?')} · schema {doc.get('schema')} · "
+                  f"created {doc.get('created')} · seed {doc.get('seed')}</sub>", ""]
+    return "\n".join(lines)
+
+
+def _failure_text(row: dict[str, Any], doc: dict[str, Any]) -> tuple[str, str]:
+    if row.get("verdict") == "accuracy":
+        return "accuracy", row.get("message") or "accuracy regression"
+    threshold = doc.get("threshold") or 0.0
+    return "slower", (f"{_percent(row['ratio'])} ({row['ratio']:.4g}x, 95% interval {row['ratio_low']:.4g}-"
+                      f"{row['ratio_high']:.4g}, Holm p {_p(row.get('p_holm'))}), above the "
+                      f"{threshold * 100:g}% threshold")
+
+
+def junit_xml(doc: dict[str, Any]) -> str:
+    """Return the JUnit XML report of a gate document (see the module docstring)."""
+    rows = doc.get("rows") or []
+    c = counts(doc)
+    failures = c["slower"] + c["accuracy"]
+    errors = c["error"] + c["incomplete"]
+    total_seconds = sum(r.get("sampling_seconds") or 0.0 for r in rows)
+    attrs = {"name": "fftgauge gate", "tests": str(len(rows)), "failures": str(failures), "errors": str(errors),
+             "skipped": str(c["skip"]), "time": f"{total_seconds:.3f}"}
+    root = ET.Element("testsuites", attrs)
+    suite = ET.SubElement(root, "testsuite", {**attrs, "timestamp": str(doc.get("created", ""))})
+    props = ET.SubElement(suite, "properties")
+    for key in ("mode", "outcome", "threshold", "alpha", "seed", "commit"):
+        if doc.get(key) is not None:
+            ET.SubElement(props, "property", {"name": key, "value": str(doc[key])})
+    for row in rows:
+        case = ET.SubElement(suite, "testcase", {"classname": f"fftgauge.gate.{row['backend']}",
+                                                 "name": _case_label(row),
+                                                 "time": f"{row.get('sampling_seconds') or 0.0:.3f}"})
+        status = row.get("status")
+        if row.get("verdict") in ("slower", "accuracy"):
+            kind, text = _failure_text(row, doc)
+            ET.SubElement(case, "failure", {"type": kind, "message": text}).text = text
+        elif status == "error" or status == "incomplete":
+            ET.SubElement(case, "error", {"type": status, "message": row.get("message") or status}).text = \
+                row.get("message") or status
+        elif status == "skip":
+            ET.SubElement(case, "skipped", {"message": row.get("message") or "skipped"})
+        elif row.get("ratio") is not None and not (isinstance(row["ratio"], float) and math.isnan(row["ratio"])):
+            ET.SubElement(case, "system-out").text = (f"ratio {row['ratio']:.4g} (95% {row['ratio_low']:.4g}-"
+                                                      f"{row['ratio_high']:.4g}), verdict {row.get('verdict')}")
+    ET.indent(root)
+    return '<?xml version="1.0" encoding="utf-8"?>\n' + ET.tostring(root, encoding="unicode") + "\n"
+
+
+def csv_text(doc: dict[str, Any]) -> str:
+    """Return the rows of a gate document as CSV text (lists joined by ``;``)."""
+    import pandas as pd
+
+    rows = [{k: (";".join(map(str, v)) if isinstance(v, (list, tuple)) else v) for k, v in r.items()}
+            for r in doc.get("rows") or []]
+    columns = ["backend", "kind", "dtype", "n", "ratio", "ratio_low", "ratio_high", "p_value", "verdict"]
+    frame = pd.DataFrame(rows)
+    if frame.empty:
+        frame = pd.DataFrame(columns=columns)
+    return frame.to_csv(index=False)
+
+
+def summary_text(doc: dict[str, Any]) -> str:
+    """Return the terminal summary: the headline, the settings and one line per case."""
+    lines = [headline(doc), _settings_line(doc).replace("`", "")]
+    for warning in doc.get("warnings") or []:
+        lines.append(f"WARNING: {warning}")
+    for r in doc.get("rows") or []:
+        if r.get("status") != "ok":
+            lines.append(f"  {r['backend']:<22} {_case_label(r):<26} {r.get('status')}: {r.get('message', '')}")
+        elif r.get("verdict") is None:
+            lines.append(f"  {r['backend']:<22} {_case_label(r):<26} median {_num(r.get('seconds'))} s "
+                         f"({r.get('samples', 0)} samples)")
+        else:
+            lines.append(f"  {r['backend']:<22} {_case_label(r):<26} {_num(r.get('ratio')):>7} "
+                         f"[{_num(r.get('ratio_low'))}, {_num(r.get('ratio_high'))}] {_percent(r.get('ratio')):>7} "
+                         f"p(Holm) {_p(r.get('p_holm')):>7}  {r.get('verdict')}"
+                         + ("" if r.get("conclusive") in (True, None) else " (inconclusive)")
+                         + (f"  [{r['message']}]" if r.get("message") else ""))
+    return "\n".join(lines)
+
+
+def write_outputs(doc: dict[str, Any], markdown: str | None = None, junit: str | None = None,
+                  json_path: str | None = None, csv: str | None = None) -> list[str]:
+    """Write each output asked for; return the paths written.
+
+    Every output is attempted even when an earlier one cannot be written.
+
+    Raises
+    ------
+    UsageError
+        After trying all of them, for the first path that could not be written.
+    """
+    from fftgauge.harness.results import dumps, write_text_atomic
+
+    jobs = [(markdown, markdown_summary), (junit, junit_xml), (json_path, dumps), (csv, csv_text)]
+    written: list[str] = []
+    first_error: UsageError | None = None
+    for path, render in jobs:
+        if not path:
+            continue
+        try:
+            write_text_atomic(path, render(doc))
+            written.append(path)
+        except UsageError as exc:
+            first_error = first_error or exc
+    if first_error is not None:
+        raise first_error
+    return written
+
+
+def failing_cases(doc: dict[str, Any]) -> Sequence[str]:
+    """Return ``backend case`` labels of the rows that fail the gate (slower or accuracy)."""
+    return [f"{r['backend']} {_case_label(r)}" for r in doc.get("rows") or []
+            if r.get("verdict") in ("slower", "accuracy")]

@@ -1,0 +1,1 @@
+"""fftgauge.harness.report: tables, plots and pages built from stored results."""
