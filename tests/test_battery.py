@@ -177,22 +177,17 @@ def test_batch_queue_keeps_lanes_on_their_backend_largest_size_first():
 
 # -- the worker job --------------------------------------------------------------------------
 
-def test_case_job_caps_blas_threads_in_the_worker(tmp_path, monkeypatch):
+def test_case_job_caps_blas_threads_in_the_worker():
     """After a battery job, the worker's BLAS pools report the cap (threadpoolctl's report);
     the rows are those of the in-process check."""
+    from fftgauge.harness.execution import jobs
     from fftgauge.harness.execution.worker import Worker
 
-    (tmp_path / "blas_report.py").write_text(textwrap.dedent('''
-        def blas_threads(backend):
-            from threadpoolctl import threadpool_info
-            return sorted({p["num_threads"] for p in threadpool_info() if p["user_api"] == "blas"})
-    '''))
-    monkeypatch.syspath_prepend(str(tmp_path))
     fields = ("fft", "float64", 16, "backward")
     with Worker("numpy") as worker:
-        rows = worker.call(battery.CASE_JOB, fields, 3, ["accuracy", "shape"], 1, timeout_seconds=60)
-        capped = worker.call("blas_report:blas_threads", timeout_seconds=60)
-    assert capped == [1]
+        rows = worker.call(jobs.run_case_job, fields, 3, ["accuracy", "shape"], 1, timeout_seconds=60)
+        capped = worker.call(jobs.blas_thread_caps, timeout_seconds=60)
+    assert capped and set(capped) == {1}
     here = checks.run_case_checks(load_backend("numpy"), fields, 3, ["accuracy", "shape"])
     assert rows == here
 

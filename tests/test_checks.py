@@ -22,6 +22,7 @@ import mpmath
 import numpy as np
 import pytest
 
+from fftgauge.harness.execution import jobs
 from fftgauge.backends.registry import load_backend
 from fftgauge.harness.battery import checks
 from fftgauge.harness.cases import Case, norm_factor
@@ -377,6 +378,6 @@ def test_runs_in_a_worker_process():
     from fftgauge.harness.execution.worker import Worker
 
     with Worker("numpy") as worker:
-        rows = worker.call("fftgauge.harness.battery.checks:run_case_checks", ("fft", "float64", 32, "backward"), 1,
+        rows = worker.call(jobs.run_case_checks, ("fft", "float64", 32, "backward"), 1,
                            ["accuracy", "concurrent"], timeout_seconds=60)
     assert [(r["check"], r["status"]) for r in rows] == [("accuracy", "pass"), ("concurrent", "pass")]

@@ -34,6 +34,7 @@ import numpy as np
 import psutil
 import pytest
 
+from fftgauge.harness.execution import jobs
 from fftgauge.backends.external_program import (ExternalProgramBackend, ProgramExited, ProgramStatus, ProgramTimeout,
                                        ProtocolError, encode_hello, encode_transform)
 from fftgauge.backends.registry import load_backend
@@ -248,8 +249,8 @@ def test_runs_in_a_worker_process(c_servers: Path, no_leftovers) -> None:
     x = signal_for(case)
     worker = worker_mod.Worker(f"exec:{c_servers / 'radix2_server'}")
     try:
-        y = worker.call("fftgauge.harness.execution.worker:plan_and_execute", case, x, timeout_seconds=60)
-        d = worker.call("fftgauge.harness.execution.worker:describe_backend", timeout_seconds=60)
+        y = worker.call(jobs.plan_and_execute, case, x, timeout_seconds=60)
+        d = worker.call(jobs.describe_backend, timeout_seconds=60)
     finally:
         worker.close()
     assert relative_error(y, numpy_result(case, x)) <= 2 * accuracy_limit(case)
@@ -411,7 +412,7 @@ def test_a_hung_program_does_not_outlive_a_killed_worker(no_leftovers) -> None:
     worker = worker_mod.Worker(server_spec(f"hang {marker}", "timeout=60,start_timeout=20"))
     try:
         with pytest.raises(BackendFailure, match="did not finish within 3 s"):
-            worker.call("fftgauge.harness.execution.worker:plan_and_execute", Case("fft", "float64", 8), np.zeros(8, complex),
+            worker.call(jobs.plan_and_execute, Case("fft", "float64", 8), np.zeros(8, complex),
                         timeout_seconds=3)
     finally:
         worker.close()

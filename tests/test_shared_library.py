@@ -26,6 +26,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from fftgauge.harness.execution import jobs
 from fftgauge.backends.registry import load_backend
 from fftgauge.backends.shared_library import ForeignCallError, HandlePlan, SharedLibraryBackend
 from fftgauge.harness.cases import Case
@@ -371,7 +372,7 @@ def test_runs_in_a_worker_process(c_libs: Path) -> None:
     x = signal_for(case)
     with worker_mod.Worker(spec(c_libs, "radix2", "shape=plan,kind=fft+ifft")) as worker:
         try:
-            y = worker.call("fftgauge.harness.execution.worker:plan_and_execute", case, x, timeout_seconds=60)
+            y = worker.call(jobs.plan_and_execute, case, x, timeout_seconds=60)
         finally:
             worker.close()
     assert relative_error(y, numpy_result(case, x)) <= 2 * accuracy_limit(case)
@@ -386,9 +387,9 @@ def test_a_segfault_in_c_code_is_a_failure_not_the_end_of_the_run() -> None:
     with worker_mod.Worker(f"clib:{libc}:strlen") as worker:
         try:
             with pytest.raises(BackendFailure, match="SIGSEGV"):
-                worker.call("fftgauge.harness.execution.worker:plan_and_execute", Case("fft", "float64", 8), np.zeros(8, complex),
+                worker.call(jobs.plan_and_execute, Case("fft", "float64", 8), np.zeros(8, complex),
                             timeout_seconds=60)
             # the run goes on: the next call gets a fresh child
-            assert worker.call("fftgauge.harness.execution.worker:describe_backend", timeout_seconds=60)["name"].startswith("clib:")
+            assert worker.call(jobs.describe_backend, timeout_seconds=60)["name"].startswith("clib:")
         finally:
             worker.close()

@@ -22,6 +22,7 @@ import numpy as np
 import psutil
 import pytest
 
+from fftgauge.harness.execution import jobs
 from fftgauge.harness.cases import Case
 from fftgauge.harness.errors import BackendFailure, UnsupportedCase, UsageError
 from fftgauge.harness.execution.worker import Worker, run_jobs
@@ -29,9 +30,9 @@ from fftgauge.harness.execution.worker import Worker, run_jobs
 HERE = os.path.dirname(os.path.abspath(__file__))
 ROOT = os.path.dirname(HERE)
 MISBEHAVING = os.path.join(HERE, "data", "misbehaving.py")
-PLAN = "fftgauge.harness.execution.worker:plan_and_execute"
-DESCRIBE = "fftgauge.harness.execution.worker:describe_backend"
-REASON = "fftgauge.harness.execution.worker:unsupported_reason"
+PLAN = jobs.plan_and_execute
+DESCRIBE = jobs.describe_backend
+REASON = jobs.unsupported_reason
 TIMEOUT_SECONDS = 30.0
 SHORT_TIMEOUT_SECONDS = 2.0
 FFT8 = Case("fft", "float64", 8)
@@ -256,12 +257,15 @@ def test_bad_worker_settings_are_usage_errors(kwargs):
 
 
 def test_bad_job_requests(numpy_worker):
-    with pytest.raises(ValueError, match="package.module:function"):
-        numpy_worker.call("plan_and_execute", FFT8, signal_x(8), timeout_seconds=TIMEOUT_SECONDS)
+    with pytest.raises(ValueError, match="is not a job of fftgauge.harness.execution.jobs"):
+        numpy_worker.call("fftgauge.harness.execution.jobs:plan_and_execute", FFT8, signal_x(8),
+                          timeout_seconds=TIMEOUT_SECONDS)
+    with pytest.raises(ValueError, match="is not a job"):
+        numpy_worker.call(signal_x, 8, timeout_seconds=TIMEOUT_SECONDS)
+    with pytest.raises(ValueError, match="is not a job"):
+        numpy_worker.call(jobs.resolve, "plan_and_execute", timeout_seconds=TIMEOUT_SECONDS)
     with pytest.raises(ValueError, match="timeout_seconds"):
         numpy_worker.call(PLAN, FFT8, signal_x(8), timeout_seconds=0)
-    with pytest.raises(RuntimeError, match="cannot be imported in the worker"):
-        numpy_worker.call("fftgauge.harness.execution.worker:no_such_job", timeout_seconds=TIMEOUT_SECONDS)
     pid = numpy_worker.pid
     numpy_worker.call(PLAN, FFT8, signal_x(8), timeout_seconds=TIMEOUT_SECONDS)
     assert numpy_worker.pid == pid
@@ -308,15 +312,16 @@ def _interrupt_a_hanging_job():
 
 PARENT_SCRIPT = """
 import os, sys, time
+from fftgauge.harness.execution import jobs
 from fftgauge.harness.execution.worker import Worker
 
 if __name__ == "__main__":
     worker = Worker({spec!r})
-    worker.call("fftgauge.harness.execution.worker:describe_backend", timeout_seconds=60)
+    worker.call(jobs.describe_backend, timeout_seconds=60)
     print(worker.pid, flush=True)
     if sys.argv[1] == "exit":
         sys.exit(0)                      # no close(): the atexit hook must stop the child
-    worker.call("fftgauge.harness.execution.worker:plan_and_execute", ("fft", "float64", 8), [0j] * 8,
+    worker.call(jobs.plan_and_execute, ("fft", "float64", 8), [0j] * 8,
                 timeout_seconds=600)     # hangs until this process is killed
 """
 

@@ -31,13 +31,13 @@ from __future__ import annotations
 
 import os
 import queue
-import sys
 import threading
 from collections import deque
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from typing import Any, Iterable, Sequence
 
+from fftgauge.harness.execution import jobs
 from fftgauge.harness.cases import Case
 from fftgauge.harness.execution.dispatch import Progress, describe_cases
 from fftgauge.harness.errors import BackendFailure, UsageError
@@ -134,43 +134,6 @@ class BatchQueue:
             return None
 
 
-#: Worker job name of :func:`run_case_job`.
-CASE_JOB = "fftgauge.harness.battery.run:run_case_job"
-
-#: (cap, len(sys.modules)) when this process last capped its BLAS pools (worker side).
-_BLAS_CAP: list[tuple[int, int]] = []
-
-
-def run_case_job(backend: Any, case_fields: tuple, seed: int, check_names: list[str],
-                 blas_threads: int | None = 1) -> list[dict]:
-    """Worker job of the battery: :func:`fftgauge.harness.battery.checks.run_case_checks` in a worker whose BLAS
-    thread pools are capped at ``blas_threads`` (None leaves them alone).
-
-    The cap (threadpoolctl) holds for the rest of the worker's life. It is applied before
-    the first case and again after any case that imported new modules, since a BLAS library
-    arrives with an import (numpy's at start-up, scipy's when the reference first imports
-    scipy.fft); asking threadpoolctl costs milliseconds, so it is not asked on every case.
-
-    Returns the rows as dicts; raises what :func:`~fftgauge.harness.battery.checks.run_case_checks` raises.
-    """
-    from fftgauge.harness.battery.checks import run_case_checks
-
-    _cap_blas(blas_threads)
-    rows = run_case_checks(backend, case_fields, seed, check_names)
-    _cap_blas(blas_threads)
-    return rows
-
-
-def _cap_blas(threads: int | None) -> None:
-    """Cap this process's BLAS pools at ``threads`` unless done already since the last import."""
-    if threads is None or _BLAS_CAP == [(threads, len(sys.modules))]:
-        return
-    from threadpoolctl import threadpool_limits
-
-    threadpool_limits(limits=threads, user_api="blas")
-    _BLAS_CAP[:] = [(threads, len(sys.modules))]
-
-
 class _Lane:
     """One core's share of the run: what a thread of the main process uses to drive one worker
     process at a time. ``spare_workers`` (SPEC -> describing worker) is shared by the lanes,
@@ -255,7 +218,7 @@ def _run_lane(lane: _Lane, batches: BatchQueue, cases: list[Case], req: BatteryR
                 case = cases[index]
                 names = [c for c in (check_names or list(CHECKS)) if c in applicable_checks(case, batch.capabilities)]
                 try:
-                    rows = worker.call(CASE_JOB, (case.kind, case.dtype, case.n, case.norm), req.seed, names,
+                    rows = worker.call(jobs.run_case_job, (case.kind, case.dtype, case.n, case.norm), req.seed, names,
                                        req.threads or 1, timeout_seconds=req.timeout_seconds)
                 except BackendFailure as exc:
                     rows = _rows_for(batch.label, case, names, "error", str(exc))

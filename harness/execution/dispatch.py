@@ -7,26 +7,9 @@ import threading
 from dataclasses import dataclass, field
 from typing import Any
 
+from fftgauge.harness.execution import jobs
 from fftgauge.harness.cases import Case
 from fftgauge.harness.errors import BackendFailure, UsageError
-
-
-def backend_claims(backend: Any, case_fields: list[tuple], max_n_pure_python: int | None) -> dict[str, Any]:
-    """Worker job: return the backend's description and, per case, why it is skipped (or None).
-
-    ``max_n_pure_python`` caps the sizes given to backends that declare ``max_n`` (the
-    pure-Python references), so a default run stays quick.
-    """
-    caps = backend.capabilities()
-    reasons = []
-    for fields in case_fields:
-        case = Case(*fields)
-        reason = backend.unsupported_reason(case)
-        if reason is None and max_n_pure_python and caps.max_n is not None and case.n > max_n_pure_python:
-            reason = (f"{backend.label} is a pure-Python reference: this run limits it to n <= "
-                      f"{max_n_pure_python} (n = {case.n}); ask for it by its sizes to go further")
-        reasons.append(reason)
-    return {"label": backend.label, "describe": backend.describe(), "reasons": reasons}
 
 
 def describe_cases(worker: Any, spec: str, cases: list[Case], max_n_pure_python: int | None,
@@ -42,7 +25,7 @@ def describe_cases(worker: Any, spec: str, cases: list[Case], max_n_pure_python:
     """
     fields = [(c.kind, c.dtype, c.n, c.norm) for c in cases]
     try:
-        return worker.call("fftgauge.harness.execution.dispatch:backend_claims", fields, max_n_pure_python,
+        return worker.call(jobs.backend_claims, fields, max_n_pure_python,
                            timeout_seconds=timeout_seconds)
     except BackendFailure as exc:
         raise UsageError(f"backend {spec!r} failed while describing itself: {exc}") from None

@@ -2,10 +2,9 @@
 runaway allocation becomes a :class:`~fftgauge.harness.errors.BackendFailure`, never the end of a run.
 
 A :class:`Worker` owns one child process that loads one backend from its SPEC string (once
-per child) and runs *jobs* on it: a job is a function ``func(backend, *args)`` named
-``"package.module:function"`` and importable in the child. The job functions the engine
-needs are in this module (:func:`plan_and_execute`, :func:`describe_backend`,
-:func:`unsupported_reason`); other modules may add their own.
+per child) and runs *jobs* on it: a job is a function ``func(backend, *args)`` of
+:mod:`fftgauge.harness.execution.jobs`, passed by the function object; the child looks it
+up there by name.
 
 How the child is run, and why
 -----------------------------
@@ -63,8 +62,9 @@ Examples
 --------
 >>> import numpy as np
 >>> from fftgauge.harness.cases import Case
+from fftgauge.harness.execution import jobs
 >>> with Worker("numpy") as worker:                                 # doctest: +SKIP
-...     y = worker.call("fftgauge.harness.execution.worker:plan_and_execute", Case("fft", "float64", 8),
+...     y = worker.call(jobs.plan_and_execute, Case("fft", "float64", 8),
 ...                     np.ones(8, complex), timeout_seconds=30)
 >>> y[0]                                                            # doctest: +SKIP
 np.complex128(8+0j)
@@ -74,7 +74,6 @@ from __future__ import annotations
 
 import atexit
 import faulthandler
-import importlib
 import math
 import multiprocessing
 import multiprocessing.connection
@@ -95,6 +94,7 @@ from typing import Any, Callable, Iterable, Iterator
 import numpy as np
 
 from fftgauge.harness.cases import Case
+from fftgauge.harness.execution import jobs
 from fftgauge.harness.errors import BackendFailure, UnsupportedCase, UsageError
 
 #: Seconds a child gets to exit after ``terminate()`` (SIGTERM) before ``kill()`` (SIGKILL).
@@ -110,72 +110,11 @@ ORPHAN_EXIT_CODE = 70
 #: Longest job exception message kept in a reason, in characters.
 MESSAGE_CHARS = 300
 
-_FUNC = re.compile(r"^[A-Za-z_][\w.]*:[A-Za-z_]\w*$")
 _STACK_HEADER = re.compile(r"^(?:(?:Current thread|Thread) (?P<ident>0x[0-9a-fA-F]+)|Stack) "
                            r"\(most recent call first\):\s*$")
 _STACK_FRAME = re.compile(r'^\s*File "(?P<file>.*)", line (?P<line>\d+) in (?P<name>.*?)\s*$')
 _CRASH_SIGNALS = {"SIGSEGV", "SIGBUS", "SIGILL", "SIGFPE"}
 _LIVE_WORKERS: "weakref.WeakSet[Worker]" = weakref.WeakSet()
-
-
-# -- job functions (run in the child) ----------------------------------------------------------
-def plan_and_execute(backend: Any, case: Case | tuple, x: np.ndarray) -> np.ndarray:
-    """Plan ``case`` on ``backend``, run the plan once on ``x`` and return the output.
-
-    The job the engine runs in a worker for one correctness probe: ``backend.plan(case)``,
-    ``plan.prepare(x)``, ``plan.execute(...)``, ``plan.close()``. The output is returned as
-    a fresh numpy array (a plan may reuse its output buffer), whatever its shape or dtype:
-    judging those is the checks' job. Note that the caller's ``x`` travels to the child as a
-    copy, so a check that the input was left intact must run inside the child.
-
-    Parameters
-    ----------
-    backend : the adapter the worker loaded (passed by the worker).
-    case : a :class:`~fftgauge.harness.cases.Case`, or a tuple ``(kind, dtype, n[, norm])``.
-    x : the input array.
-
-    Returns
-    -------
-    numpy.ndarray
-        A copy of what the plan returned.
-
-    Raises
-    ------
-    UnsupportedCase
-        When the backend's plan refuses the case (the worker passes it on as such).
-    TypeError
-        When the backend returned something that is not a numeric array (no numbers, or
-        Python objects); the worker turns it into a :class:`BackendFailure`.
-    Exception
-        Whatever the backend raised; the worker turns it into a :class:`BackendFailure`.
-    """
-    if not isinstance(case, Case):
-        case = Case(*case)
-    plan = backend.plan(case)
-    try:
-        out = plan.execute(plan.prepare(x))
-        y = np.array(out, copy=True)
-    finally:
-        plan.close()
-    if y.dtype.kind not in "biufc":
-        raise TypeError(f"the backend returned {type(out).__name__} of dtype {y.dtype}, "
-                        f"not a numeric array")
-    return y
-
-
-def describe_backend(backend: Any) -> dict[str, Any]:
-    """Return ``backend.describe()``: name, version, description, options, capabilities.
-
-    Lets the parent learn what a backend claims without importing its code.
-    """
-    return backend.describe()
-
-
-def unsupported_reason(backend: Any, case: Case | tuple) -> str | None:
-    """Return ``backend.unsupported_reason(case)``: why the case is outside its claims, or None."""
-    if not isinstance(case, Case):
-        case = Case(*case)
-    return backend.unsupported_reason(case)
 
 
 # -- the parent's side -------------------------------------------------------------------------
@@ -232,12 +171,12 @@ class Worker:
         """Process id of the current child, or ``None`` when none is running."""
         return self._process.pid if self._process is not None else None
 
-    def call(self, func: str, *args: Any, timeout_seconds: float) -> Any:
+    def call(self, func: Callable[..., Any], *args: Any, timeout_seconds: float) -> Any:
         """Run ``func(backend, *args)`` in the child and return its (picklable) result.
 
         Parameters
         ----------
-        func : ``"package.module:function"``, importable in the child.
+        func : a job function of :mod:`fftgauge.harness.execution.jobs`.
         *args : picklable arguments after the backend.
         timeout_seconds : how long the job may run (the child's start-up is not counted).
 
@@ -261,13 +200,13 @@ class Worker:
             (``"ran out of memory (MemoryError ...)"``) or returned something that cannot be
             sent back. After a death or timeout the next call starts a fresh child.
         ValueError
-            When ``func`` is not written ``module:function`` or ``timeout_seconds`` is not
-            positive (a programming error, not the user's).
+            When ``func`` is not a job of :mod:`~fftgauge.harness.execution.jobs` or
+            ``timeout_seconds`` is not positive (a programming error, not the user's).
         RuntimeError
-            When the worker is closed, or ``func`` cannot be imported in the child.
+            When the worker is closed.
         """
-        if not isinstance(func, str) or not _FUNC.match(func):
-            raise ValueError(f"job function must be written 'package.module:function', got {func!r}")
+        if not jobs.is_job(func):
+            raise ValueError(f"{func!r} is not a job of {jobs.__name__}")
         if not timeout_seconds > 0:
             raise ValueError(f"timeout_seconds must be positive, got {timeout_seconds!r}")
         if math.isinf(timeout_seconds):
@@ -276,7 +215,7 @@ class Worker:
             raise RuntimeError("this worker is closed")
         if self._usage_error is not None:
             raise UsageError(self._usage_error)
-        request = bytes(ForkingPickler.dumps((func, args)))  # unpicklable args: the caller's bug
+        request = bytes(ForkingPickler.dumps((func.__name__, args)))  # unpicklable args: the caller's bug
         try:
             self._ensure_child()
             _truncate(self._log_path)
@@ -421,7 +360,7 @@ class Worker:
         process.close()
 
 
-def run_jobs(worker: Worker, func: str, arg_list: Iterable[tuple], timeout_seconds: float
+def run_jobs(worker: Worker, func: Callable[..., Any], arg_list: Iterable[tuple], timeout_seconds: float
              ) -> Iterator[tuple[tuple, Any]]:
     """Run ``func(backend, *args)`` for every ``args`` in ``arg_list``, each with its own timeout.
 
@@ -640,7 +579,6 @@ def _child_main(conn: Any, spec: str, threads: int | None, memory_limit_bytes: i
         conn.send(("usage", f"backend {spec!r} failed to load: {_describe_exception(exc)}{hint}"))
         return
     conn.send(("ready", {"main_thread": threading.main_thread().ident}))
-    funcs: dict[str, Callable[..., Any]] = {}
     while True:
         try:
             request = conn.recv()
@@ -648,17 +586,15 @@ def _child_main(conn: Any, spec: str, threads: int | None, memory_limit_bytes: i
             return
         if request is None:
             return
-        conn.send_bytes(_run_job(backend, funcs, *request))
+        conn.send_bytes(_run_job(backend, *request))
 
 
-def _run_job(backend: Any, funcs: dict[str, Callable[..., Any]], func: str, args: tuple) -> bytes:
-    """Run one job and return the pickled ``(status, payload)`` reply."""
+def _run_job(backend: Any, func: str, args: tuple) -> bytes:
+    """Run the job called ``func`` and return the pickled ``(status, payload)`` reply."""
     try:
-        fn = funcs.get(func) or _resolve(func)
-        funcs[func] = fn
-    except Exception as exc:  # noqa: BLE001
-        return bytes(ForkingPickler.dumps(("bad-func", f"job function {func!r} cannot be imported "
-                                                       f"in the worker: {_describe_exception(exc)}")))
+        fn = jobs.resolve(func)
+    except LookupError as exc:
+        return bytes(ForkingPickler.dumps(("bad-func", str(exc))))
     try:
         value = fn(backend, *args)
     except SystemExit:  # the backend asked the process to exit: let it (the parent reports it)
@@ -672,14 +608,6 @@ def _run_job(backend: Any, funcs: dict[str, Callable[..., Any]], func: str, args
     except Exception as exc:  # noqa: BLE001
         return bytes(ForkingPickler.dumps(("failed", f"the job's result cannot be sent back to the "
                                                      f"main process: {_describe_exception(exc)}")))
-
-
-def _resolve(func: str) -> Callable[..., Any]:
-    module_name, _, attr = func.partition(":")
-    fn = getattr(importlib.import_module(module_name), attr)
-    if not callable(fn):
-        raise TypeError(f"{func} is a {type(fn).__name__}, not a function")
-    return fn
 
 
 def _redirect_outputs(log_path: str) -> None:

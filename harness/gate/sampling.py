@@ -36,6 +36,7 @@ from typing import Any, Sequence
 
 import numpy as np
 
+from fftgauge.harness.execution import jobs
 from fftgauge.harness.cases import Case
 from fftgauge.harness.errors import BackendFailure, UnsupportedCase, UsageError
 
@@ -270,7 +271,7 @@ class WorkerSampler:
         for key in self._sides(item):
             for worker in self.workers[key]:
                 try:
-                    info = worker.call("fftgauge.harness.gate.sampling:prepare_case", self._fields(item.case),
+                    info = worker.call(jobs.prepare_case, self._fields(item.case),
                                        self.seed, self.threads, timeout_seconds=self.timeout_seconds)
                 except BackendFailure as exc:
                     raise BackendFailure(f"{self.specs[key]}: {exc}") from None
@@ -290,7 +291,7 @@ class WorkerSampler:
 
     def _block(self, key: str, case: Case, loops: int | None) -> list[float]:
         try:
-            return self._next_worker(key).call("fftgauge.harness.gate.sampling:sample_block", self._fields(case),
+            return self._next_worker(key).call(jobs.sample_block, self._fields(case),
                                                loops, self.samples_per_block, self.seed,
                                                self.threads, timeout_seconds=self.timeout_seconds)
         except (BackendFailure, UnsupportedCase) as exc:
@@ -300,7 +301,7 @@ class WorkerSampler:
         if self.yardstick_worker is None or self.yardstick_failure is not None:
             return []
         try:
-            return self.yardstick_worker.call("fftgauge.harness.gate.yardstick:yardstick_block", self.samples_per_block,
+            return self.yardstick_worker.call(jobs.yardstick_block, self.samples_per_block,
                                               timeout_seconds=self.timeout_seconds)
         except (BackendFailure, UsageError) as exc:
             self.yardstick_failure = str(exc)
@@ -344,7 +345,7 @@ class WorkerSampler:
         for key in self._sides(item):
             for worker in self.workers[key]:
                 try:
-                    worker.call("fftgauge.harness.gate.sampling:release_case", self._fields(item.case), self.seed,
+                    worker.call(jobs.release_case, self._fields(item.case), self.seed,
                                 timeout_seconds=self.timeout_seconds)
                 except (BackendFailure, UnsupportedCase, UsageError):
                     pass
@@ -358,7 +359,7 @@ class WorkerSampler:
             When the worker fails (the message starts with its SPEC).
         """
         try:
-            return self.workers[key][0].call("fftgauge.harness.battery.checks:run_case_checks", self._fields(case), seed, None,
+            return self.workers[key][0].call(jobs.run_case_checks, self._fields(case), seed, None,
                                           timeout_seconds=self.timeout_seconds)
         except (BackendFailure, UnsupportedCase) as exc:
             raise BackendFailure(f"{self.specs[key]}: {exc}") from None

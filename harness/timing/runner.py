@@ -29,6 +29,7 @@ import random
 from dataclasses import dataclass
 from typing import Any
 
+from fftgauge.harness.execution import jobs
 from fftgauge.harness.cases import KINDS, Case
 from fftgauge.harness.errors import BackendFailure, UnsupportedCase, UsageError
 from fftgauge.harness.execution.dispatch import Progress, describe_cases
@@ -84,7 +85,7 @@ def _time_round(worker: Any, label: str, case: Case, req: TimingRequest, round_i
     """Run one round of ``case`` in ``worker``; return its row when the case is finished
     (a time, a skip or an error), None when more rounds are due."""
     try:
-        return worker.call("fftgauge.harness.timing.timer:time_case", (case.kind, case.dtype, case.n, case.norm),
+        return worker.call(jobs.time_case, (case.kind, case.dtype, case.n, case.norm),
                            req.timer_options(round_index), timeout_seconds=req.timeout_seconds)
     except UnsupportedCase as exc:
         return placeholder_row(label, case, req.threads, "skip", str(exc))
