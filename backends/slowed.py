@@ -186,16 +186,15 @@ class SlowedBackend(Backend):
 def _base_seconds(plan: SlowedPlan) -> float:
     """Return the median per-call time of ``plan``'s base plan inside the wrapper (no busy-wait)."""
     from fftgauge.harness.battery.inputs import case_rng, random_input
-    from fftgauge.harness.timing.timer import Timer, _gc_paused, _time_loops
+    from fftgauge.harness.timing.clock import autorange, gc_paused, time_loops, warm_up
 
     x = plan.prepare(random_input(plan.case, case_rng(CALIBRATION_SEED, plan.case, "slowed-calibration")))
     fraction, plan.fraction = plan.fraction, 0.0
     try:
-        timer = Timer()
-        with _gc_paused():
-            timer._warm_up(plan.execute, x)
-            loops = timer._autorange(plan.execute, x)
-            samples = [_time_loops(plan.execute, x, loops) for _ in range(BASE_SAMPLES)]
+        with gc_paused():
+            warm_up(plan.execute, x)
+            loops = autorange(plan.execute, x)
+            samples = [time_loops(plan.execute, x, loops) for _ in range(BASE_SAMPLES)]
     finally:
         plan.fraction = fraction
     return float(np.median(samples)) / loops * 1e-9

@@ -27,8 +27,9 @@ from fftgauge.harness.cases import Case
 from fftgauge.harness.errors import UnsupportedCase, UsageError
 from fftgauge.harness.battery.inputs import case_rng, random_input
 from fftgauge.harness.rows import TimeRow
-from fftgauge.harness.timing.timer import (FALLBACK_EVICTION_BYTES, TimerSettings, Timer, gflops, last_level_cache_bytes,
-                            limit_threads, measure, ns_per_nlogn, time_case)
+from fftgauge.harness.timing.caches import FALLBACK_EVICTION_BYTES, last_level_cache_bytes
+from fftgauge.harness.timing.timer import TimerSettings, Timer, gflops, limit_threads, measure, ns_per_nlogn, time_case
+import fftgauge.harness.timing.caches as caches
 import fftgauge.harness.timing.timer as timing
 
 CASE = Case("fft", "float64", 1024)
@@ -238,10 +239,10 @@ def test_last_level_cache_from_sysfs(tmp_path):
 
 
 def test_eviction_size_falls_back_to_64_mib(monkeypatch):
-    monkeypatch.setattr(timing, "last_level_cache_bytes", lambda: None)
-    assert timing.eviction_bytes() == FALLBACK_EVICTION_BYTES == 64 * 2**20
-    monkeypatch.setattr(timing, "last_level_cache_bytes", lambda: 8 * 2**20)
-    assert timing.eviction_bytes() == 12 * 2**20
+    monkeypatch.setattr(caches, "last_level_cache_bytes", lambda: None)
+    assert caches.eviction_bytes() == FALLBACK_EVICTION_BYTES == 64 * 2**20
+    monkeypatch.setattr(caches, "last_level_cache_bytes", lambda: 8 * 2**20)
+    assert caches.eviction_bytes() == 12 * 2**20
 
 
 def test_busywait_rejects_negative_seconds():

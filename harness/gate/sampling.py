@@ -15,7 +15,7 @@ Child side (job functions the worker runs; see :mod:`fftgauge.harness.execution.
 
 - :func:`prepare_case` plans the case once, prepares the input (the timing runner's seeded
   input, purpose ``"time"``), warms up, picks ``loops`` with the timer's autorange (samples
-  of about 1 ms, :data:`fftgauge.harness.timing.timer.TARGET_SAMPLE_SECONDS`) and measures the loop's
+  of about 1 ms, :data:`fftgauge.harness.timing.clock.TARGET_SAMPLE_SECONDS`) and measures the loop's
   own cost per call with the null plan (as the timer does). The plan is cached in a
   module-level dict of the child, keyed by case and seed, so every later block of the case
   reuses it; a fresh child (after a crash) plans again on its first block.
@@ -81,7 +81,7 @@ def _prepared(backend: Any, case_fields: tuple, seed: int, threads: int | None) 
         return _PREPARED[key]
     from fftgauge.backends.null import NullPlan
     from fftgauge.harness.battery.inputs import case_rng, random_input
-    from fftgauge.harness.timing.timer import Timer, _gc_paused, _time_loops
+    from fftgauge.harness.timing.clock import autorange, gc_paused, time_loops, warm_up
 
     case = Case(*case_fields)
     reason = backend.unsupported_reason(case)
@@ -94,12 +94,11 @@ def _prepared(backend: Any, case_fields: tuple, seed: int, threads: int | None) 
     plan_seconds = time.perf_counter() - start
     try:
         x_in = plan.prepare(np.array(x, copy=True))
-        timer = Timer()
         null_execute = NullPlan(case).execute
-        with _gc_paused():
-            timer._warm_up(plan.execute, x_in)
-            loops = timer._autorange(plan.execute, x_in)
-            null_ns = [_time_loops(null_execute, x_in, loops) for _ in range(OVERHEAD_SAMPLES)]
+        with gc_paused():
+            warm_up(plan.execute, x_in)
+            loops = autorange(plan.execute, x_in)
+            null_ns = [time_loops(null_execute, x_in, loops) for _ in range(OVERHEAD_SAMPLES)]
     except BaseException:
         plan.close()
         raise
@@ -141,7 +140,7 @@ def sample_block(backend: Any, case_fields: tuple, loops: int | None, count: int
     Exception
         Whatever the backend raises.
     """
-    from fftgauge.harness.timing.timer import _time_loops
+    from fftgauge.harness.timing.clock import time_loops
 
     p = _prepared(backend, case_fields, seed, threads)
     loops = int(loops or p.loops)
@@ -150,7 +149,7 @@ def sample_block(backend: Any, case_fields: tuple, loops: int | None, count: int
     gc.disable()
     try:
         execute(x)
-        raw_ns = [_time_loops(execute, x, loops) for _ in range(count)]
+        raw_ns = [time_loops(execute, x, loops) for _ in range(count)]
     finally:
         if was_enabled:
             gc.enable()

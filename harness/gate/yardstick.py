@@ -85,11 +85,11 @@ def yardstick_block(backend: Any, count: int) -> list[float]:
     list of float
         One per-call time per sample, in the order taken.
     """
-    from fftgauge.harness.timing.timer import _gc_paused
+    from fftgauge.harness.timing.clock import gc_paused
 
     clock = time.perf_counter_ns
     out = []
-    with _gc_paused():
+    with gc_paused():
         for _ in range(WARMUP_CALLS):
             yardstick_kernel()
         for _ in range(count):

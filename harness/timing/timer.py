@@ -1,22 +1,19 @@
 """The timer: planning time, then warm-up, loops per sample, many samples, overhead floor.
 
-How one case is timed (:func:`time_case`, or :class:`Timer` in-process):
+How one case is timed (:func:`time_case`, or :class:`Timer` in-process); the loops, the
+warm-up, the autorange and the garbage-collection pause are in
+:mod:`fftgauge.harness.timing.clock`, which also says why a sample lasts about 1 ms:
 
 1. ``backend.plan(case)`` is timed once: the *planning time* (real work for FFTW-style
    backends, nothing for plain functions).
 2. The input is prepared with ``plan.prepare`` outside every timed region.
-3. Warm-up: the plan runs for at least one call and :attr:`TimerSettings.warmup_seconds`.
-4. Loops per sample (an autorange): starting at 1 and doubling until a run of ``loops``
-   back-to-back calls lasts an eighth of the *target*, then scaled so that one sample
-   lasts about the target (:data:`TARGET_SAMPLE_SECONDS`, 1 ms, or 10 000 times the
-   clock's resolution where that is coarser); a single call longer than the target gives
-   ``loops = 1``. Why 1 ms: ``perf_counter`` reads in about 50-100 ns from Python and
-   resolves 1 ns on Linux, so the two clock reads of a sample are about 0.01% of it; the
-   per-call loop overhead (tens of ns) is measured and subtracted (step 6), not left in;
-   and a sample well below the time slice the scheduler gives a process when CPUs are
-   shared (about 3-4 ms measured on a loaded 2-core Linux machine) is rarely cut by another
-   process, so most samples stay clean and the median ignores the rest. Samples of 2-4 ms
-   were cut almost every time on that machine. 25 samples keep a fast case near 0.05 s.
+3. Warm-up: the plan runs for at least one call and :attr:`TimerSettings.warmup_seconds`
+   (:func:`~fftgauge.harness.timing.clock.warm_up`).
+4. Loops per sample (:func:`~fftgauge.harness.timing.clock.autorange`): starting at 1 and
+   doubling until a run of ``loops`` back-to-back calls lasts an eighth of the *target*,
+   then scaled so that one sample lasts about the target
+   (:attr:`TimerSettings.target_sample_seconds`, 1 ms by default); a single call longer
+   than the target gives ``loops = 1``. 25 samples keep a fast case near 0.05 s.
 5. Samples: :attr:`TimerSettings.samples` (25 in-process; the timing runner asks for 100)
    samples, fewer (never fewer than :attr:`TimerSettings.min_samples`) when the per-case
    budget runs out. The timing runner
@@ -35,26 +32,23 @@ How one case is timed (:func:`time_case`, or :class:`Timer` in-process):
    (:func:`fftgauge.harness.stats.median_ci`) and the relative IQR (:func:`fftgauge.harness.stats.relative_spread`).
 
 Cold-cache mode (:attr:`TimerSettings.cold_cache`): before each sample a buffer larger than
-the last-level cache (:func:`eviction_bytes`) is written, outside the timed region, and
-every sample is one call (``loops = 1``), so each call starts with its input, output and
-tables out of cache.
+the last-level cache (:mod:`fftgauge.harness.timing.caches`) is written, outside the timed
+region, and every sample is one call (``loops = 1``), so each call starts with its input,
+output and tables out of cache.
 
 Threads: :func:`limit_threads` caps BLAS/OpenMP pools with threadpoolctl around the
 measurement, so that "1 thread" means one; the backend's own thread option is set by the
 registry (``load_backend(spec, threads=N)``).
+
+Every time is read on the timer's clock (:class:`Timer`, :func:`time_case`): tests pass a
+fake one.
 """
 
 from __future__ import annotations
 
-import gc
-import glob
-import itertools
 import math
-import os
-import time
 from contextlib import contextmanager
 from dataclasses import dataclass, fields, replace
-from functools import lru_cache
 from typing import Any, Callable, Iterator
 
 import numpy as np
@@ -64,21 +58,14 @@ from fftgauge.backends.null import NullPlan
 from fftgauge.harness.cases import Case
 from fftgauge.harness.errors import UnsupportedCase
 from fftgauge.harness.battery.inputs import case_rng, random_input
+from fftgauge.harness.timing.caches import evict_caches
+from fftgauge.harness.timing.clock import (DEFAULT_CLOCK, DEFAULT_WARMUP_SECONDS, TARGET_SAMPLE_SECONDS, Clock,
+                                           autorange, gc_paused, sample_target_ns, time_empty_loop, time_loops,
+                                           warm_up)
 from fftgauge.harness.timing.memory import detect_in_place, measure_memory
 from fftgauge.harness.timing.opcount import pseudo_flops
 from fftgauge.harness.rows import TimeRow
 from fftgauge.harness.stats import LOW_QUANTILE, median_ci, order_statistic_ranks, quantile_ci, relative_spread
-
-#: Duration of one sample (seconds); see the module docstring for why.
-TARGET_SAMPLE_SECONDS = 1e-3
-#: A sample lasts at least this many clock ticks, whatever the target.
-MIN_CLOCK_TICKS = 10_000
-#: Size of the cold-cache eviction buffer when the last-level cache size is unknown.
-FALLBACK_EVICTION_BYTES = 64 * 2**20
-#: The eviction buffer is this many times the last-level cache.
-EVICTION_FACTOR = 1.5
-#: Most loops per sample the autorange tries (a guard against a plan that takes no time).
-MAX_LOOPS = 2**24
 
 
 @dataclass(frozen=True)
@@ -95,7 +82,8 @@ class TimerSettings:
         warm-up and the autorange.
     warmup_seconds : warm-up duration (at least one call).
     cold_cache : evict the caches before every sample (then ``loops = 1``).
-    eviction_bytes : size of the eviction buffer; ``None`` for :func:`eviction_bytes`.
+    eviction_bytes : size of the eviction buffer; ``None`` for
+        :func:`fftgauge.harness.timing.caches.eviction_bytes`.
     confidence : coverage of the interval on the median.
     subtract_overhead : subtract the null plan's loop overhead from every sample.
     """
@@ -104,7 +92,7 @@ class TimerSettings:
     min_samples: int = 5
     target_sample_seconds: float = TARGET_SAMPLE_SECONDS
     budget_seconds: float | None = 2.0
-    warmup_seconds: float = 5e-3
+    warmup_seconds: float = DEFAULT_WARMUP_SECONDS
     cold_cache: bool = False
     eviction_bytes: int | None = None
     confidence: float = 0.95
@@ -152,46 +140,6 @@ class Measurement:
     seconds_p10_high: float | None = None
 
 
-def clock_resolution_seconds() -> float:
-    """Return the resolution :func:`time.perf_counter` reports (seconds)."""
-    return time.get_clock_info("perf_counter").resolution
-
-
-def _parse_cache_size(text: str) -> int | None:
-    text = text.strip().upper()
-    units = {"K": 2**10, "M": 2**20, "G": 2**30}
-    try:
-        if text and text[-1] in units:
-            return int(text[:-1]) * units[text[-1]]
-        return int(text)
-    except ValueError:
-        return None
-
-
-def last_level_cache_bytes(root: str = "/sys/devices/system/cpu/cpu0/cache") -> int | None:
-    """Return the size of the highest-level data or unified cache from sysfs, or ``None``."""
-    best: tuple[int, int] | None = None
-    for folder in glob.glob(os.path.join(root, "index*")):
-        try:
-            with open(os.path.join(folder, "level"), encoding="ascii") as fh:
-                level = int(fh.read())
-            with open(os.path.join(folder, "type"), encoding="ascii") as fh:
-                kind = fh.read().strip()
-            with open(os.path.join(folder, "size"), encoding="ascii") as fh:
-                size = _parse_cache_size(fh.read())
-        except (OSError, ValueError):
-            continue
-        if kind in ("Data", "Unified") and size and (best is None or level > best[0]):
-            best = (level, size)
-    return None if best is None else best[1]
-
-
-def eviction_bytes() -> int:
-    """Return the cold-cache buffer size: 1.5 x the last-level cache, else 64 MiB."""
-    llc = last_level_cache_bytes()
-    return FALLBACK_EVICTION_BYTES if llc is None else int(EVICTION_FACTOR * llc)
-
-
 @contextmanager
 def limit_threads(threads: int | None) -> Iterator[None]:
     """Cap BLAS/OpenMP thread pools at ``threads`` inside the block (no cap for ``None``)."""
@@ -204,85 +152,25 @@ def limit_threads(threads: int | None) -> Iterator[None]:
         yield
 
 
-@contextmanager
-def _gc_paused(collect: bool = True) -> Iterator[None]:
-    """Disable garbage collection inside the block (after a full collection when ``collect``)."""
-    was_enabled = gc.isenabled()
-    if collect:
-        gc.collect()
-    gc.disable()
-    try:
-        yield
-    finally:
-        if was_enabled:
-            gc.enable()
-
-
-def _time_loops(execute: Callable[[np.ndarray], Any], x: np.ndarray, loops: int) -> int:
-    """Return the nanoseconds ``loops`` back-to-back calls ``execute(x)`` take."""
-    repeat = itertools.repeat(None, loops)
-    clock = time.perf_counter_ns
-    start = clock()
-    for _ in repeat:
-        execute(x)
-    return clock() - start
-
-
-def _time_empty_loop(loops: int) -> int:
-    """Return the nanoseconds ``loops`` iterations of :func:`_time_loops`'s loop take with no call."""
-    repeat = itertools.repeat(None, loops)
-    clock = time.perf_counter_ns
-    start = clock()
-    for _ in repeat:
-        pass
-    return clock() - start
-
-
-@lru_cache(maxsize=1)
-def _eviction_buffer(size: int) -> np.ndarray:
-    """Return the cold-cache buffer of ``size`` bytes, kept for the next case of the process."""
-    return np.zeros(size, dtype=np.uint8)
-
-
 class Timer:
-    """Times plans with fixed :class:`TimerSettings` (see the module docstring for the method)."""
+    """Times plans with fixed :class:`TimerSettings` (see the module docstring for the method).
 
-    def __init__(self, settings: TimerSettings | None = None):
+    ``clock`` is what every timed loop, the warm-up and the budget read (a callable returning
+    nanoseconds, :data:`fftgauge.harness.timing.clock.DEFAULT_CLOCK` by default); tests give a
+    fake one.
+    """
+
+    def __init__(self, settings: TimerSettings | None = None, clock: Clock | None = None):
         self.settings = settings or TimerSettings()
+        self.clock = clock or DEFAULT_CLOCK
 
-    def _target_ns(self) -> int:
-        seconds = max(self.settings.target_sample_seconds, MIN_CLOCK_TICKS * clock_resolution_seconds())
-        return math.ceil(seconds * 1e9)
+    def target_ns(self) -> int:
+        """Return the shortest duration of one sample in nanoseconds (:func:`sample_target_ns`)."""
+        return sample_target_ns(self.settings.target_sample_seconds)
 
-    def _evict(self) -> None:
-        buffer = _eviction_buffer(self.settings.eviction_bytes or eviction_bytes())
-        np.add(buffer, 1, out=buffer)  # read and write every byte: every line is brought in
-
-    def _warm_up(self, execute: Callable, x: np.ndarray) -> None:
-        deadline = time.perf_counter() + self.settings.warmup_seconds
-        execute(x)
-        while time.perf_counter() < deadline:
-            execute(x)
-
-    def _autorange(self, execute: Callable, x: np.ndarray) -> int:
-        """Return the loops per sample that make one sample last about the target.
-
-        Doubling from 1 until a run lasts an eighth of the target, then scaling to the
-        target from the shortest of three runs (a run cut by another process is longer,
-        never shorter; on a loaded 2-core machine two runs in a row were both cut often
-        enough to matter), so samples last about the target rather than up to twice it.
-        """
-        target = self._target_ns()
-        loops = 1
-        while True:
-            elapsed = _time_loops(execute, x, loops)
-            if elapsed >= target or loops >= MAX_LOOPS:
-                return loops
-            if elapsed >= target // 8:
-                break
-            loops *= 2
-        elapsed = max(1, min(elapsed, _time_loops(execute, x, loops), _time_loops(execute, x, loops)))
-        return min(MAX_LOOPS, max(loops, math.ceil(loops * target / elapsed)))
+    def evict_caches(self) -> None:
+        """Write the cold-cache eviction buffer of the settings' size (:func:`evict_caches`)."""
+        evict_caches(self.settings.eviction_bytes)
 
     def measure(self, plan: Plan, x: np.ndarray) -> Measurement:
         """Time ``plan.execute`` on ``x`` and return the per-call :class:`Measurement`.
@@ -310,9 +198,10 @@ class Timer:
         """
         x_in = plan.prepare(np.array(x, copy=True))
         session = TimingSession(self, plan.execute, NullPlan(plan.case).execute, x_in)
-        with _gc_paused():
-            self._warm_up(plan.execute, x_in)
-            session.loops = 1 if self.settings.cold_cache else self._autorange(plan.execute, x_in)
+        with gc_paused():
+            warm_up(plan.execute, x_in, self.settings.warmup_seconds, self.clock)
+            session.loops = (1 if self.settings.cold_cache
+                             else autorange(plan.execute, x_in, self.target_ns(), self.clock))
         return session
 
 
@@ -335,7 +224,12 @@ class TimingSession:
         self.raw_ns: list[int] = []
         self.null_ns: list[int] = []
         self.loop_ns: list[int] = []
-        self.spent_seconds = 0.0
+        self.spent_ns = 0
+
+    @property
+    def spent_seconds(self) -> float:
+        """Return the seconds spent inside :meth:`take` so far (what the budget counts)."""
+        return self.spent_ns * 1e-9
 
     def take(self, count: int) -> None:
         """Take up to ``count`` more samples (fewer once the budget is spent and ``min_samples`` are in).
@@ -347,23 +241,25 @@ class TimingSession:
         """
         s = self.timer.settings
         execute, null_execute, x_in, loops = self.execute, self.null_execute, self.x_in, self.loops
-        started = time.perf_counter()
+        clock = self.timer.clock
+        budget_ns = None if s.budget_seconds is None else math.ceil(s.budget_seconds * 1e9)
+        started = clock()
         goal = len(self.raw_ns) + count
         # a full collection walks every object of the process (10-20 ms with scipy and pyFFTW
         # loaded): once per case, before its first round, not before every round
-        with _gc_paused(collect=not self.raw_ns):
+        with gc_paused(collect=not self.raw_ns):
             if self.raw_ns:
                 execute(x_in)
             while len(self.raw_ns) < goal:
                 if s.cold_cache:
-                    self.timer._evict()
-                self.raw_ns.append(_time_loops(execute, x_in, loops))
-                self.null_ns.append(_time_loops(null_execute, x_in, loops))
-                self.loop_ns.append(_time_empty_loop(loops))
-                if (s.budget_seconds is not None and len(self.raw_ns) >= s.min_samples
-                        and self.spent_seconds + time.perf_counter() - started >= s.budget_seconds):
+                    self.timer.evict_caches()
+                self.raw_ns.append(time_loops(execute, x_in, loops, clock))
+                self.null_ns.append(time_loops(null_execute, x_in, loops, clock))
+                self.loop_ns.append(time_empty_loop(loops, clock))
+                if (budget_ns is not None and len(self.raw_ns) >= s.min_samples
+                        and self.spent_ns + clock() - started >= budget_ns):
                     break
-        self.spent_seconds += time.perf_counter() - started
+        self.spent_ns += clock() - started
 
     def result(self) -> Measurement:
         """Return the :class:`Measurement` of every sample taken so far.
@@ -400,18 +296,21 @@ def _summarise(per_call: np.ndarray, confidence: float, loops: int, overhead_sec
                        seconds_p10=p10, seconds_p10_low=p10_low, seconds_p10_high=p10_high)
 
 
-def measure_self_reported(plan: Plan, x: np.ndarray, settings: TimerSettings) -> Measurement | None:
+def measure_self_reported(plan: Plan, x: np.ndarray, settings: TimerSettings,
+                          clock: Clock = DEFAULT_CLOCK) -> Measurement | None:
     """Time ``plan`` by the durations the implementation reports itself, one call per sample.
 
     For backends whose plans expose ``last_self_seconds`` after each ``execute`` (an
     external program behind a pipe or a serial bridge measures its own elapsed time: the
     only meaningful number when the round trip dwarfs the transform). Returns ``None`` when
-    a call reports no time, so the caller falls back to wall-clock timing.
+    a call reports no time, so the caller falls back to wall-clock timing. ``clock`` is read
+    for the budget only.
     """
     x_in = plan.prepare(np.array(x, copy=True))
     for _ in range(3):  # warm-up
         plan.execute(x_in)
-    started = time.perf_counter()
+    budget_ns = None if settings.budget_seconds is None else math.ceil(settings.budget_seconds * 1e9)
+    started = clock()
     seconds: list[float] = []
     while len(seconds) < settings.samples:
         plan.execute(x_in)
@@ -419,8 +318,8 @@ def measure_self_reported(plan: Plan, x: np.ndarray, settings: TimerSettings) ->
         if own is None:
             return None
         seconds.append(float(own))
-        if (settings.budget_seconds is not None and len(seconds) >= settings.min_samples
-                and time.perf_counter() - started >= settings.budget_seconds):
+        if (budget_ns is not None and len(seconds) >= settings.min_samples
+                and clock() - started >= budget_ns):
             break
     return _summarise(np.asarray(seconds), settings.confidence, loops=1, overhead_seconds=0.0, floor_seconds=0.0,
                       cold_cache=False)
@@ -485,14 +384,19 @@ class _OpenCase:
 _OPEN_CASES: dict[tuple, _OpenCase] = {}
 
 
-def _open_case(backend: Backend, case: Case, settings: TimerSettings, seed: int) -> _OpenCase:
+def _planned(backend: Backend, case: Case, clock: Clock) -> tuple[Plan, float]:
+    """Return ``backend.plan(case)`` and the seconds it took on ``clock``."""
+    start = clock()
+    plan = backend.plan(case)
+    return plan, (clock() - start) * 1e-9
+
+
+def _open_case(backend: Backend, case: Case, settings: TimerSettings, seed: int, clock: Clock) -> _OpenCase:
     """Plan ``case``, prepare its input and start its timing session (planning timed)."""
     x = random_input(case, case_rng(seed, case, "time"))
-    start = time.perf_counter()
-    plan = backend.plan(case)
-    plan_seconds = time.perf_counter() - start
+    plan, plan_seconds = _planned(backend, case, clock)
     try:
-        session = Timer(settings).start(plan, x)
+        session = Timer(settings, clock).start(plan, x)
     except BaseException:
         plan.close()
         raise
@@ -507,7 +411,7 @@ def _samples_this_round(settings: TimerSettings, rounds: int, round_index: int, 
     return max(1, math.ceil(settings.samples / rounds))
 
 
-def time_case(backend: Backend, case_fields: tuple, options: dict) -> dict | None:
+def time_case(backend: Backend, case_fields: tuple, options: dict, clock: Clock | None = None) -> dict | None:
     """Plan and time one case, or one round of it; the job function the worker process runs.
 
     With ``rounds`` > 1 the runner calls this once per round, with other cases (and other
@@ -525,6 +429,8 @@ def time_case(backend: Backend, case_fields: tuple, options: dict) -> dict | Non
         random input, :func:`fftgauge.harness.battery.inputs.case_rng` with purpose ``"time"``; default 0),
         ``measure_memory`` (default True), ``rounds`` (default 1) and ``round`` (0-based,
         default 0).
+    clock : what planning and sampling read (nanoseconds); default
+        :data:`fftgauge.harness.timing.clock.DEFAULT_CLOCK`.
 
     Returns
     -------
@@ -551,10 +457,10 @@ def time_case(backend: Backend, case_fields: tuple, options: dict) -> dict | Non
     with limit_threads(rest["threads"]):
         if getattr(backend, "reports_own_timing", False):
             _close_open_case(key)
-            return _time_whole(backend, case, settings, rest)
+            return _time_whole(backend, case, settings, rest, clock or DEFAULT_CLOCK)
         if key not in _OPEN_CASES or round_index == 0:
             _close_open_case(key)
-            _OPEN_CASES[key] = _open_case(backend, case, settings, rest["seed"])
+            _OPEN_CASES[key] = _open_case(backend, case, settings, rest["seed"], clock or DEFAULT_CLOCK)
         open_case = _OPEN_CASES[key]
         try:
             open_case.session.take(_samples_this_round(settings, rounds, round_index,
@@ -585,17 +491,15 @@ def _memory(plan: Plan, x: np.ndarray, wanted: bool) -> tuple[Any, bool]:
     return None, any(detect_in_place(plan, x))
 
 
-def _time_whole(backend: Backend, case: Case, settings: TimerSettings, rest: dict[str, Any]) -> dict:
+def _time_whole(backend: Backend, case: Case, settings: TimerSettings, rest: dict[str, Any], clock: Clock) -> dict:
     """Time a backend that reports its own times in one call (rounds do not apply); return the row."""
     x = random_input(case, case_rng(rest["seed"], case, "time"))
-    start = time.perf_counter()
-    plan = backend.plan(case)
-    plan_seconds = time.perf_counter() - start
+    plan, plan_seconds = _planned(backend, case, clock)
     try:
-        m = measure_self_reported(plan, x, settings)
+        m = measure_self_reported(plan, x, settings, clock)
         source = "program" if m is not None else "harness"
         if m is None:
-            m = Timer(settings).measure(plan, x)
+            m = Timer(settings, clock).measure(plan, x)
         mem, in_place = _memory(plan, x, rest["measure_memory"])
     finally:
         plan.close()
