@@ -446,3 +446,15 @@ def test_comparison_table_accepts_time_rows():
     df = comparison_table(rows)
     assert df.idxmin(axis=1).tolist() == ["q"]
     assert "1.00 us *" in format_comparison(df)
+
+
+def test_report_command_imports_no_heavy_library():
+    """`fftgauge --help` builds every command's parser: the report command's module must not pull in
+    matplotlib, pandas or scipy.stats (they load when a report is made)."""
+    import subprocess
+
+    code = ("import sys; import fftgauge.harness.cli.report, fftgauge.harness.report.plots, "
+            "fftgauge.harness.report.check_tables, fftgauge.harness.report.time_tables; "
+            "print(sorted(m for m in ('matplotlib', 'pandas', 'scipy.stats') if m in sys.modules))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
+    assert out.strip() == "[]"

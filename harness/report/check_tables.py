@@ -3,9 +3,10 @@ x precision, and the terminal text."""
 
 from __future__ import annotations
 
-from typing import Any, Iterable
+from typing import TYPE_CHECKING, Any, Iterable
 
-import pandas as pd
+if TYPE_CHECKING:  # pandas is imported when a table is built, not with this module
+    import pandas as pd
 
 ROW_COLUMNS = ["backend", "kind", "dtype", "norm", "n", "check", "status", "value", "limit", "eps_units",
                "diagnosis", "message", "reference"]
@@ -13,6 +14,8 @@ ROW_COLUMNS = ["backend", "kind", "dtype", "norm", "n", "check", "status", "valu
 
 def rows_frame(rows: Iterable[dict[str, Any]]) -> pd.DataFrame:
     """Return the battery rows as a DataFrame with the contract's columns in a fixed order."""
+    import pandas as pd
+
     df = pd.DataFrame(list(rows))
     if df.empty:
         return pd.DataFrame(columns=ROW_COLUMNS)
@@ -57,6 +60,8 @@ def _case_status(statuses: pd.Series) -> str:
 def summary_frame(df: pd.DataFrame) -> pd.DataFrame:
     """Return one line per backend x kind x dtype x norm: cases passed/failed/error/skipped,
     worst accuracy in eps units, the failing sizes and the diagnoses found."""
+    import pandas as pd
+
     if df.empty:
         return pd.DataFrame()
     keys = ["backend", "kind", "dtype", "norm"]

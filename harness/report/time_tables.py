@@ -8,9 +8,10 @@ Markdown that ``fftgauge report`` writes.
 from __future__ import annotations
 
 import dataclasses
-from typing import Any, Iterable
+from typing import TYPE_CHECKING, Any, Iterable
 
-import pandas as pd
+if TYPE_CHECKING:  # pandas is imported when a table is built, not with this module
+    import pandas as pd
 
 INDEX = ["kind", "dtype", "n"]
 
@@ -33,6 +34,8 @@ def format_seconds(seconds: float, micro: str = "us") -> str:
 def _label_columns(df: pd.DataFrame) -> pd.Series:
     """Return each row's column label: the backend, plus ``(k threads)`` where a backend was
     timed with several thread counts."""
+    import pandas as pd
+
     threads = df["threads"] if "threads" in df else pd.Series(1, index=df.index)
     several = df.assign(threads=threads).groupby("backend")["threads"].transform("nunique") > 1
     return df["backend"].where(~several, df["backend"] + " (" + threads.astype(str) + " threads)")
@@ -56,6 +59,8 @@ def comparison_table(time_rows: Iterable[Any]) -> pd.DataFrame:
         in order of first appearance; values are median seconds. The fastest backend per
         row is ``df.idxmin(axis=1)``; one (kind, dtype) block is ``df.loc[(kind, dtype)]``.
     """
+    import pandas as pd
+
     rows = [dataclasses.asdict(r) if dataclasses.is_dataclass(r) else dict(r) for r in time_rows]
     rows = [r for r in rows if r.get("status", "ok") == "ok" and r.get("seconds") is not None]
     if not rows:

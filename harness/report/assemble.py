@@ -1,0 +1,120 @@
+"""Making a report: the request (inputs, output folder, plot format, pages asked for), the
+plots that apply to the inputs, and every file written."""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass, field
+
+from fftgauge.harness.cases import Case
+from fftgauge.harness.report.inputs import ReportInputs, file_stem, history_cases, merged_time_rows
+from fftgauge.harness.results import write_text_atomic
+
+
+def draw_plots(inputs: ReportInputs, out: str, fmt: str, cases: list[Case] | None) -> tuple[dict[str, list], list[str]]:
+    """Draw every plot that applies; return ({section: [(path, caption)]}, notes for the user)."""
+    from fftgauge.harness.report import plots
+
+    images: dict[str, list] = {"time": [], "check": [], "history": []}
+    notes: list[str] = []
+    if inputs.time:
+        rows = merged_time_rows(inputs.time)
+        images["time"].append((plots.plot_time(rows, os.path.join(out, f"time.{fmt}")),
+                               "time per transform against N, with the N log2 N and N^2 model lines"))
+        images["time"].append((plots.plot_rate(rows, os.path.join(out, f"rate.{fmt}")),
+                               "GFLOP/s against N (5 N log2 N convention, 2.5 N log2 N for real transforms)"))
+    for path, doc in inputs.check:
+        if any(r.get("check") == "accuracy" and (r.get("eps_units") or 0) > 0 for r in doc["rows"]):
+            name = "accuracy" if len(inputs.check) == 1 else f"accuracy-{file_stem(path)}"
+            images["check"].append((plots.plot_accuracy(doc["rows"], os.path.join(out, f"{name}.{fmt}")),
+                                    "accuracy against N, with the error bound"))
+        else:
+            notes.append(f"{path} holds no accuracy results above zero: no accuracy plot")
+    for folder, docs in inputs.histories:
+        if cases:
+            chosen = cases
+        else:
+            chosen, available = history_cases(docs)
+            if available > len(chosen):
+                notes.append(f"{folder}: {available} cases in every run; plotted {len(chosen)} (choose with --case)")
+        for case in chosen:
+            name = f"history-{file_stem(folder)}-{case.kind}-{case.dtype}-{case.n}"
+            if case.norm != "backward":
+                name += f"-{case.norm}"
+            images["history"].append((plots.plot_history(docs, case, os.path.join(out, f"{name}.{fmt}")),
+                                      f"history of {case.label()} over {len(docs)} stored runs"))
+    return images, notes
+
+
+@dataclass(frozen=True)
+class ReportRequest:
+    """What a report is made from and where it goes.
+
+    ``results`` are paths of results files or folders of stored runs; ``out`` the folder of
+    the plots and ``scaling.txt``; ``plot_format`` ``png`` or ``svg``; ``markdown_path`` and
+    ``html_path`` the pages asked for (None: not written); ``cases`` the cases of history
+    plots (empty: chosen from the runs); ``plots`` False for tables and text only.
+    """
+
+    results: tuple[str, ...]
+    out: str
+    plot_format: str = "png"
+    markdown_path: str | None = None
+    html_path: str | None = None
+    cases: tuple[Case, ...] = ()
+    plots: bool = True
+
+
+@dataclass
+class ReportOutcome:
+    """What making a report did: ``written`` (every path, in order) and ``notes`` for the user."""
+
+    written: list[str] = field(default_factory=list)
+    notes: list[str] = field(default_factory=list)
+
+
+def make_report(request: ReportRequest) -> ReportOutcome:
+    """Load the inputs, draw the plots that apply, write scaling.txt and the pages asked for.
+
+    Returns
+    -------
+    ReportOutcome
+        The paths written and the notes to show (plots left out, incomplete runs).
+
+    Raises
+    ------
+    UsageError
+        For a missing, corrupt, hostile or foreign results file, cases chosen without a
+        folder of stored runs, or plots asked for without matplotlib installed.
+    """
+    from fftgauge.harness.errors import UsageError
+    from fftgauge.harness.report.inputs import load_inputs
+    from fftgauge.harness.report.pages import build_blocks, render_html, render_markdown
+    from fftgauge.harness.timing.scaling import scaling_report
+
+    inputs = load_inputs(list(request.results))
+    if request.cases and not inputs.histories:
+        raise UsageError("--case chooses the cases of history plots: pass a folder of stored runs too")
+    outcome = ReportOutcome()
+    images: dict[str, list] = {}
+    if request.plots:
+        from fftgauge.harness.report.figures import require_matplotlib
+
+        require_matplotlib()
+        images, notes = draw_plots(inputs, request.out, request.plot_format, list(request.cases) or None)
+        outcome.notes += notes
+        outcome.written += [p for section in images.values() for p, _ in section]
+    if inputs.time:
+        text = "\n\n".join(f"{path}\n" + scaling_report(doc["rows"], doc.get("machine")) for path, doc in inputs.time)
+        scaling_path = os.path.join(request.out, "scaling.txt")
+        write_text_atomic(scaling_path, text + "\n")
+        outcome.written.append(scaling_path)
+    if request.markdown_path or request.html_path:
+        blocks = build_blocks(inputs, images)
+        if request.markdown_path:
+            write_text_atomic(request.markdown_path, render_markdown(blocks, request.markdown_path))
+            outcome.written.append(request.markdown_path)
+        if request.html_path:
+            write_text_atomic(request.html_path, render_html(blocks, request.html_path))
+            outcome.written.append(request.html_path)
+    return outcome

@@ -1,0 +1,142 @@
+"""The inputs of a report: results files and folders of stored runs, loaded and checked, and
+the views of them that every part of the report shares (merged time rows, the cases of a
+history)."""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass, field
+from typing import Any
+
+from fftgauge.harness.cases import DTYPES, KINDS, NORMS, Case
+from fftgauge.harness.errors import UsageError
+from fftgauge.harness.results import load_results
+
+TIME_SCHEMA, CHECK_SCHEMA, GATE_SCHEMA = "fftgauge-time/1", "fftgauge-check/1", "fftgauge-gate/1"
+
+#: Most history plots drawn per folder when no case is chosen.
+MAX_HISTORY_PLOTS = 6
+
+#: Fields every row must have, per schema (validated once, here at the boundary).
+_REQUIRED = {
+    TIME_SCHEMA: ("backend", "kind", "dtype", "n", "seconds"),
+    CHECK_SCHEMA: ("backend", "kind", "dtype", "n", "check", "status"),
+    GATE_SCHEMA: ("backend", "kind", "dtype", "n"),
+}
+
+
+@dataclass
+class ReportInputs:
+    """What the command was given, loaded and checked: (path, document) pairs per schema and
+    (folder, documents) histories."""
+
+    time: list[tuple[str, dict[str, Any]]] = field(default_factory=list)
+    check: list[tuple[str, dict[str, Any]]] = field(default_factory=list)
+    histories: list[tuple[str, list[dict[str, Any]]]] = field(default_factory=list)
+
+
+def _check_rows(path: str, doc: dict[str, Any]) -> None:
+    """Raise UsageError naming ``path`` when a row lacks a field or holds an impossible case."""
+    for i, row in enumerate(doc["rows"]):
+        if not isinstance(row, dict):
+            raise UsageError(f"results file {path!r}: row {i} is not an object; the file is corrupt")
+        missing = [f for f in _REQUIRED[doc["schema"]] if f not in row]
+        if missing:
+            raise UsageError(f"results file {path!r}: row {i} lacks {', '.join(missing)}; the file is corrupt or "
+                             f"was edited")
+        n = row["n"]
+        if row["kind"] not in KINDS or row["dtype"] not in DTYPES or not isinstance(n, int) or n < 1:
+            raise UsageError(f"results file {path!r}: row {i} has an impossible case ({row['kind']!r}, "
+                             f"{row['dtype']!r}, n={n!r})")
+        if row.get("norm", "backward") not in NORMS:
+            raise UsageError(f"results file {path!r}: row {i} has an unknown normalisation {row.get('norm')!r}")
+        seconds = row.get("seconds")
+        if seconds is not None and not isinstance(seconds, (int, float)):
+            raise UsageError(f"results file {path!r}: row {i} has a non-numeric time {seconds!r}")
+
+
+def _load(path: str, schemas: tuple[str, ...]) -> dict[str, Any]:
+    doc = load_results(path, schemas)
+    _check_rows(path, doc)
+    return doc
+
+
+def load_inputs(paths: list[str]) -> ReportInputs:
+    """Return the loaded inputs of ``paths`` (files or folders).
+
+    Raises
+    ------
+    UsageError
+        For a missing, corrupt or foreign file (naming it), a gate file given on its own
+        (gate runs are a history: pass their folder), or a folder without results files.
+    """
+    inputs = ReportInputs()
+    for path in paths:
+        if os.path.isdir(path):
+            names = sorted(f for f in os.listdir(path) if f.endswith(".json"))
+            if not names:
+                raise UsageError(f"folder {path!r} holds no results files (*.json); pass results files or a "
+                                 f"folder of stored runs")
+            docs = [_load(os.path.join(path, name), (TIME_SCHEMA, GATE_SCHEMA)) for name in names]
+            inputs.histories.append((path, docs))
+            continue
+        doc = _load(path, (TIME_SCHEMA, CHECK_SCHEMA, GATE_SCHEMA))
+        if doc["schema"] == GATE_SCHEMA:
+            raise UsageError(f"results file {path!r} is a gate run: gate runs are plotted as a history; pass the "
+                             f"folder that holds them")
+        (inputs.time if doc["schema"] == TIME_SCHEMA else inputs.check).append((path, doc))
+    return inputs
+
+
+def parse_case(text: str) -> Case:
+    """Return the case written as ``KIND,DTYPE,N`` or ``KIND,DTYPE,N,NORM``.
+
+    Raises
+    ------
+    UsageError
+        When the text is not of that form or names an unknown kind, precision or norm.
+    """
+    parts = [p.strip() for p in text.split(",")]
+    if len(parts) not in (3, 4) or not parts[2].isdigit():
+        raise UsageError(f"--case {text!r}: write KIND,DTYPE,N[,NORM], e.g. fft,float64,1024")
+    try:
+        return Case(parts[0], parts[1], int(parts[2]), *(parts[3:] or ["backward"]))
+    except ValueError as exc:
+        raise UsageError(f"--case {text!r}: {exc}") from None
+
+
+def file_stem(path: str) -> str:
+    """Return the file or folder name of ``path`` without its extension (``results`` when empty)."""
+    return os.path.splitext(os.path.basename(os.path.normpath(path)))[0] or "results"
+
+
+def merged_time_rows(time_docs: list[tuple[str, dict[str, Any]]]) -> list[dict[str, Any]]:
+    """Return the rows of every time file together; when two files time the same backend and
+    case, each row's backend becomes ``backend [file stem]`` so that the runs stay apart."""
+    keys: dict[tuple, str] = {}
+    clash = False
+    for path, doc in time_docs:
+        for row in doc["rows"]:
+            key = (row["backend"], row["kind"], row["dtype"], row["n"], row.get("threads"), row.get("norm"))
+            if keys.setdefault(key, path) != path:
+                clash = True
+    rows = []
+    for path, doc in time_docs:
+        for row in doc["rows"]:
+            rows.append({**row, "backend": f"{row['backend']} [{file_stem(path)}]"} if clash else dict(row))
+    return rows
+
+
+def history_cases(docs: list[dict[str, Any]], limit: int = MAX_HISTORY_PLOTS) -> tuple[list[Case], int]:
+    """Return up to ``limit`` cases held by every run (else by the newest), spread evenly, and how many there were."""
+    def cases_of(doc: dict[str, Any]) -> set[Case]:
+        return {Case(r["kind"], r["dtype"], r["n"], r.get("norm", "backward")) for r in doc["rows"]}
+
+    common = set.intersection(*(cases_of(d) for d in docs)) if docs else set()
+    if not common and docs:
+        common = cases_of(max(docs, key=lambda d: str(d.get("created") or "")))
+    ordered = sorted(common)
+    if len(ordered) <= limit:
+        return ordered, len(ordered)
+    step = (len(ordered) - 1) / (limit - 1)
+    return [ordered[round(i * step)] for i in range(limit)], len(ordered)
