@@ -62,7 +62,7 @@ Examples
 --------
 >>> import numpy as np
 >>> from fftgauge.harness.cases import Case
-from fftgauge.harness.execution import jobs
+>>> from fftgauge.harness.execution import jobs
 >>> with Worker("numpy") as worker:                                 # doctest: +SKIP
 ...     y = worker.call(jobs.plan_and_execute, Case("fft", "float64", 8),
 ...                     np.ones(8, complex), timeout_seconds=30)
@@ -73,29 +73,25 @@ np.complex128(8+0j)
 from __future__ import annotations
 
 import atexit
-import faulthandler
 import math
 import multiprocessing
 import multiprocessing.connection
 import multiprocessing.util  # noqa: F401 - its atexit hook must be registered before ours
 import os
-import re
 import signal
-import sys
-import sysconfig
 import tempfile
-import threading
 import time
-import traceback
 import weakref
 from multiprocessing.reduction import ForkingPickler
 from typing import Any, Callable, Iterable, Iterator
 
 import numpy as np
 
-from fftgauge.harness.cases import Case
-from fftgauge.harness.execution import jobs
 from fftgauge.harness.errors import BackendFailure, UnsupportedCase, UsageError
+from fftgauge.harness.execution import jobs
+from fftgauge.harness.execution.child import child_main
+from fftgauge.harness.execution.crash import (death_reason, describe_exception, read_log_tail, remove_file,
+                                              thread_stack, truncate_log, user_location)
 
 #: Seconds a child gets to exit after ``terminate()`` (SIGTERM) before ``kill()`` (SIGKILL).
 KILL_GRACE_SECONDS = 1.0
@@ -103,17 +99,7 @@ KILL_GRACE_SECONDS = 1.0
 START_TIMEOUT_SECONDS = 120.0
 #: Seconds the parent waits for a timed-out child to report where it is.
 STACK_DUMP_WAIT_SECONDS = 0.5
-#: How often, in seconds, the child checks that its parent is still there.
-ORPHAN_CHECK_SECONDS = 0.5
-#: Exit code of a child that found its owner gone.
-ORPHAN_EXIT_CODE = 70
-#: Longest job exception message kept in a reason, in characters.
-MESSAGE_CHARS = 300
 
-_STACK_HEADER = re.compile(r"^(?:(?:Current thread|Thread) (?P<ident>0x[0-9a-fA-F]+)|Stack) "
-                           r"\(most recent call first\):\s*$")
-_STACK_FRAME = re.compile(r'^\s*File "(?P<file>.*)", line (?P<line>\d+) in (?P<name>.*?)\s*$')
-_CRASH_SIGNALS = {"SIGSEGV", "SIGBUS", "SIGILL", "SIGFPE"}
 _LIVE_WORKERS: "weakref.WeakSet[Worker]" = weakref.WeakSet()
 
 
@@ -218,7 +204,7 @@ class Worker:
         request = bytes(ForkingPickler.dumps((func.__name__, args)))  # unpicklable args: the caller's bug
         try:
             self._ensure_child()
-            _truncate(self._log_path)
+            truncate_log(self._log_path)
             try:
                 self._conn.send_bytes(request)
             except OSError:  # the child died between jobs and after the liveness check
@@ -273,14 +259,14 @@ class Worker:
             fd, self._log_path = tempfile.mkstemp(prefix="fftgauge-worker-", suffix=".log")
             os.close(fd)
             # Removed by close(), or when a worker nobody closed is collected or at exit.
-            self._log_remover = weakref.finalize(self, _remove_file, self._log_path)
-        _truncate(self._log_path)
+            self._log_remover = weakref.finalize(self, remove_file, self._log_path)
+        truncate_log(self._log_path)
         parent_conn, child_conn = self._ctx.Pipe(duplex=True)
         # A forked child inherits the parent's end too; it must close it, or it would never
         # see end-of-file when the parent goes. Spawned children get only what is passed.
         inherited = parent_conn if self.start_method == "fork" else None
         process = self._ctx.Process(
-            target=_child_main, name=f"fftgauge-worker {self.spec}",
+            target=child_main, name=f"fftgauge-worker {self.spec}",
             args=(child_conn, self.spec, self.threads, self.memory_limit_bytes, self._log_path,
                   os.getpid(), inherited))
         process.start()
@@ -307,7 +293,7 @@ class Worker:
                 return ForkingPickler.loads(data)
             except Exception as exc:  # the child is fine; only its answer is unreadable here
                 raise BackendFailure(f"the job's result cannot be read in the main process: "
-                                     f"{_describe_exception(exc)}") from None
+                                     f"{describe_exception(exc)}") from None
         if ready:
             raise self._death_failure(during)
         where = self._ask_where()
@@ -320,12 +306,12 @@ class Worker:
         """Reap the dead (or dying) child and return the BackendFailure saying how it died."""
         self._process.join(KILL_GRACE_SECONDS)
         code = self._process.exitcode
-        log = _read_tail(self._log_path)
+        log = read_log_tail(self._log_path)
         self._stop_child()
         if code is None:  # the pipe broke but the process lived on: it has been stopped now
             return BackendFailure(f"the backend closed its connection to the main process{during}; "
                                   f"stopped")
-        return BackendFailure(_death_reason(code, log, during, self.memory_limit_bytes))
+        return BackendFailure(death_reason(code, log, during, self.memory_limit_bytes))
 
     def _ask_where(self) -> str | None:
         """Return where the running child's main thread is, via faulthandler's SIGUSR1 dump."""
@@ -338,9 +324,9 @@ class Worker:
         deadline = time.monotonic() + STACK_DUMP_WAIT_SECONDS
         while time.monotonic() < deadline:
             time.sleep(0.05)
-            frames = _stack_of_thread(_read_tail(self._log_path), self._main_ident)
+            frames = thread_stack(read_log_tail(self._log_path), self._main_ident)
             if frames:
-                return _user_location(frames)
+                return user_location(frames)
         return None
 
     def _stop_child(self) -> None:
@@ -392,288 +378,3 @@ def _close_all_workers() -> None:
             worker.close()
         except Exception:  # noqa: BLE001 - exiting anyway; never mask the real exit
             pass
-
-
-# -- reasons -----------------------------------------------------------------------------------
-def _one_line(text: str, limit: int = MESSAGE_CHARS) -> str:
-    text = " ".join(str(text).split())
-    return text if len(text) <= limit else text[: limit - 3] + "..."
-
-
-def _safe_str(exc: BaseException) -> str:
-    try:
-        return str(exc)
-    except Exception:  # noqa: BLE001 - a broken __str__ must not hide the failure
-        return f"<{type(exc).__name__} whose message cannot be shown>"
-
-
-def _describe_exception(exc: BaseException) -> str:
-    """Return ``"TypeName: message"`` on one line (just the name when the message is empty)."""
-    message = _one_line(_safe_str(exc))
-    return f"{type(exc).__name__}: {message}" if message else type(exc).__name__
-
-
-def _not_user_dirs() -> tuple[str, ...]:
-    """Folders whose frames are never 'the user's code': the standard library,
-    site-packages and this package (the engine)."""
-    paths = sysconfig.get_paths()
-    dirs = {paths.get(k) for k in ("stdlib", "platstdlib", "purelib", "platlib")}
-    dirs.add(os.path.dirname(os.path.abspath(__file__)))
-    return tuple(os.path.join(os.path.realpath(d), "") for d in dirs if d)
-
-
-def _show_path(path: str) -> str:
-    """Return ``path`` relative to the current folder when it lies inside it."""
-    full = os.path.abspath(path)
-    here = os.path.join(os.getcwd(), "")
-    return os.path.relpath(full) if full.startswith(here) else path
-
-
-def _user_location(frames: list[tuple[str, int, str]]) -> str | None:
-    """Return ``"file:line in name"`` of the innermost frame in the user's code.
-
-    ``frames`` run from outermost to innermost. The user's code is anything outside the
-    standard library, site-packages and :mod:`harness`; when every frame is there, the
-    innermost frame is named.
-    """
-    if not frames:
-        return None
-    skip = _not_user_dirs()
-    chosen = frames[-1]
-    for frame in reversed(frames):
-        if not os.path.realpath(frame[0]).startswith(skip) and not frame[0].startswith("<"):
-            chosen = frame
-            break
-    file, line, name = chosen
-    return f"{_show_path(file)}:{line} in {name}"
-
-
-def _job_failure_reason(exc: BaseException) -> str:
-    """Return the one-line reason for an exception a job raised, with its location."""
-    frames = [(f.filename, f.lineno or 0, f.name) for f in traceback.extract_tb(exc.__traceback__)]
-    where = _user_location(frames)
-    at = f" (at {where})" if where else ""
-    if isinstance(exc, MemoryError):
-        message = _one_line(_safe_str(exc))
-        return f"ran out of memory (MemoryError{': ' + message if message else ''}){at}"
-    return f"{_describe_exception(exc)}{at}"
-
-
-def _death_reason(exitcode: int | None, log: str, during: str, memory_limit_bytes: int | None) -> str:
-    """Return the one-line reason for a child that died with ``exitcode`` (negative: signal)."""
-    if exitcode is not None and exitcode < 0:
-        number = -exitcode
-        try:
-            name = signal.Signals(number).name
-        except ValueError:
-            name = f"signal {number}"
-        how = (f"crashed (signal {number}, {name})" if name in _CRASH_SIGNALS
-               else f"aborted (signal {number}, {name})" if name == "SIGABRT"
-               else f"was killed (signal {number}, {name})" if name == "SIGKILL"
-               else f"died (signal {number}, {name})")
-        frames = _last_crash_stack(log)
-        where = _user_location(frames) if frames else None
-        reason = f"the backend {how}{during}" + (f" at {where}" if where else "")
-        if name == "SIGKILL":
-            reason += ", perhaps by the system's out-of-memory killer"
-        if memory_limit_bytes is not None and name in _CRASH_SIGNALS | {"SIGABRT", "SIGKILL"}:
-            reason += f" (memory limit {memory_limit_bytes / 2**20:.0f} MiB in force)"
-        return reason
-    if exitcode == 0:
-        return f"the backend exited (code 0){during or ' in the middle of a job'}"
-    reason = f"the backend exited with code {exitcode}{during}"
-    last = _last_line(log)
-    return reason + (f"; its last message: {last}" if last else "")
-
-
-def _stack_blocks(log: str) -> list[tuple[int | None, list[tuple[str, int, str]]]]:
-    """Parse faulthandler dumps in ``log``: ``(thread ident or None, frames outermost first)``."""
-    blocks: list[tuple[int | None, list[tuple[str, int, str]]]] = []
-    current: list[tuple[str, int, str]] | None = None
-    for line in log.splitlines():
-        header = _STACK_HEADER.match(line)
-        if header:
-            ident = int(header.group("ident"), 16) if header.group("ident") else None
-            current = []
-            blocks.append((ident, current))
-            continue
-        frame = _STACK_FRAME.match(line) if current is not None else None
-        if frame:
-            current.append((frame.group("file"), int(frame.group("line")), frame.group("name")))
-        else:
-            current = None
-    return [(ident, list(reversed(frames))) for ident, frames in blocks]
-
-
-def _last_crash_stack(log: str) -> list[tuple[str, int, str]]:
-    """Return the frames of the last fatal-error dump (``Stack (most recent call first)``)."""
-    stacks = [frames for ident, frames in _stack_blocks(log) if ident is None]
-    return stacks[-1] if stacks else []
-
-
-def _stack_of_thread(log: str, ident: int | None) -> list[tuple[str, int, str]]:
-    """Return the frames of thread ``ident`` in the last all-threads dump in ``log``."""
-    for block_ident, frames in reversed(_stack_blocks(log)):
-        if block_ident is not None and block_ident == ident:
-            return frames
-    return []
-
-
-def _last_line(log: str) -> str | None:
-    lines = [line for line in log.splitlines() if line.strip()]
-    return _one_line(lines[-1], 200) if lines else None
-
-
-def _remove_file(path: str) -> None:
-    try:
-        os.unlink(path)
-    except OSError:
-        pass
-
-
-def _truncate(path: str | None) -> None:
-    if path is not None:
-        try:
-            os.truncate(path, 0)
-        except OSError:
-            pass
-
-
-def _read_tail(path: str | None, nbytes: int = 65536) -> str:
-    if path is None:
-        return ""
-    try:
-        with open(path, "rb") as fh:
-            fh.seek(0, os.SEEK_END)
-            fh.seek(max(0, fh.tell() - nbytes))
-            return fh.read().decode("utf-8", "replace")
-    except OSError:
-        return ""
-
-
-# -- the child's side --------------------------------------------------------------------------
-def _child_main(conn: Any, spec: str, threads: int | None, memory_limit_bytes: int | None,
-                log_path: str, parent_pid: int, parents_end: Any = None) -> None:
-    """Entry point of the child: load the backend, say so, then serve jobs until told to stop
-    (or until the parent's end of the pipe closes)."""
-    if parents_end is not None:  # fork: the copy of the parent's end this child inherited
-        parents_end.close()
-    _redirect_outputs(log_path)
-    faulthandler.enable(all_threads=False)
-    if hasattr(signal, "SIGUSR1"):
-        faulthandler.register(signal.SIGUSR1, all_threads=True, chain=False)
-    signal.signal(signal.SIGINT, signal.SIG_IGN)
-    _watch_parent(parent_pid, log_path)
-    _no_core_dumps()
-    if memory_limit_bytes is not None:
-        _limit_address_space(memory_limit_bytes)
-    try:
-        from fftgauge.backends.registry import load_backend
-        backend = load_backend(spec, threads=threads)
-    except UsageError as exc:
-        conn.send(("usage", _one_line(_safe_str(exc), 1000)))
-        return
-    except Exception as exc:  # noqa: BLE001 - an adapter's own constructor may raise anything
-        hint = (f" (the memory limit of {memory_limit_bytes / 2**20:.0f} MiB may be too small)"
-                if isinstance(exc, MemoryError) and memory_limit_bytes else "")
-        conn.send(("usage", f"backend {spec!r} failed to load: {_describe_exception(exc)}{hint}"))
-        return
-    conn.send(("ready", {"main_thread": threading.main_thread().ident}))
-    while True:
-        try:
-            request = conn.recv()
-        except (EOFError, OSError):  # the parent has gone
-            return
-        if request is None:
-            return
-        conn.send_bytes(_run_job(backend, *request))
-
-
-def _run_job(backend: Any, func: str, args: tuple) -> bytes:
-    """Run the job called ``func`` and return the pickled ``(status, payload)`` reply."""
-    try:
-        fn = jobs.resolve(func)
-    except LookupError as exc:
-        return bytes(ForkingPickler.dumps(("bad-func", str(exc))))
-    try:
-        value = fn(backend, *args)
-    except SystemExit:  # the backend asked the process to exit: let it (the parent reports it)
-        raise
-    except UnsupportedCase as exc:
-        return bytes(ForkingPickler.dumps(("unsupported", _one_line(_safe_str(exc)))))
-    except BaseException as exc:  # noqa: BLE001 - any failure of backend code is a result
-        return bytes(ForkingPickler.dumps(("failed", _job_failure_reason(exc))))
-    try:
-        return bytes(ForkingPickler.dumps(("ok", value)))
-    except Exception as exc:  # noqa: BLE001
-        return bytes(ForkingPickler.dumps(("failed", f"the job's result cannot be sent back to the "
-                                                     f"main process: {_describe_exception(exc)}")))
-
-
-def _redirect_outputs(log_path: str) -> None:
-    """Send fd 1 to ``os.devnull`` and fd 2 to ``log_path`` (appending), for C code as well."""
-    for stream in (sys.stdout, sys.stderr):
-        try:
-            stream.flush()
-        except Exception:  # noqa: BLE001 - a closed stream: nothing to flush
-            pass
-    devnull = os.open(os.devnull, os.O_WRONLY)
-    log = os.open(log_path, os.O_WRONLY | os.O_APPEND | os.O_CREAT, 0o600)
-    os.dup2(devnull, 1)
-    os.dup2(log, 2)
-    os.close(devnull)
-    os.close(log)
-
-
-def _watch_parent(parent_pid: int, log_path: str) -> None:
-    """Exit the child, removing its log, when the process that owns the worker has gone.
-
-    A daemon thread checks every :data:`ORPHAN_CHECK_SECONDS` that ``parent_pid`` still
-    exists and that the child has not been re-parented (under ``forkserver`` the child's
-    parent is the fork server, not the worker's owner, hence both checks).
-    """
-    first_ppid = os.getppid()
-
-    def gone() -> bool:
-        if os.getppid() != first_ppid:
-            return True
-        try:
-            os.kill(parent_pid, 0)
-        except ProcessLookupError:
-            return True
-        except OSError:  # exists, but not ours to signal
-            pass
-        return False
-
-    def watch() -> None:
-        while True:
-            if gone():
-                try:
-                    os.unlink(log_path)
-                except OSError:
-                    pass
-                os._exit(ORPHAN_EXIT_CODE)
-            time.sleep(ORPHAN_CHECK_SECONDS)
-
-    threading.Thread(target=watch, name="fftgauge-parent-watch", daemon=True).start()
-
-
-def _no_core_dumps() -> None:
-    """Set ``RLIMIT_CORE`` to 0: a battery that crashes a backend on purpose, case after
-    case, must not fill the disk with core files."""
-    try:
-        import resource
-        resource.setrlimit(resource.RLIMIT_CORE, (0, resource.getrlimit(resource.RLIMIT_CORE)[1]))
-    except (ImportError, ValueError, OSError):
-        pass
-
-
-def _limit_address_space(limit_bytes: int) -> None:
-    """Cap the address space (``RLIMIT_AS``) at ``limit_bytes`` (never above the hard limit)."""
-    try:
-        import resource
-    except ImportError:  # not POSIX: no limit is applied
-        return
-    soft, hard = resource.getrlimit(resource.RLIMIT_AS)
-    new = limit_bytes if hard == resource.RLIM_INFINITY else min(limit_bytes, hard)
-    resource.setrlimit(resource.RLIMIT_AS, (new, hard))

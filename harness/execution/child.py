@@ -1,0 +1,165 @@
+"""The child's side of a worker: load one backend, then run jobs sent over a pipe.
+
+:func:`child_main` is what a :class:`~fftgauge.harness.execution.worker.Worker` starts in its
+child process. It silences standard output, sends standard error (faulthandler's stacks
+included) to the worker's log, ignores SIGINT (the parent decides on Ctrl-C), switches core
+dumps off, applies the memory cap, watches its parent, loads the backend from its SPEC and
+says so, then answers one job request at a time until told to stop or until the parent's end
+of the pipe closes. Each reply is a pickled ``(status, payload)``: ``ok`` with the job's
+result, ``unsupported`` or ``failed`` with a one-line reason made here (so an exception that
+cannot be pickled still comes back readable), or ``bad-func``.
+"""
+
+from __future__ import annotations
+
+import faulthandler
+import os
+import signal
+import sys
+import threading
+import time
+from multiprocessing.reduction import ForkingPickler
+from typing import Any
+
+from fftgauge.harness.errors import UnsupportedCase, UsageError
+from fftgauge.harness.execution import jobs
+from fftgauge.harness.execution.crash import describe_exception, job_failure_reason, one_line, safe_str
+
+#: How often, in seconds, the child checks that its parent is still there.
+ORPHAN_CHECK_SECONDS = 0.5
+#: Exit code of a child that found its owner gone.
+ORPHAN_EXIT_CODE = 70
+
+
+def child_main(conn: Any, spec: str, threads: int | None, memory_limit_bytes: int | None,
+               log_path: str, parent_pid: int, parents_end: Any = None) -> None:
+    """Entry point of the child: load the backend, say so, then serve jobs until told to stop
+    (or until the parent's end of the pipe closes). Returns when done; raises nothing the
+    parent must catch (a backend that exits or crashes ends the process, which the parent sees)."""
+    if parents_end is not None:  # fork: the copy of the parent's end this child inherited
+        parents_end.close()
+    redirect_outputs(log_path)
+    faulthandler.enable(all_threads=False)
+    if hasattr(signal, "SIGUSR1"):
+        faulthandler.register(signal.SIGUSR1, all_threads=True, chain=False)
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    watch_parent(parent_pid, log_path)
+    no_core_dumps()
+    if memory_limit_bytes is not None:
+        limit_memory(memory_limit_bytes)
+    try:
+        from fftgauge.backends.registry import load_backend
+        backend = load_backend(spec, threads=threads)
+    except UsageError as exc:
+        conn.send(("usage", one_line(safe_str(exc), 1000)))
+        return
+    except Exception as exc:  # noqa: BLE001 - an adapter's own constructor may raise anything
+        hint = (f" (the memory limit of {memory_limit_bytes / 2**20:.0f} MiB may be too small)"
+                if isinstance(exc, MemoryError) and memory_limit_bytes else "")
+        conn.send(("usage", f"backend {spec!r} failed to load: {describe_exception(exc)}{hint}"))
+        return
+    conn.send(("ready", {"main_thread": threading.main_thread().ident}))
+    while True:
+        try:
+            request = conn.recv()
+        except (EOFError, OSError):  # the parent has gone
+            return
+        if request is None:
+            return
+        conn.send_bytes(run_job(backend, *request))
+
+
+def run_job(backend: Any, func: str, args: tuple) -> bytes:
+    """Run the job called ``func`` on ``backend`` and return the pickled ``(status, payload)`` reply.
+
+    Raises
+    ------
+    SystemExit
+        When the backend asked the process to exit (let through: the parent reports it).
+    """
+    try:
+        fn = jobs.resolve(func)
+    except LookupError as exc:
+        return bytes(ForkingPickler.dumps(("bad-func", str(exc))))
+    try:
+        value = fn(backend, *args)
+    except SystemExit:
+        raise
+    except UnsupportedCase as exc:
+        return bytes(ForkingPickler.dumps(("unsupported", one_line(safe_str(exc)))))
+    except BaseException as exc:  # noqa: BLE001 - any failure of backend code is a result
+        return bytes(ForkingPickler.dumps(("failed", job_failure_reason(exc))))
+    try:
+        return bytes(ForkingPickler.dumps(("ok", value)))
+    except Exception as exc:  # noqa: BLE001
+        return bytes(ForkingPickler.dumps(("failed", f"the job's result cannot be sent back to the "
+                                                     f"main process: {describe_exception(exc)}")))
+
+
+def redirect_outputs(log_path: str) -> None:
+    """Send fd 1 to ``os.devnull`` and fd 2 to ``log_path`` (appending), for C code as well."""
+    for stream in (sys.stdout, sys.stderr):
+        try:
+            stream.flush()
+        except Exception:  # noqa: BLE001 - a closed stream: nothing to flush
+            pass
+    devnull = os.open(os.devnull, os.O_WRONLY)
+    log = os.open(log_path, os.O_WRONLY | os.O_APPEND | os.O_CREAT, 0o600)
+    os.dup2(devnull, 1)
+    os.dup2(log, 2)
+    os.close(devnull)
+    os.close(log)
+
+
+def watch_parent(parent_pid: int, log_path: str) -> None:
+    """Exit the child, removing its log, when the process that owns the worker has gone.
+
+    A daemon thread checks every :data:`ORPHAN_CHECK_SECONDS` that ``parent_pid`` still
+    exists and that the child has not been re-parented (under ``forkserver`` the child's
+    parent is the fork server, not the worker's owner, hence both checks).
+    """
+    first_ppid = os.getppid()
+
+    def gone() -> bool:
+        if os.getppid() != first_ppid:
+            return True
+        try:
+            os.kill(parent_pid, 0)
+        except ProcessLookupError:
+            return True
+        except OSError:  # exists, but not ours to signal
+            pass
+        return False
+
+    def watch() -> None:
+        while True:
+            if gone():
+                try:
+                    os.unlink(log_path)
+                except OSError:
+                    pass
+                os._exit(ORPHAN_EXIT_CODE)
+            time.sleep(ORPHAN_CHECK_SECONDS)
+
+    threading.Thread(target=watch, name="fftgauge-parent-watch", daemon=True).start()
+
+
+def no_core_dumps() -> None:
+    """Set ``RLIMIT_CORE`` to 0: a battery that crashes a backend on purpose, case after
+    case, must not fill the disk with core files."""
+    try:
+        import resource
+        resource.setrlimit(resource.RLIMIT_CORE, (0, resource.getrlimit(resource.RLIMIT_CORE)[1]))
+    except (ImportError, ValueError, OSError):
+        pass
+
+
+def limit_memory(limit_bytes: int) -> None:
+    """Cap the address space (``RLIMIT_AS``) at ``limit_bytes`` (never above the hard limit)."""
+    try:
+        import resource
+    except ImportError:  # not POSIX: no limit is applied
+        return
+    soft, hard = resource.getrlimit(resource.RLIMIT_AS)
+    new = limit_bytes if hard == resource.RLIM_INFINITY else min(limit_bytes, hard)
+    resource.setrlimit(resource.RLIMIT_AS, (new, hard))
