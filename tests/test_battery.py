@@ -18,6 +18,8 @@ import pytest
 from fftgauge.backends.registry import load_backend
 from fftgauge.harness.battery import run as battery
 from fftgauge.harness.battery import checks
+from fftgauge.harness.battery import exact_checks
+from fftgauge.harness.battery import thread_crew
 from fftgauge.harness.cases import Case
 
 
@@ -57,18 +59,18 @@ def _python_circular_convolution(x: list[complex], y: list[complex]) -> list[com
 def test_exact_circular_convolution_equals_integer_sums(n):
     """The float64 sums of the convolution check equal the defining sum in Python integers."""
     rng = np.random.default_rng(n)
-    r = checks.CONVOLUTION_RANGE
+    r = exact_checks.CONVOLUTION_RANGE
     x = rng.integers(-r, r + 1, n) + 1j * rng.integers(-r, r + 1, n)
     y = rng.integers(-r, r + 1, n) + 1j * rng.integers(-r, r + 1, n)
-    got = checks._exact_circular_convolution(x, y)
+    got = exact_checks.exact_circular_convolution(x, y)
     assert got.tolist() == _python_circular_convolution(x.tolist(), y.tolist())
 
 
 def test_exact_circular_convolution_is_exact_at_the_largest_values():
     """At DIRECT_CONVOLUTION_MAX_N with every input at the range's edge (the largest sums the
     check can meet) the float64 sums equal int64 sums (exact integer arithmetic)."""
-    n = checks.DIRECT_CONVOLUTION_MAX_N
-    r = checks.CONVOLUTION_RANGE
+    n = exact_checks.DIRECT_CONVOLUTION_MAX_N
+    r = exact_checks.CONVOLUTION_RANGE
     rng = np.random.default_rng(1)
     signs = lambda: rng.choice([-r, r], n)  # noqa: E731
     xr, xi, yr, yi = signs(), signs(), signs(), signs()
@@ -84,7 +86,7 @@ def test_exact_circular_convolution_is_exact_at_the_largest_values():
     want_re = circ(xr, yr) - circ(xi, yi)
     want_im = circ(xr, yi) + circ(xi, yr)
     assert np.max(np.abs(want_re)) >= n * r * r
-    got = checks._exact_circular_convolution(xr + 1j * xi, yr + 1j * yi)
+    got = exact_checks.exact_circular_convolution(xr + 1j * xi, yr + 1j * yi)
     assert np.array_equal(got.real, want_re.astype(np.float64))
     assert np.array_equal(got.imag, want_im.astype(np.float64))
 
@@ -93,7 +95,7 @@ def test_exact_circular_convolution_is_exact_at_the_largest_values():
 
 def test_thread_crew_runs_its_tasks_at_the_same_time():
     """Four tasks that each wait for all four at a barrier finish only if they run at once."""
-    crew = checks.ThreadCrew(4)
+    crew = thread_crew.ThreadCrew(4)
     barrier = threading.Barrier(4, timeout=10)
     names = []
 
@@ -110,20 +112,20 @@ def test_thread_crew_runs_its_tasks_at_the_same_time():
 
 def test_thread_crew_reports_an_overrun_and_is_replaced():
     release = threading.Event()
-    crew = checks._thread_crew()
+    crew = thread_crew.thread_crew()
     try:
         assert not crew.run([release.wait, lambda: None], timeout_seconds=0.2)
         assert crew.broken
         with pytest.raises(RuntimeError, match="still busy"):
             crew.run([lambda: None], timeout_seconds=1)
-        fresh = checks._thread_crew()
-        assert fresh is not crew and fresh.run([lambda: None] * checks.CONCURRENT_THREADS, timeout_seconds=30)
+        fresh = thread_crew.thread_crew()
+        assert fresh is not crew and fresh.run([lambda: None] * thread_crew.CREW_SIZE, timeout_seconds=30)
     finally:
         release.set()
 
 
 def test_thread_crew_survives_a_task_that_raises():
-    crew = checks.ThreadCrew(2)
+    crew = thread_crew.ThreadCrew(2)
 
     def bad():
         raise ValueError("boom")
@@ -197,7 +199,8 @@ def test_case_job_caps_blas_threads_in_the_worker():
 @pytest.mark.timeout(300)
 def test_battery_rows_equal_the_in_process_checks():
     """run_battery's rows (worker processes, batches, lanes) are the rows check_case gives in
-    this process, case by case, sorted; unclaimed cases are one skip row each."""
+    this process, case by case, sorted (at n = 1 too, where two checks are skip rows on both
+    paths); unclaimed cases are one skip row each."""
     req = battery.BatteryRequest(specs=("numpy", "radix2-dit"), kinds=("fft", "irfft"), dtypes=("float32", "float64"),
                                  sizes=(1, 8, 12, 64), seed=5)
     before = _spawned_workers()
@@ -211,8 +214,7 @@ def test_battery_rows_equal_the_in_process_checks():
         backend = load_backend(spec)
         for case in battery.build_cases(req, req.kinds):
             if backend.unsupported_reason(case) is None:
-                names = checks.applicable_checks(case)
-                want += [r.as_dict() for r in checks.check_case(backend, case, req.seed, names)]
+                want += [r.as_dict() for r in checks.check_case(backend, case, req.seed)]
     got = [r for r in rows if r not in skips]
     key = lambda r: (r["backend"], r["kind"], r["dtype"], r["n"], r["check"])  # noqa: E731
     assert sorted(got, key=key) == sorted(want, key=key)
@@ -246,3 +248,41 @@ def test_row_sink_raises_the_writers_error_on_close():
     sink.add([{"i": 2}])
     with pytest.raises(OSError, match="disk full"):
         sink.close()
+
+
+# -- one request, one row set, whichever path asks ----------------------------------------------
+
+def test_cli_and_python_api_build_the_same_request(monkeypatch):
+    """``fftgauge check`` and ``fftgauge.check()`` go through one request builder: the same
+    defaults (sizes, precisions, the pure-Python references' size limit) with and without sizes."""
+    import fftgauge
+    from fftgauge.harness.battery.request import DEFAULT_PURE_PYTHON_MAX_N
+    from fftgauge.harness.cli import build_parser
+    from fftgauge.harness.cli.check import request_from_args
+
+    seen = []
+    monkeypatch.setattr(battery, "run_battery", lambda req, **kw: seen.append(req) or {"rows": []})
+    parser = build_parser()
+    for argv, kwargs in ((["--backend", "direct"], {}), (["--backend", "direct", "--sizes", "1..8"], {"sizes": "1..8"}),
+                         (["--backend", "direct", "--dtypes", "float64", "--checks", "accuracy,shape"],
+                          {"dtypes": ["float64"], "checks": "accuracy,shape"})):
+        fftgauge.check(["direct"], **kwargs)
+        assert seen.pop() == request_from_args(parser.parse_args(["check", *argv]))
+    fftgauge.check(["direct"])
+    assert seen.pop().max_n_pure_python == DEFAULT_PURE_PYTHON_MAX_N
+    fftgauge.check(["direct"], sizes="@pow2")
+    assert seen.pop().max_n_pure_python is None
+
+
+@pytest.mark.timeout(300)
+def test_battery_and_check_case_give_the_same_rows_at_n_1():
+    """At n = 1 (where time-shift and modulation say nothing) the battery's worker rows and
+    the in-process check_case/pytest-fixture rows are the same set, skip rows included."""
+    req = battery.BatteryRequest(specs=("numpy",), kinds=("fft", "rfft"), dtypes=("float64",), sizes=(1,), seed=3)
+    rows = battery.run_battery(req, quiet=True)["rows"]
+    want = [r.as_dict() for kind in req.kinds
+            for r in checks.check_case(load_backend("numpy"), Case(kind, "float64", 1), req.seed)]
+    key = lambda r: (r["kind"], r["check"], r["status"], r["message"])  # noqa: E731
+    assert sorted(map(key, rows)) == sorted(map(key, want))
+    assert {(r["check"], r["status"]) for r in rows if r["check"] in ("time-shift", "modulation")} == {
+        ("time-shift", "skip"), ("modulation", "skip")}

@@ -1,4 +1,4 @@
-"""Tests of the correctness battery's checks (harness/checks.py).
+"""Tests of the correctness battery's checks (harness/battery/checks.py and the check modules it registers).
 
 Three kinds of test:
 
@@ -24,7 +24,7 @@ import pytest
 
 from fftgauge.harness.execution import jobs
 from fftgauge.backends.registry import load_backend
-from fftgauge.harness.battery import checks
+from fftgauge.harness.battery import context, exact_checks, value_checks
 from fftgauge.harness.cases import Case, norm_factor
 from fftgauge.harness.battery.checks import CHECKS, applicable_checks, check_case, run_case_checks
 from fftgauge.harness.errors import UsageError
@@ -66,7 +66,7 @@ def test_impulse_closed_form_matches_mpmath(kind, n, norm):
     case = Case(kind, "float64", n, norm)
     factor = norm_factor(n, norm, case.is_inverse)
     for m in range(case.input_length):
-        got = checks._impulse_response(case, m, np.dtype(np.complex128), factor)
+        got = value_checks.impulse_response(case, m, np.dtype(np.complex128), factor)
         if kind == "irfft":
             full = np.zeros(n, complex)
             full[m] = 1
@@ -112,15 +112,15 @@ def test_dft_properties_hold_in_mpmath():
 def test_exact_convolution_by_reference_equals_integer_sums():
     """Above DIRECT_CONVOLUTION_MAX_N the convolution check forms the exact circular
     convolution from reference transforms rounded to integers; it must equal the integer sums."""
-    n = checks.DIRECT_CONVOLUTION_MAX_N + 3
+    n = exact_checks.DIRECT_CONVOLUTION_MAX_N + 3
     backend = load_backend("numpy")
     for kind in ("fft", "irfft"):
         case = Case(kind, "float64", n)
-        ctx = checks.CheckContext(backend, case, backend.plan(case), seed=3)
-        x, y = checks._integer_input(ctx, "a"), checks._integer_input(ctx, "b")
-        got = checks._circular_convolution(ctx, x, y)
+        ctx = context.CheckContext(backend, case, backend.plan(case), seed=3)
+        x, y = exact_checks.integer_input(ctx, "a"), exact_checks.integer_input(ctx, "b")
+        got = exact_checks.circular_convolution(ctx, x, y)
         if kind == "irfft":
-            xf, yf = checks._hermitian_full(x.astype(complex), n), checks._hermitian_full(y.astype(complex), n)
+            xf, yf = context.hermitian_full(x.astype(complex), n), context.hermitian_full(y.astype(complex), n)
         else:
             xf, yf = x.astype(complex), y.astype(complex)
         a = np.rint(xf.real).astype(np.int64), np.rint(xf.imag).astype(np.int64)
@@ -301,11 +301,11 @@ def test_pair_setup_for_inverse_and_real_kinds():
 
     pair = pair_named("rect-dirichlet")
     n = 12
-    x, expected, mode = checks._pair_setup(Case("ifft", "float64", n), pair)
+    x, expected, mode = exact_checks.pair_setup(Case("ifft", "float64", n), pair)
     np.testing.assert_allclose(np.fft.ifft(x) * n, expected, atol=1e-12)
-    x, expected, mode = checks._pair_setup(Case("irfft", "float64", n), pair)
+    x, expected, mode = exact_checks.pair_setup(Case("irfft", "float64", n), pair)
     np.testing.assert_allclose(np.fft.irfft(x, n) * n, expected.real, atol=1e-12)
-    assert checks._pair_setup(Case("rfft", "float64", n), pair_named("complex-tone")) is None
+    assert exact_checks.pair_setup(Case("rfft", "float64", n), pair_named("complex-tone")) is None
 
 
 # -- errors, skips and odd outputs become rows ----------------------------------------------------

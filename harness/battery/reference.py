@@ -34,6 +34,10 @@ accurately than that precision. Three methods compute ``X``:
     A direct DFT in mpmath at 50 digits: ground truth for the ground truth, O(n^2), limited to
     ``n <= MPMATH_MAX_N``.
 
+The engines live apart: :mod:`~fftgauge.harness.battery.double_double` (the
+double-double arithmetic and FFT) and :mod:`~fftgauge.harness.battery.mpmath_engine` (the
+direct mpmath DFT and the conversions between mpmath numbers and double-double pairs).
+
 The result is a :class:`Reference`: the transform as a double-double pair of ``complex128``
 arrays, ``hi`` (the rounded value) and ``lo`` (the remainder). :meth:`Reference.error` forms
 ``y - (hi + lo)`` as ``(y - hi) - lo`` in the widest float available, so an error much smaller
@@ -45,12 +49,12 @@ Conventions are those of :mod:`fftgauge.backends.base` (numpy and the array API 
 from __future__ import annotations
 
 from dataclasses import dataclass
-from functools import lru_cache
 
-import mpmath
 import numpy as np
 
-from fftgauge.harness.cases import Case, is_power_of_two
+from fftgauge.harness.battery.double_double import double_double_transform
+from fftgauge.harness.battery.mpmath_engine import WIDE_COMPLEX, mpmath_transform
+from fftgauge.harness.cases import Case
 
 #: ``Reference.method`` of the scipy-on-``clongdouble`` method.
 METHOD_LONGDOUBLE = "scipy.fft clongdouble"
@@ -68,8 +72,6 @@ METHOD_CHOICES = ("auto", "scipy-double", "scipy-longdouble", "double-double", "
 
 #: Largest ``n`` the O(n^2) mpmath method accepts.
 MPMATH_MAX_N = 2048
-#: Decimal digits of the mpmath method.
-MPMATH_DIGITS = 50
 
 _LD_EPS = float(np.finfo(np.longdouble).eps)
 #: True where long double is wider than double by enough to serve as a float64 reference.
@@ -77,7 +79,6 @@ LONGDOUBLE_IS_EXTENDED = _LD_EPS < 1e-18
 #: True where long double carries more than double-double's ~106 bits (binary128, or a
 #: double-double long double): double-double is then no reference for ``longdouble`` cases.
 _LD_FINER_THAN_DD = _LD_EPS < 1e-30
-_WIDE_COMPLEX = np.dtype(np.clongdouble) if _LD_EPS < float(np.finfo(np.float64).eps) else np.dtype(np.complex128)
 
 
 @dataclass(frozen=True)
@@ -113,12 +114,12 @@ class Reference:
         y = np.asarray(y)
         if y.shape != self.hi.shape:
             raise ValueError(f"output shape {y.shape} does not match the reference shape {self.hi.shape}")
-        d = (y.astype(_WIDE_COMPLEX) - self.hi.astype(_WIDE_COMPLEX)) - self.lo.astype(_WIDE_COMPLEX)
+        d = (y.astype(WIDE_COMPLEX) - self.hi.astype(WIDE_COMPLEX)) - self.lo.astype(WIDE_COMPLEX)
         return d.astype(np.complex128)
 
     def values(self) -> np.ndarray:
         """Return ``hi + lo`` as ``clongdouble`` where long double is wider than double, else ``hi``."""
-        return self.hi.astype(_WIDE_COMPLEX) + self.lo.astype(_WIDE_COMPLEX)
+        return self.hi.astype(WIDE_COMPLEX) + self.lo.astype(WIDE_COMPLEX)
 
     def relative_error(self, y: np.ndarray) -> float:
         """Return the relative 2-norm error ``norm2(y - ref) / norm2(ref)`` (= relative rms error).
@@ -197,10 +198,10 @@ def reference_transform(x: np.ndarray, case: Case, method: str = "auto") -> Refe
         hi, lo = _via_longdouble(x, case)
         name = METHOD_LONGDOUBLE
     elif chosen == "mpmath":
-        hi, lo = _via_mpmath(x, case)
+        hi, lo = mpmath_transform(x, case)
         name = METHOD_MPMATH
     else:
-        hi, lo = _via_double_double(x, case)
+        hi, lo = double_double_transform(x, case)
         name = METHOD_DOUBLE_DOUBLE
     hi.setflags(write=False)  # a reference may be shared between checks and backends
     lo.setflags(write=False)
@@ -278,358 +279,3 @@ def _hermitian_half(z: np.ndarray, n: int) -> np.ndarray:
     if n % 2 == 0:
         z[n // 2] = z[n // 2].real
     return z
-
-
-# -- mpmath direct DFT ---------------------------------------------------------------------
-
-def _via_mpmath(x: np.ndarray, case: Case) -> tuple[np.ndarray, np.ndarray]:
-    """Return (hi, lo) of the transform as a direct DFT in mpmath at ``MPMATH_DIGITS`` digits."""
-    n = case.n
-    with mpmath.workdps(MPMATH_DIGITS):
-        vals = _to_mpc_list(x)
-        if case.kind == "irfft":
-            vals = _mp_hermitian_full(vals, n)
-        sign = 1 if case.is_inverse else -1
-        out = mp_dft(vals, sign)
-        if case.kind == "rfft":
-            out = out[: n // 2 + 1]
-        if case.kind == "irfft":
-            out = [mpmath.mpc(v.real, 0) for v in out]
-        factor = _mp_norm_factor(n, case.norm, case.is_inverse)
-        out = [v * factor for v in out]
-        return _mpc_list_to_hi_lo(out)
-
-
-def mp_dft(values: list, sign: int) -> list:
-    """Return the direct DFT ``X[k] = sum_n v[n] exp(sign 2j pi k n / N)`` of mpmath numbers.
-
-    Works at the current mpmath precision; the roots of unity come from ``mpmath.cospi`` /
-    ``mpmath.sinpi`` of the exact ratio ``2 (k n mod N) / N``, so no angle is ever large.
-    """
-    n = len(values)
-    roots = [mpmath.mpc(mpmath.cospi(mpmath.mpf(2 * m) / n), sign * mpmath.sinpi(mpmath.mpf(2 * m) / n))
-             for m in range(n)]
-    return [mpmath.fsum(values[j] * roots[(k * j) % n] for j in range(n)) for k in range(n)]
-
-
-def _mp_norm_factor(n: int, norm: str, inverse: bool):
-    """Return :func:`fftgauge.harness.cases.norm_factor` exactly, as an mpmath number (its exact twin;
-    the tests check that the two agree)."""
-    if norm == "ortho":
-        return 1 / mpmath.sqrt(n)
-    if (norm == "backward") == inverse:
-        return mpmath.mpf(1) / n
-    return mpmath.mpf(1)
-
-
-def _to_mpc_list(x: np.ndarray) -> list:
-    """Return the entries of ``x`` as exact mpmath complex numbers (long double included)."""
-    xc = x.astype(_WIDE_COMPLEX) if np.iscomplexobj(x) or x.dtype == np.longdouble else x.astype(np.complex128)
-    re_hi, re_lo = _split_wide(np.real(xc))
-    im_hi, im_lo = _split_wide(np.imag(xc))
-    return [mpmath.mpc(mpmath.mpf(float(a)) + mpmath.mpf(float(b)), mpmath.mpf(float(c)) + mpmath.mpf(float(d)))
-            for a, b, c, d in zip(re_hi, re_lo, im_hi, im_lo)]
-
-
-def _split_wide(v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Return float64 (hi, lo) with ``hi + lo == v`` exactly for a float64 or long double array."""
-    hi = v.astype(np.float64)
-    lo = (v - hi).astype(np.float64) if v.dtype != np.float64 else np.zeros_like(hi)
-    return hi, lo
-
-
-def _mp_hermitian_full(half: list, n: int) -> list:
-    """Return the length-n Hermitian spectrum that a half spectrum stands for (ignored parts dropped)."""
-    full = [mpmath.mpc(0)] * n
-    full[0] = mpmath.mpc(half[0].real, 0)
-    for k in range(1, (n + 1) // 2):
-        full[k] = half[k]
-        full[n - k] = mpmath.conj(half[k])
-    if n % 2 == 0:
-        full[n // 2] = mpmath.mpc(half[n // 2].real, 0)
-    return full
-
-
-def _mpc_list_to_hi_lo(values: list) -> tuple[np.ndarray, np.ndarray]:
-    """Return complex128 (hi, lo) arrays whose sum is each mpmath complex value to ~2^-106."""
-    re = [_mpf_to_dd(v.real) for v in values]
-    im = [_mpf_to_dd(v.imag) for v in values]
-    hi = np.array([a for a, _ in re], dtype=np.float64) + 1j * np.array([a for a, _ in im], dtype=np.float64)
-    lo = np.array([b for _, b in re], dtype=np.float64) + 1j * np.array([b for _, b in im], dtype=np.float64)
-    return hi.astype(np.complex128), lo.astype(np.complex128)
-
-
-def _mpf_to_dd(v) -> tuple[float, float]:
-    """Return (hi, lo): ``hi`` the nearest double to ``v``, ``lo`` the nearest double to ``v - hi``."""
-    hi = float(v)
-    return hi, float(v - hi)
-
-
-# -- double-double arithmetic --------------------------------------------------------------
-# Values are pairs (hi, lo) of float64 arrays with |lo| <= ulp(hi)/2. TwoSum (Knuth) and
-# TwoProduct with Dekker's splitting are error-free transformations; the double-double sum
-# and product built on them have relative error of a few units of 2^-106 (the sum's bound
-# is relative to |a| + |b|, which is what a normwise FFT error analysis needs).
-
-_SPLITTER = 134217729.0  # 2**27 + 1, Dekker's splitting constant for binary64
-
-
-def _two_sum(a, b):
-    s = a + b
-    bb = s - a
-    return s, (a - (s - bb)) + (b - bb)
-
-
-def _quick_two_sum(a, b):
-    s = a + b
-    return s, b - (s - a)
-
-
-def _split(a):
-    t = _SPLITTER * a
-    hi = t - (t - a)
-    return hi, a - hi
-
-
-def _two_prod(a, b):
-    p = a * b
-    ah, al = _split(a)
-    bh, bl = _split(b)
-    return p, ((ah * bh - p) + ah * bl + al * bh) + al * bl
-
-
-def _dd_add(ah, al, bh, bl):
-    s, e = _two_sum(ah, bh)
-    return _quick_two_sum(s, e + (al + bl))
-
-
-def _dd_mul(ah, al, bh, bl):
-    p, e = _two_prod(ah, bh)
-    return _quick_two_sum(p, e + (ah * bl + al * bh))
-
-
-def _dd_mul_presplit(ah, a_split, al, bh, b_split, bl):
-    """:func:`_dd_mul` with the Dekker splits of ``ah`` and ``bh`` given."""
-    (a1, a2), (b1, b2) = a_split, b_split
-    p = ah * bh
-    e = ((a1 * b1 - p) + a1 * b2 + a2 * b1) + a2 * b2
-    return _quick_two_sum(p, e + (ah * bl + al * bh))
-
-
-class _DD:
-    """A complex double-double array: real part ``rh + rl``, imaginary part ``ih + il``."""
-
-    __slots__ = ("rh", "rl", "ih", "il")
-
-    def __init__(self, rh, rl, ih, il):
-        self.rh, self.rl, self.ih, self.il = rh, rl, ih, il
-
-    @classmethod
-    def from_array(cls, x: np.ndarray) -> "_DD":
-        """Return the exact double-double form of a real or complex (long double included) array."""
-        rh, rl = _split_wide(np.ascontiguousarray(np.real(x)))
-        if np.iscomplexobj(x):
-            ih, il = _split_wide(np.ascontiguousarray(np.imag(x)))
-        else:
-            ih, il = np.zeros_like(rh), np.zeros_like(rh)
-        return cls(rh, rl, ih, il)
-
-    def conj(self) -> "_DD":
-        return _DD(self.rh, self.rl, -self.ih, -self.il)
-
-    def __getitem__(self, idx) -> "_DD":
-        return _DD(self.rh[idx], self.rl[idx], self.ih[idx], self.il[idx])
-
-    def __setitem__(self, idx, v: "_DD") -> None:
-        self.rh[idx], self.rl[idx], self.ih[idx], self.il[idx] = v.rh, v.rl, v.ih, v.il
-
-    def add(self, o: "_DD") -> "_DD":
-        rh, rl = _dd_add(self.rh, self.rl, o.rh, o.rl)
-        ih, il = _dd_add(self.ih, self.il, o.ih, o.il)
-        return _DD(rh, rl, ih, il)
-
-    def sub(self, o: "_DD") -> "_DD":
-        rh, rl = _dd_add(self.rh, self.rl, -o.rh, -o.rl)
-        ih, il = _dd_add(self.ih, self.il, -o.ih, -o.il)
-        return _DD(rh, rl, ih, il)
-
-    def mul(self, o: "_DD") -> "_DD":
-        """Complex product, schoolbook: four double-double products and two sums.
-
-        Each leading part is split (Dekker) once and used in two products.
-        """
-        sr, si, orr, oi = _split(self.rh), _split(self.ih), _split(o.rh), _split(o.ih)
-        a, b = _dd_mul_presplit(self.rh, sr, self.rl, o.rh, orr, o.rl)
-        c, d = _dd_mul_presplit(self.ih, si, self.il, o.ih, oi, o.il)
-        rh, rl = _dd_add(a, b, -c, -d)
-        a, b = _dd_mul_presplit(self.rh, sr, self.rl, o.ih, oi, o.il)
-        c, d = _dd_mul_presplit(self.ih, si, self.il, o.rh, orr, o.rl)
-        ih, il = _dd_add(a, b, c, d)
-        return _DD(rh, rl, ih, il)
-
-    def scale(self, fh: float, fl: float) -> "_DD":
-        """Product with the real double-double scalar ``fh + fl``."""
-        rh, rl = _dd_mul(self.rh, self.rl, fh, fl)
-        ih, il = _dd_mul(self.ih, self.il, fh, fl)
-        return _DD(rh, rl, ih, il)
-
-    def hi_lo(self) -> tuple[np.ndarray, np.ndarray]:
-        """Return complex128 (hi, lo), renormalised so that ``hi`` is the rounded value."""
-        rh, rl = _quick_two_sum(self.rh, self.rl)
-        ih, il = _quick_two_sum(self.ih, self.il)
-        return (rh + 1j * ih).astype(np.complex128), (rl + 1j * il).astype(np.complex128)
-
-
-def _zeros_dd(n: int) -> _DD:
-    return _DD(*(np.zeros(n) for _ in range(4)))
-
-
-@lru_cache(maxsize=64)
-def _root_tables(m: int) -> tuple[int, _DD, _DD]:
-    """Return (B, T0, T1): ``T0[j] = exp(-2j pi j / m)`` for j < B, ``T1[i] = exp(-2j pi i B / m)``.
-
-    Entries are computed by mpmath at 40 digits and rounded to double-double.
-    """
-    b = 1 << max(0, (int(m - 1).bit_length() + 1) // 2)
-    count1 = -(-m // b)
-    with mpmath.workdps(40):
-        def table(step: int, count: int) -> _DD:
-            re = [_mpf_to_dd(mpmath.cospi(mpmath.mpf(2 * step * j) / m)) for j in range(count)]
-            im = [_mpf_to_dd(-mpmath.sinpi(mpmath.mpf(2 * step * j) / m)) for j in range(count)]
-            return _DD(np.array([a for a, _ in re]), np.array([c for _, c in re]),
-                       np.array([a for a, _ in im]), np.array([c for _, c in im]))
-        return b, table(1, b), table(b, count1)
-
-
-def _dd_roots(k: np.ndarray, m: int) -> _DD:
-    """Return ``exp(-2j pi k / m)`` in double-double for integers ``0 <= k < m``.
-
-    Each value is the product of two accurately tabulated roots (``k = k1 B + k0``), so its
-    error is a few units of 2^-106 for every ``k``: no recurrence (Schatzman 1996).
-    """
-    b, t0, t1 = _root_tables(m)
-    return t1[k // b].mul(t0[k % b])
-
-
-@lru_cache(maxsize=4)
-def _twiddle_table(n: int) -> _DD:
-    """Return ``exp(-2j pi k / n)``, k < n/2, in double-double (cached: the FFT only reads it)."""
-    return _dd_roots(np.arange(n // 2), n)
-
-
-@lru_cache(maxsize=8)
-def _bit_reversal(n: int) -> np.ndarray:
-    bits = n.bit_length() - 1
-    idx = np.arange(n)
-    rev = np.zeros(n, dtype=np.int64)
-    for _ in range(bits):
-        rev = (rev << 1) | (idx & 1)
-        idx >>= 1
-    return rev
-
-
-#: Elements per chunk of the double-double FFT: small enough that a chunk's temporaries stay
-#: in cache (the FFT runs about three times faster at 2^20 than stage-by-stage on whole arrays).
-_CHUNK = 1 << 13
-
-
-def _butterflies(a: _DD, b: _DD, w: _DD | None) -> tuple[_DD, _DD]:
-    """Return the radix-2 butterfly ``(a + w b, a - w b)`` (``w = None`` for a unit twiddle)."""
-    t = b if w is None else b.mul(w)
-    return a.add(t), a.sub(t)
-
-
-def _dd_fft_pow2(z: _DD) -> _DD:
-    """Return the forward DFT (exponent sign -1) of ``z``, length a power of two.
-
-    Iterative radix-2 decimation in time after a bit-reversal permutation. The stages whose
-    butterflies lie within a chunk of ``_CHUNK`` elements run chunk by chunk; the later
-    stages run over chunks of their butterfly columns. Every stage's twiddles are taken from
-    one table of accurately computed roots (:func:`_dd_roots`).
-    """
-    n = z.rh.shape[0]
-    if n == 1:
-        return _DD(z.rh.copy(), z.rl.copy(), z.ih.copy(), z.il.copy())
-    z = z[_bit_reversal(n)]
-    table = _twiddle_table(n)
-    chunk = min(n, _CHUNK)
-    small = []
-    h = 1
-    while 2 * h <= chunk:
-        small.append((h, None if h == 1 else table[:: n // (2 * h)]))
-        h *= 2
-    for c0 in range(0, n, chunk):
-        part = z[c0:c0 + chunk]
-        for h, w in small:
-            shape = (chunk // (2 * h), 2, h)
-            v = _DD(part.rh.reshape(shape), part.rl.reshape(shape), part.ih.reshape(shape), part.il.reshape(shape))
-            v[:, 0, :], v[:, 1, :] = _butterflies(v[:, 0, :], v[:, 1, :], w)
-    h = chunk
-    while h < n:
-        w_all = table[:: n // (2 * h)]
-        shape = (n // (2 * h), 2, h)
-        v = _DD(z.rh.reshape(shape), z.rl.reshape(shape), z.ih.reshape(shape), z.il.reshape(shape))
-        step = chunk // 2
-        for blk in range(shape[0]):
-            for j0 in range(0, h, step):
-                cols = slice(j0, j0 + step)
-                v[blk, 0, cols], v[blk, 1, cols] = _butterflies(v[blk, 0, cols], v[blk, 1, cols], w_all[cols])
-        h *= 2
-    return z
-
-
-def _dd_fft(z: _DD) -> _DD:
-    """Return the forward DFT of ``z`` of any length: radix-2 for powers of two, else Bluestein."""
-    n = z.rh.shape[0]
-    if is_power_of_two(n):
-        return _dd_fft_pow2(z)
-    # Bluestein: k n = (n^2 + k^2 - (k - n)^2) / 2, so X = c * ((x c) (*) conj(c)), c[n] = exp(-j pi n^2 / N).
-    idx = np.arange(n, dtype=np.int64)
-    chirp = _dd_roots((idx * idx) % (2 * n), 2 * n)
-    m = 1 << int(2 * n - 2).bit_length()
-    a = _zeros_dd(m)
-    a[:n] = z.mul(chirp)
-    b = _zeros_dd(m)
-    cc = chirp.conj()
-    b[:n] = cc
-    b[m - n + 1:] = cc[1:][::-1]
-    conv = _dd_fft_pow2(_dd_fft_pow2(a).mul(_dd_fft_pow2(b)).conj()).conj().scale(1.0 / m, 0.0)
-    return conv[:n].mul(chirp)
-
-
-def _dd_norm_factor(n: int, norm: str, inverse: bool) -> tuple[float, float]:
-    with mpmath.workdps(40):
-        return _mpf_to_dd(_mp_norm_factor(n, norm, inverse))
-
-
-def _via_double_double(x: np.ndarray, case: Case) -> tuple[np.ndarray, np.ndarray]:
-    """Return (hi, lo) of the transform computed in double-double arithmetic."""
-    n = case.n
-    z = _DD.from_array(x)
-    if case.kind == "irfft":
-        z = _dd_hermitian_full(z, n)
-    if case.is_inverse:
-        out = _dd_fft(z.conj()).conj()
-    else:
-        out = _dd_fft(z)
-    if case.kind == "rfft":
-        out = out[: n // 2 + 1]
-    if case.kind == "irfft":
-        out = _DD(out.rh, out.rl, np.zeros(n), np.zeros(n))
-    fh, fl = _dd_norm_factor(n, case.norm, case.is_inverse)
-    if (fh, fl) != (1.0, 0.0):
-        out = out.scale(fh, fl)
-    return out.hi_lo()
-
-
-def _dd_hermitian_full(half: _DD, n: int) -> _DD:
-    """Return the length-n Hermitian spectrum of a half spectrum (ignored imaginary parts dropped)."""
-    full = _zeros_dd(n)
-    full[: n // 2 + 1] = half
-    full.ih[0] = full.il[0] = 0.0
-    if n % 2 == 0:
-        full.ih[n // 2] = full.il[n // 2] = 0.0
-    k = np.arange(1, (n + 1) // 2)
-    full[n - k] = half[k].conj()
-    return full
-

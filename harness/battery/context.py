@@ -1,0 +1,355 @@
+"""The check context: what every check of one case shares (the backend, the plan, the seed,
+the ground truth, the accuracy limit), and the small measures the checks compare with.
+
+:class:`CheckContext` draws the inputs (the same for every backend), runs the backend
+(turning what it raises into :class:`~fftgauge.harness.errors.BackendFailure` and what it
+returns into a checked array), plans the companion inverse once, makes rows and diagnoses
+failures. The checks themselves live in :mod:`~fftgauge.harness.battery.value_checks`,
+:mod:`~fftgauge.harness.battery.exact_checks` and :mod:`~fftgauge.harness.battery.behaviour_checks`.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any, Callable
+
+import numpy as np
+
+from fftgauge.backends.base import Backend, Capabilities, Plan
+from fftgauge.harness.battery import bounds
+from fftgauge.harness.battery import inputs
+from fftgauge.harness.battery.diagnosis import diagnose
+from fftgauge.harness.battery.reference import reference_transform
+from fftgauge.harness.cases import Case, norm_factor
+from fftgauge.harness.errors import BackendFailure
+from fftgauge.harness.rows import CheckRow
+
+#: Unit roundoffs (of the case's precision) added to every tolerance for forming the
+#: combinations a check compares and rounding its new inputs to the case's precision.
+ROUNDING_UNITS = 8
+
+#: The inverse of each kind (the round trip and convolution pair them).
+COMPANION_KIND = {"fft": "ifft", "ifft": "fft", "rfft": "irfft", "irfft": "rfft"}
+#: sqrt(2): the growth of a half spectrum's error norm when it is extended to a full one.
+SQRT2 = float(np.sqrt(2.0))
+
+
+class OutputProblem(Exception):
+    """An output a value check cannot compare (wrong shape, not numbers); carries a diagnosis code."""
+
+    def __init__(self, code: str, message: str):
+        super().__init__(message)
+        self.code = code
+        self.message = message
+
+
+def one_line(text: Any) -> str:
+    """Return ``str(text)`` with every run of whitespace made one space (a message fits one line)."""
+    return " ".join(str(text).split())
+
+
+def norm2(v: np.ndarray) -> float:
+    """Return the 2-norm of ``v`` as a float, computed in ``v``'s own precision."""
+    v = np.asarray(v)
+    if v.size == 0:
+        return 0.0
+    return float(np.sqrt(np.sum(np.real(v) ** 2 + np.imag(v) ** 2)))
+
+
+def ratio(num: float, den: float) -> float:
+    """Return ``num / den``; 0 for 0/0 and ``inf`` for a non-zero over 0."""
+    if den == 0.0:
+        return 0.0 if num == 0.0 else float("inf")
+    return num / den
+
+
+def finite_or_none(v: float | None) -> float | None:
+    """Return ``v`` when it is a finite number, else None (rows keep no NaN/Inf values)."""
+    return v if v is None or np.isfinite(v) else None
+
+
+def fmt_eps(value: float, dtype: str) -> str:
+    """Return ``value`` in eps units of ``dtype`` as text (``"0.95 eps"``), or ``"not finite"``."""
+    return f"{bounds.eps_units(value, dtype):.3g} eps" if np.isfinite(value) else "not finite"
+
+
+def hermitian_full(half: np.ndarray, n: int) -> np.ndarray:
+    """Return the length-n Hermitian spectrum whose first n//2 + 1 values are ``half``
+    (imaginary parts of DC and, for even n, Nyquist dropped, as irfft does)."""
+    full = np.zeros(n, dtype=half.dtype)
+    full[: n // 2 + 1] = half[: n // 2 + 1]
+    full[0] = full[0].real
+    if n % 2 == 0:
+        full[n // 2] = full[n // 2].real
+    k = np.arange(1, (n + 1) // 2)
+    full[n - k] = np.conj(half[k])
+    return full
+
+
+def clean_half(x: np.ndarray, n: int) -> np.ndarray:
+    """Return a half spectrum with the imaginary parts irfft ignores set to zero (a copy)."""
+    x = np.array(x, copy=True)
+    x[0] = x[0].real
+    if n % 2 == 0:
+        x[n // 2] = x[n // 2].real
+    return x
+
+
+@dataclass
+class CheckContext:
+    """Everything a check needs for one case of one backend.
+
+    Attributes
+    ----------
+    backend : the adapter.
+    case : the transform under test.
+    plan : ``backend.plan(case)``, planned once and shared by the checks.
+    seed : the run's seed; every input is drawn from :func:`fftgauge.harness.battery.inputs.case_rng`
+        (seed, case, purpose), so all backends see the same inputs.
+    reference_fn : ``reference_fn(x, case) -> Reference`` (the ground truth).
+    limit : the relative 2-norm error limit of one transform (``accuracy_limit(case)``).
+    """
+
+    backend: Backend
+    case: Case
+    plan: Plan
+    seed: int
+    reference_fn: Callable[[np.ndarray, Case], Any] = reference_transform
+    limit: float | None = None
+    _companions: dict = field(default_factory=dict, repr=False)
+    _diagnosis: tuple[str, str] | None = field(default=None, repr=False)
+
+    def __post_init__(self) -> None:
+        if self.limit is None:
+            self.limit = bounds.accuracy_limit(self.case)
+
+    # -- what the case is --------------------------------------------------------------------
+    @property
+    def label(self) -> str:
+        """The backend's label as rows show it."""
+        return self.backend.label
+
+    @property
+    def capabilities(self) -> Capabilities:
+        """The backend's claims."""
+        return self.backend.capabilities()
+
+    @property
+    def unit_roundoff(self) -> float:
+        """u of the case's precision."""
+        return bounds.unit_roundoff(self.case.dtype)
+
+    @property
+    def rounding(self) -> float:
+        """The rounding allowance every tolerance carries: ``ROUNDING_UNITS`` u."""
+        return ROUNDING_UNITS * self.unit_roundoff
+
+    @property
+    def work_dtype(self) -> np.dtype:
+        """The complex dtype comparisons are made in: complex128, or clongdouble for long double cases."""
+        return np.dtype(np.clongdouble if self.case.dtype == "longdouble" else np.complex128)
+
+    @property
+    def scale(self) -> Any:
+        """The case's normalisation factor, in the work precision."""
+        return wide_norm_factor(self.case, self.work_dtype)
+
+    # -- inputs ----------------------------------------------------------------------------------
+    def rng(self, purpose: str) -> np.random.Generator:
+        """Return the generator for ``purpose`` (backend independent)."""
+        return inputs.case_rng(self.seed, self.case, purpose)
+
+    def random_input(self, purpose: str, distribution: str = "gaussian", case: Case | None = None) -> np.ndarray:
+        """Return a random input of ``case`` (default: this case) drawn for ``purpose``."""
+        case = case or self.case
+        x = inputs.random_input(case, inputs.case_rng(self.seed, case, purpose), distribution)
+        return clean_half(x, case.n) if case.kind == "irfft" else x
+
+    def as_input(self, values: np.ndarray, case: Case | None = None) -> np.ndarray:
+        """Return ``values`` rounded to the input dtype of ``case`` (real part only for a real input)."""
+        case = case or self.case
+        values = np.asarray(values)
+        if case.input_dtype.kind == "f":
+            values = np.real(values)
+        x = np.ascontiguousarray(values.astype(case.input_dtype))
+        return clean_half(x, case.n) if case.kind == "irfft" else x
+
+    # -- running the backend ---------------------------------------------------------------
+    def run(self, x: np.ndarray, plan: Plan | None = None, copy_input: bool = True) -> np.ndarray:
+        """Return a copy of ``plan.execute(x)`` as an ndarray (plans may reuse output buffers).
+
+        ``copy_input`` True passes a copy of ``x``, so a backend that writes to its input
+        cannot spoil the check's own arrays.
+
+        Raises
+        ------
+        BackendFailure
+            When the backend raises.
+        OutputProblem
+            When it returns something that is not an array of numbers.
+        """
+        plan = plan or self.plan
+        arg = np.array(x, copy=True) if copy_input else x
+        try:
+            with np.errstate(all="ignore"):
+                out = plan.execute(arg)
+        except Exception as exc:  # noqa: BLE001 - any exception of the backend is an error row
+            raise BackendFailure(f"the backend raised {type(exc).__name__}: {one_line(exc)}") from None
+        return copy_output(out)
+
+    def output(self, y: np.ndarray, case: Case | None = None) -> np.ndarray:
+        """Return ``y`` as a work-precision complex array after checking its shape and kind.
+
+        Raises
+        ------
+        OutputProblem
+            ``shape`` for a wrong shape, ``dtype`` for an output that is not floating-point.
+        """
+        case = case or self.case
+        if y.dtype.kind not in "fc":
+            raise OutputProblem("dtype", f"output has dtype {y.dtype}, not a floating-point or complex type")
+        if y.shape != (case.output_length,):
+            raise OutputProblem("shape", f"output has shape {y.shape} where ({case.output_length},) is due")
+        return y.astype(self.work_dtype)
+
+    def transform(self, x: np.ndarray, plan: Plan | None = None, case: Case | None = None) -> np.ndarray:
+        """Return the checked output of ``x`` (see :meth:`run` and :meth:`output`)."""
+        return self.output(self.run(x, plan), case)
+
+    def companion(self) -> tuple[Plan | None, Case, str | None]:
+        """Return ``(plan, case, None)`` for the inverse kind of this case, or ``(None, case, reason)``.
+
+        Raises
+        ------
+        BackendFailure
+            When planning the companion raises.
+        """
+        case = Case(COMPANION_KIND[self.case.kind], self.case.dtype, self.case.n, self.case.norm)
+        if case not in self._companions:
+            reason = self.backend.unsupported_reason(case)
+            if reason is not None:
+                self._companions[case] = (None, reason)
+            else:
+                try:
+                    self._companions[case] = (self.backend.plan(case), None)
+                except Exception as exc:  # noqa: BLE001
+                    raise BackendFailure(f"planning {case.kind} raised {type(exc).__name__}: "
+                                         f"{one_line(exc)}") from None
+        plan, reason = self._companions[case]
+        return plan, case, reason
+
+    def close(self) -> None:
+        """Close the companion plans this context made (the main plan is the caller's)."""
+        for plan, _ in self._companions.values():
+            if plan is not None:
+                try:
+                    plan.close()
+                except Exception:  # noqa: BLE001 - closing must not raise into the battery
+                    pass
+        self._companions.clear()
+
+    # -- verdicts ----------------------------------------------------------------------------------
+    def row(self, check: str, status: str, value: float | None = None, limit: float | None = None,
+            diagnosis: str | None = None, message: str = "", eps: bool = True,
+            reference: str | None = None) -> CheckRow:
+        """Return one row of this case; ``eps_units`` from ``value`` when ``eps`` is True."""
+        value = finite_or_none(value)
+        eps_units = bounds.eps_units(value, self.case.dtype) if (eps and value is not None) else None
+        return CheckRow(backend=self.label, kind=self.case.kind, dtype=self.case.dtype, n=self.case.n,
+                        check=check, status=status, value=value, limit=limit, eps_units=eps_units,
+                        diagnosis=diagnosis if status == "fail" else None, message=message,
+                        norm=self.case.norm, reference=reference)
+
+    def diagnose(self, x: np.ndarray, y: np.ndarray) -> tuple[str, str]:
+        """Return ``diagnose(case, x, y)``; a diagnosis that itself fails gives ``unknown``."""
+        try:
+            return diagnose(self.case, x, y, self.reference_fn, self.limit)
+        except Exception as exc:  # noqa: BLE001
+            return "unknown", f"no diagnosis ({type(exc).__name__}: {one_line(exc)})"
+
+    def random_diagnosis(self) -> tuple[str, str] | None:
+        """Return the diagnosis of the backend's output for a random Gaussian input, or None
+        when that output is within the accuracy limit (computed once per context)."""
+        if self._diagnosis is None:
+            xr = self.random_input("diagnosis")
+            try:
+                yr = self.run(xr)
+            except (BackendFailure, OutputProblem) as exc:
+                self._diagnosis = ("unknown", f"the backend gives no usable output for a random input ({exc})")
+            else:
+                try:
+                    err = self.reference_fn(xr, self.case).relative_error(yr)
+                except ValueError:  # wrong shape
+                    err = float("inf")
+                self._diagnosis = ("", "") if np.isfinite(err) and err <= self.limit else self.diagnose(xr, yr)
+        return self._diagnosis if self._diagnosis[0] else None
+
+    def diagnose_failure(self, x: np.ndarray | None = None, y: np.ndarray | None = None) -> tuple[str, str]:
+        """Return the diagnosis of a failed value check.
+
+        The hypotheses are told apart best on a generic input (on an impulse, say, a shift of
+        the output and a constant phase factor look the same), so the backend's output for a
+        random Gaussian input is diagnosed first; only when that output is accurate is the
+        check's own ``(x, y)`` diagnosed, and the message says the failure is specific to it.
+        """
+        found = self.random_diagnosis()
+        if found is not None:
+            return found
+        if x is None:
+            return "unknown", "a random input is transformed accurately"
+        code, why = self.diagnose(x, y)
+        return code, f"a random input is transformed accurately, so this is specific to the check's input: {why}"
+
+    def verdict(self, check: str, value: float, limit: float, message: str, x: np.ndarray | None = None,
+                y: np.ndarray | None = None, reference: str | None = None) -> CheckRow:
+        """Return a pass row when ``value <= limit``, else a fail row diagnosed from ``(x, y)``."""
+        if np.isfinite(value) and value <= limit:
+            return self.row(check, "pass", value, limit, message=message, reference=reference)
+        code, why = self.diagnose_failure(x, y)
+        return self.row(check, "fail", value, limit, diagnosis=code,
+                        message=f"{message}; {why}" if why else message, reference=reference)
+
+
+def copy_output(out: Any) -> np.ndarray:
+    """Return a copy of a backend's output as an ndarray.
+
+    Raises
+    ------
+    OutputProblem
+        ``dtype`` for None, something numpy cannot make an array of, or an array of Python objects.
+    """
+    if out is None:
+        raise OutputProblem("dtype", "the backend returned None, not an array")
+    try:
+        y = np.array(out, copy=True)
+    except Exception:  # noqa: BLE001
+        raise OutputProblem("dtype", f"the backend returned a {type(out).__name__}, not an array") from None
+    if y.dtype == object:
+        raise OutputProblem("dtype", f"the backend returned a {type(out).__name__} of Python objects, not numbers")
+    return y
+
+
+def wide_norm_factor(case: Case, work_dtype: np.dtype) -> Any:
+    """Return :func:`fftgauge.harness.cases.norm_factor` in the work precision (long double for long double cases)."""
+    if work_dtype != np.dtype(np.clongdouble):
+        return norm_factor(case.n, case.norm, case.is_inverse)
+    n = np.longdouble(case.n)
+    if case.norm == "ortho":
+        return np.longdouble(1) / np.sqrt(n)
+    if (case.norm == "backward") == case.is_inverse:
+        return np.longdouble(1) / n
+    return np.longdouble(1)
+
+
+def phases(m: np.ndarray, n: int, work_dtype: np.dtype) -> np.ndarray:
+    """Return ``exp(2j pi m / n)`` for integers ``m`` in the work precision (``m`` reduced mod n first)."""
+    m = np.mod(np.asarray(m, dtype=np.int64), n)
+    if work_dtype != np.dtype(np.clongdouble):
+        return inputs.root_of_unity(m, n)
+    angle = (np.arctan(np.longdouble(1)) * 8) * (m.astype(np.longdouble) / np.longdouble(n))
+    return (np.cos(angle) + 1j * np.sin(angle)).astype(np.clongdouble)
+
+
+def relative(diff: np.ndarray, scale: float) -> float:
+    """Return ``norm2(diff) / scale`` (see :func:`ratio` for a zero scale)."""
+    return ratio(norm2(diff), scale)
