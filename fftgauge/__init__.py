@@ -46,48 +46,36 @@ _map_source_folders()
 from typing import Sequence  # noqa: E402
 
 from fftgauge.backends.registry import list_backends, load_backend  # noqa: E402
-from fftgauge.harness.cases import DTYPES, KINDS, NORMS, Case
+from fftgauge.harness.cases import Case  # noqa: E402
 
 __all__ = ["__version__", "Case", "check", "list_backends", "load_backend"]
 
 
-def _as_tuple(value: str | Sequence[str] | None, allowed: Sequence[str], what: str) -> tuple[str, ...] | None:
-    from fftgauge.harness.cli import parse_choice_list
-
-    if value is None or isinstance(value, str):
-        return parse_choice_list(value, allowed, what)
-    return parse_choice_list(",".join(value), allowed, what)
-
-
-def check(backends: Sequence[str] | None = None, sizes: str = "@default", kinds=None,
-          dtypes=("float32", "float64"), norms=("backward",), checks=None, seed: int = 1234,
-          json_path: str | None = None, timeout_seconds: float = 120.0, threads: int | None = None):
+def check(backends: Sequence[str] | None = None, sizes: str | None = None, kinds=None, dtypes=None,
+          norms=None, checks=None, seed: int = 1234, json_path: str | None = None,
+          timeout_seconds: float | None = None, threads: int | None = None,
+          pure_python_max_n: int | None = None):
     """Run the correctness battery and return its rows as a pandas DataFrame.
 
-    Parameters mirror ``fftgauge check``: ``backends`` are SPEC strings (default: every
-    available built-in), ``sizes`` uses the ``--sizes`` grammar, ``kinds``/``dtypes``/
-    ``norms``/``checks`` are lists (or comma strings). The full document (envelope and
-    rows) is written to ``json_path`` when given.
+    Parameters mirror ``fftgauge check`` and are validated by the same request builder
+    (:func:`fftgauge.harness.battery.request.build_request`), with the same defaults:
+    ``backends`` are SPEC strings (default: every available built-in), ``sizes`` uses the
+    ``--sizes`` grammar (default ``@default``), ``kinds``/``dtypes``/``norms``/``checks`` are
+    lists or comma strings. The full document (envelope and rows) is written to ``json_path``
+    when given.
 
     Raises
     ------
     fftgauge.harness.errors.UsageError
         For an unknown backend, a malformed size list or an unknown kind/dtype/check.
     """
-    from fftgauge.backends.registry import default_specs
-    from fftgauge.harness.battery.run import BatteryRequest, run_battery
+    from fftgauge.harness.battery.request import DEFAULT_CASE_TIMEOUT_SECONDS, build_request
+    from fftgauge.harness.battery.run import run_battery
     from fftgauge.harness.report.check_tables import rows_frame
-    from fftgauge.harness.battery.checks import CHECKS
-    from fftgauge.harness.sizes import parse_sizes
 
-    req = BatteryRequest(
-        specs=tuple(backends) if backends else tuple(default_specs()),
-        kinds=_as_tuple(kinds, KINDS, "kind"),
-        dtypes=_as_tuple(dtypes, DTYPES, "dtype") or ("float32", "float64"),
-        sizes=tuple(parse_sizes(sizes)),
-        norms=_as_tuple(norms, NORMS, "norm") or ("backward",),
-        checks=_as_tuple(checks, tuple(CHECKS), "check"),
-        seed=seed, threads=threads, timeout_seconds=timeout_seconds,
-    )
+    req = build_request(backends=backends, sizes=sizes, kinds=kinds, dtypes=dtypes, norms=norms, checks=checks,
+                        seed=seed, threads=threads,
+                        timeout_seconds=DEFAULT_CASE_TIMEOUT_SECONDS if timeout_seconds is None else timeout_seconds,
+                        pure_python_max_n=pure_python_max_n)
     doc = run_battery(req, json_path=json_path, quiet=True)
     return rows_frame(doc["rows"])

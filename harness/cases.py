@@ -9,8 +9,11 @@ numpy). The helpers here say what arrays go in and come out of such a transform.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Sequence
 
 import numpy as np
+
+from fftgauge.harness.errors import UsageError
 
 KINDS = ("fft", "ifft", "rfft", "irfft")
 DTYPES = ("float32", "float64", "longdouble")
@@ -105,3 +108,26 @@ def norm_factor(n: int, norm: str, inverse: bool) -> float:
     if (norm == "backward") == inverse:
         return 1.0 / n
     return 1.0
+
+
+def parse_choice_list(text: str | None, allowed: Sequence[str], what: str) -> tuple[str, ...] | None:
+    """Return the comma list ``text`` as a tuple, each item checked against ``allowed``.
+
+    ``None`` stays ``None`` (the caller's default applies); ``all`` means every allowed item.
+
+    Raises
+    ------
+    fftgauge.harness.errors.UsageError
+        Naming the first item that is not allowed, or an empty list.
+    """
+    if text is None:
+        return None
+    items = [t.strip() for t in text.split(",")]
+    if items == ["all"]:
+        return tuple(allowed)
+    if not items or any(not t for t in items):
+        raise UsageError(f"the {what} list {text!r} has an empty item; write e.g. {','.join(allowed[:2])}")
+    for item in items:
+        if item not in allowed:
+            raise UsageError(f"unknown {what} {item!r}; expected a comma list of {', '.join(allowed)} (or all)")
+    return tuple(dict.fromkeys(items))

@@ -8,7 +8,7 @@ dicts with :func:`dataclasses.asdict` for JSON and into pandas DataFrames at the
 from __future__ import annotations
 
 from dataclasses import asdict, dataclass
-from typing import Any
+from typing import Any, Iterable
 
 STATUSES = ("pass", "fail", "error", "skip")
 
@@ -46,6 +46,22 @@ class CheckRow:
     def as_dict(self) -> dict[str, Any]:
         """Return the row as a JSON-able dict (contract field order first)."""
         return asdict(self)
+
+
+def skip_rows(backend: str, case: Any, checks: Iterable[str], reason: str) -> list[CheckRow]:
+    """Return one ``skip`` row per check name for ``case`` (a :class:`~fftgauge.harness.cases.Case`):
+    the case, or that check of it, is outside what the backend claims or the check can say;
+    ``reason`` (the message) says why. The one constructor of check-level skip rows."""
+    return [CheckRow(backend=backend, kind=case.kind, dtype=case.dtype, n=case.n, check=name, status="skip",
+                     message=reason, norm=case.norm) for name in checks]
+
+
+def error_rows(backend: str, case: Any, checks: Iterable[str], message: str) -> list[CheckRow]:
+    """Return one ``error`` row per check name for ``case``: the backend raised, crashed, hung
+    or could not be planned; ``message`` says what happened. The one constructor of error rows
+    that stand for a whole case (or a check that could not run)."""
+    return [CheckRow(backend=backend, kind=case.kind, dtype=case.dtype, n=case.n, check=name, status="error",
+                     message=message, norm=case.norm) for name in checks]
 
 
 @dataclass(frozen=True)

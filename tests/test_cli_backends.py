@@ -138,3 +138,26 @@ def test_users_own_file_in_process(tmp_path, write_module, monkeypatch):
     x = np.linspace(0, 1, 8) + 0.5j
     # the wrapper runs the user's function as it is (here a deliberately conjugated DFT)
     assert np.array_equal(backend.plan(Case("fft", "float64", 8)).execute(x), np.conj(np.fft.fft(x)))
+
+
+HEAVY_MODULES = ("pandas", "matplotlib", "scipy.stats")
+
+
+def test_help_and_backends_import_nothing_heavy():
+    """Building the parser (what ``fftgauge --help`` does: every command module is imported)
+    and listing the backends import neither pandas, matplotlib nor scipy.stats (issue 11:
+    start-up); each command module imports those inside its run()."""
+    code = textwrap.dedent(f"""
+        import contextlib, io, sys
+        from fftgauge.harness.cli import build_parser, main
+        build_parser().format_help()
+        with contextlib.redirect_stdout(io.StringIO()):
+            assert main(["backends"]) == 0
+        print(",".join(sorted(m for m in sys.modules if m.split(".")[0] in ("pandas", "matplotlib")
+                              or m == "scipy.stats" or m.startswith("scipy.stats."))))
+    """)
+    env = {**os.environ, "PYTHONPATH": str(REPO_ROOT)}
+    done = subprocess.run([sys.executable, "-c", code], cwd=REPO_ROOT, env=env, capture_output=True, text=True,
+                          timeout=120)
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.strip() == "", f"heavy modules imported at start-up: {done.stdout.strip()[:300]}"

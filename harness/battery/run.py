@@ -35,48 +35,25 @@ import threading
 from collections import deque
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
-from typing import Any, Iterable, Sequence
+from typing import Any, Sequence
 
 from fftgauge.harness.execution import jobs
 from fftgauge.harness.cases import Case
 from fftgauge.harness.execution.dispatch import Progress, describe_cases
 from fftgauge.harness.errors import BackendFailure, UsageError
 from fftgauge.harness.results import ResultsWriter, envelope
-from fftgauge.harness.rows import CheckRow
+from fftgauge.harness.battery.request import DEFAULT_CASE_TIMEOUT_SECONDS, BatteryRequest  # noqa: F401 - re-exported
+from fftgauge.harness.rows import error_rows, skip_rows
 
 CHECK_SCHEMA = "fftgauge-check/1"
 
 #: The ``check`` name of the single row that stands for a case the backend does not claim.
 SKIPPED_CASE_CHECK = "all"
 
-#: Seconds one case (all its checks) may take in a worker before it is killed.
-DEFAULT_CASE_TIMEOUT_SECONDS = 120.0
-
-
-@dataclass(frozen=True)
-class BatteryRequest:
-    """What to run: validated at the boundary (CLI or API), trusted here."""
-
-    specs: tuple[str, ...]
-    kinds: tuple[str, ...] | None
-    dtypes: tuple[str, ...]
-    sizes: tuple[int, ...]
-    norms: tuple[str, ...] = ("backward",)
-    checks: tuple[str, ...] | None = None
-    seed: int = 1234
-    threads: int | None = None
-    timeout_seconds: float = DEFAULT_CASE_TIMEOUT_SECONDS
-    max_n_pure_python: int | None = None
-
 
 def build_cases(req: BatteryRequest, kinds: Sequence[str]) -> list[Case]:
     """Return the cases of ``req`` for the given kinds, in a stable order (kind, dtype, norm, n)."""
     return [Case(k, d, n, norm) for k in kinds for d in req.dtypes for norm in req.norms for n in req.sizes]
-
-
-def _rows_for(label: str, case: Case, check_names: Iterable[str], status: str, message: str) -> list[dict]:
-    return [CheckRow(backend=label, kind=case.kind, dtype=case.dtype, n=case.n, norm=case.norm, check=name,
-                     status=status, message=message).as_dict() for name in check_names]
 
 
 @dataclass(frozen=True)
@@ -209,19 +186,19 @@ def _run_lane(lane: _Lane, batches: BatchQueue, cases: list[Case], req: BatteryR
               check_names: list[str] | None, sink: RowSink, progress: Progress) -> None:
     """Take batches from ``batches`` until it has none for this lane, passing rows to ``sink``
     as they come; closes the lane's worker."""
-    from fftgauge.harness.battery.checks import CHECKS, applicable_checks
+    from fftgauge.harness.battery.checks import CHECKS
 
+    names = list(check_names or CHECKS)
     try:
         while (batch := batches.next(lane.spec)) is not None:
             worker = lane.worker_for(batch.spec)
             for index in batch.indices:
                 case = cases[index]
-                names = [c for c in (check_names or list(CHECKS)) if c in applicable_checks(case, batch.capabilities)]
                 try:
                     rows = worker.call(jobs.run_case_job, (case.kind, case.dtype, case.n, case.norm), req.seed, names,
                                        req.threads or 1, timeout_seconds=req.timeout_seconds)
                 except BackendFailure as exc:
-                    rows = _rows_for(batch.label, case, names, "error", str(exc))
+                    rows = [row.as_dict() for row in error_rows(batch.label, case, names, str(exc))]
                 sink.add(rows)
                 progress.advance(note=f"{batch.label} {case.label()}")
     finally:
@@ -247,8 +224,8 @@ def _describe_all(workers: dict[str, Any], req: BatteryRequest, cases: list[Case
 
 def _skip_rows(req: BatteryRequest, claims: dict[str, dict[str, Any]], cases: list[Case]) -> list[dict]:
     """Return one ``skip`` row per case a backend does not claim (the reason as its message)."""
-    return [row for spec in req.specs for case, reason in zip(cases, claims[spec]["reasons"]) if reason is not None
-            for row in _rows_for(claims[spec]["label"], case, [SKIPPED_CASE_CHECK], "skip", reason)]
+    return [row.as_dict() for spec in req.specs for case, reason in zip(cases, claims[spec]["reasons"])
+            if reason is not None for row in skip_rows(claims[spec]["label"], case, [SKIPPED_CASE_CHECK], reason)]
 
 
 def _sort_rows(rows: list[dict], req: BatteryRequest, claims: dict[str, dict[str, Any]], order: list[str]) -> None:

@@ -13,6 +13,7 @@ import sys
 from typing import Sequence
 
 from fftgauge import __version__
+from fftgauge.harness.cases import parse_choice_list  # noqa: F401 - re-exported for the command modules
 from fftgauge.harness.errors import UsageError
 
 #: (sub-command, module holding add_arguments/run, one-line help)
@@ -59,29 +60,6 @@ def add_common_options(parser: argparse.ArgumentParser, *names: str) -> None:
     for name in names:
         flags, kwargs = table[name]
         parser.add_argument(*flags, **kwargs)
-
-
-def parse_choice_list(text: str | None, allowed: Sequence[str], what: str) -> tuple[str, ...] | None:
-    """Return the comma list ``text`` as a tuple, each item checked against ``allowed``.
-
-    ``None`` stays ``None`` (the caller's default applies); ``all`` means every allowed item.
-
-    Raises
-    ------
-    UsageError
-        Naming the first item that is not allowed, or an empty list.
-    """
-    if text is None:
-        return None
-    items = [t.strip() for t in text.split(",")]
-    if items == ["all"]:
-        return tuple(allowed)
-    if not items or any(not t for t in items):
-        raise UsageError(f"the {what} list {text!r} has an empty item; write e.g. {','.join(allowed[:2])}")
-    for item in items:
-        if item not in allowed:
-            raise UsageError(f"unknown {what} {item!r}; expected a comma list of {', '.join(allowed)} (or all)")
-    return tuple(dict.fromkeys(items))
 
 
 def default_results_path(command: str) -> str:

@@ -1,4 +1,8 @@
-"""``fftgauge check``: the correctness battery from the command line."""
+"""``fftgauge check``: the correctness battery from the command line.
+
+Only the parser is built at import (``fftgauge --help`` imports every command module): the
+battery, pandas and the checks are imported inside :func:`run`.
+"""
 
 from __future__ import annotations
 
@@ -6,15 +10,9 @@ import argparse
 import sys
 import time
 
-from fftgauge.harness.battery.run import DEFAULT_CASE_TIMEOUT_SECONDS, BatteryRequest, run_battery
-from fftgauge.harness.cases import DTYPES, KINDS, NORMS
-from fftgauge.harness.report.check_tables import format_summary, rows_frame
-from fftgauge.harness.cli import add_common_options, default_results_path, parse_choice_list
-from fftgauge.harness.errors import UsageError
-from fftgauge.harness.sizes import parse_sizes
-
-#: Size limit applied to the pure-Python references in a run that does not name sizes.
-DEFAULT_PURE_PYTHON_MAX_N = 512
+from fftgauge.harness.battery.request import (DEFAULT_CASE_TIMEOUT_SECONDS, DEFAULT_PURE_PYTHON_MAX_N, BatteryRequest,
+                                              build_request)
+from fftgauge.harness.cli import add_common_options, default_results_path
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -31,38 +29,24 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def request_from_args(args: argparse.Namespace) -> BatteryRequest:
-    """Return the validated :class:`BatteryRequest` the options describe.
+    """Return the validated :class:`BatteryRequest` the options describe
+    (:func:`~fftgauge.harness.battery.request.build_request`, as the Python API does).
 
     Raises
     ------
     UsageError
         For any malformed option value (the message names it).
     """
-    from fftgauge.backends.registry import default_specs
-    from fftgauge.harness.battery.checks import CHECKS
-
-    if args.timeout <= 0:
-        raise UsageError(f"--timeout must be positive seconds, got {args.timeout:g}")
-    sizes = parse_sizes(args.sizes) if args.sizes is not None else parse_sizes("@default")
-    limit = args.pure_python_max_n
-    if limit is None:
-        limit = DEFAULT_PURE_PYTHON_MAX_N if args.sizes is None else 0
-    return BatteryRequest(
-        specs=tuple(args.backend) if args.backend else tuple(default_specs()),
-        kinds=parse_choice_list(args.kinds, KINDS, "kind"),
-        dtypes=parse_choice_list(args.dtypes, DTYPES, "dtype") or ("float32", "float64"),
-        sizes=tuple(sizes),
-        norms=parse_choice_list(args.norms, NORMS, "norm") or ("backward",),
-        checks=parse_choice_list(args.checks, tuple(CHECKS), "check"),
-        seed=args.seed,
-        threads=args.threads,
-        timeout_seconds=args.timeout,
-        max_n_pure_python=limit or None,
-    )
+    return build_request(backends=args.backend, sizes=args.sizes, kinds=args.kinds, dtypes=args.dtypes,
+                         norms=args.norms, checks=args.checks, seed=args.seed, threads=args.threads,
+                         timeout_seconds=args.timeout, pure_python_max_n=args.pure_python_max_n)
 
 
 def run(args: argparse.Namespace) -> int:
     """Run the battery; print the summary; return 0 (all held), 1 (a check failed or errored)."""
+    from fftgauge.harness.battery.run import run_battery
+    from fftgauge.harness.report.check_tables import format_summary, rows_frame
+
     req = request_from_args(args)
     path = args.json or default_results_path("check")
     started = time.perf_counter()

@@ -1,0 +1,114 @@
+"""What a battery run is asked to do, and the one function that builds it.
+
+``fftgauge check`` (from its parsed options) and the Python API :func:`fftgauge.check` (from
+its keyword arguments) both call :func:`build_request`, so the two paths validate the same
+way and apply the same defaults (sizes, precisions, the limits of the pure-Python
+references); nothing downstream re-checks a :class:`BatteryRequest`.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Sequence
+
+from fftgauge.harness.cases import DTYPES, KINDS, NORMS, parse_choice_list
+from fftgauge.harness.errors import UsageError
+
+#: Seconds one case (all its checks) may take in a worker before it is killed.
+DEFAULT_CASE_TIMEOUT_SECONDS = 120.0
+
+#: The size list of a run that does not name one.
+DEFAULT_SIZES = "@default"
+
+#: The precisions of a run that does not name them.
+DEFAULT_DTYPES = ("float32", "float64")
+
+#: The normalisations of a run that does not name them.
+DEFAULT_NORMS = ("backward",)
+
+#: Size limit applied to the pure-Python references in a run that does not name sizes.
+DEFAULT_PURE_PYTHON_MAX_N = 512
+
+
+@dataclass(frozen=True)
+class BatteryRequest:
+    """What to run: validated at the boundary (:func:`build_request`), trusted here."""
+
+    specs: tuple[str, ...]
+    kinds: tuple[str, ...] | None
+    dtypes: tuple[str, ...]
+    sizes: tuple[int, ...]
+    norms: tuple[str, ...] = DEFAULT_NORMS
+    checks: tuple[str, ...] | None = None
+    seed: int = 1234
+    threads: int | None = None
+    timeout_seconds: float = DEFAULT_CASE_TIMEOUT_SECONDS
+    max_n_pure_python: int | None = None
+
+
+def choice_list(value: str | Sequence[str] | None, allowed: Sequence[str], what: str) -> tuple[str, ...] | None:
+    """Return ``value`` (a comma string, a sequence of names, or None) as a checked tuple.
+
+    None stays None (the caller's default applies); ``all`` means every allowed item.
+
+    Raises
+    ------
+    UsageError
+        Naming the first item that is not allowed, or an empty item.
+    """
+    if value is None or isinstance(value, str):
+        return parse_choice_list(value, allowed, what)
+    return parse_choice_list(",".join(str(v) for v in value), allowed, what)
+
+
+def build_request(backends: Sequence[str] | None = None, sizes: str | None = None,
+                  kinds: str | Sequence[str] | None = None, dtypes: str | Sequence[str] | None = None,
+                  norms: str | Sequence[str] | None = None, checks: str | Sequence[str] | None = None,
+                  seed: int = 1234, threads: int | None = None,
+                  timeout_seconds: float = DEFAULT_CASE_TIMEOUT_SECONDS,
+                  pure_python_max_n: int | None = None) -> BatteryRequest:
+    """Return the validated :class:`BatteryRequest` for these arguments.
+
+    Parameters
+    ----------
+    backends : SPEC strings (default: every available built-in backend).
+    sizes : the ``--sizes`` grammar (default :data:`DEFAULT_SIZES`).
+    kinds, dtypes, norms, checks : comma strings or sequences of names (defaults: every kind
+        the backend supports, :data:`DEFAULT_DTYPES`, :data:`DEFAULT_NORMS`, every check).
+    seed : seed of every random input.
+    threads : threads for backends that take a thread option, and the BLAS cap per worker.
+    timeout_seconds : seconds one case may take before its worker is killed.
+    pure_python_max_n : largest size given to the pure-Python references; None:
+        :data:`DEFAULT_PURE_PYTHON_MAX_N` when ``sizes`` is not given, else no limit; 0: no limit.
+
+    Raises
+    ------
+    UsageError
+        For a malformed size list, an unknown kind/dtype/norm/check, a non-positive timeout or
+        thread count, or a negative size limit (the message names the value).
+    """
+    from fftgauge.backends.registry import default_specs
+    from fftgauge.harness.battery.checks import CHECKS
+    from fftgauge.harness.sizes import parse_sizes
+
+    if not timeout_seconds > 0:
+        raise UsageError(f"the case timeout must be positive seconds, got {timeout_seconds:g}")
+    if threads is not None and threads < 1:
+        raise UsageError(f"threads must be a positive integer, got {threads}")
+    if pure_python_max_n is not None and pure_python_max_n < 0:
+        raise UsageError(f"the pure-Python size limit must be 0 (none) or a positive size, got {pure_python_max_n}")
+    limit = pure_python_max_n
+    if limit is None:
+        limit = DEFAULT_PURE_PYTHON_MAX_N if sizes is None else 0
+    return BatteryRequest(
+        specs=tuple(backends) if backends else tuple(default_specs()),
+        kinds=choice_list(kinds, KINDS, "kind"),
+        dtypes=choice_list(dtypes, DTYPES, "dtype") or DEFAULT_DTYPES,
+        sizes=tuple(parse_sizes(sizes if sizes is not None else DEFAULT_SIZES)),
+        norms=choice_list(norms, NORMS, "norm") or DEFAULT_NORMS,
+        checks=choice_list(checks, tuple(CHECKS), "check"),
+        seed=int(seed),
+        threads=threads,
+        timeout_seconds=float(timeout_seconds),
+        max_n_pure_python=limit or None,
+    )
