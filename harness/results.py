@@ -211,29 +211,243 @@ class ResultsWriter:
         self._last_duration = self._last_write - start
 
 
-def load_results(path: str, schema: str | tuple[str, ...]) -> dict[str, Any]:
-    """Return the results document at ``path`` after checking its schema.
+# --------------------------------------------------------------------------- loading and validation
+
+#: Largest results file that is read, in bytes (a check run of every size set and backend is a
+#: few MB; the cap keeps a hostile path, such as a link to /dev/zero, from exhausting memory).
+MAX_RESULTS_BYTES = 128 * 2**20
+
+#: Deepest nesting of JSON arrays and objects a results file may hold (fftgauge writes at most
+#: about 4 levels); deeper files are refused before parsing, so no RecursionError can occur.
+MAX_JSON_DEPTH = 64
+
+TIME_SCHEMA, CHECK_SCHEMA, GATE_SCHEMA = "fftgauge-time/1", "fftgauge-check/1", "fftgauge-gate/1"
+
+#: Row fields every row of a schema holds (fftgauge always writes them).
+REQUIRED_ROW_FIELDS = {
+    TIME_SCHEMA: ("backend", "kind", "dtype", "n", "seconds"),
+    CHECK_SCHEMA: ("backend", "kind", "dtype", "n", "check", "status"),
+    GATE_SCHEMA: ("backend", "kind", "dtype", "n"),
+}
+
+#: The statuses a row of each schema may carry (the contracts; time and gate rows add ``ok``).
+ROW_STATUSES = {
+    TIME_SCHEMA: ("ok", "skip", "error"),
+    CHECK_SCHEMA: ("pass", "fail", "error", "skip"),
+}
+
+#: Numeric row fields that are durations or sizes: a finite number >= 0, or null.
+NONNEGATIVE_FIELDS = ("seconds", "seconds_low", "seconds_high", "plan_seconds", "seconds_p10", "seconds_p10_low",
+                      "seconds_p10_high", "overhead_seconds", "floor_seconds", "flops", "gflops", "ns_per_nlogn",
+                      "peak_bytes", "ratio", "ratio_low", "ratio_high", "limit", "eps_units", "coverage",
+                      "relative_spread")
+
+#: Other numeric row fields: a finite number, or null.
+NUMBER_FIELDS = ("value", "p_value")
+
+#: Row fields that hold text, or null.
+TEXT_FIELDS = ("backend", "check", "message", "diagnosis", "status", "verdict", "reference", "timing_source",
+               "memory_method")
+
+#: Integer row fields that count something (>= 1 for ``n`` and ``threads``, >= 0 otherwise), or null.
+COUNT_FIELDS = ("samples", "loops", "threads")
+
+#: Envelope fields and the JSON types they may hold (null is always allowed).
+ENVELOPE_TYPES = {"created": (str,), "seed": (int,), "machine": (dict,), "versions": (dict,), "note": (str,),
+                  "commit": (str,), "complete": (bool,), "regressed": (bool,), "backends": (dict,),
+                  "yardstick": (dict,)}
+
+_JSON_TYPE_NAMES = {dict: "an object", list: "an array", str: "a string", bool: "true/false", int: "an integer",
+                    float: "a number", type(None): "null"}
+
+
+def _type_name(value: Any) -> str:
+    return _JSON_TYPE_NAMES.get(type(value), type(value).__name__)
+
+
+def read_results_text(path: str) -> str:
+    """Return the text of the results file at ``path``: a regular file of at most
+    :data:`MAX_RESULTS_BYTES`, in UTF-8.
 
     Raises
     ------
     UsageError
-        When the file is missing, unreadable, not JSON, not a results envelope, or of
-        another schema than ``schema``.
+        When the path does not exist, is not a regular file (a directory, a device such as
+        /dev/zero, a pipe; links are followed), is larger than the cap, cannot be read, or is
+        not UTF-8.
     """
-    schemas = (schema,) if isinstance(schema, str) else tuple(schema)
+    import stat
+
     try:
-        with open(path, encoding="utf-8") as fh:
-            doc = json.load(fh)
+        info = os.stat(path)
     except FileNotFoundError:
         raise UsageError(f"results file {path!r} does not exist; check the path") from None
     except OSError as exc:
         raise UsageError(f"results file {path!r} cannot be read: {exc.strerror}") from None
-    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
-        raise UsageError(f"results file {path!r} is not valid JSON ({exc}); it may be truncated or "
-                         f"corrupt: rerun the command that wrote it") from None
+    if not stat.S_ISREG(info.st_mode):
+        what = "a directory" if stat.S_ISDIR(info.st_mode) else "a device, pipe or socket"
+        raise UsageError(f"results file {path!r} is {what}, not a regular file; pass a results file written by "
+                         f"fftgauge")
+    try:
+        with open(path, "rb") as fh:
+            if not stat.S_ISREG(os.fstat(fh.fileno()).st_mode):
+                raise UsageError(f"results file {path!r} is not a regular file; pass a results file written by "
+                                 f"fftgauge")
+            data = fh.read(MAX_RESULTS_BYTES + 1)
+    except OSError as exc:
+        raise UsageError(f"results file {path!r} cannot be read: {exc.strerror}") from None
+    if len(data) > MAX_RESULTS_BYTES:
+        raise UsageError(f"results file {path!r} is larger than {MAX_RESULTS_BYTES:,} bytes, more than any "
+                         f"fftgauge run writes; pass a results file written by fftgauge")
+    try:
+        return data.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        raise UsageError(f"results file {path!r} is not valid JSON ({exc}); it may be truncated or corrupt: "
+                         f"rerun the command that wrote it") from None
+
+
+def json_depth(text: str, limit: int = MAX_JSON_DEPTH) -> int:
+    """Return the nesting depth of arrays and objects in the JSON ``text`` (0 for a scalar),
+    counting at most to ``limit + 1`` (the scan stops there).
+
+    Brackets inside strings do not count. Malformed text gives some depth; the parser
+    reports what is wrong with it.
+    """
+    import re
+
+    brackets = re.sub(r"[^\[\]{}]+", "", re.sub(r'"[^"\\]*(?:\\.[^"\\]*)*"', '""', text))
+    depth = deepest = 0
+    for char in brackets:
+        if char in "[{":
+            depth += 1
+            if depth > deepest:
+                deepest = depth
+                if deepest > limit:
+                    break
+        else:
+            depth -= 1
+    return deepest
+
+
+def _row_problem(row: dict[str, Any], schema: str) -> tuple[str, str] | None:
+    """Return (field, what is wrong) for the first impossible field of ``row``, or None."""
+    from fftgauge.harness.cases import DTYPES, KINDS, NORMS
+
+    missing = [f for f in REQUIRED_ROW_FIELDS[schema] if f not in row]
+    if missing:
+        return missing[0], f"is missing (the row lacks {', '.join(missing)})"
+    for name in TEXT_FIELDS:
+        if row.get(name) is not None and not isinstance(row[name], str):
+            return name, f"is {_type_name(row[name])}, not text"
+    if not row["backend"]:
+        return "backend", "is empty"
+    if row["kind"] not in KINDS:
+        return "kind", f"is {row['kind']!r}, not one of {', '.join(KINDS)}"
+    if row["dtype"] not in DTYPES:
+        return "dtype", f"is {row['dtype']!r}, not one of {', '.join(DTYPES)}"
+    if (row.get("norm") or "backward") not in NORMS:
+        return "norm", f"is {row['norm']!r}, not one of {', '.join(NORMS)}"
+    n = row["n"]
+    if not isinstance(n, int) or isinstance(n, bool) or n < 1:
+        return "n", f"is {n!r}; a transform length is a positive integer"
+    statuses = ROW_STATUSES.get(schema)
+    if statuses and row.get("status") is not None and row["status"] not in statuses:
+        return "status", f"is {row['status']!r}, not one of {', '.join(statuses)}"
+    for name in COUNT_FIELDS:
+        value = row.get(name)
+        if value is not None and (not isinstance(value, int) or isinstance(value, bool)
+                                  or value < (1 if name == "threads" else 0)):
+            return name, f"is {value!r}; a count is a non-negative integer"
+    for name in NONNEGATIVE_FIELDS + NUMBER_FIELDS:
+        value = row.get(name)
+        if value is None:
+            continue
+        if not isinstance(value, (int, float)) or isinstance(value, bool):
+            return name, f"is {_type_name(value)}, not a number"
+        if value != value or value in (float("inf"), float("-inf")):
+            return name, f"is {value!r}; fftgauge writes only finite numbers (null where there is none)"
+        if name in NONNEGATIVE_FIELDS and value < 0:
+            return name, f"is {value!r}; it cannot be negative"
+    return None
+
+
+def validate_results(path: str, doc: Any, schemas: tuple[str, ...]) -> None:
+    """Check that ``doc``, read from ``path``, is a results document of one of ``schemas``
+    whose envelope fields and rows have the types and values fftgauge writes.
+
+    Raises
+    ------
+    UsageError
+        Naming the file and the field: not an envelope, another schema, an envelope field
+        of the wrong type (``machine`` a string), a row that is not an object, lacks a
+        field or holds an impossible value (``n`` not a positive integer, a negative or
+        non-finite time, an unknown kind, precision, norm or status).
+    """
     if not isinstance(doc, dict) or not isinstance(doc.get("rows"), list) or "schema" not in doc:
         raise UsageError(f"results file {path!r} is not an fftgauge results file (no schema/rows)")
     if doc["schema"] not in schemas:
         raise UsageError(f"results file {path!r} has schema {doc['schema']!r}; this command reads "
                          f"{' or '.join(schemas)}")
+    for name, types in ENVELOPE_TYPES.items():
+        value = doc.get(name)
+        if value is not None and (not isinstance(value, types) or (bool not in types and isinstance(value, bool))):
+            wanted = " or ".join(_JSON_TYPE_NAMES[t] for t in types)
+            raise UsageError(f"results file {path!r}: field {name!r} is {_type_name(value)}, expected {wanted}; "
+                             f"the file is corrupt or was edited")
+    machine = doc.get("machine") or {}
+    for name, types in (("cpu", (str,)), ("cores", (int,)), ("caches", (dict,))):
+        value = machine.get(name)
+        if value is not None and (not isinstance(value, types) or isinstance(value, bool)):
+            raise UsageError(f"results file {path!r}: field 'machine.{name}' is {_type_name(value)}, expected "
+                             f"{_JSON_TYPE_NAMES[types[0]]}; the file is corrupt or was edited")
+    schema = doc["schema"]
+    if schema not in REQUIRED_ROW_FIELDS:
+        return
+    for i, row in enumerate(doc["rows"]):
+        if not isinstance(row, dict):
+            raise UsageError(f"results file {path!r}: row {i} is {_type_name(row)}, not an object; the file is "
+                             f"corrupt")
+        problem = _row_problem(row, schema)
+        if problem:
+            raise UsageError(f"results file {path!r}: row {i} field {problem[0]!r} {problem[1]}; the file is "
+                             f"corrupt or was edited")
+
+
+def load_results(path: str, schema: str | tuple[str, ...]) -> dict[str, Any]:
+    """Return the results document at ``path`` after checking the file and its content.
+
+    The one loader of results files (``report``, ``gate --baseline``): a regular file
+    (:func:`read_results_text`), nested at most :data:`MAX_JSON_DEPTH` deep, of one of the
+    schemas ``schema``, with the field types :func:`validate_results` checks.
+
+    Raises
+    ------
+    UsageError
+        One line naming the file (and the field, where one is wrong): missing, not a
+        regular file, too large, unreadable, not JSON, nested too deeply, not a results
+        envelope, another schema, or a field of the wrong type or an impossible value.
+    """
+    schemas = (schema,) if isinstance(schema, str) else tuple(schema)
+    text = read_results_text(path)
+    if json_depth(text) > MAX_JSON_DEPTH:
+        raise UsageError(f"results file {path!r} nests arrays or objects more than {MAX_JSON_DEPTH} levels deep; "
+                         f"fftgauge writes no such file: pass a results file written by fftgauge")
+    try:
+        doc = json.loads(text)
+    except json.JSONDecodeError as exc:
+        raise UsageError(f"results file {path!r} is not valid JSON ({exc}); it may be truncated or "
+                         f"corrupt: rerun the command that wrote it") from None
+    except RecursionError:
+        raise UsageError(f"results file {path!r} nests too deeply to read; pass a results file written by "
+                         f"fftgauge") from None
+    validate_results(path, doc, schemas)
     return doc
+
+
+def incomplete_note(path: str, doc: dict[str, Any]) -> str | None:
+    """Return a one-line note when the envelope of ``doc`` (read from ``path``) says the run did
+    not complete (``"complete": false``: interrupted or stopped), else None."""
+    if doc.get("complete") is False:
+        return (f"{path} is from a run that did not complete (it was interrupted): it holds only the cases "
+                f"that finished")
+    return None

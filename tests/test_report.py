@@ -402,7 +402,7 @@ def bad_inputs(tmp_path, time_doc) -> dict[str, tuple[list[str], str]]:
         "foreign": ([write(tmp_path, "count.json", json.dumps({"schema": "fftgauge-count/1", "rows": []}))],
                     "has schema 'fftgauge-count/1'"),
         "not results": ([write(tmp_path, "list.json", "[1, 2]")], "not an fftgauge results file"),
-        "row lacks a field": ([write(tmp_path, "row.json", json.dumps(broken_row))], "row 0 lacks seconds"),
+        "row lacks a field": ([write(tmp_path, "row.json", json.dumps(broken_row))], "row 0 field 'seconds' is missing"),
         "gate file alone": ([write(tmp_path, "gate.json", json.dumps(gate))], "pass the folder"),
         "empty folder": ([str(empty)], "holds no results files"),
         "bad case": ([TIME_FILE, str(runs), "--case", "fft,float64"], "write KIND,DTYPE,N"),
@@ -458,3 +458,102 @@ def test_report_command_imports_no_heavy_library():
             "print(sorted(m for m in ('matplotlib', 'pandas', 'scipy.stats') if m in sys.modules))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
     assert out.strip() == "[]"
+
+
+# --------------------------------------------------------------------------- hostile results files
+
+def hostile_files(tmp_path, time_doc) -> dict[str, tuple[str, str]]:
+    """Files that are not what fftgauge writes, each with the words of the one-line refusal."""
+    row = time_doc["rows"][0]
+
+    def with_row(name: str, **fields) -> str:
+        return write(tmp_path, name, json.dumps({**time_doc, "rows": [{**row, **fields}]}))
+
+    zero = tmp_path / "zero.json"
+    zero.symlink_to("/dev/zero")
+    deep = '{"schema": "fftgauge-time/1", "rows": [' + "[" * 100_000 + "]" * 100_000 + "]}"
+    nan = json.dumps({**time_doc, "rows": [{**row, "seconds": 1.0}]}).replace('"seconds": 1.0', '"seconds": NaN')
+    return {
+        "link to /dev/zero": (str(zero), "is a device, pipe or socket, not a regular file"),
+        "100,000 levels deep": (write(tmp_path, "deep.json", deep), "more than 64 levels deep"),
+        "machine a string": (write(tmp_path, "machine.json", json.dumps({**time_doc, "machine": "a PC"})),
+                             "field 'machine' is a string, expected an object"),
+        "cores a string": (write(tmp_path, "cores.json", json.dumps({**time_doc, "machine": {"cores": "two"}})),
+                           "field 'machine.cores' is a string"),
+        "complete not a flag": (write(tmp_path, "flag.json", json.dumps({**time_doc, "complete": "no"})),
+                                "field 'complete' is a string"),
+        "negative time": (with_row("neg.json", seconds=-1), "row 0 field 'seconds' is -1; it cannot be negative"),
+        "NaN time": (write(tmp_path, "nan.json", nan), "row 0 field 'seconds' is nan"),
+        "text time": (with_row("text.json", seconds_low="fast"), "row 0 field 'seconds_low' is a string, not a number"),
+        "n zero": (with_row("n0.json", n=0), "row 0 field 'n' is 0; a transform length is a positive integer"),
+        "n a string": (with_row("nstr.json", n="1024"), "row 0 field 'n' is '1024'"),
+        "n a flag": (with_row("nbool.json", n=True), "row 0 field 'n' is True"),
+        "n a fraction": (with_row("nfrac.json", n=2.5), "row 0 field 'n' is 2.5"),
+        "backend a number": (with_row("backend.json", backend=7), "row 0 field 'backend' is an integer, not text"),
+        "unknown status": (with_row("status.json", status="great"), "row 0 field 'status' is 'great'"),
+        "row not an object": (write(tmp_path, "rowlist.json", json.dumps({**time_doc, "rows": [[1]]})),
+                              "row 0 is an array, not an object"),
+    }
+
+
+def test_hostile_files_are_refused_naming_the_file_and_field(tmp_path, time_doc, capsys):
+    """Through the CLI: exit 2, one line on stderr that names the file and says what is wrong (no traceback,
+    no RecursionError, no read of /dev/zero)."""
+    for what, (path, message) in hostile_files(tmp_path, time_doc).items():
+        assert cli.main(["report", path, "--no-plots", "--out", str(tmp_path / "o")]) == 2, what
+        err = capsys.readouterr().err
+        assert err.count("\n") == 1 and err.startswith("fftgauge: error: "), (what, err)
+        assert message in err and os.path.basename(path) in err, (what, err)
+    assert not (tmp_path / "o").exists()
+
+
+def test_hostile_entries_inside_a_folder_of_runs(tmp_path, time_doc, capsys):
+    """A folder stands for its *.json files: one that is a link to /dev/zero or a directory is refused by name,
+    by report and by gate --baseline."""
+    for name, make, message in (("b.json", lambda p: p.symlink_to("/dev/zero"), "is a device, pipe or socket"),
+                                ("c.json", lambda p: p.mkdir(), "is a directory, not a regular file")):
+        runs = tmp_path / f"runs-{name}"
+        runs.mkdir()
+        (runs / "a.json").write_text(json.dumps(time_doc))
+        make(runs / name)
+        for argv in (["report", str(runs), "--no-plots", "--out", str(tmp_path / "o")], ["gate", "--baseline", str(runs)]):
+            assert cli.main(argv) == 2
+            err = capsys.readouterr().err
+            assert err.count("\n") == 1 and f"{name}' {message}" in err, (argv, err)
+
+
+def test_size_cap(tmp_path, time_doc, monkeypatch):
+    from fftgauge.harness import results
+
+    path = write(tmp_path, "big.json", json.dumps(time_doc))
+    monkeypatch.setattr(results, "MAX_RESULTS_BYTES", os.path.getsize(path) - 1)
+    with pytest.raises(UsageError, match=r"big.json' is larger than [\d,]+ bytes"):
+        run_report([path, "--no-plots", "--out", str(tmp_path / "o")])
+    monkeypatch.setattr(results, "MAX_RESULTS_BYTES", os.path.getsize(path))
+    assert run_report([path, "--no-plots", "--out", str(tmp_path / "o")]) == 0
+
+
+def test_json_depth_counts_brackets_outside_strings():
+    from fftgauge.harness.results import json_depth
+
+    assert json_depth("1") == 0 and json_depth("[]") == 1
+    assert json_depth('{"a": "[[[\\" {", "b": [[1]]}') == 3  # brackets and an escaped quote inside a string
+    assert json_depth("[" * 100_000, limit=64) == 65  # stops counting past the limit
+
+
+def test_gate_baseline_refuses_the_same_hostile_files(tmp_path, time_doc, capsys):
+    """`gate --baseline` reads files with the same loader (fftgauge.harness.results.load_results)."""
+    for what, (path, message) in hostile_files(tmp_path, time_doc).items():
+        assert cli.main(["gate", "--baseline", path]) == 2, what
+        err = capsys.readouterr().err
+        assert err.count("\n") == 1 and message in err, (what, err)
+
+
+def test_incomplete_run_is_noted(tmp_path, time_doc, capsys):
+    path = write(tmp_path, "cut.json", json.dumps({**time_doc, "complete": False}))
+    assert run_report([path, "--no-plots", "--out", str(tmp_path / "o")]) == 0
+    out = capsys.readouterr().out
+    assert "note: " + path + " is from a run that did not complete" in out
+    done = write(tmp_path, "done.json", json.dumps({**time_doc, "complete": True}))
+    assert run_report([done, "--no-plots", "--out", str(tmp_path / "o")]) == 0
+    assert "did not complete" not in capsys.readouterr().out

@@ -95,7 +95,7 @@ def make_report(request: ReportRequest) -> ReportOutcome:
     inputs = load_inputs(list(request.results))
     if request.cases and not inputs.histories:
         raise UsageError("--case chooses the cases of history plots: pass a folder of stored runs too")
-    outcome = ReportOutcome()
+    outcome = ReportOutcome(notes=list(inputs.incomplete))
     images: dict[str, list] = {}
     if request.plots:
         from fftgauge.harness.report.figures import require_matplotlib

@@ -8,57 +8,23 @@ import os
 from dataclasses import dataclass, field
 from typing import Any
 
-from fftgauge.harness.cases import DTYPES, KINDS, NORMS, Case
+from fftgauge.harness.cases import Case
 from fftgauge.harness.errors import UsageError
-from fftgauge.harness.results import load_results
-
-TIME_SCHEMA, CHECK_SCHEMA, GATE_SCHEMA = "fftgauge-time/1", "fftgauge-check/1", "fftgauge-gate/1"
+from fftgauge.harness.results import CHECK_SCHEMA, GATE_SCHEMA, TIME_SCHEMA, incomplete_note, load_results
 
 #: Most history plots drawn per folder when no case is chosen.
 MAX_HISTORY_PLOTS = 6
 
-#: Fields every row must have, per schema (validated once, here at the boundary).
-_REQUIRED = {
-    TIME_SCHEMA: ("backend", "kind", "dtype", "n", "seconds"),
-    CHECK_SCHEMA: ("backend", "kind", "dtype", "n", "check", "status"),
-    GATE_SCHEMA: ("backend", "kind", "dtype", "n"),
-}
-
 
 @dataclass
 class ReportInputs:
-    """What the command was given, loaded and checked: (path, document) pairs per schema and
-    (folder, documents) histories."""
+    """What the command was given, loaded and checked: (path, document) pairs per schema,
+    (folder, documents) histories, and a note per file from a run that did not complete."""
 
     time: list[tuple[str, dict[str, Any]]] = field(default_factory=list)
     check: list[tuple[str, dict[str, Any]]] = field(default_factory=list)
     histories: list[tuple[str, list[dict[str, Any]]]] = field(default_factory=list)
-
-
-def _check_rows(path: str, doc: dict[str, Any]) -> None:
-    """Raise UsageError naming ``path`` when a row lacks a field or holds an impossible case."""
-    for i, row in enumerate(doc["rows"]):
-        if not isinstance(row, dict):
-            raise UsageError(f"results file {path!r}: row {i} is not an object; the file is corrupt")
-        missing = [f for f in _REQUIRED[doc["schema"]] if f not in row]
-        if missing:
-            raise UsageError(f"results file {path!r}: row {i} lacks {', '.join(missing)}; the file is corrupt or "
-                             f"was edited")
-        n = row["n"]
-        if row["kind"] not in KINDS or row["dtype"] not in DTYPES or not isinstance(n, int) or n < 1:
-            raise UsageError(f"results file {path!r}: row {i} has an impossible case ({row['kind']!r}, "
-                             f"{row['dtype']!r}, n={n!r})")
-        if row.get("norm", "backward") not in NORMS:
-            raise UsageError(f"results file {path!r}: row {i} has an unknown normalisation {row.get('norm')!r}")
-        seconds = row.get("seconds")
-        if seconds is not None and not isinstance(seconds, (int, float)):
-            raise UsageError(f"results file {path!r}: row {i} has a non-numeric time {seconds!r}")
-
-
-def _load(path: str, schemas: tuple[str, ...]) -> dict[str, Any]:
-    doc = load_results(path, schemas)
-    _check_rows(path, doc)
-    return doc
+    incomplete: list[str] = field(default_factory=list)
 
 
 def load_inputs(paths: list[str]) -> ReportInputs:
@@ -67,7 +33,8 @@ def load_inputs(paths: list[str]) -> ReportInputs:
     Raises
     ------
     UsageError
-        For a missing, corrupt or foreign file (naming it), a gate file given on its own
+        For a missing, corrupt, hostile or foreign file (naming it and the field,
+        :func:`fftgauge.harness.results.load_results`), a gate file given on its own
         (gate runs are a history: pass their folder), or a folder without results files.
     """
     inputs = ReportInputs()
@@ -77,10 +44,18 @@ def load_inputs(paths: list[str]) -> ReportInputs:
             if not names:
                 raise UsageError(f"folder {path!r} holds no results files (*.json); pass results files or a "
                                  f"folder of stored runs")
-            docs = [_load(os.path.join(path, name), (TIME_SCHEMA, GATE_SCHEMA)) for name in names]
+            docs = []
+            for name in names:
+                docs.append(load_results(os.path.join(path, name), (TIME_SCHEMA, GATE_SCHEMA)))
+                note = incomplete_note(os.path.join(path, name), docs[-1])
+                if note:
+                    inputs.incomplete.append(note)
             inputs.histories.append((path, docs))
             continue
-        doc = _load(path, (TIME_SCHEMA, CHECK_SCHEMA, GATE_SCHEMA))
+        doc = load_results(path, (TIME_SCHEMA, CHECK_SCHEMA, GATE_SCHEMA))
+        note = incomplete_note(path, doc)
+        if note:
+            inputs.incomplete.append(note)
         if doc["schema"] == GATE_SCHEMA:
             raise UsageError(f"results file {path!r} is a gate run: gate runs are plotted as a history; pass the "
                              f"folder that holds them")
