@@ -49,6 +49,11 @@ def signal_x(n: int) -> np.ndarray:
     return rng.standard_normal(n) + 1j * rng.standard_normal(n)
 
 
+def as_dict(described) -> dict:
+    """A backend's description as a dict (``describe()`` returns a dataclass with ``as_dict``)."""
+    return described.as_dict() if hasattr(described, "as_dict") else described
+
+
 def worker_children() -> set[int]:
     """Pids of every process below this one (zombies included), except multiprocessing's
     long-lived helpers: the resource tracker and the fork server (direct children that
@@ -115,7 +120,7 @@ def test_backend_is_loaded_once_per_child(numpy_worker):
 
 def test_describe_and_unsupported_reason_jobs():
     with Worker(spec("SelectiveBackend")) as worker:
-        described = worker.call(DESCRIBE, timeout_seconds=TIMEOUT_SECONDS)
+        described = as_dict(worker.call(DESCRIBE, timeout_seconds=TIMEOUT_SECONDS))
         assert described["name"] == "selective"
         assert described["capabilities"]["kinds"] == ["fft"]
         assert worker.call(REASON, FFT8, timeout_seconds=TIMEOUT_SECONDS) is None
@@ -153,7 +158,7 @@ def test_misbehaving_backend_gives_reason_and_worker_goes_on(attr, pattern, repl
         assert "\n" not in str(info.value)
         failed_pid = worker.pid
         # A good job after the bad one: runs in the same child, or in a fresh one.
-        described = worker.call(DESCRIBE, timeout_seconds=TIMEOUT_SECONDS)
+        described = as_dict(worker.call(DESCRIBE, timeout_seconds=TIMEOUT_SECONDS))
         assert described["name"] == spec(attr)
         assert worker.starts == (2 if replaced else 1)
         assert (failed_pid is None) == replaced
@@ -371,3 +376,69 @@ def test_killed_parent_does_not_leave_a_hanging_child(tmp_path):
                 psutil.Process(child).kill()
             except psutil.NoSuchProcess:
                 pass
+
+
+# -- processes a backend starts ------------------------------------------------------------
+LEFTOVER_SLEEP = "987.654"  # tests/data/misbehaving.py: LEFTOVER_SLEEP
+
+
+def sleepers() -> set[int]:
+    """Pids of the running (not zombie) ``sleep LEFTOVER_SLEEP`` processes on this machine,
+    wherever they were re-parented."""
+    found = set()
+    for proc in psutil.process_iter(["cmdline", "status"]):
+        if proc.info["cmdline"] == ["sleep", LEFTOVER_SLEEP] and proc.info["status"] != psutil.STATUS_ZOMBIE:
+            found.add(proc.pid)
+    return found
+
+
+def _wait_for_sleepers(count: int, within_seconds: float = 5.0) -> set[int]:
+    deadline = time.monotonic() + within_seconds
+    while time.monotonic() < deadline:
+        found = sleepers()
+        if len(found) >= count:
+            return found
+        time.sleep(0.05)
+    return sleepers()
+
+
+@pytest.mark.parametrize("attr", ["sleeper_fft", "session_sleeper_fft", "daemon_sleeper_fft"])
+def test_processes_a_backend_starts_end_with_its_worker(attr):
+    """A backend that starts ``sleep`` on every call (a plain child, one in a new session, a
+    daemon re-parented away from it): the sleepers run while the worker lives, the worker
+    says how many each job left running, and none is left after close (counted with psutil
+    before and after)."""
+    before = sleepers()
+    x = signal_x(8)
+    with Worker(spec(attr)) as worker:
+        for _ in range(2):
+            y = worker.call(PLAN, FFT8, x, timeout_seconds=TIMEOUT_SECONDS)
+            np.testing.assert_array_equal(y, np.fft.fft(x))  # reference: numpy.fft
+            assert worker.left_running == 1
+        assert len(_wait_for_sleepers(len(before) + 2) - before) == 2
+        y = worker.call(DESCRIBE, timeout_seconds=TIMEOUT_SECONDS)
+        assert worker.left_running == 0
+    assert worker.processes_ended == 2
+    assert _gone_all(sleepers() - before), f"{attr} left sleepers behind"
+
+
+def _gone_all(pids: set[int], within_seconds: float = 5.0) -> bool:
+    return all(_gone(pid, within_seconds) for pid in pids)
+
+
+@pytest.mark.parametrize("attr, pattern", [
+    ("daemon_then_abort_fft", r"^the backend aborted \(signal 6, SIGABRT\) .*; 1 process it had started "
+                              r"was ended with it$"),
+    ("daemon_then_hang_fft", r"^did not finish within 2 s; killed .*; 1 process it had started was ended "
+                             r"with it$"),
+])
+def test_processes_of_a_dead_or_stopped_child_are_ended(attr, pattern):
+    """A backend that daemonises a sleeper and then aborts (its orphans go to init: they are
+    found by the token they inherited) or hangs until the timeout: the reason says a process
+    was ended, and no sleeper is left."""
+    before = sleepers()
+    with Worker(spec(attr)) as worker:
+        with pytest.raises(BackendFailure, match=pattern):
+            worker.call(PLAN, FFT8, signal_x(8), timeout_seconds=SHORT_TIMEOUT_SECONDS)
+        assert worker.processes_ended == 1
+    assert _gone_all(sleepers() - before), f"{attr} left a sleeper behind"

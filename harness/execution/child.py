@@ -5,9 +5,12 @@ child process. It silences standard output, sends standard error (faulthandler's
 included) to the worker's log, ignores SIGINT (the parent decides on Ctrl-C), switches core
 dumps off, applies the memory cap, watches its parent, loads the backend from its SPEC and
 says so, then answers one job request at a time until told to stop or until the parent's end
-of the pipe closes. Each reply is a pickled ``(status, payload)``: ``ok`` with the job's
-result, ``unsupported`` or ``failed`` with a one-line reason made here (so an exception that
-cannot be pickled still comes back readable), or ``bad-func``.
+of the pipe closes. Each reply is a pickled ``(status, payload, left)``: ``ok`` with the
+job's result, ``unsupported`` or ``failed`` with a one-line reason made here (so an exception
+that cannot be pickled still comes back readable), or ``bad-func``; ``left`` lists the
+processes the job started that still run. The child leads a session of its own and is a child
+subreaper (:mod:`~fftgauge.harness.execution.processes`), so whatever a backend starts stays
+findable, and it ends those processes when it stops.
 """
 
 from __future__ import annotations
@@ -24,6 +27,7 @@ from typing import Any
 from fftgauge.harness.errors import UnsupportedCase, UsageError
 from fftgauge.harness.execution import jobs
 from fftgauge.harness.execution.crash import describe_exception, job_failure_reason, one_line, safe_str
+from fftgauge.harness.execution.processes import TOKEN_VARIABLE, become_subreaper, descendant_pids, end_descendants
 
 #: How often, in seconds, the child checks that its parent is still there.
 ORPHAN_CHECK_SECONDS = 0.5
@@ -32,12 +36,24 @@ ORPHAN_EXIT_CODE = 70
 
 
 def child_main(conn: Any, spec: str, threads: int | None, memory_limit_bytes: int | None,
-               log_path: str, parent_pid: int, parents_end: Any = None) -> None:
+               log_path: str, parent_pid: int, parents_end: Any = None, token: str | None = None) -> None:
     """Entry point of the child: load the backend, say so, then serve jobs until told to stop
-    (or until the parent's end of the pipe closes). Returns when done; raises nothing the
-    parent must catch (a backend that exits or crashes ends the process, which the parent sees)."""
+    (or until the parent's end of the pipe closes), and end the processes the backend left.
+
+    Returns when done; raises nothing the parent must catch (a backend that exits or crashes
+    ends the process, which the parent sees). ``token`` goes into the environment as
+    :data:`~fftgauge.harness.execution.processes.TOKEN_VARIABLE`, for every descendant.
+    """
     if parents_end is not None:  # fork: the copy of the parent's end this child inherited
         parents_end.close()
+    if hasattr(os, "setsid"):
+        try:
+            os.setsid()  # a session and process group of its own, which the parent kills whole
+        except OSError:  # already a group leader
+            pass
+    subreaper = become_subreaper()
+    if token is not None:
+        os.environ[TOKEN_VARIABLE] = token
     redirect_outputs(log_path)
     faulthandler.enable(all_threads=False)
     if hasattr(signal, "SIGUSR1"):
@@ -58,19 +74,56 @@ def child_main(conn: Any, spec: str, threads: int | None, memory_limit_bytes: in
                 if isinstance(exc, MemoryError) and memory_limit_bytes else "")
         conn.send(("usage", f"backend {spec!r} failed to load: {describe_exception(exc)}{hint}"))
         return
-    conn.send(("ready", {"main_thread": threading.main_thread().ident}))
-    while True:
+    conn.send(("ready", {"main_thread": threading.main_thread().ident, "subreaper": subreaper}))
+    try:
+        while True:
+            try:
+                request = conn.recv()
+            except (EOFError, OSError):  # the parent has gone
+                return
+            if request is None:  # told to stop: close the backend, end what it left, say how many
+                close_backend(backend)
+                conn.send(("bye", end_descendants(os.getpid())))
+                return
+            conn.send_bytes(run_job(backend, *request))
+    finally:
+        end_descendants(os.getpid())
+
+
+def close_backend(backend: Any) -> None:
+    """Call ``backend.close()`` when the adapter has one (a program's adapter stops its
+    program there). Never raises: the child is stopping anyway."""
+    close = getattr(backend, "close", None)
+    if callable(close):
         try:
-            request = conn.recv()
-        except (EOFError, OSError):  # the parent has gone
-            return
-        if request is None:
-            return
-        conn.send_bytes(run_job(backend, *request))
+            close()
+        except BaseException:  # noqa: BLE001 - whatever the adapter's clean-up does, stop
+            pass
 
 
 def run_job(backend: Any, func: str, args: tuple) -> bytes:
-    """Run the job called ``func`` on ``backend`` and return the pickled ``(status, payload)`` reply.
+    """Run the job called ``func`` on ``backend`` and return the pickled reply
+    ``(status, payload, left)``; ``left`` lists the pids of processes the job started that
+    are still running (see :func:`job_reply`).
+
+    Raises
+    ------
+    SystemExit
+        When the backend asked the process to exit (let through: the parent reports it).
+    """
+    before = descendant_pids(os.getpid())
+    status, payload = job_reply(backend, func, args)
+    left = sorted(descendant_pids(os.getpid()) - before)
+    try:
+        return bytes(ForkingPickler.dumps((status, payload, left)))
+    except Exception as exc:  # noqa: BLE001
+        return bytes(ForkingPickler.dumps(("failed", f"the job's result cannot be sent back to the "
+                                                     f"main process: {describe_exception(exc)}", left)))
+
+
+def job_reply(backend: Any, func: str, args: tuple) -> tuple[str, Any]:
+    """Run the job called ``func`` on ``backend`` and return ``(status, payload)``: ``ok`` and
+    the result, ``unsupported`` or ``failed`` and a one-line reason, or ``bad-func``.
 
     Raises
     ------
@@ -80,20 +133,15 @@ def run_job(backend: Any, func: str, args: tuple) -> bytes:
     try:
         fn = jobs.resolve(func)
     except LookupError as exc:
-        return bytes(ForkingPickler.dumps(("bad-func", str(exc))))
+        return "bad-func", str(exc)
     try:
-        value = fn(backend, *args)
+        return "ok", fn(backend, *args)
     except SystemExit:
         raise
     except UnsupportedCase as exc:
-        return bytes(ForkingPickler.dumps(("unsupported", one_line(safe_str(exc)))))
+        return "unsupported", one_line(safe_str(exc))
     except BaseException as exc:  # noqa: BLE001 - any failure of backend code is a result
-        return bytes(ForkingPickler.dumps(("failed", job_failure_reason(exc))))
-    try:
-        return bytes(ForkingPickler.dumps(("ok", value)))
-    except Exception as exc:  # noqa: BLE001
-        return bytes(ForkingPickler.dumps(("failed", f"the job's result cannot be sent back to the "
-                                                     f"main process: {describe_exception(exc)}")))
+        return "failed", job_failure_reason(exc)
 
 
 def redirect_outputs(log_path: str) -> None:
@@ -138,6 +186,7 @@ def watch_parent(parent_pid: int, log_path: str) -> None:
                     os.unlink(log_path)
                 except OSError:
                     pass
+                end_descendants(os.getpid())
                 os._exit(ORPHAN_EXIT_CODE)
             time.sleep(ORPHAN_CHECK_SECONDS)
 

@@ -59,6 +59,21 @@ def memory_cap_text(limit_bytes: int) -> str:
     return f"exceeded the memory cap of {gib(limit_bytes)}"
 
 
+def processes_text(count: int) -> str:
+    """Return ``"1 process"`` or ``"N processes"``."""
+    return f"{count} process" + ("" if count == 1 else "es")
+
+
+def leftover_text(count: int) -> str:
+    """Return the note for a job that left ``count`` processes it started running."""
+    return f"it left {processes_text(count)} running (ended with its worker)"
+
+
+def ended_text(count: int) -> str:
+    """Return the note for a worker that had to end ``count`` processes its backend started."""
+    return f"{processes_text(count)} it had started {'was' if count == 1 else 'were'} ended with it"
+
+
 # -- where the code was ------------------------------------------------------------------------
 def engine_dirs() -> tuple[str, ...]:
     """Return the folders whose frames are never 'the user's code': the standard library,

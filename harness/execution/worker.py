@@ -78,6 +78,7 @@ import multiprocessing
 import multiprocessing.connection
 import multiprocessing.util  # noqa: F401 - its atexit hook must be registered before ours
 import os
+import secrets
 import signal
 import tempfile
 import time
@@ -90,11 +91,15 @@ import numpy as np
 from fftgauge.harness.errors import BackendFailure, UnsupportedCase, UsageError
 from fftgauge.harness.execution import jobs
 from fftgauge.harness.execution.child import child_main
-from fftgauge.harness.execution.crash import (death_reason, describe_exception, read_log_tail, remove_file,
-                                              thread_stack, truncate_log, user_location)
+from fftgauge.harness.execution.crash import (death_reason, describe_exception, ended_text, leftover_text,
+                                              read_log_tail, remove_file, thread_stack, truncate_log,
+                                              user_location)
+from fftgauge.harness.execution.processes import end_processes, kill_group, wait_gone, worker_processes
 
 #: Seconds a child gets to exit after ``terminate()`` (SIGTERM) before ``kill()`` (SIGKILL).
 KILL_GRACE_SECONDS = 1.0
+#: Seconds a child told to stop gets to close its backend and say how many processes it ended.
+CLOSE_WAIT_SECONDS = 5.0
 #: Default seconds a fresh child gets to start and load its backend (imports included).
 START_TIMEOUT_SECONDS = 120.0
 #: Seconds the parent waits for a timed-out child to report where it is.
@@ -141,6 +146,14 @@ class Worker:
         self.start_timeout_seconds = float(start_timeout_seconds)
         #: How many children this worker has started (a crash or timeout costs one more).
         self.starts = 0
+        #: How many processes started by the last job were still running when it returned.
+        self.left_running = 0
+        #: How many processes the backend started that the worker had to end (when it
+        #: stopped a child: at close, after a crash or a timeout).
+        self.processes_ended = 0
+        self._token = secrets.token_hex(16)
+        self._known_pids: set[int] = set()
+        self._subreaper = False
         self._ctx = multiprocessing.get_context(start_method)
         self._process: Any = None
         self._conn: Any = None
@@ -209,19 +222,22 @@ class Worker:
                 self._conn.send_bytes(request)
             except OSError:  # the child died between jobs and after the liveness check
                 raise self._death_failure(during="") from None
-            status, payload = self._await_reply(timeout_seconds, loading=False)
+            self.left_running = 0
+            status, payload, left = self._await_reply(timeout_seconds, loading=False)
         except (BackendFailure, UsageError):
             raise
         except BaseException:  # KeyboardInterrupt included: a child in an unknown state goes
             self._stop_child()
             raise
+        self.left_running = len(left)
+        self._known_pids.update(left)
         if status == "ok":
             return payload
         if status == "unsupported":
             raise UnsupportedCase(payload)
         if status == "bad-func":
             raise RuntimeError(payload)
-        raise BackendFailure(payload)
+        raise BackendFailure(payload + (f"; {leftover_text(len(left))}" if left else ""))
 
     def close(self) -> None:
         """Stop the child (asking it first, then terminate/kill) and remove its log. Idempotent."""
@@ -229,8 +245,12 @@ class Worker:
         if self._process is not None and self._process.is_alive() and self._conn is not None:
             try:
                 self._conn.send_bytes(bytes(ForkingPickler.dumps(None)))
+                if self._conn.poll(CLOSE_WAIT_SECONDS):
+                    status, ended = self._conn.recv()
+                    if status == "bye":
+                        self.processes_ended += ended
                 self._process.join(KILL_GRACE_SECONDS)
-            except (OSError, ValueError):
+            except (OSError, ValueError, EOFError, TypeError):
                 pass
         self._stop_child()
         if self._log_remover is not None:
@@ -268,7 +288,7 @@ class Worker:
         process = self._ctx.Process(
             target=child_main, name=f"fftgauge-worker {self.spec}",
             args=(child_conn, self.spec, self.threads, self.memory_limit_bytes, self._log_path,
-                  os.getpid(), inherited))
+                  os.getpid(), inherited, self._token))
         process.start()
         child_conn.close()
         self._process, self._conn = process, parent_conn
@@ -279,9 +299,11 @@ class Worker:
             self._stop_child()
             raise UsageError(payload)
         self._main_ident = payload["main_thread"]
+        self._subreaper = payload.get("subreaper", False)
 
-    def _await_reply(self, timeout_seconds: float | None, loading: bool) -> tuple[str, Any]:
-        """Return the child's next message, or stop the child and raise BackendFailure."""
+    def _await_reply(self, timeout_seconds: float | None, loading: bool) -> tuple:
+        """Return the child's next message (``(status, payload)`` when loading, else
+        ``(status, payload, left)``), or stop the child and raise BackendFailure."""
         during = " while loading" if loading else ""
         ready = multiprocessing.connection.wait([self._conn, self._process.sentinel], timeout_seconds)
         if self._conn in ready:
@@ -297,21 +319,23 @@ class Worker:
         if ready:
             raise self._death_failure(during)
         where = self._ask_where()
-        self._stop_child()
+        ended = self._stop_child()
         what = "finish loading" if loading else "finish"
         raise BackendFailure(f"did not {what} within {timeout_seconds:g} s; killed"
-                             + (f" (it was at {where})" if where else ""))
+                             + (f" (it was at {where})" if where else "")
+                             + (f"; {ended_text(ended)}" if ended else ""))
 
     def _death_failure(self, during: str) -> BackendFailure:
         """Reap the dead (or dying) child and return the BackendFailure saying how it died."""
         self._process.join(KILL_GRACE_SECONDS)
         code = self._process.exitcode
         log = read_log_tail(self._log_path)
-        self._stop_child()
+        ended = self._stop_child()
+        tail = f"; {ended_text(ended)}" if ended else ""
         if code is None:  # the pipe broke but the process lived on: it has been stopped now
             return BackendFailure(f"the backend closed its connection to the main process{during}; "
-                                  f"stopped")
-        return BackendFailure(death_reason(code, log, during, self.memory_limit_bytes))
+                                  f"stopped{tail}")
+        return BackendFailure(death_reason(code, log, during, self.memory_limit_bytes) + tail)
 
     def _ask_where(self) -> str | None:
         """Return where the running child's main thread is, via faulthandler's SIGUSR1 dump."""
@@ -329,14 +353,23 @@ class Worker:
                 return user_location(frames)
         return None
 
-    def _stop_child(self) -> None:
-        """Terminate, then kill, then join the child; close the pipe. Safe to call twice."""
+    def _stop_child(self) -> int:
+        """End every process the backend started, then terminate, kill and join the child;
+        close the pipe. Returns how many of the backend's processes had to be ended (they are
+        added to :attr:`processes_ended`). Safe to call twice."""
         process, conn = self._process, self._conn
         self._process = self._conn = None
         if conn is not None:
             conn.close()
         if process is None:
-            return
+            return 0
+        alive = process.exitcode is None
+        # While the child lives (a subreaper) its descendants are its children's tree; after
+        # it died, or where it is no subreaper, they are found by the token they inherited.
+        procs = worker_processes(process.pid, self._token if not (alive and self._subreaper) else None,
+                                 self._known_pids)
+        ended = end_processes(procs)
+        kill_group(process.pid)  # its session's group: what it started with no new session
         if process.exitcode is None:
             process.terminate()
             process.join(KILL_GRACE_SECONDS)
@@ -344,6 +377,14 @@ class Worker:
             process.kill()
         process.join()
         process.close()
+        if alive and procs:  # stragglers forked while the first ones were ended
+            more = worker_processes(None, self._token)
+            ended += end_processes(more)
+            procs += more
+        wait_gone(procs)
+        self._known_pids.clear()
+        self.processes_ended += ended
+        return ended
 
 
 def run_jobs(worker: Worker, func: Callable[..., Any], arg_list: Iterable[tuple], timeout_seconds: float

@@ -13,6 +13,7 @@ from __future__ import annotations
 import ctypes
 import os
 import signal
+import subprocess
 import sys
 import time
 
@@ -82,6 +83,44 @@ def chatty_fft(x):
     sys.stdout.flush()
     os.write(1, line.encode())
     return np.fft.fft(x)
+
+
+#: How long the processes the leaving backends start sleep, in seconds: a value no other
+#: process on a test machine uses, so the tests can count them by their command line.
+LEFTOVER_SLEEP = "987.654"
+
+
+def sleeper_fft(x):
+    """Start ``sleep LEFTOVER_SLEEP`` (a plain child, in the worker's session) and return the
+    right transform, leaving the sleeper running."""
+    subprocess.Popen(["sleep", LEFTOVER_SLEEP])
+    return np.fft.fft(x)
+
+
+def session_sleeper_fft(x):
+    """Start ``sleep LEFTOVER_SLEEP`` in a new session (``start_new_session``), then return."""
+    subprocess.Popen(["sleep", LEFTOVER_SLEEP], start_new_session=True)
+    return np.fft.fft(x)
+
+
+def daemon_sleeper_fft(x):
+    """Start a daemonised ``sleep LEFTOVER_SLEEP`` (a shell runs ``setsid sleep ... &`` and
+    exits, so the sleeper is an orphan in a session of its own), then return."""
+    subprocess.run(["sh", "-c", f"setsid sleep {LEFTOVER_SLEEP} >/dev/null 2>&1 &"], check=True)
+    return np.fft.fft(x)
+
+
+def daemon_then_abort_fft(x):
+    """Start a daemonised sleeper, wait until it runs, then abort the process (SIGABRT)."""
+    daemon_sleeper_fft(x)
+    time.sleep(0.3)
+    os.abort()
+
+
+def daemon_then_hang_fft(x):
+    """Start a daemonised sleeper, then hang (until the worker's timeout stops the job)."""
+    daemon_sleeper_fft(x)
+    hang_fft(x)
 
 
 class _Unpicklable(Exception):
