@@ -12,6 +12,7 @@ import copy
 import json
 import math
 import os
+import re
 import sys
 import xml.etree.ElementTree as ET
 
@@ -432,7 +433,7 @@ def test_bad_inputs_exit_2_with_one_line_through_the_cli(tmp_path, time_doc, mon
 
 
 def test_markdown_table_escapes_pipes_and_newlines():
-    from fftgauge.harness.report.time_tables import markdown_table
+    from fftgauge.harness.report.markup import markdown_table
 
     assert markdown_table(["a|b", "c"], [["x|y", "1\n2"]]) == "| a\\|b | c |\n|---|---|\n| x\\|y | 1 2 |"
 
@@ -557,3 +558,45 @@ def test_incomplete_run_is_noted(tmp_path, time_doc, capsys):
     done = write(tmp_path, "done.json", json.dumps({**time_doc, "complete": True}))
     assert run_report([done, "--no-plots", "--out", str(tmp_path / "o")]) == 0
     assert "did not complete" not in capsys.readouterr().out
+
+
+# --------------------------------------------------------------------------- escaping what reports quote
+
+HOSTILE_NAME = "evil|<img src=x onerror=alert(1)>`code`\nnext"
+
+
+def test_reports_escape_what_they_quote(tmp_path, time_doc, check_doc, capsys):
+    """A backend name and a message from a file are shown literally: in Markdown no raw HTML, no extra table
+    cell, no code span, no line break; in HTML only entities (the page still parses as XML)."""
+    timed = {**time_doc, "rows": [{**r, "backend": HOSTILE_NAME} if r["backend"] == "pyfftw" else r
+                                  for r in time_doc["rows"]]}
+    checked = {**check_doc, "rows": [{**r, "backend": HOSTILE_NAME, "message": "bad | <b>bold</b>"}
+                                     if r["backend"] == "demo-recurrence" else r for r in check_doc["rows"]]}
+    md, page = tmp_path / "r.md", tmp_path / "r.html"
+    argv = [write(tmp_path, "t.json", json.dumps(timed)), write(tmp_path, "c.json", json.dumps(checked)),
+            "--no-plots", "--out", str(tmp_path / "o"), "--markdown", str(md), "--html", str(page)]
+    assert run_report(argv) == 0
+    text = md.read_text(encoding="utf-8")
+    fenced = re.findall(r"^(`{3,})text\n.*?\n\1$", text, flags=re.S | re.M)
+    assert fenced  # the scaling text, literal inside a fence that nothing in it can close
+    text = re.sub(r"^(`{3,})text\n.*?\n\1$", "", text, flags=re.S | re.M)
+    assert "<img" not in text and "<b>" not in text and "onerror=alert(1)&gt;" in text
+    shown = r"evil\|&lt;img src=x onerror=alert(1)&gt;\`code\` next"
+    assert shown in text
+    tables = [t for t in text.split("\n\n") if t.startswith("|")]
+    assert tables
+    for table in tables:
+        widths = {len(re.split(r"(?<!\\)\|", line)) for line in table.splitlines()}
+        assert len(widths) == 1, table
+    body = page.read_text(encoding="utf-8")
+    assert "<img src=x" not in body and "&lt;img src=x onerror=alert(1)&gt;" in body
+    ET.fromstring(body.split("\n", 1)[1])
+
+
+def test_markdown_escaping_and_fences():
+    from fftgauge.harness.report.markup import escape_markdown, markdown_fence
+
+    assert escape_markdown("a_b*c [x](y) #1 ~z~") == r"a\_b\*c \[x\](y) \#1 \~z\~"
+    assert escape_markdown("1 < 2 & 3 > 2") == "1 &lt; 2 &amp; 3 &gt; 2"
+    fenced = markdown_fence("before ``` inside")
+    assert fenced.startswith("````text\n") and fenced.endswith("\n````")

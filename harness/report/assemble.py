@@ -89,7 +89,8 @@ def make_report(request: ReportRequest) -> ReportOutcome:
     """
     from fftgauge.harness.errors import UsageError
     from fftgauge.harness.report.inputs import load_inputs
-    from fftgauge.harness.report.pages import build_blocks, render_html, render_markdown
+    from fftgauge.harness.report.markup import render_html, render_markdown
+    from fftgauge.harness.report.pages import build_blocks
     from fftgauge.harness.timing.scaling import scaling_report
 
     inputs = load_inputs(list(request.results))

@@ -105,12 +105,6 @@ def comparison_blocks(df: pd.DataFrame, micro: str = "us") -> list[dict[str, Any
     return out
 
 
-def _marked(block: dict[str, Any], mark) -> list[list[str]]:
-    """Return the block's rows with the fastest cell passed through ``mark``."""
-    return [[mark(cell) if j == best else cell for j, cell in enumerate(row)]
-            for row, best in zip(block["rows"], block["fastest"])]
-
-
 def format_comparison(df: pd.DataFrame) -> str:
     """Return the table as terminal text: one block per kind x dtype, the fastest cell marked ``*``.
 
@@ -134,16 +128,6 @@ def format_comparison(df: pd.DataFrame) -> str:
     return "\n\n".join(parts)
 
 
-def markdown_table(header: list[str], rows: list[list[str]]) -> str:
-    """Return a Markdown (GitHub) table; ``|`` in cells is escaped."""
-    def clean(cell: Any) -> str:
-        return str(cell).replace("|", "\\|").replace("\n", " ")
-
-    lines = ["| " + " | ".join(clean(h) for h in header) + " |", "|" + "|".join("---" for _ in header) + "|"]
-    lines += ["| " + " | ".join(clean(c) for c in row) + " |" for row in rows]
-    return "\n".join(lines)
-
-
 def markdown_comparison(df: pd.DataFrame, heading_level: int = 3) -> str:
     """Return the table as Markdown: one table per kind x dtype, the fastest cell in bold.
 
@@ -154,10 +138,13 @@ def markdown_comparison(df: pd.DataFrame, heading_level: int = 3) -> str:
     heading_level
         Markdown heading level of each block's title.
     """
+    from fftgauge.harness.report.markup import markdown_table
+
     if df.empty:
         return "no timed cases\n"
     parts = []
     for block in comparison_blocks(df, "µs"):
         title = f"{'#' * heading_level} {block['kind']} {block['dtype']}: median time per transform (fastest in bold)"
-        parts.append(title + "\n\n" + markdown_table(block["header"], _marked(block, lambda c: f"**{c}**")))
+        bold = {(i, j) for i, j in enumerate(block["fastest"]) if j is not None}
+        parts.append(title + "\n\n" + markdown_table(block["header"], block["rows"], bold))
     return "\n\n".join(parts) + "\n"
