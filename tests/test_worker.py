@@ -141,8 +141,10 @@ MISBEHAVIOURS = [
     ("exit_fft", r"^the backend exited with code 3$", True, {}),
     ("raise_fft", r"^ValueError: this backend refuses every input \(at .*" + LOCATION + r"raise_fft\)$",
      False, {}),
-    ("hog_fft", r"^ran out of memory \(MemoryError: .*\) \(at .*" + LOCATION + r"hog_fft\)$",
+    ("hog_fft", r"^exceeded the memory cap of 4 GiB \(MemoryError: .*\) \(at .*" + LOCATION + r"hog_fft\)$",
      False, {"memory_limit_bytes": 4 * 2**30}),
+    ("hog_fft", r"^ran out of memory \(MemoryError: .*\) \(at .*" + LOCATION + r"hog_fft\)$",
+     False, {"memory_limit_bytes": None}),
     ("unpicklable_error_fft", r"^_Unpicklable: code 17: an error that cannot be pickled \(at .*"
      + LOCATION + r"unpicklable_error_fft\)$", False, {}),
     ("unprintable_error_fft", r"^_Unprintable: <_Unprintable whose message cannot be shown>", False, {}),
@@ -150,7 +152,8 @@ MISBEHAVIOURS = [
 
 
 @pytest.mark.parametrize("attr, pattern, replaced, kwargs", MISBEHAVIOURS,
-                         ids=[m[0] for m in MISBEHAVIOURS])
+                         ids=[m[0] + ("-uncapped" if m[3].get("memory_limit_bytes", 0) is None else "")
+                              for m in MISBEHAVIOURS])
 def test_misbehaving_backend_gives_reason_and_worker_goes_on(attr, pattern, replaced, kwargs):
     with Worker(spec(attr), **kwargs) as worker:
         with pytest.raises(BackendFailure, match=pattern) as info:
@@ -159,7 +162,7 @@ def test_misbehaving_backend_gives_reason_and_worker_goes_on(attr, pattern, repl
         failed_pid = worker.pid
         # A good job after the bad one: runs in the same child, or in a fresh one.
         described = as_dict(worker.call(DESCRIBE, timeout_seconds=TIMEOUT_SECONDS))
-        assert described["name"] == spec(attr)
+        assert described["name"].endswith(attr)  # the backend the SPEC names
         assert worker.starts == (2 if replaced else 1)
         assert (failed_pid is None) == replaced
         last_pid = worker.pid
@@ -254,7 +257,8 @@ def test_spec_that_fails_to_load_is_a_usage_error():
         assert "\n" not in str(info.value)
 
 
-@pytest.mark.parametrize("kwargs", [{"threads": 0}, {"memory_limit_bytes": -1},
+@pytest.mark.parametrize("kwargs", [{"threads": 0}, {"memory_limit_bytes": -1}, {"memory_limit_bytes": "big"},
+                                    {"concurrency": 0}, {"cpu_limit_seconds": 0},
                                     {"start_method": "teleport"}, {"start_timeout_seconds": 0}])
 def test_bad_worker_settings_are_usage_errors(kwargs):
     with pytest.raises(UsageError):
@@ -442,3 +446,52 @@ def test_processes_of_a_dead_or_stopped_child_are_ended(attr, pattern):
             worker.call(PLAN, FFT8, signal_x(8), timeout_seconds=SHORT_TIMEOUT_SECONDS)
         assert worker.processes_ended == 1
     assert _gone_all(sleepers() - before), f"{attr} left a sleeper behind"
+
+
+# -- resource limits -----------------------------------------------------------------------
+CAP_512_MIB = 512 * 2**20
+
+
+def test_allocation_past_the_cap_is_an_error_reason():
+    """A backend allocating 2 GiB under a 512 MiB cap: the job fails at once with the cap
+    named (never the system's out-of-memory killer), even under a short timeout, and the
+    same child goes on (reference for the good job: numpy.fft)."""
+    with Worker(spec("hog_2gib_fft"), memory_limit_bytes=CAP_512_MIB) as worker:
+        with pytest.raises(BackendFailure, match=r"^exceeded the memory cap of 0\.5 GiB \(MemoryError: "
+                                                 r".*\) \(at .*" + LOCATION + r"hog_2gib_fft\)$"):
+            worker.call(PLAN, FFT8, signal_x(8), timeout_seconds=SHORT_TIMEOUT_SECONDS)
+        assert worker.starts == 1 and worker.pid is not None
+        assert as_dict(worker.call(DESCRIBE, timeout_seconds=TIMEOUT_SECONDS))["name"].endswith("hog_2gib_fft")
+
+
+def test_hog_stopped_by_the_timeout_at_its_cap_is_reported_as_memory():
+    """A backend that takes memory step by step and, at the cap, swallows the MemoryError and
+    waits: the short timeout stops it, and the reason says memory first, not only time."""
+    with Worker(spec("slow_hog_fft"), memory_limit_bytes=CAP_512_MIB) as worker:
+        with pytest.raises(BackendFailure, match=r"^exceeded the memory cap of 0\.5 GiB and did not "
+                                                 r"finish within 2 s; killed"):
+            worker.call(PLAN, FFT8, signal_x(8), timeout_seconds=SHORT_TIMEOUT_SECONDS)
+
+
+def test_cpu_time_limit_ends_a_spinning_job():
+    """A job that spins with SIGTERM ignored under a 1 s CPU-time limit and a long wall-clock
+    timeout: the kernel ends it (SIGXCPU) and the reason names the CPU-time limit."""
+    with Worker(spec("busy_fft"), cpu_limit_seconds=1) as worker:
+        with pytest.raises(BackendFailure, match=r"^used more than its CPU-time limit of 1 s "
+                                                 r"\(signal 24, SIGXCPU\); killed$"):
+            worker.call(PLAN, FFT8, signal_x(8), timeout_seconds=60)
+        assert worker.pid is None
+
+
+def test_default_memory_cap():
+    """Half of the physical memory over the workers running at once, at least 2 GiB
+    (limits.default_memory_limit_bytes; this machine's memory from psutil)."""
+    from fftgauge.harness.execution.limits import default_memory_limit_bytes, physical_memory_bytes
+
+    assert default_memory_limit_bytes(4, physical_bytes=64 * 2**30) == 8 * 2**30
+    assert default_memory_limit_bytes(1, physical_bytes=3 * 2**30) == 2 * 2**30
+    expected = max(2 * 2**30, physical_memory_bytes() // 2 // 2**20 * 2**20)
+    assert Worker("numpy").memory_limit_bytes == expected
+    assert Worker("numpy", memory_limit_bytes=None).memory_limit_bytes is None
+    with pytest.raises(ValueError):
+        default_memory_limit_bytes(0)

@@ -3,7 +3,7 @@
 :func:`child_main` is what a :class:`~fftgauge.harness.execution.worker.Worker` starts in its
 child process. It silences standard output, sends standard error (faulthandler's stacks
 included) to the worker's log, ignores SIGINT (the parent decides on Ctrl-C), switches core
-dumps off, applies the memory cap, watches its parent, loads the backend from its SPEC and
+dumps off, applies the memory cap (:mod:`~fftgauge.harness.execution.limits`), watches its parent, loads the backend from its SPEC and
 says so, then answers one job request at a time until told to stop or until the parent's end
 of the pipe closes. Each reply is a pickled ``(status, payload, left)``: ``ok`` with the
 job's result, ``unsupported`` or ``failed`` with a one-line reason made here (so an exception
@@ -26,7 +26,8 @@ from typing import Any
 
 from fftgauge.harness.errors import UnsupportedCase, UsageError
 from fftgauge.harness.execution import jobs
-from fftgauge.harness.execution.crash import describe_exception, job_failure_reason, one_line, safe_str
+from fftgauge.harness.execution.crash import describe_exception, gib, job_failure_reason, one_line, safe_str
+from fftgauge.harness.execution.limits import limit_cpu, limit_memory, no_core_dumps
 from fftgauge.harness.execution.processes import TOKEN_VARIABLE, become_subreaper, descendant_pids, end_descendants
 
 #: How often, in seconds, the child checks that its parent is still there.
@@ -36,13 +37,15 @@ ORPHAN_EXIT_CODE = 70
 
 
 def child_main(conn: Any, spec: str, threads: int | None, memory_limit_bytes: int | None,
-               log_path: str, parent_pid: int, parents_end: Any = None, token: str | None = None) -> None:
+               log_path: str, parent_pid: int, parents_end: Any = None, token: str | None = None,
+               load_cpu_seconds: float | None = None) -> None:
     """Entry point of the child: load the backend, say so, then serve jobs until told to stop
     (or until the parent's end of the pipe closes), and end the processes the backend left.
 
     Returns when done; raises nothing the parent must catch (a backend that exits or crashes
     ends the process, which the parent sees). ``token`` goes into the environment as
-    :data:`~fftgauge.harness.execution.processes.TOKEN_VARIABLE`, for every descendant.
+    :data:`~fftgauge.harness.execution.processes.TOKEN_VARIABLE`, for every descendant;
+    ``load_cpu_seconds`` is the CPU-time limit of loading the backend (None: none).
     """
     if parents_end is not None:  # fork: the copy of the parent's end this child inherited
         parents_end.close()
@@ -61,8 +64,9 @@ def child_main(conn: Any, spec: str, threads: int | None, memory_limit_bytes: in
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     watch_parent(parent_pid, log_path)
     no_core_dumps()
-    if memory_limit_bytes is not None:
-        limit_memory(memory_limit_bytes)
+    if memory_limit_bytes is not None and not limit_memory(memory_limit_bytes):
+        memory_limit_bytes = None  # no cap on this platform: never blame one
+    limit_cpu(load_cpu_seconds)
     try:
         from fftgauge.backends.registry import load_backend
         backend = load_backend(spec, threads=threads)
@@ -70,11 +74,13 @@ def child_main(conn: Any, spec: str, threads: int | None, memory_limit_bytes: in
         conn.send(("usage", one_line(safe_str(exc), 1000)))
         return
     except Exception as exc:  # noqa: BLE001 - an adapter's own constructor may raise anything
-        hint = (f" (the memory limit of {memory_limit_bytes / 2**20:.0f} MiB may be too small)"
+        hint = (f" (the memory cap of {gib(memory_limit_bytes)} may be too small)"
                 if isinstance(exc, MemoryError) and memory_limit_bytes else "")
         conn.send(("usage", f"backend {spec!r} failed to load: {describe_exception(exc)}{hint}"))
         return
-    conn.send(("ready", {"main_thread": threading.main_thread().ident, "subreaper": subreaper}))
+    limit_cpu(None)
+    conn.send(("ready", {"main_thread": threading.main_thread().ident, "subreaper": subreaper,
+                         "memory_capped": memory_limit_bytes is not None}))
     try:
         while True:
             try:
@@ -85,7 +91,7 @@ def child_main(conn: Any, spec: str, threads: int | None, memory_limit_bytes: in
                 close_backend(backend)
                 conn.send(("bye", end_descendants(os.getpid())))
                 return
-            conn.send_bytes(run_job(backend, *request))
+            conn.send_bytes(run_job(backend, request, memory_limit_bytes))
     finally:
         end_descendants(os.getpid())
 
@@ -101,18 +107,24 @@ def close_backend(backend: Any) -> None:
             pass
 
 
-def run_job(backend: Any, func: str, args: tuple) -> bytes:
-    """Run the job called ``func`` on ``backend`` and return the pickled reply
-    ``(status, payload, left)``; ``left`` lists the pids of processes the job started that
-    are still running (see :func:`job_reply`).
+def run_job(backend: Any, request: tuple, memory_limit_bytes: int | None = None) -> bytes:
+    """Run one job request ``(func name, args, CPU seconds or None)`` on ``backend`` under
+    its CPU-time limit and return the pickled reply ``(status, payload, left)``; ``left``
+    lists the pids of processes the job started that are still running (see
+    :func:`job_reply`; ``memory_limit_bytes`` is the cap in force, for the reason).
 
     Raises
     ------
     SystemExit
         When the backend asked the process to exit (let through: the parent reports it).
     """
+    func, args, cpu_seconds = request
     before = descendant_pids(os.getpid())
-    status, payload = job_reply(backend, func, args)
+    limit_cpu(cpu_seconds)
+    try:
+        status, payload = job_reply(backend, func, args, memory_limit_bytes)
+    finally:
+        limit_cpu(None)
     left = sorted(descendant_pids(os.getpid()) - before)
     try:
         return bytes(ForkingPickler.dumps((status, payload, left)))
@@ -121,7 +133,8 @@ def run_job(backend: Any, func: str, args: tuple) -> bytes:
                                                      f"main process: {describe_exception(exc)}", left)))
 
 
-def job_reply(backend: Any, func: str, args: tuple) -> tuple[str, Any]:
+def job_reply(backend: Any, func: str, args: tuple, memory_limit_bytes: int | None = None
+              ) -> tuple[str, Any]:
     """Run the job called ``func`` on ``backend`` and return ``(status, payload)``: ``ok`` and
     the result, ``unsupported`` or ``failed`` and a one-line reason, or ``bad-func``.
 
@@ -141,7 +154,7 @@ def job_reply(backend: Any, func: str, args: tuple) -> tuple[str, Any]:
     except UnsupportedCase as exc:
         return "unsupported", one_line(safe_str(exc))
     except BaseException as exc:  # noqa: BLE001 - any failure of backend code is a result
-        return "failed", job_failure_reason(exc)
+        return "failed", job_failure_reason(exc, memory_limit_bytes)
 
 
 def redirect_outputs(log_path: str) -> None:
@@ -191,24 +204,3 @@ def watch_parent(parent_pid: int, log_path: str) -> None:
             time.sleep(ORPHAN_CHECK_SECONDS)
 
     threading.Thread(target=watch, name="fftgauge-parent-watch", daemon=True).start()
-
-
-def no_core_dumps() -> None:
-    """Set ``RLIMIT_CORE`` to 0: a battery that crashes a backend on purpose, case after
-    case, must not fill the disk with core files."""
-    try:
-        import resource
-        resource.setrlimit(resource.RLIMIT_CORE, (0, resource.getrlimit(resource.RLIMIT_CORE)[1]))
-    except (ImportError, ValueError, OSError):
-        pass
-
-
-def limit_memory(limit_bytes: int) -> None:
-    """Cap the address space (``RLIMIT_AS``) at ``limit_bytes`` (never above the hard limit)."""
-    try:
-        import resource
-    except ImportError:  # not POSIX: no limit is applied
-        return
-    soft, hard = resource.getrlimit(resource.RLIMIT_AS)
-    new = limit_bytes if hard == resource.RLIM_INFINITY else min(limit_bytes, hard)
-    resource.setrlimit(resource.RLIMIT_AS, (new, hard))

@@ -35,17 +35,21 @@ How the child is run, and why
   innermost frame in the backend's code. The log is emptied before every job, so it stays
   small. SIGINT is ignored in the child: on Ctrl-C the parent decides, and stops it. Core
   dumps are switched off in the child (``RLIMIT_CORE`` = 0).
-- **Memory.** ``memory_limit_bytes`` (Linux; POSIX systems that enforce ``RLIMIT_AS``) caps
-  the child's *address space* with :func:`resource.setrlimit`; an allocation beyond it
-  fails, and a :class:`MemoryError` in a job becomes "ran out of memory (MemoryError ...)".
-  The default is ``None`` (off) on purpose: ``RLIMIT_AS`` counts virtual reservations, not
-  memory in use, and healthy threaded backends reserve a lot they never touch (8 MiB of
-  stack per thread, glibc's 64 MiB malloc arena per thread, OpenBLAS/OpenMP/FFTW
-  per-thread buffers), so any limit tight enough to catch a runaway early would kill good
-  backends on many-core machines. Without a limit a runaway is still contained: it gets a
-  MemoryError, or the kernel's out-of-memory killer picks the child (the biggest process),
-  which becomes "was killed (signal 9, SIGKILL)". When you set a limit, be generous (for
-  example 2 GiB plus 16 times the largest input in bytes).
+- **Limits.** Each child runs under a memory cap (by default half of the physical memory
+  divided by ``concurrency``, at least 2 GiB; ``memory_limit_bytes=None`` lifts it) and
+  each job under a CPU-time limit beside its wall-clock timeout; see
+  :mod:`~fftgauge.harness.execution.limits` for which resource limits and why. An
+  allocation past the cap fails in the backend, and the :class:`MemoryError` becomes
+  "exceeded the memory cap of X GiB (MemoryError ...)"; a job that times out with its
+  memory at the cap is reported as "exceeded the memory cap of X GiB and did not finish
+  within N s", so a hog is never read as a slow backend nor left to the system's
+  out-of-memory killer.
+- **Descendants.** The child leads a session of its own and is a child subreaper (Linux),
+  and every process it starts inherits a token in its environment, so whatever a backend
+  starts (a plain child, one in a new session, a daemon) is found and ended when the
+  child stops (:mod:`~fftgauge.harness.execution.processes`). :attr:`Worker.left_running`
+  says how many processes the last job left running, :attr:`Worker.processes_ended` how
+  many the worker had to end, and a failure reason says so too.
 - **Leftovers.** :meth:`Worker.close` (also on leaving a ``with`` block) stops the child; an
   exception in the parent during a call (KeyboardInterrupt included) stops it too; an
   :mod:`atexit` hook closes every worker still open; and the child watches its parent and
@@ -92,12 +96,15 @@ from fftgauge.harness.errors import BackendFailure, UnsupportedCase, UsageError
 from fftgauge.harness.execution import jobs
 from fftgauge.harness.execution.child import child_main
 from fftgauge.harness.execution.crash import (death_reason, describe_exception, ended_text, leftover_text,
-                                              read_log_tail, remove_file, thread_stack, truncate_log,
+                                              memory_cap_text, read_log_tail, remove_file, thread_stack, truncate_log,
                                               user_location)
+from fftgauge.harness.execution.limits import cpu_seconds_for, default_memory_limit_bytes, memory_in_use_bytes
 from fftgauge.harness.execution.processes import end_processes, kill_group, wait_gone, worker_processes
 
 #: Seconds a child gets to exit after ``terminate()`` (SIGTERM) before ``kill()`` (SIGKILL).
 KILL_GRACE_SECONDS = 1.0
+#: Share of the memory cap past which a job that timed out is said to have reached the cap.
+NEAR_CAP_FRACTION = 0.9
 #: Seconds a child told to stop gets to close its backend and say how many processes it ended.
 CLOSE_WAIT_SECONDS = 5.0
 #: Default seconds a fresh child gets to start and load its backend (imports included).
@@ -117,8 +124,13 @@ class Worker:
     spec : the backend SPEC (``numpy``, ``pyfftw[threads=2]``, ``file.py:fn``, ...). It is
         parsed and loaded in the child only, on the first call.
     threads : passed to :func:`fftgauge.backends.registry.load_backend` in the child.
-    memory_limit_bytes : cap on the child's address space (``RLIMIT_AS``), or ``None`` (the
-        default: off; see the module docstring for why).
+    memory_limit_bytes : the child's memory cap in bytes (see
+        :mod:`~fftgauge.harness.execution.limits`); ``"auto"`` (the default) for
+        :func:`~fftgauge.harness.execution.limits.default_memory_limit_bytes` of
+        ``concurrency``; ``None`` lifts the cap.
+    concurrency : how many workers run at once (the default cap is shared between them).
+    cpu_limit_seconds : CPU-time limit of each job (``RLIMIT_CPU``); ``None`` (the default)
+        for the job's timeout times the CPU count plus a few seconds (never before the timeout).
     start_method : multiprocessing start method; ``spawn`` (the default) is the safe one.
     start_timeout_seconds : how long a fresh child may take to start and load the backend.
 
@@ -126,22 +138,36 @@ class Worker:
     ------
     UsageError
         For a start method this platform lacks, or a non-positive ``threads``,
-        ``memory_limit_bytes`` or ``start_timeout_seconds``.
+        ``memory_limit_bytes``, ``concurrency``, ``cpu_limit_seconds`` or
+        ``start_timeout_seconds``.
     """
 
-    def __init__(self, spec: str, threads: int | None = None, memory_limit_bytes: int | None = None,
+    def __init__(self, spec: str, threads: int | None = None, memory_limit_bytes: int | str | None = "auto",
+                 concurrency: int = 1, cpu_limit_seconds: float | None = None,
                  start_method: str = "spawn", start_timeout_seconds: float = START_TIMEOUT_SECONDS):
         if start_method not in multiprocessing.get_all_start_methods():
             raise UsageError(f"start method {start_method!r} is not available here; use one of "
                              f"{', '.join(multiprocessing.get_all_start_methods())}")
-        for name, value in (("threads", threads), ("memory_limit_bytes", memory_limit_bytes)):
+        for name, value in (("threads", threads), ("concurrency", concurrency),
+                            ("memory_limit_bytes", None if memory_limit_bytes == "auto" else memory_limit_bytes)):
             if value is not None and (not isinstance(value, (int, np.integer)) or value < 1):
                 raise UsageError(f"{name} must be a positive integer, got {value!r}")
+        if cpu_limit_seconds is not None and not (isinstance(cpu_limit_seconds, (int, float))
+                                                  and cpu_limit_seconds > 0):
+            raise UsageError(f"cpu_limit_seconds must be positive, got {cpu_limit_seconds!r}")
+        # A crash under a cap the caller chose names the cap (it may be too tight); the
+        # generous default is not named on every crash.
+        self._cap_chosen = memory_limit_bytes != "auto"
+        if memory_limit_bytes == "auto":
+            memory_limit_bytes = default_memory_limit_bytes(int(concurrency))
         if not start_timeout_seconds > 0:
             raise UsageError(f"start_timeout_seconds must be positive, got {start_timeout_seconds!r}")
         self.spec = spec
         self.threads = threads
-        self.memory_limit_bytes = memory_limit_bytes
+        #: The memory cap in bytes (None: none).
+        self.memory_limit_bytes = None if memory_limit_bytes is None else int(memory_limit_bytes)
+        self.cpu_limit_seconds = cpu_limit_seconds
+        self._job_cpu_seconds: float | None = None
         self.start_method = start_method
         self.start_timeout_seconds = float(start_timeout_seconds)
         #: How many children this worker has started (a crash or timeout costs one more).
@@ -214,7 +240,9 @@ class Worker:
             raise RuntimeError("this worker is closed")
         if self._usage_error is not None:
             raise UsageError(self._usage_error)
-        request = bytes(ForkingPickler.dumps((func.__name__, args)))  # unpicklable args: the caller's bug
+        cpu_seconds = cpu_seconds_for(timeout_seconds, self.cpu_limit_seconds)
+        # Unpicklable args are the caller's bug: raised here, as they are.
+        request = bytes(ForkingPickler.dumps((func.__name__, args, cpu_seconds)))
         try:
             self._ensure_child()
             truncate_log(self._log_path)
@@ -223,6 +251,7 @@ class Worker:
             except OSError:  # the child died between jobs and after the liveness check
                 raise self._death_failure(during="") from None
             self.left_running = 0
+            self._job_cpu_seconds = cpu_seconds
             status, payload, left = self._await_reply(timeout_seconds, loading=False)
         except (BackendFailure, UsageError):
             raise
@@ -288,11 +317,13 @@ class Worker:
         process = self._ctx.Process(
             target=child_main, name=f"fftgauge-worker {self.spec}",
             args=(child_conn, self.spec, self.threads, self.memory_limit_bytes, self._log_path,
-                  os.getpid(), inherited, self._token))
+                  os.getpid(), inherited, self._token,
+                  cpu_seconds_for(self.start_timeout_seconds, self.cpu_limit_seconds)))
         process.start()
         child_conn.close()
         self._process, self._conn = process, parent_conn
         self.starts += 1
+        self._job_cpu_seconds = cpu_seconds_for(self.start_timeout_seconds, self.cpu_limit_seconds)
         status, payload = self._await_reply(self.start_timeout_seconds, loading=True)
         if status == "usage":
             self._usage_error = payload
@@ -300,6 +331,8 @@ class Worker:
             raise UsageError(payload)
         self._main_ident = payload["main_thread"]
         self._subreaper = payload.get("subreaper", False)
+        if not payload.get("memory_capped", True):
+            self.memory_limit_bytes = None  # this platform has no cap: never blame one
 
     def _await_reply(self, timeout_seconds: float | None, loading: bool) -> tuple:
         """Return the child's next message (``(status, payload)`` when loading, else
@@ -319,9 +352,11 @@ class Worker:
         if ready:
             raise self._death_failure(during)
         where = self._ask_where()
+        at_cap = self._at_memory_cap()
         ended = self._stop_child()
         what = "finish loading" if loading else "finish"
-        raise BackendFailure(f"did not {what} within {timeout_seconds:g} s; killed"
+        raise BackendFailure((f"{memory_cap_text(self.memory_limit_bytes)} and " if at_cap else "")
+                             + f"did not {what} within {timeout_seconds:g} s; killed"
                              + (f" (it was at {where})" if where else "")
                              + (f"; {ended_text(ended)}" if ended else ""))
 
@@ -335,7 +370,16 @@ class Worker:
         if code is None:  # the pipe broke but the process lived on: it has been stopped now
             return BackendFailure(f"the backend closed its connection to the main process{during}; "
                                   f"stopped{tail}")
-        return BackendFailure(death_reason(code, log, during, self.memory_limit_bytes) + tail)
+        cap = self.memory_limit_bytes if self._cap_chosen else None
+        return BackendFailure(death_reason(code, log, during, cap, self._job_cpu_seconds) + tail)
+
+    def _at_memory_cap(self) -> bool:
+        """Return True when the running child's memory is within
+        :data:`NEAR_CAP_FRACTION` of its cap (a job stopped there ran into the cap)."""
+        if self.memory_limit_bytes is None or self._process is None:
+            return False
+        used = memory_in_use_bytes(self._process.pid)
+        return used is not None and used >= NEAR_CAP_FRACTION * self.memory_limit_bytes
 
     def _ask_where(self) -> str | None:
         """Return where the running child's main thread is, via faulthandler's SIGUSR1 dump."""

@@ -65,6 +65,29 @@ def hog_fft(x):
     return np.ones(HOG_BYTES // 8)
 
 
+#: Bytes the 2 GiB hog allocates (and touches), past the small cap the tests set.
+HOG_2GIB_BYTES = 2 * 2**30
+#: Bytes the slow hog takes per step.
+SLOW_HOG_STEP_BYTES = 32 * 2**20
+
+
+def hog_2gib_fft(x):
+    """Allocate HOG_2GIB_BYTES and touch every page (numpy.ones), then return the transform."""
+    np.ones(HOG_2GIB_BYTES // 8)
+    return np.fft.fft(x)
+
+
+def slow_hog_fft(x):
+    """Take memory a step at a time and keep it; when an allocation fails, swallow the
+    MemoryError and wait (a backend that retries): it holds the memory until stopped."""
+    held = []
+    while True:
+        try:
+            held.append(np.ones(SLOW_HOG_STEP_BYTES // 8))
+        except MemoryError:
+            time.sleep(0.05)
+
+
 def wrong_shape_fft(x):
     """Return a right transform of the wrong length (half of it)."""
     return np.fft.fft(x)[: len(x) // 2]
