@@ -36,6 +36,7 @@ import numpy as np
 
 from fftgauge.backends.base import Backend, Capabilities, OpCount, Plan
 from fftgauge import __version__
+from fftgauge.harness import dft
 from fftgauge.harness.cases import Case, norm_factor
 from fftgauge.harness.timing.opcount import OperationTally
 
@@ -74,14 +75,7 @@ def hermitian_spectrum(half_spectrum: np.ndarray, n: int) -> np.ndarray:
 
     X[n-k] = conj(X[k]); the imaginary part of X[0], and of X[n/2] for even n, is dropped.
     """
-    kept = n // 2 + 1
-    full = np.empty(n, dtype=np.complex128)
-    full[:kept] = half_spectrum[:kept]
-    full[0] = full[0].real
-    if n % 2 == 0:
-        full[n // 2] = full[n // 2].real
-    full[kept:] = np.conj(full[n - np.arange(kept, n)])
-    return full
+    return dft.hermitian_full(half_spectrum, n, np.complex128)
 
 
 def _block_rows(n: int) -> int:

@@ -59,6 +59,7 @@ import numpy as np
 
 from fftgauge.backends.base import Backend, Capabilities, OpCount, Plan
 from fftgauge import __version__
+from fftgauge.harness import dft
 from fftgauge.harness.cases import Case, norm_factor
 from fftgauge.harness.timing.opcount import OperationTally
 
@@ -78,17 +79,7 @@ def bit_reverse_permutation(n: int) -> list[int]:
     ValueError
         When ``n`` is not a power of two.
     """
-    if n < 1 or n & (n - 1):
-        raise ValueError(f"bit reversal needs a power of two, got n = {n}")
-    bits = n.bit_length() - 1
-    permutation = []
-    for index in range(n):
-        reversed_index, rest = 0, index
-        for _ in range(bits):
-            reversed_index = (reversed_index << 1) | (rest & 1)
-            rest >>= 1
-        permutation.append(reversed_index)
-    return permutation
+    return dft.bit_reversal_permutation(n).tolist()
 
 
 def permute_in_place(data: list, permutation: list[int]) -> None:
@@ -218,12 +209,7 @@ def hermitian_spectrum(half_spectrum: list[complex], n: int) -> list[complex]:
     X[n-k] = conj(X[k]); the imaginary part of X[0], and of X[n/2] for even n, is dropped
     (a real signal has none there).
     """
-    full = [complex(v) for v in half_spectrum[: n // 2 + 1]]
-    full[0] = complex(full[0].real, 0.0)
-    if n % 2 == 0 and n >= 2:
-        full[n // 2] = complex(full[n // 2].real, 0.0)
-    full.extend(full[k].conjugate() for k in range((n - 1) // 2, 0, -1))
-    return full
+    return dft.hermitian_full(np.asarray(half_spectrum, dtype=np.complex128), n).tolist()
 
 
 _TRANSFORMS = {"time": fft_dit_in_place, "frequency": fft_dif_in_place}

@@ -13,11 +13,13 @@ from typing import Sequence
 
 import numpy as np
 
+from fftgauge.harness.dft import NORMS, is_power_of_two, norm_factor  # noqa: F401 - re-exported
 from fftgauge.harness.errors import UsageError
+
+__all__ = ["DTYPES", "KINDS", "NORMS", "Case", "is_power_of_two", "norm_factor", "parse_choice_list"]
 
 KINDS = ("fft", "ifft", "rfft", "irfft")
 DTYPES = ("float32", "float64", "longdouble")
-NORMS = ("backward", "ortho", "forward")
 
 _REAL = {"float32": np.float32, "float64": np.float64, "longdouble": np.longdouble}
 _COMPLEX = {"float32": np.complex64, "float64": np.complex128, "longdouble": np.clongdouble}
@@ -90,24 +92,6 @@ class Case:
         """Short human label, e.g. ``"rfft float32 n=1024"`` (norm shown when not backward)."""
         norm = "" if self.norm == "backward" else f" norm={self.norm}"
         return f"{self.kind} {self.dtype} n={self.n}{norm}"
-
-
-def is_power_of_two(n: int) -> bool:
-    """Return True when ``n`` is 1, 2, 4, 8, ..."""
-    return n >= 1 and (n & (n - 1)) == 0
-
-
-def norm_factor(n: int, norm: str, inverse: bool) -> float:
-    """Return the factor the unscaled sum is multiplied by under ``norm``.
-
-    The array API standard (and numpy): ``backward`` scales the inverse by 1/n, ``forward``
-    scales the forward transform by 1/n, ``ortho`` scales both by 1/sqrt(n).
-    """
-    if norm == "ortho":
-        return 1.0 / np.sqrt(n)
-    if (norm == "backward") == inverse:
-        return 1.0 / n
-    return 1.0
 
 
 def parse_choice_list(text: str | None, allowed: Sequence[str], what: str) -> tuple[str, ...] | None:

@@ -51,8 +51,9 @@ def test_unit_roundoff_and_epsilon_follow_ieee_754():
     assert machine_epsilon("float64") == float(np.finfo(np.float64).eps)
     assert unit_roundoff("longdouble") == float(np.finfo(np.longdouble).eps) / 2
     assert machine_epsilon("longdouble") == float(np.finfo(np.longdouble).eps)
+    assert unit_roundoff("float16") == 2.0**-11 and machine_epsilon("float16") == float(np.finfo(np.float16).eps)
     with pytest.raises(ValueError, match="unknown precision"):
-        unit_roundoff("float16")
+        unit_roundoff("bfloat16")
 
 
 def test_eps_units():

@@ -26,6 +26,7 @@ from fftgauge.harness.execution import jobs
 from fftgauge.backends.registry import load_backend
 from fftgauge.harness.battery import context, exact_checks, value_checks
 from fftgauge.harness.cases import Case, norm_factor
+from fftgauge.harness.dft import hermitian_full
 from fftgauge.harness.battery.checks import CHECKS, applicable_checks, check_case, run_case_checks
 from fftgauge.harness.errors import UsageError
 from fftgauge.harness.rows import DIAGNOSES, STATUSES
@@ -120,7 +121,7 @@ def test_exact_convolution_by_reference_equals_integer_sums():
         x, y = exact_checks.integer_input(ctx, "a"), exact_checks.integer_input(ctx, "b")
         got = exact_checks.circular_convolution(ctx, x, y)
         if kind == "irfft":
-            xf, yf = context.hermitian_full(x.astype(complex), n), context.hermitian_full(y.astype(complex), n)
+            xf, yf = hermitian_full(x.astype(complex), n), hermitian_full(y.astype(complex), n)
         else:
             xf, yf = x.astype(complex), y.astype(complex)
         a = np.rint(xf.real).astype(np.int64), np.rint(xf.imag).astype(np.int64)

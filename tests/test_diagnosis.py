@@ -17,7 +17,8 @@ import pytest
 from fftgauge.backends.registry import load_backend
 from fftgauge.harness.cases import Case
 from fftgauge.harness.battery.checks import check_case
-from fftgauge.harness.battery.diagnosis import bit_reversal_permutation, diagnose, diagnose_round_trip, factor_name
+from fftgauge.harness.battery.diagnosis import diagnose, diagnose_round_trip, factor_name
+from fftgauge.harness.dft import bit_reversal_permutation
 from fftgauge.harness.battery.inputs import case_rng, random_input
 
 BROKEN = str(Path(__file__).parent / "data" / "broken_ffts.py")

@@ -14,15 +14,8 @@ from __future__ import annotations
 
 import math
 
-import numpy as np
-
-from fftgauge.harness.cases import Case, is_power_of_two
-
-_UNIT_ROUNDOFF = {
-    "float32": 2.0**-24,
-    "float64": 2.0**-53,
-    "longdouble": float(np.finfo(np.longdouble).eps) / 2.0,
-}
+from fftgauge.harness.cases import Case
+from fftgauge.harness.dft import is_power_of_two, machine_epsilon, unit_roundoff  # noqa: F401 - re-exported
 
 #: Default twiddle error bound ``mu`` in units of the unit roundoff ``u``. A twiddle whose real
 #: and imaginary parts are each correctly rounded has ``|w_hat - w| <= u |w| = u``; that is
@@ -38,35 +31,6 @@ DEFAULT_TWIDDLE_ERROR_UNITS = 1.0
 NON_POW2_STAGE_FACTOR = 4
 #: Extra stages charged to the real kinds (rfft's post-processing, irfft's pre-processing).
 REAL_KIND_EXTRA_STAGES = 2
-
-
-def unit_roundoff(dtype: str) -> float:
-    """Return the unit roundoff u of a precision: 2^-24 (float32), 2^-53 (float64), eps/2 (longdouble).
-
-    Source: IEEE Std 754-2019 (binary32 and binary64 have 24 and 53 significand bits;
-    round to nearest gives u = 2^-p). For ``longdouble`` it is ``np.finfo(np.longdouble).eps / 2``,
-    i.e. 2^-64 for the x87 80-bit format and 2^-53 where long double is double.
-
-    Raises
-    ------
-    ValueError
-        For a precision other than ``float32``, ``float64``, ``longdouble``.
-    """
-    try:
-        return _UNIT_ROUNDOFF[dtype]
-    except KeyError:
-        raise ValueError(f"unknown precision {dtype!r}; expected one of {', '.join(_UNIT_ROUNDOFF)}") from None
-
-
-def machine_epsilon(dtype: str) -> float:
-    """Return the machine epsilon eps = 2u of a precision (IEEE Std 754-2019).
-
-    Raises
-    ------
-    ValueError
-        For an unknown precision.
-    """
-    return 2.0 * unit_roundoff(dtype)
 
 
 def eps_units(rel_error: float, dtype: str) -> float:

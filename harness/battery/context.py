@@ -20,7 +20,8 @@ from fftgauge.harness.battery import bounds
 from fftgauge.harness.battery import inputs
 from fftgauge.harness.battery.diagnosis import diagnose
 from fftgauge.harness.battery.reference import reference_transform
-from fftgauge.harness.cases import Case, norm_factor
+from fftgauge.harness.cases import Case
+from fftgauge.harness.dft import clean_half_spectrum, norm_factor
 from fftgauge.harness.errors import BackendFailure
 from fftgauge.harness.rows import CheckRow
 
@@ -71,28 +72,6 @@ def finite_or_none(v: float | None) -> float | None:
 def fmt_eps(value: float, dtype: str) -> str:
     """Return ``value`` in eps units of ``dtype`` as text (``"0.95 eps"``), or ``"not finite"``."""
     return f"{bounds.eps_units(value, dtype):.3g} eps" if np.isfinite(value) else "not finite"
-
-
-def hermitian_full(half: np.ndarray, n: int) -> np.ndarray:
-    """Return the length-n Hermitian spectrum whose first n//2 + 1 values are ``half``
-    (imaginary parts of DC and, for even n, Nyquist dropped, as irfft does)."""
-    full = np.zeros(n, dtype=half.dtype)
-    full[: n // 2 + 1] = half[: n // 2 + 1]
-    full[0] = full[0].real
-    if n % 2 == 0:
-        full[n // 2] = full[n // 2].real
-    k = np.arange(1, (n + 1) // 2)
-    full[n - k] = np.conj(half[k])
-    return full
-
-
-def clean_half(x: np.ndarray, n: int) -> np.ndarray:
-    """Return a half spectrum with the imaginary parts irfft ignores set to zero (a copy)."""
-    x = np.array(x, copy=True)
-    x[0] = x[0].real
-    if n % 2 == 0:
-        x[n // 2] = x[n // 2].real
-    return x
 
 
 @dataclass
@@ -152,7 +131,9 @@ class CheckContext:
     @property
     def scale(self) -> Any:
         """The case's normalisation factor, in the work precision."""
-        return wide_norm_factor(self.case, self.work_dtype)
+        if self.work_dtype == np.dtype(np.clongdouble):
+            return norm_factor(self.case.n, self.case.norm, self.case.is_inverse, np.longdouble, np.sqrt)
+        return norm_factor(self.case.n, self.case.norm, self.case.is_inverse)
 
     # -- inputs ----------------------------------------------------------------------------------
     def rng(self, purpose: str) -> np.random.Generator:
@@ -163,7 +144,7 @@ class CheckContext:
         """Return a random input of ``case`` (default: this case) drawn for ``purpose``."""
         case = case or self.case
         x = inputs.random_input(case, inputs.case_rng(self.seed, case, purpose), distribution)
-        return clean_half(x, case.n) if case.kind == "irfft" else x
+        return clean_half_spectrum(x, case.n) if case.kind == "irfft" else x
 
     def as_input(self, values: np.ndarray, case: Case | None = None) -> np.ndarray:
         """Return ``values`` rounded to the input dtype of ``case`` (real part only for a real input)."""
@@ -172,7 +153,7 @@ class CheckContext:
         if case.input_dtype.kind == "f":
             values = np.real(values)
         x = np.ascontiguousarray(values.astype(case.input_dtype))
-        return clean_half(x, case.n) if case.kind == "irfft" else x
+        return clean_half_spectrum(x, case.n) if case.kind == "irfft" else x
 
     # -- running the backend ---------------------------------------------------------------
     def run(self, x: np.ndarray, plan: Plan | None = None, copy_input: bool = True) -> np.ndarray:
@@ -327,18 +308,6 @@ def copy_output(out: Any) -> np.ndarray:
     if y.dtype == object:
         raise OutputProblem("dtype", f"the backend returned a {type(out).__name__} of Python objects, not numbers")
     return y
-
-
-def wide_norm_factor(case: Case, work_dtype: np.dtype) -> Any:
-    """Return :func:`fftgauge.harness.cases.norm_factor` in the work precision (long double for long double cases)."""
-    if work_dtype != np.dtype(np.clongdouble):
-        return norm_factor(case.n, case.norm, case.is_inverse)
-    n = np.longdouble(case.n)
-    if case.norm == "ortho":
-        return np.longdouble(1) / np.sqrt(n)
-    if (case.norm == "backward") == case.is_inverse:
-        return np.longdouble(1) / n
-    return np.longdouble(1)
 
 
 def phases(m: np.ndarray, n: int, work_dtype: np.dtype) -> np.ndarray:

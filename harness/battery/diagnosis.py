@@ -43,7 +43,10 @@ from typing import Any, Callable
 
 import numpy as np
 
-from fftgauge.harness.cases import Case, is_power_of_two, norm_factor
+from fftgauge.harness.cases import Case
+from fftgauge.harness.dft import (
+    bit_reversal_permutation, hermitian_full, is_power_of_two, machine_epsilon, norm_factor, unit_roundoff,
+)
 
 #: A candidate matches when ``norm(y - a * candidate) / norm(a * candidate)`` is below this
 #: for the best constant ``a``. Far above any FFT's rounding error in float32 (about 1e-6)
@@ -65,13 +68,6 @@ _LOWER_PRECISIONS = {
     "float64": ("float32",),
     "longdouble": ("float64", "float32"),
 }
-_EPS = {
-    "float16": float(np.finfo(np.float16).eps),
-    "float32": float(np.finfo(np.float32).eps),
-    "float64": float(np.finfo(np.float64).eps),
-    "longdouble": float(np.finfo(np.longdouble).eps),
-}
-
 ReferenceFn = Callable[[np.ndarray, Case], Any]
 
 
@@ -83,20 +79,6 @@ def _norm(v: np.ndarray) -> float:
     if v.size == 0:
         return 0.0
     return float(np.sqrt(np.sum(np.abs(v) ** 2)))
-
-
-def bit_reversal_permutation(n: int) -> np.ndarray:
-    """Return the bit-reversal permutation of ``0 .. n-1`` for ``n`` a power of two.
-
-    ``out[k]`` is ``k`` with its ``log2(n)`` bits in reverse order.
-    """
-    bits = n.bit_length() - 1
-    idx = np.arange(n, dtype=np.int64)
-    rev = np.zeros(n, dtype=np.int64)
-    for _ in range(bits):
-        rev = (rev << 1) | (idx & 1)
-        idx >>= 1
-    return rev
 
 
 def _fit(candidate: np.ndarray, y: np.ndarray) -> tuple[complex, float]:
@@ -209,15 +191,6 @@ def _resize_input(x: np.ndarray, length: int) -> np.ndarray:
     return out
 
 
-def _hermitian_full(half: np.ndarray, n: int) -> np.ndarray:
-    """Return the length-n Hermitian spectrum whose first n//2 + 1 values are ``half``."""
-    full = np.zeros(n, dtype=np.complex128)
-    full[: n // 2 + 1] = half[: n // 2 + 1]
-    k = np.arange(1, (n + 1) // 2)
-    full[n - k] = np.conj(half[k])
-    return full
-
-
 def _shift_candidates(truth: np.ndarray, y: np.ndarray) -> list[int]:
     """Return the circular shifts worth testing: fftshift/ifftshift, +-1, and those that line
     up the largest values of ``y`` with the largest of the truth."""
@@ -270,7 +243,7 @@ def _candidates(case: Case, x: np.ndarray, truth: np.ndarray, y: np.ndarray,
         words = ("outputs are right but in bit-reversed order: the final reordering of a "
                  "decimation-in-frequency FFT is missing")
         if kind == "rfft":
-            full = _hermitian_full(truth, n)
+            full = hermitian_full(truth, n, np.complex128)
             out.append(("bit-reversed", words, full[perm][: truth.shape[0]]))
         else:
             out.append(("bit-reversed", words, truth[perm]))
@@ -329,8 +302,8 @@ def _wrong_length(case: Case, x: np.ndarray, y: np.ndarray, reference_fn: Refere
 def _precision_level(case: Case, err: float, limit: float) -> str | None:
     """Return the lower precision whose level ``err`` is at, or None."""
     for lower in _LOWER_PRECISIONS.get(case.dtype, ()):
-        u_lower = _EPS[lower] / 2
-        high = PRECISION_HIGH_FACTOR * limit * _EPS[lower] / _EPS[case.dtype]
+        u_lower = unit_roundoff(lower)
+        high = PRECISION_HIGH_FACTOR * limit * machine_epsilon(lower) / machine_epsilon(case.dtype)
         if PRECISION_LOW_UNITS * u_lower <= err <= high:
             return lower
     return None
@@ -422,7 +395,7 @@ def diagnose(case: Case, x: np.ndarray, y: Any, reference_fn: ReferenceFn | None
             return "scale", _scale_words(case, a, case.n)
         return code, _with_scale(words, a, case.n)
 
-    eps_case = _EPS[case.dtype]
+    eps_case = machine_epsilon(case.dtype)
     units = err / eps_case
     if _lower_dtype(case, y):
         return "dtype", (f"output has dtype {y.dtype}, lower precision than the {case.output_dtype} asked for; "
@@ -430,7 +403,7 @@ def diagnose(case: Case, x: np.ndarray, y: Any, reference_fn: ReferenceFn | None
     level = _precision_level(case, err, limit)
     if level is not None:
         return "precision", (f"errors at the level of {level}: relative rms error {units:.3g} eps of "
-                             f"{case.dtype} ({err / _EPS[level]:.3g} eps of {level}) with the right structure; "
+                             f"{case.dtype} ({err / machine_epsilon(level):.3g} eps of {level}) with the right structure; "
                              f"the transform appears to be computed in {level}")
     return "unknown", (f"relative rms error {err:.3g} ({units:.3g} eps); no single common bug (sign, scale, "
                        f"order, shift, lower precision, changed size, dropped imaginary part) explains it")

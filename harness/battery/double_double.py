@@ -16,7 +16,8 @@ import mpmath
 import numpy as np
 
 from fftgauge.harness.battery.mpmath_engine import mp_norm_factor, mpf_to_dd, split_wide
-from fftgauge.harness.cases import Case, is_power_of_two
+from fftgauge.harness.cases import Case
+from fftgauge.harness.dft import bit_reversal_permutation, hermitian_indices, is_power_of_two, real_bins
 
 # Values are pairs (hi, lo) of float64 arrays with |lo| <= ulp(hi)/2. TwoSum (Knuth) and
 # TwoProduct with Dekker's splitting are error-free transformations; the double-double sum
@@ -169,17 +170,6 @@ def _twiddle_table(n: int) -> DDArray:
     return dd_roots(np.arange(n // 2), n)
 
 
-@lru_cache(maxsize=8)
-def _bit_reversal(n: int) -> np.ndarray:
-    bits = n.bit_length() - 1
-    idx = np.arange(n)
-    rev = np.zeros(n, dtype=np.int64)
-    for _ in range(bits):
-        rev = (rev << 1) | (idx & 1)
-        idx >>= 1
-    return rev
-
-
 #: Elements per chunk of the double-double FFT: small enough that a chunk's temporaries stay
 #: in cache (the FFT runs about three times faster at 2^20 than stage-by-stage on whole arrays).
 _CHUNK = 1 << 13
@@ -202,7 +192,7 @@ def _dd_fft_pow2(z: DDArray) -> DDArray:
     n = z.rh.shape[0]
     if n == 1:
         return DDArray(z.rh.copy(), z.rl.copy(), z.ih.copy(), z.il.copy())
-    z = z[_bit_reversal(n)]
+    z = z[bit_reversal_permutation(n)]
     table = _twiddle_table(n)
     chunk = min(n, _CHUNK)
     small = []
@@ -275,12 +265,12 @@ def double_double_transform(x: np.ndarray, case: Case) -> tuple[np.ndarray, np.n
 
 
 def _dd_hermitian_full(half: DDArray, n: int) -> DDArray:
-    """Return the length-n Hermitian spectrum of a half spectrum (ignored imaginary parts dropped)."""
-    full = _zeros_dd(n)
-    full[: n // 2 + 1] = half
-    full.ih[0] = full.il[0] = 0.0
-    if n % 2 == 0:
-        full.ih[n // 2] = full.il[n // 2] = 0.0
-    k = np.arange(1, (n + 1) // 2)
-    full[n - k] = half[k].conj()
+    """Return the length-n Hermitian spectrum of a half spectrum
+    (:func:`fftgauge.harness.dft.hermitian_indices`; the ignored imaginary parts dropped)."""
+    source, conjugated = hermitian_indices(n)
+    full = half[source]
+    full.ih[conjugated] = -full.ih[conjugated]
+    full.il[conjugated] = -full.il[conjugated]
+    for k in real_bins(n):
+        full.ih[k] = full.il[k] = 0.0
     return full

@@ -11,9 +11,10 @@ from typing import Any
 import numpy as np
 
 from fftgauge.harness.battery import bounds
-from fftgauge.harness.battery.context import SQRT2, CheckContext, fmt_eps, hermitian_full, norm2, ratio, relative
+from fftgauge.harness.battery.context import SQRT2, CheckContext, fmt_eps, norm2, ratio, relative
 from fftgauge.harness.battery.value_checks import companion_fault
 from fftgauge.harness.cases import Case
+from fftgauge.harness.dft import hermitian_full
 from fftgauge.harness.rows import CheckRow
 
 #: Largest n for which ``convolution`` forms the exact circular convolution by direct sums

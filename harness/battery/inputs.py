@@ -18,6 +18,7 @@ import math
 import numpy as np
 
 from fftgauge.harness.cases import Case
+from fftgauge.harness.dft import LONGDOUBLE_IS_WIDER
 from fftgauge.harness.errors import UsageError
 
 DISTRIBUTIONS = ("gaussian", "uniform")
@@ -62,7 +63,7 @@ def _draw(rng: np.random.Generator, size: int, distribution: str) -> np.ndarray:
 def _draw_real(rng: np.random.Generator, size: int, distribution: str, dtype: np.dtype) -> np.ndarray:
     """Return ``size`` draws rounded to ``dtype``; long double draws carry bits beyond double's."""
     v = _draw(rng, size, distribution)
-    if dtype == np.longdouble and np.finfo(np.longdouble).eps < np.finfo(np.float64).eps:
+    if dtype == np.longdouble and LONGDOUBLE_IS_WIDER:
         tail = _draw(rng, size, distribution) * _LONGDOUBLE_TAIL_SCALE
         out = v.astype(np.longdouble) + tail.astype(np.longdouble)
         if distribution == "uniform":

@@ -9,13 +9,11 @@ import mpmath
 import numpy as np
 
 from fftgauge.harness.cases import Case
+from fftgauge.harness.dft import WIDE_COMPLEX, hermitian_indices, norm_factor, real_bins
 
 #: Decimal digits of the mpmath method.
 MPMATH_DIGITS = 50
 
-#: The widest complex dtype: ``clongdouble`` where long double is wider than double, else ``complex128``.
-WIDE_COMPLEX = np.dtype(np.clongdouble) if float(np.finfo(np.longdouble).eps) < float(np.finfo(np.float64).eps) \
-    else np.dtype(np.complex128)
 
 def mpmath_transform(x: np.ndarray, case: Case) -> tuple[np.ndarray, np.ndarray]:
     """Return (hi, lo) of the transform as a direct DFT in mpmath at ``MPMATH_DIGITS`` digits.
@@ -51,13 +49,8 @@ def mp_dft(values: list, sign: int) -> list:
 
 
 def mp_norm_factor(n: int, norm: str, inverse: bool):
-    """Return :func:`fftgauge.harness.cases.norm_factor` exactly, as an mpmath number (its exact twin;
-    the tests check that the two agree)."""
-    if norm == "ortho":
-        return 1 / mpmath.sqrt(n)
-    if (norm == "backward") == inverse:
-        return mpmath.mpf(1) / n
-    return mpmath.mpf(1)
+    """Return :func:`fftgauge.harness.dft.norm_factor` as an mpmath number at the current precision."""
+    return norm_factor(n, norm, inverse, mpmath.mpf, mpmath.sqrt)
 
 
 def to_mpc_list(x: np.ndarray) -> list:
@@ -77,15 +70,13 @@ def split_wide(v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
 
 def mp_hermitian_full(half: list, n: int) -> list:
-    """Return the length-n Hermitian spectrum that a half spectrum stands for (ignored parts dropped)."""
-    full = [mpmath.mpc(0)] * n
-    full[0] = mpmath.mpc(half[0].real, 0)
-    for k in range(1, (n + 1) // 2):
-        full[k] = half[k]
-        full[n - k] = mpmath.conj(half[k])
-    if n % 2 == 0:
-        full[n // 2] = mpmath.mpc(half[n // 2].real, 0)
-    return full
+    """Return the length-n Hermitian spectrum that a half spectrum of mpmath numbers stands for
+    (:func:`fftgauge.harness.dft.hermitian_indices`; the ignored imaginary parts dropped)."""
+    half = list(half[: n // 2 + 1])
+    for k in real_bins(n):
+        half[k] = mpmath.mpc(half[k].real, 0)
+    source, conjugated = hermitian_indices(n)
+    return [mpmath.conj(half[s]) if c else half[s] for s, c in zip(source.tolist(), conjugated.tolist())]
 
 
 def mpc_list_to_hi_lo(values: list) -> tuple[np.ndarray, np.ndarray]:

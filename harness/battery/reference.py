@@ -53,8 +53,9 @@ from dataclasses import dataclass
 import numpy as np
 
 from fftgauge.harness.battery.double_double import double_double_transform
-from fftgauge.harness.battery.mpmath_engine import WIDE_COMPLEX, mpmath_transform
+from fftgauge.harness.battery.mpmath_engine import mpmath_transform
 from fftgauge.harness.cases import Case
+from fftgauge.harness.dft import WIDE_COMPLEX, clean_half_spectrum, machine_epsilon
 
 #: ``Reference.method`` of the scipy-on-``clongdouble`` method.
 METHOD_LONGDOUBLE = "scipy.fft clongdouble"
@@ -73,7 +74,7 @@ METHOD_CHOICES = ("auto", "scipy-double", "scipy-longdouble", "double-double", "
 #: Largest ``n`` the O(n^2) mpmath method accepts.
 MPMATH_MAX_N = 2048
 
-_LD_EPS = float(np.finfo(np.longdouble).eps)
+_LD_EPS = machine_epsilon("longdouble")
 #: True where long double is wider than double by enough to serve as a float64 reference.
 LONGDOUBLE_IS_EXTENDED = _LD_EPS < 1e-18
 #: True where long double carries more than double-double's ~106 bits (binary128, or a
@@ -243,7 +244,7 @@ def _via_double(x: np.ndarray, case: Case) -> tuple[np.ndarray, np.ndarray]:
     if case.kind == "rfft":
         y = scipy.fft.rfft(np.real(x).astype(np.float64), n=n, norm=norm)
     elif case.kind == "irfft":
-        y = scipy.fft.irfft(_hermitian_half(x.astype(np.complex128), n), n=n, norm=norm)
+        y = scipy.fft.irfft(clean_half_spectrum(x.astype(np.complex128), n), n=n, norm=norm)
     else:
         fn = scipy.fft.fft if case.kind == "fft" else scipy.fft.ifft
         y = fn(x.astype(np.complex128), n=n, norm=norm)
@@ -261,7 +262,7 @@ def _via_longdouble(x: np.ndarray, case: Case) -> tuple[np.ndarray, np.ndarray]:
     if case.kind == "rfft":
         y = scipy.fft.rfft(np.real(x).astype(np.longdouble), n=n, norm=norm)
     elif case.kind == "irfft":
-        z = _hermitian_half(x.astype(np.clongdouble), n)
+        z = clean_half_spectrum(x.astype(np.clongdouble), n)
         y = scipy.fft.irfft(z, n=n, norm=norm).astype(np.clongdouble)
     else:
         fn = scipy.fft.fft if case.kind == "fft" else scipy.fft.ifft
@@ -270,12 +271,3 @@ def _via_longdouble(x: np.ndarray, case: Case) -> tuple[np.ndarray, np.ndarray]:
     hi = y.astype(np.complex128)
     lo = (y - hi).astype(np.complex128)
     return hi, lo
-
-
-def _hermitian_half(z: np.ndarray, n: int) -> np.ndarray:
-    """Return a copy of the half spectrum with the ignored imaginary parts (DC, even-n Nyquist) set to 0."""
-    z = z.copy()
-    z[0] = z[0].real
-    if n % 2 == 0:
-        z[n // 2] = z[n // 2].real
-    return z

@@ -30,10 +30,11 @@ import numpy as np
 
 from fftgauge.harness.battery import bounds
 from fftgauge.harness.battery.context import (
-    SQRT2, CheckContext, OutputProblem, fmt_eps, hermitian_full, norm2, phases, ratio, relative,
+    SQRT2, CheckContext, OutputProblem, fmt_eps, norm2, phases, ratio, relative,
 )
 from fftgauge.harness.battery.diagnosis import diagnose_round_trip
 from fftgauge.harness.cases import Case
+from fftgauge.harness.dft import hermitian_full
 from fftgauge.harness.rows import CheckRow
 
 

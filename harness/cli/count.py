@@ -13,6 +13,7 @@ import argparse
 import math
 from typing import Any
 
+from fftgauge.harness import dft
 from fftgauge.harness.cli import add_common_options
 from fftgauge.harness.timing.opcount import DEFAULT_COUNTING_SPECS, DIRECT_COUNT_MAX_N, count_table
 from fftgauge.harness.results import dumps, envelope, write_text_atomic
@@ -49,9 +50,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def size_label(n: int) -> str:
     """Return ``2^k`` for a power of two ``n`` >= 2, else the number itself."""
-    if n >= 2 and n & (n - 1) == 0:
-        return f"2^{n.bit_length() - 1}"
-    return str(n)
+    return dft.size_label(n)
 
 
 def ratio_words(ratio: float) -> str:

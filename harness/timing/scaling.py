@@ -46,6 +46,7 @@ import numpy as np
 from scipy import stats
 
 from fftgauge.harness.cases import Case, is_power_of_two
+from fftgauge.harness.dft import size_label
 from fftgauge.harness.sizes import is_prime
 
 #: Smallest size used in the fits and in the outlier rule: below it the fixed cost of a call
@@ -245,7 +246,7 @@ def format_bytes(size_bytes: float) -> str:
 
 def size_text(n: int) -> str:
     """Return ``n`` as a reader sees it: ``2^20`` for a power of two >= 2, else the number."""
-    return f"2^{n.bit_length() - 1}" if n >= 2 and is_power_of_two(n) else str(n)
+    return size_label(n)
 
 
 def likely_cause(row: Mapping[str, Any], ratio: float, machine: Mapping[str, Any] | None) -> tuple[str, str]:

@@ -1,0 +1,199 @@
+"""The DFT conventions, in one place: norms and their factors, the Hermitian extension of a
+half spectrum, bit reversal, machine epsilon and unit roundoff per precision, size labels.
+
+The conventions are numpy's and the array API standard's (see :mod:`fftgauge.backends.base`):
+the forward transform is ``X[k] = sum_n x[n] exp(-2j pi k n / N)``, the inverse has the
+opposite sign, and ``norm`` says which side carries the 1/N (or both a 1/sqrt(N)).
+Every engine (numpy arrays, long double, mpmath numbers, double-double pairs, Python lists)
+takes its convention from here, evaluated in its own number type.
+"""
+
+from __future__ import annotations
+
+import math
+from functools import lru_cache
+from typing import Any, Callable
+
+import numpy as np
+
+#: The array API standard's normalisations.
+NORMS = ("backward", "ortho", "forward")
+
+#: Significand bits (the leading bit included) of each real precision: IEEE Std 754-2019
+#: binary16, binary32, binary64; long double as the platform has it (64 for the x87
+#: 80-bit format, 53 where long double is double, 113 for binary128).
+SIGNIFICAND_BITS = {
+    "float16": 11,
+    "float32": 24,
+    "float64": 53,
+    "longdouble": int(np.finfo(np.longdouble).nmant) + 1,
+}
+
+#: True where long double carries more bits than double.
+LONGDOUBLE_IS_WIDER = SIGNIFICAND_BITS["longdouble"] > SIGNIFICAND_BITS["float64"]
+#: The widest complex dtype: ``clongdouble`` where long double is wider than double, else ``complex128``.
+WIDE_COMPLEX = np.dtype(np.clongdouble) if LONGDOUBLE_IS_WIDER else np.dtype(np.complex128)
+
+
+# -- sizes -------------------------------------------------------------------------------------
+
+def is_power_of_two(n: int) -> bool:
+    """Return True when ``n`` is 1, 2, 4, 8, ..."""
+    return n >= 1 and (n & (n - 1)) == 0
+
+
+def size_label(n: int, mathtext: bool = False) -> str:
+    """Return ``n`` as a reader sees it: ``"2^10"`` for a power of two >= 2, else ``"1000"``.
+
+    ``mathtext`` True gives matplotlib's ``"$2^{10}$"`` instead.
+    """
+    if n >= 2 and is_power_of_two(n):
+        k = n.bit_length() - 1
+        return f"$2^{{{k}}}$" if mathtext else f"2^{k}"
+    return str(n)
+
+
+# -- normalisation -------------------------------------------------------------------------
+
+def norm_power(norm: str, inverse: bool) -> float:
+    """Return p with the normalisation factor ``N^-p``: 0 (none), 0.5 (1/sqrt(N)) or 1 (1/N).
+
+    The array API standard (and numpy): ``backward`` scales the inverse by 1/N, ``forward``
+    the forward transform by 1/N, ``ortho`` both by 1/sqrt(N).
+
+    Raises
+    ------
+    ValueError
+        For a norm not in :data:`NORMS`.
+    """
+    if norm not in NORMS:
+        raise ValueError(f"unknown normalisation {norm!r}; expected one of {', '.join(NORMS)}")
+    if norm == "ortho":
+        return 0.5
+    return 1.0 if (norm == "backward") == inverse else 0.0
+
+
+def norm_factor(n: int, norm: str, inverse: bool, real: Callable[[Any], Any] = float,
+                sqrt: Callable[[Any], Any] = math.sqrt) -> Any:
+    """Return the factor the unscaled sum is multiplied by under ``norm`` (see :func:`norm_power`).
+
+    ``real`` and ``sqrt`` evaluate it in another number type: ``np.longdouble`` and ``np.sqrt``
+    for long double, ``mpmath.mpf`` and ``mpmath.sqrt`` for an exact-to-the-digits value.
+    The result is ``real(1)``, ``real(1) / real(n)`` or ``real(1) / sqrt(real(n))``, each a
+    correctly rounded operation in the number type.
+
+    Raises
+    ------
+    ValueError
+        For a norm not in :data:`NORMS`.
+    """
+    p = norm_power(norm, inverse)
+    one = real(1)
+    if p == 0.0:
+        return one
+    if p == 1.0:
+        return one / real(n)
+    return one / sqrt(real(n))
+
+
+# -- real transforms: the half spectrum ---------------------------------------------------------
+
+def hermitian_indices(n: int) -> tuple[np.ndarray, np.ndarray]:
+    """Return ``(source, conjugated)`` of the Hermitian extension of a half spectrum to length n.
+
+    Entry ``j`` of the full spectrum is ``half[source[j]]``, conjugated where ``conjugated[j]``:
+    ``X[n - k] = conj(X[k])`` for k = 1 .. (n - 1) // 2 (the spectrum of a real signal).
+    ``source`` indexes the ``n // 2 + 1`` values of the half spectrum.
+    """
+    j = np.arange(n, dtype=np.int64)
+    conjugated = j > n // 2
+    source = np.where(conjugated, n - j, j)
+    return source, conjugated
+
+
+def real_bins(n: int) -> tuple[int, ...]:
+    """Return the bins of a half spectrum whose imaginary part a real transform ignores:
+    DC, and Nyquist (``n // 2``) for even n >= 2."""
+    return (0, n // 2) if n % 2 == 0 and n >= 2 else (0,)
+
+
+def clean_half_spectrum(half: np.ndarray, n: int) -> np.ndarray:
+    """Return a copy of ``half`` with the imaginary parts :func:`real_bins` names set to zero
+    (what irfft reads of them)."""
+    out = np.array(half, copy=True)
+    for k in real_bins(n):
+        out[k] = out[k].real
+    return out
+
+
+def hermitian_full(half: np.ndarray, n: int, dtype: Any = None) -> np.ndarray:
+    """Return the length-n Hermitian spectrum that the half spectrum ``half`` stands for.
+
+    ``half`` holds at least ``n // 2 + 1`` values; the imaginary parts of DC and, for even n,
+    Nyquist are dropped, as irfft does. The result has ``dtype`` (default: the complex type of
+    ``half``'s precision). Source: numpy.fft.irfft's convention (tested against numpy.fft).
+    """
+    half = np.asarray(half)
+    if dtype is None:
+        dtype = np.result_type(half.dtype, np.complex64)
+    clean = clean_half_spectrum(np.asarray(half[: n // 2 + 1], dtype=dtype), n)
+    source, conjugated = hermitian_indices(n)
+    full = clean[source]
+    full[conjugated] = np.conj(full[conjugated])
+    return full
+
+
+# -- radix-2 ordering ----------------------------------------------------------------------------
+
+@lru_cache(maxsize=32)
+def bit_reversal_permutation(n: int) -> np.ndarray:
+    """Return the bit-reversal permutation of ``0 .. n-1`` (int64, read-only) for ``n = 2^t``.
+
+    Entry ``i`` is ``i`` with its t binary digits in reverse order; for n = 8 it is
+    ``[0, 4, 2, 6, 1, 5, 3, 7]``. The permutation is its own inverse.
+
+    Raises
+    ------
+    ValueError
+        When ``n`` is not a power of two.
+    """
+    if not is_power_of_two(n):
+        raise ValueError(f"bit reversal needs a power of two, got n = {n}")
+    bits = n.bit_length() - 1
+    idx = np.arange(n, dtype=np.int64)
+    rev = np.zeros(n, dtype=np.int64)
+    for _ in range(bits):
+        rev = (rev << 1) | (idx & 1)
+        idx >>= 1
+    rev.setflags(write=False)
+    return rev
+
+
+# -- precision -----------------------------------------------------------------------------------
+
+def unit_roundoff(dtype: str) -> float:
+    """Return the unit roundoff u = 2^-p of a precision, p its significand bits
+    (:data:`SIGNIFICAND_BITS`): 2^-11 float16, 2^-24 float32, 2^-53 float64.
+
+    Source: IEEE Std 754-2019 (round to nearest gives u = 2^-p).
+
+    Raises
+    ------
+    ValueError
+        For a precision not in :data:`SIGNIFICAND_BITS`.
+    """
+    try:
+        return math.ldexp(1.0, -SIGNIFICAND_BITS[dtype])
+    except KeyError:
+        raise ValueError(f"unknown precision {dtype!r}; expected one of {', '.join(SIGNIFICAND_BITS)}") from None
+
+
+def machine_epsilon(dtype: str) -> float:
+    """Return the machine epsilon eps = 2u of a precision (IEEE Std 754-2019).
+
+    Raises
+    ------
+    ValueError
+        For an unknown precision.
+    """
+    return 2.0 * unit_roundoff(dtype)

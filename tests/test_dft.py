@@ -1,0 +1,111 @@
+"""Tests of fftgauge.harness.dft, the one home of the DFT conventions, against outside sources.
+
+Sources: numpy.fft (the Hermitian extension irfft reads and the normalisations of numpy's
+``norm`` argument); the bit-reversal table for N = 8 of the textbook decimation-in-time flow
+graph, input order x[0], x[4], x[2], x[6], x[1], x[5], x[3], x[7] (Oppenheim & Schafer,
+Discrete-Time Signal Processing, 3rd ed., ch. 9; from memory, and checked below against the
+definition, the binary digits of the index reversed, written with Python's format); numpy.finfo for
+machine epsilon and unit roundoff; mpmath at 50 digits for the exact normalisation factor.
+"""
+
+from __future__ import annotations
+
+import mpmath
+import numpy as np
+import pytest
+
+from fftgauge.harness import dft
+
+
+@pytest.mark.parametrize("n", [1, 2, 3, 4, 5, 8, 9, 16, 17])
+def test_hermitian_full_equals_numpy_fft_of_a_real_signal(n):
+    """numpy.fft.fft of a real signal is the Hermitian extension of numpy.fft.rfft's half."""
+    x = np.random.default_rng(n).standard_normal(n)
+    got = dft.hermitian_full(np.fft.rfft(x), n)
+    np.testing.assert_allclose(got, np.fft.fft(x), rtol=0, atol=1e-12 * max(1, n))
+    assert got.dtype == np.complex128
+
+
+@pytest.mark.parametrize("n", [1, 2, 6, 7])
+def test_hermitian_full_drops_what_irfft_ignores(n):
+    """numpy.fft.irfft ignores the imaginary parts of DC and (even n) Nyquist: the extension
+    with them dropped gives, through numpy.fft.ifft, numpy.fft.irfft's output."""
+    rng = np.random.default_rng(10 + n)
+    half = rng.standard_normal(n // 2 + 1) + 1j * rng.standard_normal(n // 2 + 1)
+    full = dft.hermitian_full(half, n)
+    np.testing.assert_allclose(np.fft.ifft(full), np.fft.irfft(half, n), atol=1e-14)
+    assert full[0].imag == 0 and (n % 2 or full[n // 2].imag == 0)
+    assert np.array_equal(dft.clean_half_spectrum(half, n), full[: n // 2 + 1])
+
+
+def test_hermitian_full_keeps_long_double():
+    half = np.array([1, 2 + 1j, 3], dtype=np.clongdouble)
+    assert dft.hermitian_full(half, 4).dtype == np.dtype(np.clongdouble)
+
+
+def test_bit_reversal_for_8_is_the_textbook_table():
+    """Decimation-in-time input order for N = 8: 0 4 2 6 1 5 3 7 (Oppenheim & Schafer, 3rd ed., ch. 9)."""
+    assert dft.bit_reversal_permutation(8).tolist() == [0, 4, 2, 6, 1, 5, 3, 7]
+    assert dft.bit_reversal_permutation(1).tolist() == [0]
+    assert dft.bit_reversal_permutation(2).tolist() == [0, 1]
+
+
+@pytest.mark.parametrize("n", [4, 16, 1024])
+def test_bit_reversal_is_an_involution_and_reverses_the_binary_digits(n):
+    p = dft.bit_reversal_permutation(n)
+    bits = n.bit_length() - 1
+    assert p[p].tolist() == list(range(n))
+    assert [int(format(i, f"0{bits}b")[::-1], 2) for i in range(n)] == p.tolist()
+    with pytest.raises(ValueError):
+        p[0] = 1  # shared and cached: read-only
+
+
+def test_bit_reversal_needs_a_power_of_two():
+    with pytest.raises(ValueError, match="power of two"):
+        dft.bit_reversal_permutation(12)
+
+
+@pytest.mark.parametrize("norm", dft.NORMS)
+@pytest.mark.parametrize("inverse", [False, True])
+def test_norm_factor_is_numpys(norm, inverse):
+    """numpy.fft with ``norm`` equals the unscaled sum times norm_factor (n = 12)."""
+    n = 12
+    x = np.random.default_rng(2).standard_normal(n) + 0j
+    fn = np.fft.ifft if inverse else np.fft.fft
+    unscaled = np.fft.ifft(x, norm="forward") if inverse else np.fft.fft(x, norm="backward")
+    np.testing.assert_allclose(fn(x, norm=norm), unscaled * dft.norm_factor(n, norm, inverse), rtol=1e-13)
+
+
+@pytest.mark.parametrize("norm", dft.NORMS)
+def test_norm_factor_in_other_number_types(norm):
+    """The long double and mpmath evaluations agree with the 50-digit value to their precision."""
+    n = 1000
+    with mpmath.workdps(50):
+        exact = dft.norm_factor(n, norm, True, mpmath.mpf, mpmath.sqrt)
+        want = {"backward": mpmath.mpf(1) / n, "forward": mpmath.mpf(1), "ortho": 1 / mpmath.sqrt(n)}[norm]
+        assert abs(exact - want) < mpmath.mpf(10) ** -48
+        ld = dft.norm_factor(n, norm, True, np.longdouble, np.sqrt)
+        assert isinstance(ld, np.longdouble)
+        assert abs(mpmath.mpf(float(ld)) + mpmath.mpf(float(ld - np.longdouble(float(ld)))) - want) <= \
+            2 * float(np.finfo(np.longdouble).eps) * want
+    assert dft.norm_factor(n, norm, True) == pytest.approx(float(want), rel=1e-15)
+
+
+def test_unknown_norm_is_refused():
+    with pytest.raises(ValueError, match="unknown normalisation"):
+        dft.norm_power("both", False)
+
+
+@pytest.mark.parametrize("name, dtype", [("float16", np.float16), ("float32", np.float32),
+                                         ("float64", np.float64), ("longdouble", np.longdouble)])
+def test_epsilon_and_unit_roundoff_are_numpys(name, dtype):
+    """numpy.finfo: eps = 2^(1 - p), u = eps / 2."""
+    assert dft.machine_epsilon(name) == float(np.finfo(dtype).eps)
+    assert dft.unit_roundoff(name) == float(np.finfo(dtype).eps) / 2
+    with pytest.raises(ValueError, match="unknown precision"):
+        dft.unit_roundoff("float8")
+
+
+def test_size_label():
+    assert [dft.size_label(n) for n in (1, 2, 1024, 1000, 3)] == ["1", "2^1", "2^10", "1000", "3"]
+    assert dft.size_label(1 << 20, mathtext=True) == "$2^{20}$"
