@@ -364,6 +364,7 @@ def test_exit_without_close_stops_the_child(tmp_path):
     assert proc.wait(timeout=60) == 0
     assert _gone(child, within_seconds=5)
     assert not list(tmp_path.glob("fftgauge-worker-*.log"))
+    assert not list(tmp_path.glob("fftgauge-scratch-*")), "the worker left its scratch folder"
 
 
 def test_killed_parent_does_not_leave_a_hanging_child(tmp_path):
@@ -374,6 +375,7 @@ def test_killed_parent_does_not_leave_a_hanging_child(tmp_path):
     try:
         assert _gone(child, within_seconds=10), "the orphaned worker kept running"
         assert not list(tmp_path.glob("fftgauge-worker-*.log")), "the orphaned worker left its log"
+        assert not list(tmp_path.glob("fftgauge-scratch-*")), "the orphaned worker left its scratch folder"
     finally:
         if psutil.pid_exists(child):
             try:
@@ -495,3 +497,56 @@ def test_default_memory_cap():
     assert Worker("numpy", memory_limit_bytes=None).memory_limit_bytes is None
     with pytest.raises(ValueError):
         default_memory_limit_bytes(0)
+
+
+# -- the working folder --------------------------------------------------------------------
+def test_jobs_run_in_a_scratch_folder_removed_afterwards(tmp_path, monkeypatch):
+    """A backend that deletes every file in its working folder: the user's folder (this
+    process's working folder) keeps its files; the worker's scratch folder took the damage
+    and is removed when the worker closes."""
+    monkeypatch.chdir(tmp_path)
+    (tmp_path / "precious.txt").write_text("the user's data\n")
+    x = signal_x(8)
+    with Worker(spec("scrub_cwd_fft")) as worker:
+        y = worker.call(PLAN, FFT8, x, timeout_seconds=TIMEOUT_SECONDS)
+        np.testing.assert_array_equal(y, np.fft.fft(x))  # reference: numpy.fft
+        scratch = worker.scratch_dir
+        assert scratch and os.path.isfile(os.path.join(scratch, "left-by-scrubber.txt"))
+        assert os.path.realpath(scratch) != os.path.realpath(tmp_path)
+    assert (tmp_path / "precious.txt").read_text() == "the user's data\n"
+    assert not (tmp_path / "left-by-scrubber.txt").exists()
+    assert not os.path.exists(scratch) and worker.scratch_dir is None
+
+
+USER_BACKEND = """
+import numpy as np
+from {helper} import scale
+
+def fft(x):
+    return scale(np.fft.fft(x))
+
+def broken(x):
+    raise ArithmeticError("the user's own bug")
+"""
+
+
+def test_users_folder_stays_on_the_import_path(tmp_path, monkeypatch):
+    """From the user's folder: a module SPEC finds their module, a relative file SPEC finds
+    its file and the module beside it, although jobs run in the scratch folder; an exception
+    in their code names it relative to their folder. Reference: numpy.fft times 1."""
+    monkeypatch.chdir(tmp_path)
+    (tmp_path / "users_helper.py").write_text("def scale(y):\n    return 1 * y\n")
+    (tmp_path / "users_fft.py").write_text(USER_BACKEND.format(helper="users_helper"))
+    sub = tmp_path / "lib"
+    sub.mkdir()
+    (sub / "lib_helper.py").write_text("def scale(y):\n    return 1 * y\n")
+    (sub / "lib_fft.py").write_text(USER_BACKEND.format(helper="lib_helper"))
+    x = signal_x(8)
+    for user_spec in ("users_fft:fft", "lib/lib_fft.py:fft"):
+        with Worker(user_spec) as worker:
+            np.testing.assert_array_equal(worker.call(PLAN, FFT8, x, timeout_seconds=TIMEOUT_SECONDS),
+                                          np.fft.fft(x))
+    with Worker("lib/lib_fft.py:broken") as worker:
+        with pytest.raises(BackendFailure, match=r"^ArithmeticError: the user's own bug "
+                                                 r"\(at lib/lib_fft\.py:9 in broken\)$"):
+            worker.call(PLAN, FFT8, x, timeout_seconds=TIMEOUT_SECONDS)

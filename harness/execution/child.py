@@ -17,10 +17,12 @@ from __future__ import annotations
 
 import faulthandler
 import os
+import shutil
 import signal
 import sys
 import threading
 import time
+from dataclasses import dataclass
 from multiprocessing.reduction import ForkingPickler
 from typing import Any
 
@@ -36,18 +38,39 @@ ORPHAN_CHECK_SECONDS = 0.5
 ORPHAN_EXIT_CODE = 70
 
 
-def child_main(conn: Any, spec: str, threads: int | None, memory_limit_bytes: int | None,
-               log_path: str, parent_pid: int, parents_end: Any = None, token: str | None = None,
-               load_cpu_seconds: float | None = None) -> None:
+@dataclass(frozen=True)
+class ChildSettings:
+    """What a child needs from its worker (picklable; sent when the child starts)."""
+
+    #: The backend SPEC and the thread count passed to the registry.
+    spec: str
+    threads: int | None
+    #: The memory cap in bytes (None: none) and the CPU-time limit of loading, in seconds.
+    memory_limit_bytes: int | None
+    load_cpu_seconds: float | None
+    #: The child's standard error (faulthandler's stacks), the process that owns the
+    #: worker, and the token every descendant inherits.
+    log_path: str
+    parent_pid: int
+    token: str | None
+    #: The user's folder (the parent's working folder, where the backend is loaded and
+    #: relative SPEC paths start; kept on the import path) and the child's scratch folder
+    #: (its working folder while jobs run). None: stay where the child started.
+    user_dir: str | None = None
+    scratch_dir: str | None = None
+    #: The parent's import path (None: keep the child's own).
+    sys_path: tuple[str, ...] | None = None
+
+
+def child_main(conn: Any, settings: ChildSettings, parents_end: Any = None) -> None:
     """Entry point of the child: load the backend, say so, then serve jobs until told to stop
     (or until the parent's end of the pipe closes), and end the processes the backend left.
 
     Returns when done; raises nothing the parent must catch (a backend that exits or crashes
-    ends the process, which the parent sees). ``token`` goes into the environment as
-    :data:`~fftgauge.harness.execution.processes.TOKEN_VARIABLE`, for every descendant;
-    ``load_cpu_seconds`` is the CPU-time limit of loading the backend (None: none).
+    ends the process, which the parent sees). ``parents_end`` is, under ``fork``, the copy of
+    the parent's end of the pipe that the child inherited (closed at once).
     """
-    if parents_end is not None:  # fork: the copy of the parent's end this child inherited
+    if parents_end is not None:
         parents_end.close()
     if hasattr(os, "setsid"):
         try:
@@ -55,18 +78,21 @@ def child_main(conn: Any, spec: str, threads: int | None, memory_limit_bytes: in
         except OSError:  # already a group leader
             pass
     subreaper = become_subreaper()
-    if token is not None:
-        os.environ[TOKEN_VARIABLE] = token
-    redirect_outputs(log_path)
+    if settings.token is not None:
+        os.environ[TOKEN_VARIABLE] = settings.token
+    redirect_outputs(settings.log_path)
     faulthandler.enable(all_threads=False)
     if hasattr(signal, "SIGUSR1"):
         faulthandler.register(signal.SIGUSR1, all_threads=True, chain=False)
     signal.signal(signal.SIGINT, signal.SIG_IGN)
-    watch_parent(parent_pid, log_path)
+    watch_parent(settings.parent_pid, settings.log_path, settings.scratch_dir)
     no_core_dumps()
+    set_import_path(settings.sys_path, settings.user_dir)
+    spec, threads, memory_limit_bytes = settings.spec, settings.threads, settings.memory_limit_bytes
     if memory_limit_bytes is not None and not limit_memory(memory_limit_bytes):
         memory_limit_bytes = None  # no cap on this platform: never blame one
-    limit_cpu(load_cpu_seconds)
+    limit_cpu(settings.load_cpu_seconds)
+    enter(settings.user_dir)  # relative paths in the SPEC start from the user's folder
     try:
         from fftgauge.backends.registry import load_backend
         backend = load_backend(spec, threads=threads)
@@ -79,6 +105,7 @@ def child_main(conn: Any, spec: str, threads: int | None, memory_limit_bytes: in
         conn.send(("usage", f"backend {spec!r} failed to load: {describe_exception(exc)}{hint}"))
         return
     limit_cpu(None)
+    enter(settings.scratch_dir)  # jobs run in the scratch folder, never in the user's
     conn.send(("ready", {"main_thread": threading.main_thread().ident, "subreaper": subreaper,
                          "memory_capped": memory_limit_bytes is not None}))
     try:
@@ -91,7 +118,7 @@ def child_main(conn: Any, spec: str, threads: int | None, memory_limit_bytes: in
                 close_backend(backend)
                 conn.send(("bye", end_descendants(os.getpid())))
                 return
-            conn.send_bytes(run_job(backend, request, memory_limit_bytes))
+            conn.send_bytes(run_job(backend, request, memory_limit_bytes, settings.user_dir))
     finally:
         end_descendants(os.getpid())
 
@@ -107,11 +134,13 @@ def close_backend(backend: Any) -> None:
             pass
 
 
-def run_job(backend: Any, request: tuple, memory_limit_bytes: int | None = None) -> bytes:
+def run_job(backend: Any, request: tuple, memory_limit_bytes: int | None = None,
+            user_dir: str | None = None) -> bytes:
     """Run one job request ``(func name, args, CPU seconds or None)`` on ``backend`` under
     its CPU-time limit and return the pickled reply ``(status, payload, left)``; ``left``
     lists the pids of processes the job started that are still running (see
-    :func:`job_reply`; ``memory_limit_bytes`` is the cap in force, for the reason).
+    :func:`job_reply`; ``memory_limit_bytes`` is the cap in force, for the reason, and
+    ``user_dir`` the folder file names in reasons are shown relative to).
 
     Raises
     ------
@@ -122,7 +151,7 @@ def run_job(backend: Any, request: tuple, memory_limit_bytes: int | None = None)
     before = descendant_pids(os.getpid())
     limit_cpu(cpu_seconds)
     try:
-        status, payload = job_reply(backend, func, args, memory_limit_bytes)
+        status, payload = job_reply(backend, func, args, memory_limit_bytes, user_dir)
     finally:
         limit_cpu(None)
     left = sorted(descendant_pids(os.getpid()) - before)
@@ -133,8 +162,8 @@ def run_job(backend: Any, request: tuple, memory_limit_bytes: int | None = None)
                                                      f"main process: {describe_exception(exc)}", left)))
 
 
-def job_reply(backend: Any, func: str, args: tuple, memory_limit_bytes: int | None = None
-              ) -> tuple[str, Any]:
+def job_reply(backend: Any, func: str, args: tuple, memory_limit_bytes: int | None = None,
+              user_dir: str | None = None) -> tuple[str, Any]:
     """Run the job called ``func`` on ``backend`` and return ``(status, payload)``: ``ok`` and
     the result, ``unsupported`` or ``failed`` and a one-line reason, or ``bad-func``.
 
@@ -154,7 +183,26 @@ def job_reply(backend: Any, func: str, args: tuple, memory_limit_bytes: int | No
     except UnsupportedCase as exc:
         return "unsupported", one_line(safe_str(exc))
     except BaseException as exc:  # noqa: BLE001 - any failure of backend code is a result
-        return "failed", job_failure_reason(exc, memory_limit_bytes)
+        return "failed", job_failure_reason(exc, memory_limit_bytes, user_dir)
+
+
+def set_import_path(sys_path: tuple[str, ...] | None, user_dir: str | None) -> None:
+    """Take the parent's import path, with its ``""`` entries (the current folder) made the
+    user's folder, and keep the user's folder on it (last, where absent: their own modules
+    are found, and never shadow an installed one)."""
+    if sys_path is not None:
+        sys.path[:] = [user_dir if entry == "" and user_dir else entry for entry in sys_path]
+    if user_dir and user_dir not in sys.path:
+        sys.path.append(user_dir)
+
+
+def enter(folder: str | None) -> None:
+    """Make ``folder`` the working folder (nothing when None or gone)."""
+    if folder is not None:
+        try:
+            os.chdir(folder)
+        except OSError:
+            pass
 
 
 def redirect_outputs(log_path: str) -> None:
@@ -172,8 +220,9 @@ def redirect_outputs(log_path: str) -> None:
     os.close(log)
 
 
-def watch_parent(parent_pid: int, log_path: str) -> None:
-    """Exit the child, removing its log, when the process that owns the worker has gone.
+def watch_parent(parent_pid: int, log_path: str, scratch_dir: str | None = None) -> None:
+    """Exit the child, removing its log and scratch folder, when the process that owns the
+    worker has gone.
 
     A daemon thread checks every :data:`ORPHAN_CHECK_SECONDS` that ``parent_pid`` still
     exists and that the child has not been re-parented (under ``forkserver`` the child's
@@ -200,6 +249,8 @@ def watch_parent(parent_pid: int, log_path: str) -> None:
                 except OSError:
                     pass
                 end_descendants(os.getpid())
+                if scratch_dir is not None:
+                    shutil.rmtree(scratch_dir, ignore_errors=True)
                 os._exit(ORPHAN_EXIT_CODE)
             time.sleep(ORPHAN_CHECK_SECONDS)
 

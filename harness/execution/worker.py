@@ -35,6 +35,13 @@ How the child is run, and why
   innermost frame in the backend's code. The log is emptied before every job, so it stays
   small. SIGINT is ignored in the child: on Ctrl-C the parent decides, and stops it. Core
   dumps are switched off in the child (``RLIMIT_CORE`` = 0).
+- **Working folder.** Each child runs its jobs in a scratch folder of its own
+  (:attr:`Worker.scratch_dir`, removed when the child stops), so a backend that writes or
+  deletes files in its working folder never touches the user's. The backend is loaded in
+  the user's folder (this process's working folder), so relative paths in a SPEC start
+  there, and that folder stays on the child's import path (the parent's import path is
+  passed on, its ``""`` entry made the user's folder, and the folder added last where
+  absent), so the user's own modules are found.
 - **Limits.** Each child runs under a memory cap (by default half of the physical memory
   divided by ``concurrency``, at least 2 GiB; ``memory_limit_bytes=None`` lifts it) and
   each job under a CPU-time limit beside its wall-clock timeout; see
@@ -83,7 +90,9 @@ import multiprocessing.connection
 import multiprocessing.util  # noqa: F401 - its atexit hook must be registered before ours
 import os
 import secrets
+import shutil
 import signal
+import sys
 import tempfile
 import time
 import weakref
@@ -94,7 +103,7 @@ import numpy as np
 
 from fftgauge.harness.errors import BackendFailure, UnsupportedCase, UsageError
 from fftgauge.harness.execution import jobs
-from fftgauge.harness.execution.child import child_main
+from fftgauge.harness.execution.child import ChildSettings, child_main
 from fftgauge.harness.execution.crash import (death_reason, describe_exception, ended_text, leftover_text,
                                               memory_cap_text, read_log_tail, remove_file, thread_stack, truncate_log,
                                               user_location)
@@ -188,6 +197,9 @@ class Worker:
         self._log_remover: Any = None
         self._usage_error: str | None = None
         self._closed = False
+        #: The current child's scratch folder (its working folder; None when no child runs).
+        self.scratch_dir: str | None = None
+        self._scratch_remover: Any = None
         _LIVE_WORKERS.add(self)
 
     # -- public ------------------------------------------------------------------------------
@@ -314,11 +326,15 @@ class Worker:
         # A forked child inherits the parent's end too; it must close it, or it would never
         # see end-of-file when the parent goes. Spawned children get only what is passed.
         inherited = parent_conn if self.start_method == "fork" else None
-        process = self._ctx.Process(
-            target=child_main, name=f"fftgauge-worker {self.spec}",
-            args=(child_conn, self.spec, self.threads, self.memory_limit_bytes, self._log_path,
-                  os.getpid(), inherited, self._token,
-                  cpu_seconds_for(self.start_timeout_seconds, self.cpu_limit_seconds)))
+        self.scratch_dir = tempfile.mkdtemp(prefix="fftgauge-scratch-")
+        self._scratch_remover = weakref.finalize(self, shutil.rmtree, self.scratch_dir, ignore_errors=True)
+        settings = ChildSettings(
+            spec=self.spec, threads=self.threads, memory_limit_bytes=self.memory_limit_bytes,
+            load_cpu_seconds=cpu_seconds_for(self.start_timeout_seconds, self.cpu_limit_seconds),
+            log_path=self._log_path, parent_pid=os.getpid(), token=self._token,
+            user_dir=user_folder(), scratch_dir=self.scratch_dir, sys_path=tuple(sys.path))
+        process = self._ctx.Process(target=child_main, name=f"fftgauge-worker {self.spec}",
+                                    args=(child_conn, settings, inherited))
         process.start()
         child_conn.close()
         self._process, self._conn = process, parent_conn
@@ -426,9 +442,20 @@ class Worker:
             ended += end_processes(more)
             procs += more
         wait_gone(procs)
+        if self._scratch_remover is not None:  # the child's scratch folder goes with it
+            self._scratch_remover()
+            self.scratch_dir = self._scratch_remover = None
         self._known_pids.clear()
         self.processes_ended += ended
         return ended
+
+
+def user_folder() -> str | None:
+    """Return the user's folder (this process's working folder), or None when it has gone."""
+    try:
+        return os.getcwd()
+    except OSError:
+        return None
 
 
 def run_jobs(worker: Worker, func: Callable[..., Any], arg_list: Iterable[tuple], timeout_seconds: float

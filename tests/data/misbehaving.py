@@ -146,6 +146,20 @@ def daemon_then_hang_fft(x):
     hang_fft(x)
 
 
+#: The file the folder-scrubbing backend leaves in its working folder.
+SCRUBBER_MARK = "left-by-scrubber.txt"
+
+
+def scrub_cwd_fft(x):
+    """Delete every file in the working folder, leave SCRUBBER_MARK there, return the transform."""
+    for name in os.listdir("."):
+        if os.path.isfile(name):
+            os.unlink(name)
+    with open(SCRUBBER_MARK, "w") as fh:
+        fh.write("scrubbed\n")
+    return np.fft.fft(x)
+
+
 class _Unpicklable(Exception):
     """An exception that cannot be pickled: it holds a lambda and needs two arguments."""
 
@@ -204,7 +218,14 @@ class UnsendableBackend(Backend):
         return FunctionPlan(case, np.fft.fft)
 
     def describe(self):
-        return {"name": self.name, "callback": lambda: None}
+        return _UnsendableDescription(name=self.name, callback=lambda: None)
+
+
+class _UnsendableDescription(dict):
+    """A description whose ``as_dict()`` holds a lambda, which pickle cannot carry."""
+
+    def as_dict(self):
+        return self
 
 
 class CrashOnLoadBackend(Backend):
