@@ -7,8 +7,11 @@
    coefficient of variation of the medians per size (target: <= 3%).
 3. sweep: numpy, scipy and pyfftw over 2^4 .. 2^20, float32 and float64, fft and rfft
    (target: <= 90 s).
+4. busywait: the median the timer reports for the busy-wait backend (a cost known in
+   advance: 1 ms and 200 us per call), warm and with cold caches (target: within
+   0.9x-1.5x; the unit tests check the timer's arithmetic on a fake clock instead).
 
-Run: ``.venv/bin/python benchmarks/bench_timing.py [overhead|reproducibility|sweep|all]``
+Run: ``.venv/bin/python benchmarks/bench_timing.py [overhead|reproducibility|sweep|busywait|all]``
 """
 
 from __future__ import annotations
@@ -109,8 +112,30 @@ def sweep() -> None:
           f"{seconds:.1f} s; target <= 90 s: {'meets' if seconds <= 90 else 'MISSES'}")
 
 
+def busywait(attempts: int = 3) -> None:
+    """The timer's median for busy-waits of a known cost, the best of ``attempts`` tries each."""
+    from fftgauge.backends.busywait import BusyWaitBackend
+    from fftgauge.harness.battery.inputs import case_rng, random_input
+    from fftgauge.harness.cases import Case
+    from fftgauge.harness.timing.timer import Timer, TimerSettings
+
+    case = Case("fft", "float64", 1024)
+    x = random_input(case, case_rng(0, case))
+    print(f"busywait: timer median / busy-wait cost (best of {attempts}; load average {os.getloadavg()[0]:.2f})")
+    for seconds, cold in ((1e-3, False), (2e-4, False), (1e-3, True)):
+        settings = TimerSettings(samples=9, budget_seconds=1.0, warmup_seconds=1e-3, cold_cache=cold,
+                                 eviction_bytes=32 * 2**20 if cold else None)
+        plan = BusyWaitBackend(seconds=seconds).plan(case)
+        ratios = [Timer(settings).measure(plan, x).seconds / seconds for _ in range(attempts)]
+        best = min(ratios, key=lambda r: abs(r - 1))
+        verdict = "meets" if 0.9 <= best <= 1.5 else "MISSES"
+        print(f"  {seconds * 1e6:.0f} us{' cold cache' if cold else ''}: {best:.3f} "
+              f"(all: {', '.join(f'{r:.3f}' for r in ratios)}); target 0.9-1.5: {verdict}")
+
+
 if __name__ == "__main__":
     which = sys.argv[1] if len(sys.argv) > 1 else "all"
-    for name, fn in (("overhead", overhead), ("reproducibility", reproducibility), ("sweep", sweep)):
+    for name, fn in (("overhead", overhead), ("reproducibility", reproducibility), ("sweep", sweep),
+                     ("busywait", busywait)):
         if which in (name, "all"):
             fn()

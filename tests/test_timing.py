@@ -1,16 +1,17 @@
-"""fftgauge.harness.timing.timer: the timer on synthetic plans of known cost, the overhead floor, the row
-fields and their formulas, and the job function the worker runs.
+"""fftgauge.harness.timing.timer: the timer and its sessions on a fake clock (every expected
+time derived by hand from the fake costs), the row fields and their formulas, rounds, and
+the job function the worker runs.
 
-The busy-wait tests are the one place where a measured time is asserted, as the timing
-issue asks: with a loose ratio (median within 0.9x-1.5x of the busy-wait), which holds on a
-shared 2-core machine.
+No test here asserts a real duration: the timer reads an injectable clock
+(:mod:`fftgauge.harness.timing.clock`), and :mod:`fake_clock` gives one that only fake plans
+advance. How close the timer comes to a known real cost (the busy-wait backend) is a
+benchmark: ``benchmarks/bench_timing.py busywait``.
 """
 
 from __future__ import annotations
 
 import dataclasses
 import gc
-import math
 import multiprocessing
 import pickle
 import weakref
@@ -19,6 +20,7 @@ from concurrent.futures import ProcessPoolExecutor
 import numpy as np
 import pytest
 
+from fake_clock import FakeBackend, FakeClock, FakePlan
 from fftgauge.backends.base import Plan
 from fftgauge.backends.busywait import BusyWaitBackend
 from fftgauge.backends.null import NullBackend
@@ -28,87 +30,125 @@ from fftgauge.harness.errors import UnsupportedCase, UsageError
 from fftgauge.harness.battery.inputs import case_rng, random_input
 from fftgauge.harness.rows import TimeRow
 from fftgauge.harness.timing.caches import FALLBACK_EVICTION_BYTES, last_level_cache_bytes
-from fftgauge.harness.timing.timer import TimerSettings, Timer, gflops, limit_threads, measure, ns_per_nlogn, time_case
+from fftgauge.harness.timing.timer import TimerSettings, Timer, limit_threads, measure, time_case
 import fftgauge.harness.timing.caches as caches
 import fftgauge.harness.timing.timer as timing
 
 CASE = Case("fft", "float64", 1024)
 X = random_input(CASE, case_rng(0, CASE))
 FAST = dict(samples=9, min_samples=5, budget_seconds=1.0, warmup_seconds=1e-3)
+#: Fake-clock settings: no warm-up beyond its one call, no budget, 1 ms target.
+EXACT = dict(samples=9, min_samples=5, budget_seconds=None, warmup_seconds=0.0)
+#: A fake call of 2 ms: longer than the 1 ms target, so every sample is one call.
+ONE_CALL_NS = 2_000_000
 
 
-def _closest_of_attempts(timer: Timer, plan: Plan, seconds: float, attempts: int = 3):
-    """Return the measurement whose median is closest to ``seconds`` over a few attempts.
-
-    A busy-wait spins on the wall clock, so when another process takes the CPU in the
-    middle of a sample, that sample grows by the time slice lost; on a shared 2-core machine
-    more than half the samples of one attempt can be hit. Trying again (at most 3 times)
-    keeps the check meaningful (a timer that mis-divides by loops, or subtracts the wrong
-    floor, misses on every attempt) without making it flaky under load.
-    """
-    found = []
-    for _ in range(attempts):
-        m = timer.measure(plan, X)
-        found.append(m)
-        if 0.9 * seconds <= m.seconds <= 1.5 * seconds:
-            break
-    return min(found, key=lambda m: abs(math.log(m.seconds / seconds)) if m.seconds > 0 else math.inf)
+def fake_timer(read_ns: int = 0, **settings) -> tuple[Timer, FakeClock]:
+    """Return a timer on a new fake clock, with :data:`EXACT` settings updated by ``settings``."""
+    clock = FakeClock(read_ns)
+    return Timer(TimerSettings(**{**EXACT, **settings}), clock), clock
 
 
-@pytest.mark.parametrize("seconds", [1e-3, 2e-4])
-def test_busywait_cost_is_recovered(seconds):
-    m = _closest_of_attempts(Timer(TimerSettings(**FAST)), BusyWaitBackend(seconds=seconds).plan(CASE), seconds)
-    assert 0.9 * seconds <= m.seconds <= 1.5 * seconds, m
-    assert m.seconds_low <= m.seconds <= m.seconds_high
-    # one sample lasts about the target (half of it at least, even if the autorange was disturbed)
-    assert m.loops * seconds >= 0.5 * TimerSettings().target_sample_seconds
+# -- the timer on a fake clock ------------------------------------------------------------------
+
+def test_known_cost_is_recovered_with_the_loop_overhead_subtracted():
+    """2.5 us calls, 40 ns per clock read. Autorange: 64 loops take 64 * 2500 + 40 = 160040 ns
+    >= 125 us (32 loops do not), scaled to ceil(64e6 / 160040) = 400 loops. A sample of 400
+    calls reads 1e6 + 40 ns, the empty loop and the null plan (which does not move the clock)
+    40 ns: overhead 40 / 400 ns = 0.1 ns per call, floor 0, and the call's cost exactly."""
+    timer, clock = fake_timer(read_ns=40)
+    m = timer.measure(FakePlan(CASE, clock, 2_500), X)
+    assert m.loops == 400 and m.samples == 9
+    assert m.overhead_seconds == pytest.approx(0.1e-9, rel=1e-12)
+    assert m.floor_seconds == pytest.approx(0.0, abs=1e-21)
+    assert m.seconds == m.seconds_low == m.seconds_high == pytest.approx(2.5e-6, rel=1e-12)
+    raw, clock = fake_timer(read_ns=40, subtract_overhead=False)
+    assert raw.measure(FakePlan(CASE, clock, 2_500), X).seconds == pytest.approx(2500.1e-9, rel=1e-12)
+
+
+def test_median_interval_and_order_of_samples():
+    """Calls 0 and 1 are the warm-up and the autorange (2 ms: one call per sample); the nine
+    samples take 2.3, 2.0, 2.8, 2.1, 2.6, 2.4, 2.2, 2.7, 2.5 ms. Median 2.4 ms; the 95%
+    order-statistic interval for n = 9 is x_(2)..x_(8) = 2.1..2.7 ms with coverage
+    1 - 2 * (1 + 9) / 2^9 = 0.9609375 (binomial tails, by hand)."""
+    sample_ms = [2.3, 2.0, 2.8, 2.1, 2.6, 2.4, 2.2, 2.7, 2.5]
+    timer, clock = fake_timer()
+    m = timer.measure(FakePlan(CASE, clock, [ONE_CALL_NS] * 2 + [round(v * 1e6) for v in sample_ms]), X)
+    assert m.loops == 1
+    assert m.sample_seconds == pytest.approx([v * 1e-3 for v in sample_ms], rel=1e-12)
+    assert (m.seconds, m.seconds_low, m.seconds_high) == pytest.approx((2.4e-3, 2.1e-3, 2.7e-3), rel=1e-12)
+    assert m.coverage == pytest.approx(0.9609375)
+    assert m.relative_spread == pytest.approx((2.6 - 2.2) / 2.4, rel=1e-9)  # IQR (numpy's linear quartiles) / median
+
+
+def test_budget_stops_sampling_once_spent_and_min_samples_are_in():
+    """2 ms samples, a 10 ms budget: the fifth sample brings the spent time to 10 ms, so 5
+    samples of the 50 asked for; a zero budget stops at min_samples."""
+    timer, clock = fake_timer(samples=50, min_samples=3, budget_seconds=0.01)
+    assert timer.measure(FakePlan(CASE, clock, ONE_CALL_NS), X).samples == 5
+    timer, clock = fake_timer(samples=50, min_samples=3, budget_seconds=0.0)
+    assert timer.measure(FakePlan(CASE, clock, ONE_CALL_NS), X).samples == 3
+
+
+def test_budget_counts_every_round_and_the_untimed_call_of_each():
+    """Round 1: 3 samples of 2 ms (6 ms spent). Round 2 starts with one untimed call (8 ms),
+    then one sample brings it to 10 ms = the budget: 4 samples in all, not 3 + 5."""
+    timer, clock = fake_timer(samples=50, min_samples=3, budget_seconds=0.01)
+    plan = FakePlan(CASE, clock, ONE_CALL_NS)
+    session = timer.start(plan, X)
+    session.take(3)
+    assert session.spent_seconds == pytest.approx(6e-3)
+    session.take(5)
+    assert session.result().samples == 4 and session.spent_seconds == pytest.approx(10e-3)
+    assert plan.calls == 2 + 3 + 1 + 1  # warm-up, autorange, round 1, untimed call, round 2
 
 
 def test_cold_cache_eviction_is_outside_the_timed_region():
-    """Evicting 32 MiB takes milliseconds; the 1 ms busy-wait must still read as ~1 ms."""
-    timer = Timer(TimerSettings(cold_cache=True, eviction_bytes=32 * 2**20, **FAST))
-    m = _closest_of_attempts(timer, BusyWaitBackend(seconds=1e-3).plan(CASE), 1e-3)
-    assert m.cold_cache and m.loops == 1
-    assert 0.9e-3 <= m.seconds <= 1.5e-3, m
+    """Evicting costs 5 ms on the fake clock before every sample; the samples still read the
+    call's 300 us, one call each, and there is one eviction per sample."""
+    class EvictingTimer(Timer):
+        evictions = 0
+
+        def evict_caches(self):
+            self.evictions += 1
+            self.clock.advance(5_000_000)
+
+    clock = FakeClock()
+    timer = EvictingTimer(TimerSettings(cold_cache=True, **EXACT), clock)
+    m = timer.measure(FakePlan(CASE, clock, 300_000), X)
+    assert m.cold_cache and m.loops == 1 and timer.evictions == m.samples == 9
+    assert m.seconds == m.seconds_high == pytest.approx(300e-6, rel=1e-12)
 
 
-def test_null_backend_reads_its_floor_after_subtraction():
-    """Only the empty loop is subtracted: a do-nothing backend then reads the cost of one
-    Python call (its floor), far below a microsecond, and the loop itself is cheaper still."""
-    m = measure(NullBackend().plan(CASE), X, samples=15, budget_seconds=1.0, warmup_seconds=1e-3)
-    assert 0.0 <= m.overhead_seconds < m.floor_seconds < 1e-6, m
-    assert abs(m.seconds - m.floor_seconds) < 0.5 * m.floor_seconds, m
-    raw = measure(NullBackend().plan(CASE), X, samples=15, budget_seconds=1.0, warmup_seconds=1e-3,
-                  subtract_overhead=False)
-    assert raw.seconds > 0.5 * raw.overhead_seconds, raw  # unsubtracted, the floor is all there is
+def test_the_null_plan_reads_its_floor_of_zero():
+    """The null plan on a fake clock with 40 ns reads: it never reaches the target, so the
+    autorange stops at max_loops; every sample is the empty loop's 40 ns, all of it
+    subtracted, so the median is 0 and so is the floor."""
+    timer, clock = fake_timer(read_ns=40, max_loops=64)
+    m = timer.measure(NullBackend().plan(CASE), X)
+    assert m.loops == 64 and m.overhead_seconds == pytest.approx(40e-9 / 64, rel=1e-12)
+    assert m.seconds == pytest.approx(0.0, abs=1e-21) and m.floor_seconds == pytest.approx(0.0, abs=1e-21)
 
 
-def test_measurement_fields_are_consistent():
+def test_measurement_fields_are_consistent_on_a_real_plan():
+    """A real plan (numpy): structure only, no duration asserted."""
     m = measure(NumpyBackend().plan(CASE), X, **FAST)
-    assert m.samples == len(m.sample_seconds) == 9
-    assert m.loops >= 1
-    assert m.seconds_low <= m.seconds <= m.seconds_high
+    assert m.samples == len(m.sample_seconds) == 9 and m.loops >= 1
     assert m.seconds == pytest.approx(float(np.median(m.sample_seconds)))
-    assert min(m.sample_seconds) <= m.seconds_low and m.seconds_high <= max(m.sample_seconds)
-    assert m.coverage == pytest.approx(0.9609375)  # n = 9: x_(2)..x_(8), 1 - 2*10/512 (hand)
+    assert min(m.sample_seconds) <= m.seconds_low <= m.seconds <= m.seconds_high <= max(m.sample_seconds)
 
 
-def test_budget_stops_at_min_samples():
-    m = measure(BusyWaitBackend(seconds=1e-4).plan(CASE), X, samples=50, min_samples=3,
-                budget_seconds=0.0, warmup_seconds=0.0)
-    assert m.samples == 3
-
-
-class _Recorder(Plan):
+class _Recorder(FakePlan):
     """Records, at every call, whether gc is enabled and how many earlier outputs are alive."""
 
-    def __init__(self, case):
-        super().__init__(case)
+    def __init__(self, case, clock):
+        super().__init__(case, clock, 100_000)
         self.gc_states: list[bool] = []
         self.alive_at_call: list[int] = []
         self._refs: list[weakref.ref] = []
 
     def execute(self, x):
+        super().execute(x)
         self.gc_states.append(gc.isenabled())
         self.alive_at_call.append(sum(r() is not None for r in self._refs))
         y = np.empty(4)
@@ -117,48 +157,65 @@ class _Recorder(Plan):
 
 
 def test_gc_paused_during_samples_and_outputs_not_kept():
-    plan = _Recorder(CASE)
+    timer, clock = fake_timer(samples=5)
+    plan = _Recorder(CASE, clock)
     assert gc.isenabled()
-    measure(plan, X, samples=5, budget_seconds=None, warmup_seconds=0.0, target_sample_seconds=1e-4)
+    timer.measure(plan, X)
     assert gc.isenabled()
-    assert plan.gc_states and not any(plan.gc_states)
+    assert len(plan.gc_states) > 5 and not any(plan.gc_states)
     assert max(plan.alive_at_call) == 0
 
 
 def test_caller_input_is_not_modified():
-    class Overwrite(Plan):
+    class Overwrite(FakePlan):
         def execute(self, x):
+            super().execute(x)
             x *= 2
             return x
 
+    timer, clock = fake_timer(samples=5)
     x = X.copy()
-    measure(Overwrite(CASE), x, samples=5, warmup_seconds=0.0, target_sample_seconds=1e-4)
+    timer.measure(Overwrite(CASE, clock, 100_000), x)
     np.testing.assert_array_equal(x, X)
 
 
-# -- rates ----------------------------------------------------------------------------------
+# -- time_case: the row, its rates and planning time ------------------------------------------
+
+def fake_row(kind: str, dtype: str, n: int, cost_ns: int, plan_ns: int = 0, **options) -> dict:
+    """Return the row :func:`time_case` makes for a fake backend of ``cost_ns`` per call."""
+    clock = FakeClock()
+    backend = FakeBackend(clock, cost_ns, plan_ns)
+    return time_case(backend, (kind, dtype, n, "backward"), dict(EXACT, measure_memory=False, **options), clock)
+
 
 def test_rate_formulas_n1024():
     """Pseudo-flop convention (common practice in FFT benchmarking): 5 N log2 N for a complex
-    transform, 2.5 N log2 N for a real one; N = 1024: 5 * 1024 * 10 = 51200 (hand)."""
-    row = time_case(BusyWaitBackend(seconds=1e-4), ("fft", "float64", 1024, "backward"),
-                    dict(FAST, measure_memory=False))
+    transform, 2.5 N log2 N for a real one. N = 1024 at 10 us per call (by hand):
+    5 * 1024 * 10 = 51200 flops, 51200 / 1e-5 / 1e9 = 5.12 GFLOP/s, 1e4 ns / 10240 = 0.9765625
+    ns per N log2 N; rfft: 25600 flops, 2.56 GFLOP/s."""
+    row = fake_row("fft", "float64", 1024, 10_000)
+    assert row["seconds"] == pytest.approx(1e-5, rel=1e-12)
     assert row["flops"] == 51200
-    assert row["gflops"] == pytest.approx(51200 / row["seconds"] / 1e9)
-    assert row["ns_per_nlogn"] == pytest.approx(row["seconds"] * 1e9 / (1024 * 10))
-    real = time_case(BusyWaitBackend(seconds=1e-4), ("rfft", "float32", 1024, "backward"),
-                     dict(FAST, measure_memory=False))
-    assert real["flops"] == 25600
+    assert row["gflops"] == pytest.approx(5.12, rel=1e-12)
+    assert row["ns_per_nlogn"] == pytest.approx(0.9765625, rel=1e-12)
+    real = fake_row("rfft", "float32", 1024, 10_000)
+    assert real["flops"] == 25600 and real["gflops"] == pytest.approx(2.56, rel=1e-12)
 
 
-def test_rate_helpers_edge_cases():
-    assert ns_per_nlogn(1e-6, 1) is None
-    assert ns_per_nlogn(2e-6, 4) == pytest.approx(2e3 / 8)
-    assert gflops(1e9, 0.5) == pytest.approx(2.0)
-    assert gflops(1e9, 0.0) == 0.0 and gflops(1e9, -1e-9) == 0.0
+def test_time_case_records_plan_time():
+    """Planning advances the fake clock by 20 ms: the row says 0.02 s, the calls do not count."""
+    row = fake_row("fft", "float64", 256, 10_000, plan_ns=20_000_000)
+    assert row["plan_seconds"] == pytest.approx(0.02, rel=1e-12)
 
 
-# -- time_case ------------------------------------------------------------------------------
+def test_time_case_flags_null_as_in_place_and_below_floor():
+    """A plan that takes no time on the fake clock: median 0, GFLOP/s 0 and the floor message."""
+    clock = FakeClock()
+    row = time_case(NullBackend(), ("fft", "float64", 64, "backward"),
+                    dict(EXACT, measure_memory=False, max_loops=64), clock)
+    assert row["in_place"] is True and row["peak_bytes"] is None and row["memory_method"] is None
+    assert row["seconds"] == 0.0 and row["gflops"] == 0.0 and "floor" in row["message"]
+
 
 def test_time_case_returns_every_time_row_field():
     row = time_case(NumpyBackend(), ("rfft", "float64", 4096, "ortho"), dict(FAST, seed=3))
@@ -167,28 +224,11 @@ def test_time_case_returns_every_time_row_field():
     rebuilt = TimeRow(**{k: row[k] for k in names})
     assert rebuilt.as_dict() == {k: row[k] for k in names}
     assert (row["backend"], row["kind"], row["n"], row["norm"], row["threads"]) == ("numpy", "rfft", 4096, "ortho", 1)
-    assert row["plan_seconds"] >= 0.0 and row["status"] == "ok"
+    assert isinstance(row["plan_seconds"], float) and row["status"] == "ok"
     assert row["seconds_low"] <= row["seconds"] <= row["seconds_high"]
     assert isinstance(row["peak_bytes"], int) and row["peak_bytes"] >= 0
     assert row["in_place"] is False
-    assert row["overhead_seconds"] > 0 and row["memory_method"].startswith("tracemalloc")
-
-
-def test_time_case_flags_null_as_in_place_and_below_floor():
-    row = time_case(NullBackend(), ("fft", "float64", 64, "backward"), dict(FAST, measure_memory=False))
-    assert row["in_place"] is True and row["peak_bytes"] is None and row["memory_method"] is None
-    if row["seconds"] <= 0:
-        assert row["gflops"] == 0.0 and "floor" in row["message"]
-
-
-def test_time_case_records_plan_time():
-    class SlowPlanning(BusyWaitBackend):
-        def plan(self, case):
-            BusyWaitBackend(seconds=0.02).plan(case).execute(None)
-            return super().plan(case)
-
-    row = time_case(SlowPlanning(seconds=1e-4), ("fft", "float64", 256, "backward"), dict(FAST, measure_memory=False))
-    assert row["plan_seconds"] >= 0.02
+    assert isinstance(row["overhead_seconds"], float) and row["memory_method"].startswith("tracemalloc")
 
 
 def test_time_case_rejects_unsupported_and_unknown_options():

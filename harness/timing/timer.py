@@ -59,7 +59,7 @@ from fftgauge.harness.cases import Case
 from fftgauge.harness.errors import UnsupportedCase
 from fftgauge.harness.battery.inputs import case_rng, random_input
 from fftgauge.harness.timing.caches import evict_caches
-from fftgauge.harness.timing.clock import (DEFAULT_CLOCK, DEFAULT_WARMUP_SECONDS, TARGET_SAMPLE_SECONDS, Clock,
+from fftgauge.harness.timing.clock import (DEFAULT_CLOCK, DEFAULT_WARMUP_SECONDS, MAX_LOOPS, TARGET_SAMPLE_SECONDS, Clock,
                                            autorange, gc_paused, sample_target_ns, time_empty_loop, time_loops,
                                            warm_up)
 from fftgauge.harness.timing.memory import detect_in_place, measure_memory
@@ -86,6 +86,8 @@ class TimerSettings:
         :func:`fftgauge.harness.timing.caches.eviction_bytes`.
     confidence : coverage of the interval on the median.
     subtract_overhead : subtract the null plan's loop overhead from every sample.
+    max_loops : most calls per sample the autorange chooses (a guard against a plan that
+        takes no time).
     """
 
     samples: int = 25
@@ -97,6 +99,7 @@ class TimerSettings:
     eviction_bytes: int | None = None
     confidence: float = 0.95
     subtract_overhead: bool = True
+    max_loops: int = MAX_LOOPS
 
 
 @dataclass(frozen=True)
@@ -201,7 +204,7 @@ class Timer:
         with gc_paused():
             warm_up(plan.execute, x_in, self.settings.warmup_seconds, self.clock)
             session.loops = (1 if self.settings.cold_cache
-                             else autorange(plan.execute, x_in, self.target_ns(), self.clock))
+                             else autorange(plan.execute, x_in, self.target_ns(), self.clock, self.settings.max_loops))
         return session
 
 
