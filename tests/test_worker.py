@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import multiprocessing
 import os
+import re
 import signal
 import subprocess
 import sys
@@ -145,6 +146,8 @@ MISBEHAVIOURS = [
      False, {"memory_limit_bytes": 4 * 2**30}),
     ("hog_fft", r"^ran out of memory \(MemoryError: .*\) \(at .*" + LOCATION + r"hog_fft\)$",
      False, {"memory_limit_bytes": None}),
+    ("none_fft", r"^the backend returned None, not an array$", False, {}),
+    ("objects_fft", r"^the backend returned (a list|an array) of dtype <U7, not an array of numbers$", False, {}),
     ("unpicklable_error_fft", r"^_Unpicklable: code 17: an error that cannot be pickled \(at .*"
      + LOCATION + r"unpicklable_error_fft\)$", False, {}),
     ("unprintable_error_fft", r"^_Unprintable: <_Unprintable whose message cannot be shown>", False, {}),
@@ -550,3 +553,18 @@ def test_users_folder_stays_on_the_import_path(tmp_path, monkeypatch):
         with pytest.raises(BackendFailure, match=r"^ArithmeticError: the user's own bug "
                                                  r"\(at lib/lib_fft\.py:9 in broken\)$"):
             worker.call(PLAN, FFT8, x, timeout_seconds=TIMEOUT_SECONDS)
+
+
+def test_exception_text_names_the_users_line():
+    """crash.exception_text, for rows made where a backend's exception is caught: type,
+    message and the innermost frame outside the engine, relative to the user's folder."""
+    from fftgauge.harness.execution.crash import exception_text
+
+    def users_fft():
+        raise ZeroDivisionError("n = 0")
+
+    try:
+        users_fft()
+    except ZeroDivisionError as exc:
+        text = exception_text(exc, folder=ROOT)
+    assert re.match(r"^ZeroDivisionError: n = 0 \(at tests/test_worker\.py:\d+ in users_fft\)$", text), text

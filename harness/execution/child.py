@@ -26,9 +26,10 @@ from dataclasses import dataclass
 from multiprocessing.reduction import ForkingPickler
 from typing import Any
 
-from fftgauge.harness.errors import UnsupportedCase, UsageError
+from fftgauge.harness.errors import BackendFailure, UnsupportedCase, UsageError
 from fftgauge.harness.execution import jobs
-from fftgauge.harness.execution.crash import describe_exception, gib, job_failure_reason, one_line, safe_str
+from fftgauge.harness.execution.crash import (describe_exception, gib, job_failure_reason, one_line, safe_str,
+                                              set_user_folder)
 from fftgauge.harness.execution.limits import limit_cpu, limit_memory, no_core_dumps
 from fftgauge.harness.execution.processes import TOKEN_VARIABLE, become_subreaper, descendant_pids, end_descendants
 
@@ -88,6 +89,7 @@ def child_main(conn: Any, settings: ChildSettings, parents_end: Any = None) -> N
     watch_parent(settings.parent_pid, settings.log_path, settings.scratch_dir)
     no_core_dumps()
     set_import_path(settings.sys_path, settings.user_dir)
+    set_user_folder(settings.user_dir)
     spec, threads, memory_limit_bytes = settings.spec, settings.threads, settings.memory_limit_bytes
     if memory_limit_bytes is not None and not limit_memory(memory_limit_bytes):
         memory_limit_bytes = None  # no cap on this platform: never blame one
@@ -182,6 +184,8 @@ def job_reply(backend: Any, func: str, args: tuple, memory_limit_bytes: int | No
         raise
     except UnsupportedCase as exc:
         return "unsupported", one_line(safe_str(exc))
+    except BackendFailure as exc:  # the job's own reason, already said for the user
+        return "failed", one_line(safe_str(exc))
     except BaseException as exc:  # noqa: BLE001 - any failure of backend code is a result
         return "failed", job_failure_reason(exc, memory_limit_bytes, user_dir)
 

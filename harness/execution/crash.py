@@ -27,6 +27,15 @@ _STACK_FRAME = re.compile(r'^\s*File "(?P<file>.*)", line (?P<line>\d+) in (?P<n
 
 Frame = tuple[str, int, str]
 
+#: The user's folder, which file names in reasons are shown relative to by default (set in a
+#: worker's child, whose working folder is its scratch folder; None: the working folder).
+_USER_FOLDER: list[str | None] = [None]
+
+
+def set_user_folder(folder: str | None) -> None:
+    """Show file names in reasons relative to ``folder`` from now on (None: the working folder)."""
+    _USER_FOLDER[0] = folder
+
 
 # -- text --------------------------------------------------------------------------------------
 def one_line(text: object, limit: int = MESSAGE_CHARS) -> str:
@@ -87,7 +96,7 @@ def engine_dirs() -> tuple[str, ...]:
 def show_path(path: str, folder: str | None = None) -> str:
     """Return ``path`` relative to ``folder`` (default: the current folder) when inside it."""
     full = os.path.abspath(path)
-    here = os.path.join(folder or os.getcwd(), "")
+    here = os.path.join(folder or _USER_FOLDER[0] or os.getcwd(), "")
     return os.path.relpath(full, here) if full.startswith(here) else path
 
 
@@ -125,13 +134,23 @@ def job_failure_reason(exc: BaseException, memory_limit_bytes: int | None = None
     (MemoryError: ...) (at file.py:12 in fn)"``; without a cap, ``"ran out of memory
     (MemoryError: ...) ..."``; any other exception ``"ValueError: message (at ...)"``.
     """
+    if not isinstance(exc, MemoryError):
+        return exception_text(exc, folder)
     where = user_location(traceback_frames(exc), folder)
-    at = f" (at {where})" if where else ""
-    if isinstance(exc, MemoryError):
-        message = one_line(safe_str(exc))
-        what = memory_cap_text(memory_limit_bytes) if memory_limit_bytes else "ran out of memory"
-        return f"{what} (MemoryError{': ' + message if message else ''}){at}"
-    return f"{describe_exception(exc)}{at}"
+    message = one_line(safe_str(exc))
+    what = memory_cap_text(memory_limit_bytes) if memory_limit_bytes else "ran out of memory"
+    return f"{what} (MemoryError{': ' + message if message else ''})" + (f" (at {where})" if where else "")
+
+
+def exception_text(exc: BaseException, folder: str | None = None) -> str:
+    """Return ``"TypeName: message (at file.py:12 in fn)"``: the exception on one line and the
+    innermost frame of its traceback in the user's code (no location when it has none).
+
+    For rows and reasons made where a backend's exception is caught (the battery's checks),
+    so they name the line as the worker's own reasons do.
+    """
+    where = user_location(traceback_frames(exc), folder)
+    return describe_exception(exc) + (f" (at {where})" if where else "")
 
 
 def signal_name(number: int) -> str:

@@ -16,6 +16,7 @@ from typing import Any
 import numpy as np
 
 from fftgauge.harness.cases import Case
+from fftgauge.harness.errors import BackendFailure
 
 
 def plan_and_execute(backend: Any, case: Case | tuple, x: np.ndarray) -> np.ndarray:
@@ -42,9 +43,9 @@ def plan_and_execute(backend: Any, case: Case | tuple, x: np.ndarray) -> np.ndar
     ------
     UnsupportedCase
         When the backend's plan refuses the case (the worker passes it on as such).
-    TypeError
-        When the backend returned something that is not a numeric array (no numbers, or
-        Python objects); the worker turns it into a :class:`BackendFailure`.
+    BackendFailure
+        When the backend returned None or something that is not an array of numbers
+        (Python objects, strings); the reason says which.
     Exception
         Whatever the backend raised; the worker turns it into a :class:`BackendFailure`.
     """
@@ -56,9 +57,11 @@ def plan_and_execute(backend: Any, case: Case | tuple, x: np.ndarray) -> np.ndar
         y = np.array(out, copy=True)
     finally:
         plan.close()
+    if out is None or (y.dtype == object and y.shape == () and y.item() is None):  # None, or as np.asarray(None)
+        raise BackendFailure("the backend returned None, not an array")
     if y.dtype.kind not in "biufc":
-        raise TypeError(f"the backend returned {type(out).__name__} of dtype {y.dtype}, "
-                        f"not a numeric array")
+        what = "an array" if isinstance(out, np.ndarray) else f"a {type(out).__name__}"
+        raise BackendFailure(f"the backend returned {what} of dtype {y.dtype}, not an array of numbers")
     return y
 
 

@@ -79,13 +79,25 @@ def hog_2gib_fft(x):
 
 def slow_hog_fft(x):
     """Take memory a step at a time and keep it; when an allocation fails, swallow the
-    MemoryError and wait (a backend that retries): it holds the memory until stopped."""
+    MemoryError and wait (a backend that retries): it holds the memory until stopped. The
+    steps are left untouched (numpy.empty), so the cap is reached at once however loaded
+    the machine is."""
     held = []
     while True:
         try:
-            held.append(np.ones(SLOW_HOG_STEP_BYTES // 8))
+            held.append(np.empty(SLOW_HOG_STEP_BYTES // 8))
         except MemoryError:
             time.sleep(0.05)
+
+
+def none_fft(x):
+    """Return None (a backend that forgot its return statement)."""
+    np.fft.fft(x)
+
+
+def objects_fft(x):
+    """Return a list of strings (not numbers)."""
+    return ["not", "numbers"] * (len(x) // 2)
 
 
 def wrong_shape_fft(x):
