@@ -10,7 +10,8 @@ and plain functions (numpy.fft) both fit:
    runs fastest on (aligned buffer, right dtype); the engine calls it *outside* the timed
    region.
 
-A backend declares what it can do in :class:`Capabilities`; the engine asks
+A backend declares what it can do in :class:`Capabilities` (sizes as a :class:`SizeRule`,
+output conventions as :class:`Conventions`; both in :mod:`fftgauge.backends.claims`); the engine asks
 :meth:`Backend.unsupported_reason` before planning and turns a non-``None`` answer into a
 ``skip`` row. A new backend is a subclass of :class:`Backend` in one file, registered in
 :mod:`fftgauge.backends.registry` or under the entry-point group ``fftgauge.backends``.
@@ -29,51 +30,14 @@ Conventions every backend follows (those of numpy and the array API standard):
 from __future__ import annotations
 
 from abc import ABC, abstractmethod
-from dataclasses import dataclass, field, asdict
+from dataclasses import dataclass, replace
 from typing import Any, Callable, Mapping
 
 import numpy as np
 
-from fftgauge.harness.cases import KINDS, NORMS, Case, is_power_of_two
-
-
-@dataclass(frozen=True)
-class Capabilities:
-    """What a backend claims to handle.
-
-    Attributes
-    ----------
-    kinds : transform kinds it computes (subset of ``fft, ifft, rfft, irfft``).
-    dtypes : real precisions it computes (``float32``, ``float64``, ``longdouble``).
-    sizes : ``"any"`` or ``"pow2"`` (powers of two only).
-    norms : normalisations it takes (subset of ``backward, ortho, forward``).
-    max_n : largest size it is practical for, or ``None`` (pure-Python references set one).
-    in_place : True when a plan may overwrite its input (the ``input-intact`` check then
-        does not count a changed input as a failure).
-    thread_option : name of the option that sets its thread count (``workers``,
-        ``threads``), or ``None`` when it has none.
-    separate_planning : True when :meth:`Backend.plan` does real work (FFTW plans).
-    counts_operations : True when it can count the arithmetic it performs
-        (:meth:`Backend.count_operations`).
-    """
-
-    kinds: tuple[str, ...] = KINDS
-    dtypes: tuple[str, ...] = ("float32", "float64")
-    sizes: str = "any"
-    norms: tuple[str, ...] = NORMS
-    max_n: int | None = None
-    in_place: bool = False
-    thread_option: str | None = None
-    separate_planning: bool = False
-    counts_operations: bool = False
-
-    def as_dict(self) -> dict[str, Any]:
-        """Return the capabilities as plain JSON-able values."""
-        d = asdict(self)
-        d["kinds"] = list(self.kinds)
-        d["dtypes"] = list(self.dtypes)
-        d["norms"] = list(self.norms)
-        return d
+from fftgauge.backends.claims import (BackendClaims, BackendDescription, Capabilities, Conventions,  # noqa: F401
+                                      SizeRule)
+from fftgauge.harness.cases import Case
 
 
 @dataclass(frozen=True)
@@ -139,12 +103,29 @@ class FunctionPlan(Plan):
 
 @dataclass(frozen=True)
 class OptionSpec:
-    """One option a backend takes in its SPEC (``NAME[key=value]``): type, default, help."""
+    """One option a backend takes in its SPEC (``NAME[key=value]``): type, default, help, and
+    the values allowed (``choices``, or a ``minimum``, exclusive when ``exclusive_minimum``),
+    which the registry checks once when it parses the SPEC."""
 
     type: type
     default: Any
     help: str
     choices: tuple[Any, ...] | None = None
+    minimum: float | None = None
+    exclusive_minimum: bool = False
+
+    def bound_text(self) -> str | None:
+        """Return the minimum as a phrase (``'at least 0'``, ``'above 0'``), or None without one."""
+        if self.minimum is None:
+            return None
+        value = int(self.minimum) if float(self.minimum).is_integer() else self.minimum
+        return f"above {value}" if self.exclusive_minimum else f"at least {value}"
+
+    def admits(self, value: Any) -> bool:
+        """Return True when ``value`` satisfies the minimum (always, without one)."""
+        if self.minimum is None:
+            return True
+        return value > self.minimum if self.exclusive_minimum else value >= self.minimum
 
 
 class Backend(ABC):
@@ -162,6 +143,11 @@ class Backend(ABC):
     thread_option: str | None = None
     #: True for the engine's synthetic backends (null, busywait), which compute no transform.
     synthetic: bool = False
+    #: The label the SPEC gave (``label=``), set by the registry; None: derived (:attr:`label`).
+    chosen_label: str | None = None
+    #: Conventions the SPEC declared (``sign=``, ``order=``, ...), set by the registry; they
+    #: override those of :meth:`capabilities` (see :attr:`conventions`).
+    declared_conventions: Conventions | None = None
 
     def __init__(self, **opts: Any):
         self.opts = {k: spec.default for k, spec in self.options.items()}
@@ -175,7 +161,10 @@ class Backend(ABC):
 
     @property
     def label(self) -> str:
-        """The name with any non-default options, e.g. ``scipy[workers=2]``; used in rows."""
+        """The label used in rows, tables, plots and files: the SPEC's ``label=`` when given,
+        else the name with any non-default options, e.g. ``scipy[workers=2]``."""
+        if self.chosen_label:
+            return self.chosen_label
         changed = {k: v for k, v in self.opts.items() if k in self.options and v != self.options[k].default}
         if not changed:
             return self.name
@@ -196,11 +185,16 @@ class Backend(ABC):
             return f"{self.label} does not compute in {case.dtype} (it claims {', '.join(caps.dtypes)})"
         if case.norm not in caps.norms:
             return f"{self.label} does not take norm={case.norm} (it claims {', '.join(caps.norms)})"
-        if caps.sizes == "pow2" and not is_power_of_two(case.n):
-            return f"{self.label} handles powers of two only (n = {case.n})"
-        if caps.max_n is not None and case.n > caps.max_n:
-            return f"{self.label} is limited to n <= {caps.max_n} (n = {case.n})"
+        why = caps.size_rule(case.kind, case.dtype).reason(case.n)
+        if why is not None:
+            return f"{self.label} handles {why} (n = {case.n})"
         return None
+
+    @property
+    def conventions(self) -> Conventions:
+        """The conventions its outputs follow: those the SPEC declared over those of its capabilities."""
+        base = self.capabilities().conventions
+        return self.declared_conventions.over(base) if self.declared_conventions is not None else base
 
     @abstractmethod
     def plan(self, case: Case) -> Plan:
@@ -222,12 +216,17 @@ class Backend(ABC):
         """
         raise NotImplementedError(f"{self.name} cannot count its operations")
 
-    def describe(self) -> dict[str, Any]:
-        """Return name, version, description, options and capabilities as JSON-able values."""
-        return {
-            "name": self.label,
-            "version": self.version,
-            "description": self.description,
-            "options": {k: {"default": s.default, "help": s.help} for k, s in self.options.items()},
-            "capabilities": self.capabilities().as_dict(),
-        }
+    def details(self) -> dict[str, Any]:
+        """Return what this kind of backend adds to its description (JSON-able values); default none."""
+        return {}
+
+    def describe(self) -> BackendDescription:
+        """Return name (the label), version, description, options, capabilities (with the
+        conventions the SPEC declared) and :meth:`details`, as a :class:`BackendDescription`."""
+        caps = self.capabilities()
+        if self.declared_conventions is not None:
+            caps = replace(caps, conventions=self.conventions)
+        return BackendDescription(
+            name=self.label, version=self.version, description=self.description,
+            options={k: {"default": s.default, "help": s.help} for k, s in self.options.items()},
+            capabilities=caps, details=self.details())

@@ -182,7 +182,7 @@ class DirectBackend(Backend):
 
     def capabilities(self) -> Capabilities:
         return Capabilities(dtypes=("float32", "float64"), sizes="any", max_n=MAX_N,
-                            separate_planning=True, counts_operations=True)
+                            pure_python=True, separate_planning=True, counts_operations=True)
 
     def plan(self, case: Case) -> DirectPlan:
         return DirectPlan(case)

@@ -24,7 +24,6 @@ import pyfftw
 
 from fftgauge.backends.base import Backend, Capabilities, OptionSpec, Plan
 from fftgauge.harness.cases import Case, norm_factor
-from fftgauge.harness.errors import UsageError
 
 #: The ``effort`` option's values and the FFTW planner flag each one stands for.
 EFFORT_FLAGS = {"estimate": "FFTW_ESTIMATE", "measure": "FFTW_MEASURE", "patient": "FFTW_PATIENT"}
@@ -177,24 +176,12 @@ class PyfftwBackend(Backend):
     name = "pyfftw"
     description = "FFTW 3 via pyFFTW; plans built (and timed) apart from execution"
     options = {
-        "threads": OptionSpec(int, 1, "threads FFTW uses for one transform"),
+        "threads": OptionSpec(int, 1, "threads FFTW uses for one transform", minimum=1),
         "effort": OptionSpec(str, "estimate", "planner effort: estimate, measure or patient",
                              choices=tuple(EFFORT_FLAGS)),
         "aligned": OptionSpec(bool, True, "SIMD-aligned buffers (false: deliberately unaligned)"),
     }
     thread_option = "threads"
-
-    def __init__(self, **opts: Any):
-        """Build the adapter; see the class docstring for the options.
-
-        Raises
-        ------
-        UsageError
-            When ``threads`` is below 1.
-        """
-        super().__init__(**opts)
-        if self.opts["threads"] < 1:
-            raise UsageError(f"backend {self.label!r}: threads must be at least 1, got {self.opts['threads']}")
 
     @property
     def version(self) -> str:

@@ -284,7 +284,7 @@ class _Radix2Backend(Backend):
 
     def capabilities(self) -> Capabilities:
         return Capabilities(dtypes=("float32", "float64"), sizes="pow2", max_n=MAX_N,
-                            separate_planning=True, counts_operations=True)
+                            pure_python=True, separate_planning=True, counts_operations=True)
 
     def plan(self, case: Case) -> Radix2Plan:
         return Radix2Plan(case, self.decimation)

@@ -9,7 +9,11 @@ SPEC forms (see the contracts)::
     clib:...                  a C function in a shared library (backends/shared_library.py)
     exec:...                  an external program speaking a pipe protocol (backends/external_program.py)
 
-Any form may carry ``[key=value,...]``. ``attr`` is a :class:`~fftgauge.backends.base.Backend`
+Any form may carry ``[key=value,...]``: the backend's own options, and those every SPEC
+takes (:data:`COMMON_OPTIONS`: ``label`` and the declared conventions ``sign``,
+``forward_scale``, ``inverse_scale``, ``order``, ``packing``). The options are parsed here,
+once, for every form, and each value checked against its type, choices and minimum. A file
+SPEC may pair a function with its inverse (``myfft.py:fft+ifft``). ``attr`` is a :class:`~fftgauge.backends.base.Backend`
 subclass, an instance of one, or a plain callable (wrapped by
 :class:`~fftgauge.backends.user_function.FunctionBackend`). Third-party packages register adapters
 under the entry-point group ``fftgauge.backends``.
@@ -20,16 +24,16 @@ message that names the bad part and says how to fix it.
 
 from __future__ import annotations
 
+import difflib
 import importlib
 import importlib.metadata
-import importlib.util
 import os
 import re
-import sys
 from dataclasses import dataclass, field
-from typing import Any
+from typing import Any, Mapping
 
-from fftgauge.backends.base import Backend, OptionSpec
+from fftgauge.backends.base import Backend, Conventions, OptionSpec
+from fftgauge.backends.claims import ORDERS, PACKINGS, SCALES
 from fftgauge.harness.errors import UsageError
 
 ENTRY_POINT_GROUP = "fftgauge.backends"
@@ -53,19 +57,37 @@ BUILTINS: dict[str, tuple[str, str, str]] = {
 #: Built-ins that compute no transform (the timer's overhead floor, a backend of known cost).
 SYNTHETIC_BACKENDS = ("null", "busywait")
 
-#: SPEC schemes for implementations outside Python: ``scheme:rest`` -> (module, function).
-#: The function takes ``(spec, rest)`` and returns a Backend; it parses ``rest`` itself
-#: (its own syntax is documented in its module) and raises UsageError on bad input.
+#: SPEC schemes for implementations outside Python: ``scheme:body[options]`` -> (module,
+#: class). The registry splits off and checks the options (the class's ``options``), then
+#: calls ``cls.from_spec(spec, body, **options)``, which parses the body (its syntax is
+#: documented in its module) and raises UsageError on a bad one.
 SCHEMES: dict[str, tuple[str, str]] = {
-    "clib": ("fftgauge.backends.shared_library", "backend_from_spec"),
-    "exec": ("fftgauge.backends.external_program", "backend_from_spec"),
+    "clib": ("fftgauge.backends.shared_library", "SharedLibraryBackend"),
+    "exec": ("fftgauge.backends.external_program", "ExternalProgramBackend"),
 }
 
 #: The backends a command uses when no --backend is given (those available on this machine).
 DEFAULT_BACKENDS = ("numpy", "scipy", "pyfftw", "radix2-dit", "radix2-dif", "direct")
 
+#: Options every SPEC takes, whatever the backend: its label in every table, plot and file,
+#: and the conventions its outputs follow (docs/reference.md, "Backend SPEC options").
+COMMON_OPTIONS: dict[str, OptionSpec] = {
+    "label": OptionSpec(str, "", "short name used in every table, plot and file"),
+    "sign": OptionSpec(str, "-1", "exponent sign of the forward transform: -1 or +1", choices=("-1", "+1")),
+    "forward_scale": OptionSpec(str, "", "factor the forward transform applies: 1, 1/n, 1/sqrt(n)",
+                                choices=SCALES),
+    "inverse_scale": OptionSpec(str, "", "factor the inverse transform applies: 1, 1/n, 1/sqrt(n)",
+                                choices=SCALES),
+    "order": OptionSpec(str, "", "output order: natural, bit-reversed, centred", choices=ORDERS),
+    "packing": OptionSpec(str, "", "real transforms' half spectrum: complex, dc-nyquist, halfcomplex",
+                          choices=PACKINGS),
+}
+#: The longest label a SPEC may give.
+MAX_LABEL_LENGTH = 40
+
 _NAME = re.compile(r"^[A-Za-z][A-Za-z0-9_.+-]*$")
-_SPEC = re.compile(r"^(?P<body>[^\[\]]+?)(?:\[(?P<opts>[^\[\]]*)\])?$")
+_LABEL = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.:+=-]*$")
+_TRAILING_OPTIONS = re.compile(r"^(?P<body>.*?)(?:\[(?P<opts>[^\[\]]*)\])?\s*$", re.S)
 _TRUE = {"1", "true", "yes", "on"}
 _FALSE = {"0", "false", "no", "off"}
 
@@ -73,18 +95,23 @@ _FALSE = {"0", "false", "no", "off"}
 @dataclass(frozen=True)
 class ParsedSpec:
     """A SPEC split into its parts: ``form`` is ``name``, ``module``, ``file`` or a scheme
-    of :data:`SCHEMES` (then ``target`` is everything after ``scheme:``)."""
+    of :data:`SCHEMES` (then ``target`` is the body after ``scheme:``, options split off).
+    ``options`` are the backend's own (raw strings); ``companion`` the inverse function of
+    ``file.py:fft+ifft``; ``label`` and ``conventions`` come from :data:`COMMON_OPTIONS`."""
 
     text: str
     form: str
     target: str
     attr: str | None
     options: dict[str, str] = field(default_factory=dict)
+    companion: str | None = None
+    label: str | None = None
+    conventions: Conventions | None = None
 
 
 @dataclass(frozen=True)
 class BackendInfo:
-    """What ``fftgauge backends`` shows for one backend."""
+    """What ``fftgauge backends`` shows for one backend (``capabilities`` typed)."""
 
     name: str
     source: str
@@ -92,11 +119,18 @@ class BackendInfo:
     reason: str | None
     version: str | None
     description: str | None
-    capabilities: dict[str, Any] | None
+    capabilities: Any | None
     options: dict[str, Any] | None
 
+    def as_dict(self) -> dict[str, Any]:
+        """Return the entry as JSON-able values (the capabilities as their dict)."""
+        d = dict(vars(self))
+        d["capabilities"] = self.capabilities.as_dict() if self.capabilities is not None else None
+        return d
 
-def _one_line(text: str) -> str:
+
+def one_line(text: Any) -> str:
+    """Return ``text`` as one line (runs of white space become one blank)."""
     return " ".join(str(text).split())
 
 
@@ -125,21 +159,58 @@ def parse_options(spec: str, text: str | None) -> dict[str, str]:
     return out
 
 
+def split_options(spec: str, text: str) -> tuple[str, dict[str, str]]:
+    """Split ``body[key=value,...]`` into the body and its raw options.
+
+    Only a trailing bracket group is options; a body that must end with ``]`` is written
+    with an empty group after it (``...][]``).
+
+    Returns
+    -------
+    tuple
+        ``(body, {key: value})``, the body stripped of surrounding blanks.
+
+    Raises
+    ------
+    UsageError
+        When an option is not written ``key=value``, a key is given twice, or the body is empty.
+    """
+    m = _TRAILING_OPTIONS.match(text)
+    body, opts = (m.group("body"), m.group("opts")) if m else (text, None)
+    body = body.strip()
+    if not body:
+        raise UsageError(f"backend {spec!r}: nothing before the options; see docs/external-backends.md")
+    return body, parse_options(spec, opts)
+
+
+def _common_options(spec: str, raw: dict[str, str]) -> tuple[dict[str, str], str | None, Conventions | None]:
+    """Split the :data:`COMMON_OPTIONS` off ``raw``; return the rest, the label, the conventions."""
+    rest = {k: v for k, v in raw.items() if k not in COMMON_OPTIONS}
+    common = {k: _coerce(spec, k, v, COMMON_OPTIONS[k]) for k, v in raw.items() if k in COMMON_OPTIONS}
+    label = common.pop("label", None)
+    if label is not None and (len(label) > MAX_LABEL_LENGTH or not _LABEL.match(label)):
+        raise UsageError(f"backend {spec!r}: label={label!r} must be at most {MAX_LABEL_LENGTH} letters, digits "
+                         f"and _ . : + = - (it names the backend in tables, plots and files)")
+    if "sign" in common:
+        common["sign"] = int(common["sign"])
+    return rest, label, (Conventions(**common) if common else None)
+
+
 def parse_spec(spec: str) -> ParsedSpec:
-    """Split a SPEC string into its form, target, attribute and raw options.
+    """Split a SPEC string into its form, target, attribute, options, label and conventions.
 
     Raises
     ------
     UsageError
         When the SPEC is empty or malformed (unbalanced brackets, missing attribute,
-        options not written ``key=value``).
+        options not written ``key=value``, a common option with a value outside its choices).
 
     Examples
     --------
     >>> parse_spec("pyfftw[threads=2]")
-    ParsedSpec(text='pyfftw[threads=2]', form='name', target='pyfftw', attr=None, options={'threads': '2'})
-    >>> parse_spec("my_fft.py:fft").form
-    'file'
+    ParsedSpec(text='pyfftw[threads=2]', form='name', target='pyfftw', attr=None, options={'threads': '2'}, companion=None, label=None, conventions=None)
+    >>> parse_spec("my_fft.py:fft+ifft[label=mine]").companion
+    'ifft'
     """
     if spec is None or not str(spec).strip():
         raise UsageError("empty backend SPEC; give a name such as numpy, or path/to/file.py:function")
@@ -148,22 +219,26 @@ def parse_spec(spec: str) -> ParsedSpec:
     if sep and scheme in SCHEMES:
         if not rest.strip():
             raise UsageError(f"backend {spec!r}: nothing after {scheme}:; see fftgauge check --help for the form")
-        return ParsedSpec(spec, scheme, rest.strip(), None, {})
-    m = _SPEC.match(spec)
-    if not m:
+        body, raw = split_options(spec, rest)
+        opts, label, conventions = _common_options(spec, raw)
+        return ParsedSpec(spec, scheme, body, None, opts, None, label, conventions)
+    body, raw = split_options(spec, spec)
+    if "[" in body or "]" in body:
         raise UsageError(f"backend {spec!r} is malformed; options go in one trailing [key=value,...]")
-    body, opts = m.group("body").strip(), parse_options(spec, m.group("opts"))
+    opts, label, conventions = _common_options(spec, raw)
     if ":" in body:
         target, _, attr = body.rpartition(":")
+        attr, _, companion = attr.partition("+")
         if not target or not attr:
             raise UsageError(f"backend {spec!r}: write module:attribute or path/to/file.py:attribute")
-        if not attr.isidentifier():
-            raise UsageError(f"backend {spec!r}: {attr!r} is not a Python attribute name")
+        for name in (attr, companion) if companion else (attr,):
+            if not name.isidentifier():
+                raise UsageError(f"backend {spec!r}: {name!r} is not a Python attribute name")
         form = "file" if target.endswith(".py") or os.sep in target or "/" in target else "module"
-        return ParsedSpec(spec, form, target, attr, opts)
+        return ParsedSpec(spec, form, target, attr, opts, companion or None, label, conventions)
     if not _NAME.match(body):
         raise UsageError(f"backend {spec!r} is not a backend name, module:attr or file.py:attr")
-    return ParsedSpec(spec, "name", body, None, opts)
+    return ParsedSpec(spec, "name", body, None, opts, None, label, conventions)
 
 
 def _coerce(spec: str, key: str, value: str, option: OptionSpec) -> Any:
@@ -183,62 +258,41 @@ def _coerce(spec: str, key: str, value: str, option: OptionSpec) -> Any:
     if option.choices is not None and result not in option.choices:
         raise UsageError(f"backend {spec!r}: option {key}={value!r} must be one of "
                          f"{', '.join(map(str, option.choices))}")
+    check_minimum(spec, key, result, option)
     return result
 
 
+def check_minimum(spec: str, key: str, value: Any, option: OptionSpec) -> None:
+    """Check ``value`` against the option's minimum.
+
+    Raises
+    ------
+    UsageError
+        When it is below (or, for an exclusive minimum, at) the minimum.
+    """
+    if not option.admits(value):
+        raise UsageError(f"backend {spec!r}: option {key}={value!r} must be {option.bound_text()} "
+                         f"({option.help})")
+
+
 def coerce_options(spec: str, cls: type[Backend], raw: dict[str, str]) -> dict[str, Any]:
-    """Return ``raw`` converted to the types ``cls.options`` declares.
+    """Return ``raw`` converted to the types ``cls.options`` declares, each checked once
+    against its choices and minimum.
 
     Raises
     ------
     UsageError
         For an option the backend does not take (the message lists the ones it does) or a
-        value of the wrong type or outside the allowed choices.
+        value of the wrong type, outside the allowed choices or below the minimum.
     """
     out = {}
     for key, value in raw.items():
         if key not in cls.options:
             known = ", ".join(sorted(cls.options)) or "none"
-            raise UsageError(f"backend {spec!r}: unknown option {key!r} (options it takes: {known})")
+            raise UsageError(f"backend {spec!r}: unknown option {key!r} (options it takes: {known}; every "
+                             f"SPEC also takes {', '.join(COMMON_OPTIONS)})")
         out[key] = _coerce(spec, key, value, cls.options[key])
     return out
-
-
-def _import_module(spec: str, module: str) -> Any:
-    try:
-        return importlib.import_module(module)
-    except ModuleNotFoundError as exc:
-        if exc.name and (module == exc.name or module.startswith(exc.name + ".")):
-            raise UsageError(f"backend {spec!r}: no module named {module!r}; check the name, or install "
-                             f"the package that provides it") from None
-        raise UsageError(f"backend {spec!r}: importing {module!r} failed: {_one_line(exc)}") from None
-    except Exception as exc:  # the user's module raised while importing
-        raise UsageError(f"backend {spec!r}: importing {module!r} failed: {type(exc).__name__}: "
-                         f"{_one_line(exc)}") from None
-
-
-def _load_file(spec: str, path: str) -> Any:
-    full = os.path.abspath(os.path.expanduser(path))
-    if not os.path.isfile(full):
-        raise UsageError(f"backend {spec!r}: no file {path!r}; check the path (relative paths start "
-                         f"from the current folder)")
-    mod_name = "fftgauge_user_" + re.sub(r"\W", "_", full)
-    if mod_name in sys.modules:
-        return sys.modules[mod_name]
-    loader_spec = importlib.util.spec_from_file_location(mod_name, full)
-    if loader_spec is None or loader_spec.loader is None:
-        raise UsageError(f"backend {spec!r}: {path!r} cannot be loaded as Python source")
-    module = importlib.util.module_from_spec(loader_spec)
-    sys.modules[mod_name] = module
-    try:
-        loader_spec.loader.exec_module(module)
-    except BaseException as exc:  # noqa: BLE001 - any failure in user code is a usage error here
-        del sys.modules[mod_name]
-        if isinstance(exc, KeyboardInterrupt):
-            raise
-        raise UsageError(f"backend {spec!r}: running {path!r} failed: {type(exc).__name__}: "
-                         f"{_one_line(exc)}") from None
-    return module
 
 
 def _construct(spec: str, factory: Any, *args: Any, **kwargs: Any) -> Backend:
@@ -256,14 +310,18 @@ def _construct(spec: str, factory: Any, *args: Any, **kwargs: Any) -> Backend:
         raise
     except (TypeError, ValueError) as exc:
         raise UsageError(f"backend {spec!r}: building the adapter failed: {type(exc).__name__}: "
-                         f"{_one_line(exc)}") from None
+                         f"{one_line(exc)}") from None
 
 
-def _from_object(parsed: ParsedSpec, obj: Any, extra: dict[str, Any]) -> Backend:
-    """Return a backend for ``obj``: a Backend subclass, an instance of one, or a callable."""
-    from fftgauge.backends.user_function import FunctionBackend
+def _from_object(parsed: ParsedSpec, obj: Any, extra: dict[str, Any], companion: Any = None) -> Backend:
+    """Return a backend for ``obj``: a Backend subclass, an instance of one, or a callable
+    (with its ``companion`` inverse, when the SPEC names one)."""
+    from fftgauge.backends.user_function import FunctionBackend, derived_label
 
     spec = parsed.text
+    if companion is not None and not callable(obj):
+        raise UsageError(f"backend {spec!r}: {parsed.attr}+{parsed.companion} pairs two plain functions; "
+                         f"{parsed.attr!r} is a {type(obj).__name__}")
     if isinstance(obj, type) and issubclass(obj, Backend):
         opts = coerce_options(spec, obj, parsed.options)
         return _construct(spec, obj, **{**extra, **opts})
@@ -274,8 +332,8 @@ def _from_object(parsed: ParsedSpec, obj: Any, extra: dict[str, Any]) -> Backend
         return obj
     if callable(obj):
         opts = coerce_options(spec, FunctionBackend, parsed.options)
-        body = spec.split("[", 1)[0]
-        return _construct(spec, FunctionBackend, obj, body, **opts)
+        name = derived_label(parsed.form, parsed.target, parsed.attr, parsed.companion)
+        return _construct(spec, FunctionBackend, obj, name, companion=companion, **opts)
     raise UsageError(f"backend {spec!r}: {parsed.attr or parsed.target!r} is a {type(obj).__name__}, "
                      f"not a callable or a backend adapter")
 
@@ -289,33 +347,33 @@ def _builtin_class(spec: str, name: str) -> type[Backend]:
     try:
         module = importlib.import_module(module_name)
     except ImportError as exc:
-        raise UsageError(f"backend {spec!r} is not available: {_one_line(exc)}; to fix: {install}") from None
+        raise UsageError(f"backend {spec!r} is not available: {one_line(exc)}; to fix: {install}") from None
     return getattr(module, class_name)
 
 
-def load_backend(spec: str, threads: int | None = None) -> Backend:
-    """Return the backend adapter a SPEC string names, with its options applied.
+def _unknown_name(name: str, known: list[str]) -> UsageError:
+    """Return the error for an unknown backend name, with the closest known names offered."""
+    close = difflib.get_close_matches(name, known, n=2, cutoff=0.6)
+    hint = f"; did you mean {' or '.join(repr(c) for c in close)}?" if close else ""
+    return UsageError(f"unknown backend {name!r}{hint} known backends: {', '.join(known)} "
+                      f"(or give module:attr or path/to/file.py:attr)")
 
-    ``threads``, when given, sets the backend's own thread option (``workers`` for scipy,
-    ``threads`` for pyFFTW) unless the SPEC sets it explicitly.
 
-    Raises
-    ------
-    UsageError
-        Unknown name, unknown or mistyped option, malformed SPEC, missing file, missing
-        module, failing import, an attribute that does not exist or is not callable, or a
-        built-in backend whose library is not installed.
-    """
-    parsed = parse_spec(spec)
+def _load(parsed: ParsedSpec, threads: int | None) -> Backend:
+    """Return the backend ``parsed`` names, before its label and conventions are applied."""
+    from fftgauge.backends.user_code import attribute_of, load_file, import_module
+
+    spec = parsed.text
     if parsed.form in SCHEMES:
-        module_name, func_name = SCHEMES[parsed.form]
-        module = importlib.import_module(module_name)
-        return getattr(module, func_name)(spec, parsed.target)
+        module_name, class_name = SCHEMES[parsed.form]
+        cls = getattr(importlib.import_module(module_name), class_name)
+        opts = coerce_options(spec, cls, parsed.options)
+        return cls.from_spec(spec, parsed.target, **opts)
     if parsed.form == "name":
         if parsed.target in BUILTINS:
             cls = _builtin_class(spec, parsed.target)
             opts = coerce_options(spec, cls, parsed.options)
-            extra = _thread_extra(cls, threads, opts)
+            extra = _thread_extra(spec, cls, threads, opts)
             return _construct(spec, cls, **{**extra, **opts})
         eps = _entry_points()
         if parsed.target in eps:
@@ -323,30 +381,71 @@ def load_backend(spec: str, threads: int | None = None) -> Backend:
                 obj = eps[parsed.target].load()
             except Exception as exc:
                 raise UsageError(f"backend {spec!r}: its entry point failed to load: {type(exc).__name__}: "
-                                 f"{_one_line(exc)}") from None
-            return _from_object(parsed, obj, _thread_extra(obj, threads, parsed.options))
-        known = ", ".join(sorted(set(BUILTINS) | set(eps)))
-        raise UsageError(f"unknown backend {parsed.target!r}; known backends: {known} "
-                         f"(or give module:attr or path/to/file.py:attr)")
-    if parsed.form == "module":
-        module = _import_module(spec, parsed.target)
-        where = f"module {parsed.target!r}"
-    else:
-        module = _load_file(spec, parsed.target)
-        where = f"file {parsed.target!r}"
-    if not hasattr(module, parsed.attr):
-        raise UsageError(f"backend {spec!r}: {where} has no attribute {parsed.attr!r}")
-    obj = getattr(module, parsed.attr)
-    return _from_object(parsed, obj, _thread_extra(obj, threads, parsed.options))
+                                 f"{one_line(exc)}") from None
+            return _from_object(parsed, obj, _thread_extra(spec, obj, threads, parsed.options))
+        raise _unknown_name(parsed.target, sorted(set(BUILTINS) | set(eps)))
+    module = import_module(spec, parsed.target) if parsed.form == "module" else load_file(spec, parsed.target)
+    where = f"module {parsed.target!r}" if parsed.form == "module" else f"file {parsed.target!r}"
+    obj = attribute_of(spec, module, parsed.attr, where)
+    companion = attribute_of(spec, module, parsed.companion, where) if parsed.companion else None
+    return _from_object(parsed, obj, _thread_extra(spec, obj, threads, parsed.options), companion)
 
 
-def _thread_extra(cls: Any, threads: int | None, explicit: dict[str, Any]) -> dict[str, Any]:
-    """Return ``{thread option: threads}`` for a backend class that declares a thread option."""
+def load_backend(spec: str, threads: int | None = None) -> Backend:
+    """Return the backend adapter a SPEC string names, with its options, label and declared
+    conventions applied.
+
+    ``threads``, when given, sets the backend's own thread option (``workers`` for scipy,
+    ``threads`` for pyFFTW) unless the SPEC sets it explicitly.
+
+    Raises
+    ------
+    UsageError
+        Unknown name (with the closest known names offered), unknown, mistyped or
+        out-of-range option, malformed SPEC, missing file, missing module, failing import,
+        an attribute that does not exist or is not callable, or a built-in backend whose
+        library is not installed.
+    """
+    parsed = parse_spec(spec)
+    backend = _load(parsed, threads)
+    if parsed.label is not None:
+        backend.chosen_label = parsed.label
+    if parsed.conventions is not None:
+        backend.declared_conventions = parsed.conventions
+    return backend
+
+
+def require_unique_labels(labels: Mapping[str, str]) -> None:
+    """Check that no two SPECs of one run share a label (``labels`` maps SPEC -> label).
+
+    Raises
+    ------
+    UsageError
+        Naming the first label two SPECs share, and how to tell them apart.
+    """
+    seen: dict[str, str] = {}
+    for spec, label in labels.items():
+        if label in seen:
+            raise UsageError(f"backends {seen[label]!r} and {spec!r} have the same label {label!r}; give one "
+                             f"of them its own with [label=NAME]")
+        seen[label] = spec
+
+
+def _thread_extra(spec: str, cls: Any, threads: int | None, explicit: dict[str, Any]) -> dict[str, Any]:
+    """Return ``{thread option: threads}`` for a backend class that declares a thread option.
+
+    Raises
+    ------
+    UsageError
+        When ``threads`` is below the thread option's minimum.
+    """
     if threads is None or not (isinstance(cls, type) and issubclass(cls, Backend)):
         return {}
     option = cls.thread_option
     if option is None or option in explicit:
         return {}
+    if option in cls.options:
+        check_minimum(spec, option, threads, cls.options[option])
     return {option: threads}
 
 
@@ -373,12 +472,12 @@ def list_backends() -> list[BackendInfo]:
         try:
             backend = load_backend(name)
             d = backend.describe()
-            infos.append(BackendInfo(name, source, True, None, d["version"], d["description"],
-                                     d["capabilities"], d["options"]))
+            infos.append(BackendInfo(name, source, True, None, d.version, d.description,
+                                     d.capabilities, d.options))
         except UsageError as exc:
             reason = str(exc).split(" is not available: ", 1)[-1]
             infos.append(BackendInfo(name, source, False, reason, None, None, None, None))
         except Exception as exc:  # a broken third-party adapter must not break the listing
-            infos.append(BackendInfo(name, source, False, f"{type(exc).__name__}: {_one_line(exc)}",
+            infos.append(BackendInfo(name, source, False, f"{type(exc).__name__}: {one_line(exc)}",
                                      None, None, None, None))
     return infos

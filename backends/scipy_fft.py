@@ -2,14 +2,11 @@
 
 from __future__ import annotations
 
-from typing import Any
-
 import scipy
 import scipy.fft
 
 from fftgauge.backends.base import Backend, Capabilities, FunctionPlan, OptionSpec, Plan
 from fftgauge.harness.cases import Case
-from fftgauge.harness.errors import UsageError
 
 
 class ScipyBackend(Backend):
@@ -26,22 +23,9 @@ class ScipyBackend(Backend):
     name = "scipy"
     description = "scipy.fft (pocketfft, C++), with a workers option"
     options = {
-        "workers": OptionSpec(int, 1, "threads scipy.fft may use (its workers argument)"),
+        "workers": OptionSpec(int, 1, "threads scipy.fft may use (its workers argument)", minimum=1),
     }
     thread_option = "workers"
-
-    def __init__(self, **opts: Any):
-        """Build the adapter; see the class docstring for the options.
-
-        Raises
-        ------
-        UsageError
-            When ``workers`` is below 1.
-        """
-        super().__init__(**opts)
-        if self.opts["workers"] < 1:
-            raise UsageError(f"backend {self.label!r}: workers must be at least 1, "
-                             f"got {self.opts['workers']}")
 
     @property
     def version(self) -> str:

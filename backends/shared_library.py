@@ -1,7 +1,7 @@
 """A C function in a shared library (``.so``, ``.dylib``, ``.dll``), called through ctypes.
 
-SPEC (the part after ``clib:`` is parsed here; docs/external-fftgauge.backends.md has the full
-reference)::
+SPEC (the body after ``clib:`` is parsed here, the options by the registry;
+docs/external-backends.md has the full reference)::
 
     clib:PATH:SYMBOL[key=value,...]
 
@@ -21,7 +21,8 @@ three plan functions. Options:
   (``long double``);
 - ``norm``    the normalisation the function applies: ``backward`` (default, numpy's: 1/N on
   the inverse), ``ortho``, ``forward`` (use this for a library whose inverse is unscaled);
-- ``sizes``   ``any`` (default) or ``pow2``; ``max_n`` largest size worth trying (0: none);
+- ``sizes``   ``any`` (default) or ``pow2``; ``min_n`` smallest size it takes (default 1);
+  ``max_n`` largest size worth trying (0: none);
 - ``noop``    a function with the one-shot prototype that does nothing and returns 0, used by
   :meth:`SharedLibraryBackend.call_overhead_seconds` to measure the cost of the call itself.
 
@@ -45,7 +46,6 @@ import numpy as np
 
 from fftgauge.backends.base import Backend, Capabilities, OptionSpec, Plan
 from fftgauge.harness.cases import DTYPES, KINDS, NORMS, Case
-from fftgauge.backends.registry import parse_options
 from fftgauge.harness.errors import BackendFailure, UsageError
 
 SCHEME = "clib"
@@ -58,36 +58,10 @@ OVERHEAD_BATCHES = 7
 OVERHEAD_CALLS_PER_BATCH = 200
 
 _CTYPE_OF = {"float32": ctypes.c_float, "float64": ctypes.c_double, "longdouble": ctypes.c_longdouble}
-_TRAILING_OPTIONS = re.compile(r"^(?P<body>.*?)(?:\[(?P<opts>[^\[\]]*)\])?\s*$", re.S)
 
 
 class ForeignCallError(BackendFailure):
     """A foreign FFT reported a failure: a non-zero return code, or a NULL plan."""
-
-
-def split_options(spec: str, rest: str) -> tuple[str, dict[str, str]]:
-    """Split ``body[key=value,...]`` into the body and its raw options.
-
-    Only a trailing bracket group is options; a body that must end with ``]`` is written
-    with an empty group after it (``...][]``).
-
-    Returns
-    -------
-    tuple
-        ``(body, {key: value})``, the body stripped of surrounding blanks.
-
-    Raises
-    ------
-    UsageError
-        When an option is not written ``key=value``, a key is given twice, or the body is empty.
-    """
-    m = _TRAILING_OPTIONS.match(rest)
-    body, text = (m.group("body"), m.group("opts")) if m else (rest, None)
-    body = body.strip()
-    if not body:
-        raise UsageError(f"backend {spec!r}: nothing before the options; see docs/external-fftgauge.backends.md")
-    options = parse_options(spec, text)
-    return body, options
 
 
 def kinds_from_option(spec: str, text: str, shape: str) -> tuple[str, ...]:
@@ -277,23 +251,25 @@ class SharedLibraryBackend(Backend):
                                             "longdouble (long double)", choices=DTYPES),
         "norm": OptionSpec(str, "backward", "the normalisation the function applies", choices=NORMS),
         "sizes": OptionSpec(str, "any", "sizes it handles: any or pow2", choices=("any", "pow2")),
-        "max_n": OptionSpec(int, 0, "largest size worth trying (0: no limit)"),
+        "max_n": OptionSpec(int, 0, "largest size worth trying (0: no limit)", minimum=0),
+        "min_n": OptionSpec(int, 1, "smallest size it takes", minimum=1),
         "plan": OptionSpec(str, "", "plan function name (default PREFIX_plan)"),
         "execute": OptionSpec(str, "", "execute function name (default PREFIX_execute)"),
         "destroy": OptionSpec(str, "", "destroy function name (default PREFIX_destroy)"),
         "noop": OptionSpec(str, "", "a do-nothing function with the one-shot prototype, to measure call overhead"),
     }
 
-    def __init__(self, spec: str, rest: str, path: str, symbol: str, **opts: Any):
+    def __init__(self, spec: str, path: str, symbol: str, **opts: Any):
         super().__init__(**opts)
-        self._spec, self._rest = spec, rest
+        self._spec = spec
         self.path, self.symbol = path, symbol
-        self.name = f"{SCHEME}:{path}:{symbol}"
+        stem = os.path.basename(path).split(".", 1)[0] or path
+        self.name = f"{SCHEME}:{stem}:{symbol}"
         o = self.opts
         self.shape = o["shape"]
         self.kinds = kinds_from_option(spec, o["kind"], self.shape)
-        if o["max_n"] < 0:
-            raise UsageError(f"backend {spec!r}: max_n={o['max_n']} must be 0 (no limit) or positive")
+        if o["max_n"] and o["max_n"] < o["min_n"]:
+            raise UsageError(f"backend {spec!r}: max_n={o['max_n']} is below min_n={o['min_n']}")
         if ctypes.sizeof(_CTYPE_OF[o["dtype"]]) != np.dtype(Case("fft", o["dtype"], 1).real_dtype).itemsize:
             raise UsageError(f"backend {spec!r}: dtype={o['dtype']} has a different size in C and in numpy "
                              f"on this machine; use float32 or float64")
@@ -320,8 +296,24 @@ class SharedLibraryBackend(Backend):
             self._noop = _declare(find_symbol(spec, self._lib, path, o["noop"]), ctypes.c_int,
                                   ctypes.c_size_t, ctypes.c_void_p, ctypes.c_void_p)
 
+    @classmethod
+    def from_spec(cls, spec: str, body: str, **opts: Any) -> "SharedLibraryBackend":
+        """Return the backend a ``clib:`` SPEC names (``body``: ``PATH:SYMBOL`` after
+        ``clib:``, options already split off and checked by the registry).
+
+        Raises
+        ------
+        UsageError
+            Malformed body, an option value it refuses (``kind=blah``), a library that is
+            missing or does not load, a function it does not export.
+        """
+        path, symbol = parse_target(spec, body)
+        return cls(spec, path, symbol, **opts)
+
     def __reduce__(self) -> tuple:
-        return (backend_from_spec, (self._spec, self._rest))
+        from fftgauge.backends.registry import load_backend
+
+        return (load_backend, (self._spec,))
 
     @property
     def version(self) -> str:
@@ -333,7 +325,7 @@ class SharedLibraryBackend(Backend):
     def capabilities(self) -> Capabilities:
         o = self.opts
         return Capabilities(kinds=self.kinds, dtypes=(o["dtype"],), sizes=o["sizes"], norms=(o["norm"],),
-                            max_n=o["max_n"] or None, separate_planning=self.shape == "plan")
+                            min_n=o["min_n"], max_n=o["max_n"] or None, separate_planning=self.shape == "plan")
 
     def plan(self, case: Case) -> Plan:
         """Return a plan for ``case``; with ``shape=plan`` this calls the C plan function.
@@ -405,23 +397,21 @@ class SharedLibraryBackend(Backend):
             plan.close()
         return float(np.median(batches)) * 1e-9, self.call_overhead_method
 
-    def describe(self) -> dict[str, Any]:
-        """The base description plus the library, the calling shape and the call overhead.
+    def details(self) -> dict[str, Any]:
+        """The library, the calling shape and the call overhead.
 
         ``call_overhead_seconds`` is measured only when the SPEC names a ``noop`` function
         (a call that cannot crash); otherwise it is ``None`` here and
         :meth:`call_overhead_seconds` measures a one-point transform on request.
         """
-        d = super().describe()
-        d.update({
+        return {
             "library": self._full_path or self.path,
             "shape": self.shape,
             "symbols": dict(self.plan_symbols) if self.shape == "plan" else {"oneshot": self.symbol},
             "reports_own_timing": False,
             "call_overhead_seconds": self.call_overhead_seconds() if self._noop is not None else None,
             "call_overhead_method": self.call_overhead_method,
-        })
-        return d
+        }
 
 
 def parse_target(spec: str, body: str) -> tuple[str, str]:
@@ -441,20 +431,3 @@ def parse_target(spec: str, body: str) -> tuple[str, str]:
     if not re.fullmatch(r"[A-Za-z_][A-Za-z0-9_]*", symbol):
         raise UsageError(f"backend {spec!r}: {symbol!r} is not a C function name")
     return path, symbol
-
-
-def backend_from_spec(spec: str, rest: str) -> SharedLibraryBackend:
-    """Return the backend a ``clib:`` SPEC names (``rest`` is the part after ``clib:``).
-
-    Raises
-    ------
-    UsageError
-        Malformed SPEC, unknown option or value (``dtype=float16``, ``kind=blah``), a
-        library that is missing or does not load, a function it does not export.
-    """
-    from fftgauge.backends.registry import coerce_options
-
-    body, raw = split_options(spec, rest)
-    path, symbol = parse_target(spec, body)
-    opts = coerce_options(spec, SharedLibraryBackend, raw)
-    return SharedLibraryBackend(spec, rest, path, symbol, **opts)

@@ -2,23 +2,34 @@
 
 The contract: a plain callable ``f(x) -> X`` computes the forward complex DFT of a 1-D
 array with numpy's sign and scaling (X[k] = sum_n x[n] exp(-2j pi k n / N), no scaling).
-SPEC options say when it computes something else or claims less:
+A file SPEC may name a companion inverse, ``myfft.py:fft+ifft``: the second function
+computes the inverse of the first one's kind (``ifft`` for ``fft``, ``irfft`` for ``rfft``,
+and the other way round), so the round-trip check pairs them. SPEC options say when it
+computes something else or claims less:
 
-- ``kind``   which one transform it computes (``fft`` by default; ``ifft``, ``rfft``,
-  ``irfft`` with numpy's conventions; for ``irfft`` it is called as ``f(X, n)``);
+- ``kind``   which transform the (first) function computes (``fft`` by default; ``ifft``,
+  ``rfft``, ``irfft`` with numpy's conventions; an ``irfft`` is called as ``f(X, n)``);
 - ``sizes``  ``any`` (default) or ``pow2``;
 - ``dtypes`` precisions it claims, ``+``-separated (default ``float32+float64``);
+- ``min_n``  smallest size it takes (default 1);
 - ``max_n``  largest size worth trying (0: no limit).
+
+Every SPEC also takes the common options of the registry (``label``, declared conventions).
 """
 
 from __future__ import annotations
 
+import os
+import sys
 from typing import Any, Callable
 
 import numpy as np
 
-from fftgauge.backends.base import Backend, Capabilities, FunctionPlan, OptionSpec, Plan
+from fftgauge.backends.base import Backend, Capabilities, FunctionPlan, OptionSpec, Plan, SizeRule
 from fftgauge.harness.cases import DTYPES, KINDS, Case
+
+#: The inverse of each kind: what a companion function computes.
+INVERSE_KIND = {"fft": "ifft", "ifft": "fft", "rfft": "irfft", "irfft": "rfft"}
 
 
 def _dtypes(text: str) -> tuple[str, ...]:
@@ -29,8 +40,24 @@ def _dtypes(text: str) -> tuple[str, ...]:
     return parts
 
 
+def derived_label(form: str, target: str, attr: str, companion: str | None = None) -> str:
+    """Return the short label of a plain callable: the file's stem or the module's name, a
+    colon, the attribute (``+companion`` when there is one); never a path.
+
+    Examples
+    --------
+    >>> derived_label("file", "path/to/myfft.py", "fft")
+    'myfft:fft'
+    >>> derived_label("module", "my_pkg.fast", "fft", "ifft")
+    'my_pkg.fast:fft+ifft'
+    """
+    where = os.path.splitext(os.path.basename(target.rstrip("/\\")))[0] if form == "file" else target
+    return f"{where}:{attr}" + (f"+{companion}" if companion else "")
+
+
 class FunctionBackend(Backend):
-    """Wraps ``fn`` (the callable a SPEC named) as a one-kind, backward-normalised backend."""
+    """Wraps ``fn`` (the callable a SPEC named), and its inverse ``companion`` when given, as a
+    backend of one kind (or of a kind and its inverse), backward-normalised."""
 
     name = "function"
     description = "a user's Python function f(x) -> X"
@@ -38,34 +65,32 @@ class FunctionBackend(Backend):
         "kind": OptionSpec(str, "fft", "the transform the function computes", choices=KINDS),
         "sizes": OptionSpec(str, "any", "sizes it handles: any or pow2", choices=("any", "pow2")),
         "dtypes": OptionSpec(str, "float32+float64", "precisions it claims, '+'-separated"),
-        "max_n": OptionSpec(int, 0, "largest size worth trying (0: no limit)"),
+        "min_n": OptionSpec(int, 1, "smallest size it takes", minimum=1),
+        "max_n": OptionSpec(int, 0, "largest size worth trying (0: no limit)", minimum=0),
     }
 
-    def __init__(self, fn: Callable[..., Any], spec: str, **opts: Any):
+    def __init__(self, fn: Callable[..., Any], name: str, companion: Callable[..., Any] | None = None,
+                 **opts: Any):
         super().__init__(**opts)
         self._fn = fn
-        self._spec = spec
+        self._companion = companion
         self._dtypes = _dtypes(self.opts["dtypes"])
-        if self.opts["max_n"] < 0:
-            raise ValueError(f"max_n must be 0 (no limit) or a positive size, got {self.opts['max_n']}")
-        self.name = spec
+        self._rule = SizeRule(self.opts["sizes"], self.opts["min_n"], self.opts["max_n"] or None)
+        self.name = name
+        kind = self.opts["kind"]
+        self._functions = {kind: fn} if companion is None else {kind: fn, INVERSE_KIND[kind]: companion}
 
     @property
     def version(self) -> str:
         module = getattr(self._fn, "__module__", None) or ""
-        return str(getattr(__import__("sys").modules.get(module), "__version__", "user code"))
+        return str(getattr(sys.modules.get(module), "__version__", "user code"))
 
     def capabilities(self) -> Capabilities:
-        return Capabilities(
-            kinds=(self.opts["kind"],),
-            dtypes=self._dtypes,
-            sizes=self.opts["sizes"],
-            norms=("backward",),
-            max_n=self.opts["max_n"] or None,
-        )
+        kinds = tuple(k for k in KINDS if k in self._functions)
+        return Capabilities(kinds=kinds, dtypes=self._dtypes, sizes=self._rule, norms=("backward",))
 
     def plan(self, case: Case) -> Plan:
-        fn = self._fn
+        fn = self._functions[case.kind]
         if case.kind == "irfft":
             n = case.n
             return FunctionPlan(case, lambda x: np.asarray(fn(x, n)))

@@ -137,7 +137,9 @@ def test_thread_crew_survives_a_task_that_raises():
 # -- the queue of batches ---------------------------------------------------------------------
 
 def _claims(specs_reasons: dict[str, list]) -> dict:
-    return {spec: {"label": spec, "describe": {"capabilities": {}}, "reasons": reasons}
+    from fftgauge.backends.claims import BackendClaims, BackendDescription, Capabilities
+
+    return {spec: BackendClaims(spec, BackendDescription(spec, "test", "", {}, Capabilities()), tuple(reasons))
             for spec, reasons in specs_reasons.items()}
 
 

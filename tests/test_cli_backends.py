@@ -123,7 +123,7 @@ def test_users_own_file_from_the_command_line(tmp_path, write_module):
     done = subprocess.run([sys.executable, "-c", script], cwd=tmp_path, env=env, capture_output=True,
                           text=True, timeout=120)
     assert done.returncode == 0, done.stderr
-    assert done.stdout.split() == ["my_fft.py:fft", "True"]
+    assert done.stdout.split() == ["my_fft:fft", "True"]  # the short label: file stem and function
 
 
 def test_users_own_file_in_process(tmp_path, write_module, monkeypatch):

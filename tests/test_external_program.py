@@ -35,8 +35,10 @@ import psutil
 import pytest
 
 from fftgauge.harness.execution import jobs
-from fftgauge.backends.external_program import (ExternalProgramBackend, ProgramExited, ProgramStatus, ProgramTimeout,
-                                       ProtocolError, encode_hello, encode_transform)
+from fftgauge.backends.external_program import ExternalProgramBackend
+from fftgauge.backends.pipe_protocol import (ProgramExited, ProgramStatus, ProgramTimeout, ProtocolError,
+                                             check_response_start, decode_hello, decode_response_header, encode_hello,
+                                             encode_transform, status_failure)
 from fftgauge.backends.registry import load_backend
 from fftgauge.harness.cases import Case
 from fftgauge.harness.errors import BackendFailure, UsageError
@@ -134,7 +136,7 @@ def bit_reversal(n: int) -> np.ndarray:
 # -- the protocol's bytes ----------------------------------------------------------------------
 
 def test_request_headers_match_the_specification() -> None:
-    # docs/external-fftgauge.backends.md: magic "FGRQ", u16 version 1, u16 op, u8 kind, u8 precision,
+    # docs/external-backends.md: magic "FGRQ", u16 version 1, u16 op, u8 kind, u8 precision,
     # u8 norm, u8 reserved, u32 count, u64 n, u64 payload bytes; little-endian, 32 bytes.
     assert encode_hello() == b"FGRQ" + bytes([1, 0, 1, 0]) + bytes(24)
     header = encode_transform(Case("irfft", "float32", 1024, "ortho"), 3, 3 * 513 * 8)
@@ -144,6 +146,49 @@ def test_request_headers_match_the_specification() -> None:
     assert int.from_bytes(header[12:16], "little") == 3
     assert int.from_bytes(header[16:24], "little") == 1024
     assert int.from_bytes(header[24:32], "little") == 3 * 513 * 8
+
+
+def _response(status: int = 0, flags: int = 0, elapsed_ns: int = 0, size: int = 0, version: int = 1) -> bytes:
+    """A response header written byte by byte from the table in docs/external-backends.md."""
+    return (b"FGRS" + version.to_bytes(2, "little") + status.to_bytes(2, "little") + flags.to_bytes(4, "little")
+            + bytes(4) + elapsed_ns.to_bytes(8, "little") + size.to_bytes(8, "little"))
+
+
+def test_response_headers_decode_without_a_process() -> None:
+    # The codec alone (no program): docs/external-backends.md, "Response header".
+    assert decode_response_header(_response(flags=1, elapsed_ns=1234, size=64), "x", 64) == (0, 1234, 64)
+    assert decode_response_header(_response(flags=0, elapsed_ns=99, size=64), "x", 64) == (0, None, 64)
+    assert decode_response_header(_response(status=3, size=12), "x", 64) == (3, None, 12)  # a message
+    with pytest.raises(ProtocolError, match="63-byte payload; 64 bytes were expected"):
+        decode_response_header(_response(size=63), "x", 64)
+    with pytest.raises(ProtocolError, match="protocol version 2; fftgauge speaks version 1"):
+        decode_response_header(_response(version=2), "x", 0)
+    with pytest.raises(ProtocolError, match="at most 65536"):
+        decode_response_header(_response(status=1, size=65537), "x", 64)
+    check_response_start(b"FG", "x")                               # a prefix of the magic is fine
+    with pytest.raises(ProtocolError, match="is it printing text to stdout"):
+        check_response_start(b"Hello", "x")
+
+
+def test_hello_payload_decodes_without_a_process() -> None:
+    # docs/external-backends.md, "Hello": kinds fft+rfft (bits 0, 2), float64 (bit 1), norms 0
+    # (read as backward), flags pow2 + self-timed, largest n 4096, then the identity text.
+    payload = bytes([0b0101, 0b10, 0, 0b11]) + bytes(4) + (4096).to_bytes(8, "little") + b"board fft 2.1"
+    hello = decode_hello(payload)
+    assert (hello.kinds, hello.dtypes, hello.norms) == (("fft", "rfft"), ("float64",), ("backward",))
+    assert hello.pow2_only and hello.self_timed and hello.max_n == 4096 and hello.identity == "board fft 2.1"
+    with pytest.raises(ProtocolError, match="fewer than the 16"):
+        decode_hello(payload[:3])
+    with pytest.raises(ProtocolError, match="no transform kind"):
+        decode_hello(bytes(16))
+
+
+def test_status_answers_become_the_right_failures() -> None:
+    version = status_failure(4, b"speaks 7 only", "the hello")
+    assert isinstance(version, ProtocolError) and "speaks 7 only" in str(version)
+    failed = status_failure(3, b"overflow\nin stage 2", "the request")
+    assert isinstance(failed, ProgramStatus) and failed.status == 3
+    assert str(failed) == "program answered the request with status 3 (transform failed): overflow in stage 2"
 
 
 # -- the C server ------------------------------------------------------------------------------
@@ -167,7 +212,7 @@ def test_c_server_agrees_with_numpy_and_times_itself(c_servers: Path, no_leftove
                     assert err <= 2 * accuracy_limit(case), f"{case.label()}: {err:.3g}"
                     assert plan.last_self_seconds is not None and plan.last_self_seconds >= 0
                     assert plan.last_round_trip_seconds > 0
-        d = backend.describe()
+        d = backend.describe().as_dict()
         assert d["timing_source"] == "program" and d["protocol_version"] == 1
         assert d["round_trip_overhead_seconds"] > 0
     finally:
@@ -272,7 +317,7 @@ def test_python_server_all_norms_and_untimed_flag(no_leftovers) -> None:
             y = plan.execute(x)
             assert relative_error(y, np.fft.fft(x, norm="ortho")) <= 2 * accuracy_limit(case)
             assert (plan.last_self_seconds is not None) is timed
-            assert backend.describe()["timing_source"] == ("program" if timed else "adapter")
+            assert backend.describe().details["timing_source"] == ("program" if timed else "adapter")
         finally:
             backend.close()
 
@@ -440,7 +485,7 @@ def test_missing_or_not_executable_programs_are_usage_errors(tmp_path: Path, no_
         f"exec:{junk}": "cannot start",
         f"exec:{tmp_path}": "no program file",
         "exec:prog 'unbalanced": "cannot split the command line",
-        server_spec("ok", "timeout=0"): "timeout=0.0 must be positive seconds",
+        server_spec("ok", "timeout=0"): "timeout=0.0 must be above 0",
         server_spec("ok", "timeout=soon"): "must be float",
         server_spec("ok", "retries=3"): "unknown option 'retries'",
         "exec:   ": "nothing after exec:",

@@ -39,6 +39,7 @@ from typing import Any, Sequence
 
 from fftgauge.harness.execution import jobs
 from fftgauge.harness.cases import Case
+from fftgauge.backends.registry import require_unique_labels
 from fftgauge.harness.execution.dispatch import Progress, describe_cases
 from fftgauge.harness.errors import BackendFailure, UsageError
 from fftgauge.harness.results import ResultsWriter, envelope
@@ -62,7 +63,7 @@ class Batch:
 
     spec: str
     label: str
-    capabilities: dict[str, Any]
+    capabilities: Any
     indices: tuple[int, ...]
 
 
@@ -76,10 +77,10 @@ class BatchQueue:
         self._left: dict[str, deque[Batch]] = {}
         for spec in req.specs:
             by_size: dict[int, list[int]] = {}
-            for i, reason in enumerate(claims[spec]["reasons"]):
+            for i, reason in enumerate(claims[spec].reasons):
                 if reason is None:
                     by_size.setdefault(cases[i].n, []).append(i)
-            self._left[spec] = deque(Batch(spec, claims[spec]["label"], claims[spec]["describe"]["capabilities"],
+            self._left[spec] = deque(Batch(spec, claims[spec].label, claims[spec].capabilities,
                                            tuple(by_size[n])) for n in sorted(by_size, reverse=True))
         #: How many cases the queue held at the start.
         self.total_cases = sum(len(b.indices) for q in self._left.values() for b in q)
@@ -224,13 +225,13 @@ def _describe_all(workers: dict[str, Any], req: BatteryRequest, cases: list[Case
 
 def _skip_rows(req: BatteryRequest, claims: dict[str, dict[str, Any]], cases: list[Case]) -> list[dict]:
     """Return one ``skip`` row per case a backend does not claim (the reason as its message)."""
-    return [row.as_dict() for spec in req.specs for case, reason in zip(cases, claims[spec]["reasons"])
-            if reason is not None for row in skip_rows(claims[spec]["label"], case, [SKIPPED_CASE_CHECK], reason)]
+    return [row.as_dict() for spec in req.specs for case, reason in zip(cases, claims[spec].reasons)
+            if reason is not None for row in skip_rows(claims[spec].label, case, [SKIPPED_CASE_CHECK], reason)]
 
 
 def _sort_rows(rows: list[dict], req: BatteryRequest, claims: dict[str, dict[str, Any]], order: list[str]) -> None:
     """Sort rows in place: backend (as asked), kind, dtype, norm, n, check (battery order)."""
-    backend_pos = {claims[spec]["label"]: i for i, spec in enumerate(req.specs)}
+    backend_pos = {claims[spec].label: i for i, spec in enumerate(req.specs)}
     check_pos = {name: i for i, name in enumerate([SKIPPED_CASE_CHECK] + order)}
     kinds = ("fft", "ifft", "rfft", "irfft")
     rows.sort(key=lambda r: (backend_pos.get(r["backend"], 0), kinds.index(r["kind"]), r["dtype"], r["norm"],
@@ -263,9 +264,10 @@ def run_battery(req: BatteryRequest, json_path: str | None = None, quiet: bool =
     workers = {spec: Worker(spec, threads=req.threads) for spec in req.specs}
     try:
         claims = _describe_all(workers, req, cases, parallel)
+        require_unique_labels({spec: claims[spec].label for spec in req.specs})
         doc = envelope(CHECK_SCHEMA, req.seed, extra={
             "reference": {dtype: reference_method(dtype) for dtype in req.dtypes},
-            "backends": {claims[s]["label"]: {"spec": s, **claims[s]["describe"]} for s in req.specs},
+            "backends": {claims[s].label: claims[s].record(s) for s in req.specs},
             "request": {"kinds": list(kinds), "dtypes": list(req.dtypes), "norms": list(req.norms),
                         "sizes": list(req.sizes), "checks": check_names or list(CHECKS)},
         })

@@ -22,8 +22,10 @@ def _line(info) -> str:
     """Return the listing of one backend: a heading line, then its claims and options."""
     if not info.available:
         return f"  {info.name:<12} unavailable: {info.reason}"
-    caps = info.capabilities
+    caps = info.capabilities.as_dict()
     sizes = "powers of two" if caps["sizes"] == "pow2" else "any size"
+    if caps["min_n"] > 1:
+        sizes += f" from {caps['min_n']}"
     if caps["max_n"]:
         sizes += f" up to {caps['max_n']}"
     features = [x for x, on in (("separate planning", caps["separate_planning"]), ("in place", caps["in_place"]),
@@ -42,7 +44,7 @@ def run(args: argparse.Namespace) -> int:
     """Print the listing (and write JSON when asked); return 0."""
     infos = list_backends()
     if args.json:
-        text = json.dumps({"schema": "fftgauge-backends/1", "backends": [vars(i) for i in infos]}, indent=2)
+        text = json.dumps({"schema": "fftgauge-backends/1", "backends": [i.as_dict() for i in infos]}, indent=2)
         if args.json == "-":
             print(text)
             return 0

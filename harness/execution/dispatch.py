@@ -13,10 +13,11 @@ from fftgauge.harness.errors import BackendFailure, UsageError
 
 
 def describe_cases(worker: Any, spec: str, cases: list[Case], max_n_pure_python: int | None,
-                   timeout_seconds: float) -> dict[str, Any]:
+                   timeout_seconds: float) -> Any:
     """Ask a backend's worker for its description and which of ``cases`` it claims.
 
-    Returns the :func:`backend_claims` dict (``label``, ``describe``, ``reasons``).
+    Returns the :class:`~fftgauge.backends.claims.BackendClaims` of :func:`jobs.backend_claims`
+    (``label``, ``description``, ``reasons``).
 
     Raises
     ------

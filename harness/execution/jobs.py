@@ -66,11 +66,11 @@ def plan_and_execute(backend: Any, case: Case | tuple, x: np.ndarray) -> np.ndar
 
 
 def describe_backend(backend: Any) -> dict[str, Any]:
-    """Return ``backend.describe()``: name, version, description, options, capabilities.
+    """Return ``backend.describe().as_dict()``: name, version, description, options, capabilities.
 
     Lets the parent learn what a backend claims without importing its code.
     """
-    return backend.describe()
+    return backend.describe().as_dict()
 
 
 def unsupported_reason(backend: Any, case: Case | tuple) -> str | None:
@@ -80,22 +80,25 @@ def unsupported_reason(backend: Any, case: Case | tuple) -> str | None:
     return backend.unsupported_reason(case)
 
 
-def backend_claims(backend: Any, case_fields: list[tuple], max_n_pure_python: int | None) -> dict[str, Any]:
-    """Return the backend's description and, per case, why it is skipped (or None).
+def backend_claims(backend: Any, case_fields: list[tuple], max_n_pure_python: int | None) -> Any:
+    """Return the backend's :class:`~fftgauge.backends.claims.BackendClaims`: its label, its
+    description and, per case, why it is skipped (or None).
 
-    ``max_n_pure_python`` caps the sizes given to backends that declare ``max_n`` (the
-    pure-Python references), so a default run stays quick.
+    ``max_n_pure_python`` caps the sizes given to backends whose capabilities say
+    ``pure_python`` (the references), so a default run stays quick.
     """
+    from fftgauge.backends.claims import BackendClaims
+
     caps = backend.capabilities()
     reasons = []
     for fields in case_fields:
         case = Case(*fields)
         reason = backend.unsupported_reason(case)
-        if reason is None and max_n_pure_python and caps.max_n is not None and case.n > max_n_pure_python:
+        if reason is None and max_n_pure_python and caps.pure_python and case.n > max_n_pure_python:
             reason = (f"{backend.label} is a pure-Python reference: this run limits it to n <= "
                       f"{max_n_pure_python} (n = {case.n}); ask for it by its sizes to go further")
         reasons.append(reason)
-    return {"label": backend.label, "describe": backend.describe(), "reasons": reasons}
+    return BackendClaims(backend.label, backend.describe(), tuple(reasons))
 
 
 #: (cap, len(sys.modules)) when this process last capped its BLAS pools (worker side).

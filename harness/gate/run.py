@@ -890,20 +890,20 @@ def build_items(req: GateRequest, sampler: Any, doc: dict[str, Any]) -> list[Gat
         cases = request_cases(req)
         old = sampler.claims("old", cases)
         new = sampler.claims("new", cases)
-        doc["old"] = {"spec": req.old_spec, **old["describe"]}
-        doc["new"] = {"spec": req.new_spec, **new["describe"]}
-        doc["backends"] = {new["label"]: {"spec": req.new_spec, **new["describe"]}}
+        doc["old"] = old.record(req.old_spec)
+        doc["new"] = new.record(req.new_spec)
+        doc["backends"] = {new.label: new.record(req.new_spec)}
         items = []
         for i, case in enumerate(cases):
-            it = GateItem(backend=new["label"], case=case, new_key="new", old_key="old",
-                          baseline_backend=old["label"])
-            reason = new["reasons"][i] or old["reasons"][i]
+            it = GateItem(backend=new.label, case=case, new_key="new", old_key="old",
+                          baseline_backend=old.label)
+            reason = new.reasons[i] or old.reasons[i]
             if reason is not None:
-                side = "new" if new["reasons"][i] else "old"
+                side = "new" if new.reasons[i] else "old"
                 it.status, it.message = "skip", f"{side} backend: {reason}"
             elif req.mode == "referenced":
-                stored_label = req.baseline_label or new["label"]
-                it.baseline = ratio_baseline_for(req.stored_runs, stored_label, old["label"], case,
+                stored_label = req.baseline_label or new.label
+                it.baseline = ratio_baseline_for(req.stored_runs, stored_label, old.label, case,
                                                  req.settings.confidence)
                 if it.baseline is None:
                     it.status, it.message = "skip", (f"no stored A/B ratio of {stored_label} against "
@@ -926,8 +926,8 @@ def build_items(req: GateRequest, sampler: Any, doc: dict[str, Any]) -> list[Gat
             cases = sorted({_case_of(r) for run in req.stored_runs for r in run.rows},
                            key=lambda c: (KINDS.index(c.kind), c.dtype, c.norm, c.n))
         claims = sampler.claims(spec, cases)
-        label = claims["label"]
-        doc["backends"][label] = {"spec": spec, **claims["describe"]}
+        label = claims.label
+        doc["backends"][label] = claims.record(spec)
         base_label = req.baseline_label or label
         if req.mode == "stored":
             if base_label not in stored_labels:
@@ -940,7 +940,7 @@ def build_items(req: GateRequest, sampler: Any, doc: dict[str, Any]) -> list[Gat
                                  f"drop those options to re-measure every stored case")
         else:
             wanted = cases
-        reasons = dict(zip(cases, claims["reasons"]))
+        reasons = dict(zip(cases, claims.reasons))
         for case in wanted:
             it = GateItem(backend=label, case=case, new_key=spec,
                           baseline_backend=base_label if req.mode == "stored" else None)

@@ -32,6 +32,7 @@ from typing import Any
 from fftgauge.harness.execution import jobs
 from fftgauge.harness.cases import KINDS, Case
 from fftgauge.harness.errors import BackendFailure, UnsupportedCase, UsageError
+from fftgauge.backends.registry import require_unique_labels
 from fftgauge.harness.execution.dispatch import Progress, describe_cases
 from fftgauge.harness.results import ResultsWriter, envelope
 
@@ -120,9 +121,10 @@ def _run_timing_pinned(req: TimingRequest, json_path: str | None, quiet: bool,
     try:
         claims = {spec: describe_cases(workers[spec], spec, cases, req.max_n_pure_python, req.timeout_seconds)
                   for spec in req.specs}
+        require_unique_labels({spec: claims[spec].label for spec in req.specs})
         doc = envelope(TIME_SCHEMA, req.seed, extra={
             "threads": req.threads, "pinned_cpus": list(cpus) if cpus else None,
-            "backends": {claims[s]["label"]: {"spec": s, **claims[s]["describe"]} for s in req.specs},
+            "backends": {claims[s].label: claims[s].record(s) for s in req.specs},
             "request": {"kinds": list(kinds), "dtypes": list(req.dtypes), "norms": list(req.norms),
                         "sizes": list(req.sizes), "samples": req.samples, "budget_seconds": req.budget_seconds,
                         "cold_cache": req.cold_cache, "rounds": req.rounds},
@@ -140,7 +142,7 @@ def _run_timing_pinned(req: TimingRequest, json_path: str | None, quiet: bool,
     finally:
         for worker in workers.values():
             worker.close()
-    position = {claims[spec]["label"]: i for i, spec in enumerate(req.specs)}
+    position = {claims[spec].label: i for i, spec in enumerate(req.specs)}
     doc["rows"].sort(key=lambda r: (KINDS.index(r["kind"]), r["dtype"], r["norm"], r["n"], position[r["backend"]]))
     return doc
 
@@ -152,7 +154,7 @@ def _time_window(window: list[int], cases: list[Case], claims: dict[str, Any], w
     pending = []
     for index in window:
         for spec in req.specs:
-            label, reason = claims[spec]["label"], claims[spec]["reasons"][index]
+            label, reason = claims[spec].label, claims[spec].reasons[index]
             if reason is not None:
                 writer.add([placeholder_row(label, cases[index], req.threads, "skip", reason)])
                 progress.advance(note=f"{label} {cases[index].label()}")
@@ -161,7 +163,7 @@ def _time_window(window: list[int], cases: list[Case], claims: dict[str, Any], w
     for round_index in range(req.rounds):
         order.shuffle(pending)
         for index, spec in list(pending):
-            label = claims[spec]["label"]
+            label = claims[spec].label
             row = _time_round(workers[spec], label, cases[index], req, round_index)
             if row is not None:
                 writer.add([row])
