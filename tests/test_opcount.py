@@ -26,14 +26,27 @@ import pytest
 import fftgauge.harness.cli.count as cmd_count
 import fftgauge.harness.timing.opcount as opcount
 from fftgauge.harness.errors import UsageError
-from fftgauge.harness.timing.opcount import (count_table, direct_complex_adds, direct_complex_mults, pseudo_flops,
-                             radix2_complex_adds, radix2_complex_mults, radix2_unit_twiddle_butterflies,
-                             real_equivalents, split_radix_real_ops)
+from fftgauge.harness.timing.opcount import (count_table, direct_complex_adds, direct_complex_mults, gflops, nlogn,
+                                             ns_per_nlogn, pseudo_flops, radix2_complex_adds, radix2_complex_mults,
+                                             radix2_unit_twiddle_butterflies, real_equivalents, split_radix_real_ops)
 
 ROOT = pathlib.Path(__file__).resolve().parent.parent
 
 
 # -- the formulas against hand-computed values -----------------------------------------------
+
+def test_rate_formulas_hand_values():
+    """GFLOP/s = flops / seconds / 1e9 (definition of the unit); ns per N log2 N =
+    1e9 seconds / (N log2 N) (common practice); by hand: 4 log2 4 = 8, 1024 log2 1024 = 10240."""
+    assert nlogn(1) == 0.0 and nlogn(4) == 8.0 and nlogn(1024) == 10240.0
+    assert nlogn(3) == pytest.approx(3 * math.log2(3))
+    assert ns_per_nlogn(1e-6, 1) is None
+    assert ns_per_nlogn(2e-6, 4) == pytest.approx(2e3 / 8)
+    assert ns_per_nlogn(1e-5, 1024) == pytest.approx(0.9765625)
+    assert gflops(1e9, 0.5) == pytest.approx(2.0)
+    assert gflops(51200, 1e-5) == pytest.approx(5.12)
+    assert gflops(1e9, 0.0) == 0.0 and gflops(1e9, -1e-9) == 0.0
+
 
 def test_direct_model_hand_values():
     """N = 4: 16 and 12; N = 16: 256 and 240 (common practice)."""

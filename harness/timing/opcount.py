@@ -1,7 +1,11 @@
 """Operation-count models of the DFT and the FFT, the tally instrumented backends keep, and
 the table ``fftgauge count`` prints.
 
-Each model formula lives in exactly one function here, with its source in the docstring.
+Each model formula lives in exactly one function here, with its source in the docstring:
+the direct DFT (:func:`direct_complex_mults`: N^2), radix-2 (:func:`radix2_complex_mults`:
+(N/2) log2 N), split radix, the conventional flop count (:func:`pseudo_flops`: 5 N log2 N
+complex, 2.5 N log2 N real) and the rates built on them (:func:`gflops`,
+:func:`ns_per_nlogn`, :func:`nlogn`).
 "Complex multiplication" and "complex addition" are counted as the trade counts them: a
 subtraction is an addition, and a multiplication by a twiddle factor counts whatever its
 value unless a function says otherwise. Real equivalents use the schoolbook complex product
@@ -116,6 +120,35 @@ def pseudo_flops(n: int, real_input: bool) -> float:
         return 0.0
     factor = 2.5 if real_input else 5.0
     return factor * n * math.log2(n)
+
+
+def nlogn(n: int) -> float:
+    """Return ``n * log2(n)``, the FFT's work scale (0 for n = 1; ``log2`` real for other sizes).
+
+    Source: common practice; the radix-2 FFT does N log2 N complex additions (Cooley &
+    Tukey, Math. Comp. 19 (1965) 297-301), so an FFT's time grows like it.
+    """
+    return n * math.log2(n) if n > 1 else 0.0
+
+
+def ns_per_nlogn(seconds: float, n: int) -> float | None:
+    """Return ``seconds * 1e9 / (n log2 n)``, the time per unit of FFT work; ``None`` for n = 1.
+
+    Source: common practice: N log2 N is the FFT's asymptotic cost (:func:`nlogn`), so this
+    stays flat as n grows when a backend scales as it should.
+    """
+    if n <= 1:
+        return None
+    return seconds * 1e9 / nlogn(n)
+
+
+def gflops(flops: float, seconds: float) -> float:
+    """Return ``flops / seconds / 1e9`` (GFLOP/s); 0.0 when ``seconds`` is not positive.
+
+    Source: the definition of the unit (10^9 floating-point operations per second); with
+    :func:`pseudo_flops` as ``flops`` it is the conventional FFT rate.
+    """
+    return flops / seconds / 1e9 if seconds > 0 else 0.0
 
 
 def split_radix_real_ops(n: int) -> int:

@@ -48,6 +48,7 @@ from scipy import stats
 from fftgauge.harness.cases import Case, is_power_of_two
 from fftgauge.harness.dft import size_label
 from fftgauge.harness.sizes import is_prime
+from fftgauge.harness.timing import opcount
 
 #: Smallest size used in the fits and in the outlier rule: below it the fixed cost of a call
 #: dominates the time (common practice).
@@ -80,16 +81,9 @@ def _usable(row: Mapping[str, Any]) -> bool:
     return row.get("status", "ok") == "ok" and seconds is not None and seconds > 0 and row.get("n", 0) >= 1
 
 
-def nlogn(n: int) -> float:
-    """Return ``n * log2(n)``, the FFT work scale (0 for n = 1).
-
-    Source: common practice (the radix-2 FFT's N log2 N complex additions, Cooley & Tukey 1965).
-    """
-    return n * math.log2(n) if n > 1 else 0.0
-
-
 def ns_per_nlogn(row: Mapping[str, Any]) -> float | None:
-    """Return the row's nanoseconds per N log2 N: its own field, else 1e9 seconds / (n log2 n).
+    """Return the row's nanoseconds per N log2 N: its own field, else
+    :func:`fftgauge.harness.timing.opcount.ns_per_nlogn` of its median time.
 
     Returns None for n = 1 (N log2 N is 0) or a row without a usable time.
     """
@@ -98,7 +92,7 @@ def ns_per_nlogn(row: Mapping[str, Any]) -> float | None:
         return float(value)
     if not _usable(row) or row["n"] < 2:
         return None
-    return row["seconds"] * 1e9 / nlogn(row["n"])
+    return opcount.ns_per_nlogn(row["seconds"], row["n"])
 
 
 def _groups(rows: Iterable[Any]) -> dict[tuple[str, str, str], list[dict[str, Any]]]:
@@ -176,7 +170,8 @@ def fit_scaling(rows: Iterable[Any], min_n: int = FIT_MIN_N) -> list[dict[str, A
         if len(pts) >= 2:
             n = np.array([r["n"] for r in pts], dtype=float)
             seconds = np.array([r["seconds"] for r in pts], dtype=float)
-            fit["exponent_nlogn"], fit["exponent_nlogn_stderr"] = _loglog_fit(n * np.log2(n), seconds)
+            work = np.array([opcount.nlogn(r["n"]) for r in pts], dtype=float)
+            fit["exponent_nlogn"], fit["exponent_nlogn_stderr"] = _loglog_fit(work, seconds)
             fit["exponent_n"], fit["exponent_n_stderr"] = _loglog_fit(n, seconds)
         fit["words"] = growth_words(fit["exponent_n"])
         out.append(fit)

@@ -63,7 +63,7 @@ from fftgauge.harness.timing.clock import (DEFAULT_CLOCK, DEFAULT_WARMUP_SECONDS
                                            autorange, gc_paused, sample_target_ns, time_empty_loop, time_loops,
                                            warm_up)
 from fftgauge.harness.timing.memory import detect_in_place, measure_memory
-from fftgauge.harness.timing.opcount import pseudo_flops
+from fftgauge.harness.timing.opcount import gflops, ns_per_nlogn, pseudo_flops
 from fftgauge.harness.rows import TimeRow
 from fftgauge.harness.stats import LOW_QUANTILE, median_ci, order_statistic_ranks, quantile_ci, relative_spread
 
@@ -340,22 +340,6 @@ def measure(plan: Plan, x: np.ndarray, settings: TimerSettings | None = None, **
     """
     base = settings or TimerSettings()
     return Timer(replace(base, **overrides) if overrides else base).measure(plan, x)
-
-
-def ns_per_nlogn(seconds: float, n: int) -> float | None:
-    """Return ``seconds * 1e9 / (n log2 n)``, the time per unit of FFT work; ``None`` for n = 1.
-
-    Common practice: N log2 N is the FFT's asymptotic cost, so this stays flat as n grows
-    when a backend scales as it should.
-    """
-    if n <= 1:
-        return None
-    return seconds * 1e9 / (n * math.log2(n))
-
-
-def gflops(flops: float, seconds: float) -> float:
-    """Return ``flops / seconds / 1e9`` (GFLOP/s); 0.0 when ``seconds`` is not positive."""
-    return flops / seconds / 1e9 if seconds > 0 else 0.0
 
 
 _SETTING_NAMES = {f.name for f in fields(TimerSettings)}
