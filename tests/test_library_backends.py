@@ -153,9 +153,16 @@ def load_builtin(name: str):
 
 # -- every built-in against mpmath -------------------------------------------------------------
 
+#: Calibration backends, not FFTs, left out of the mpmath comparison: null and busywait
+#: compute no transform, and slowed returns numpy's result after a calibration of every plan
+#: (about 20 ms, 12 kind x dtype cases x 3 norms x 32 sizes: minutes for numpy's numbers
+#: again); test_slowed_returns_the_base_backends_result covers it cheaply.
+CALIBRATION_BACKENDS = tuple(SYNTHETIC_BACKENDS) + ("slowed",)
+
+
 @pytest.mark.parametrize("dtype", DTYPES)
 @pytest.mark.parametrize("kind", KINDS)
-@pytest.mark.parametrize("name", [b for b in BUILTINS if b not in SYNTHETIC_BACKENDS])
+@pytest.mark.parametrize("name", [b for b in BUILTINS if b not in CALIBRATION_BACKENDS])
 def test_builtin_matches_mpmath_direct_dft(name, kind, dtype):
     """Every claimed (norm, N <= 32) agrees with mpmath (arbitrary precision), direct DFT at 50 digits."""
     backend = load_builtin(name)
@@ -178,6 +185,20 @@ def test_builtin_matches_mpmath_direct_dft(name, kind, dtype):
         pytest.skip(backend.unsupported_reason(Case(kind, dtype, 1)) or f"{name} claims no size <= 32")
     assert not failures, f"{name}: {len(failures)} of {tested} cases off: " + "; ".join(
         failures[:5])
+
+
+@pytest.mark.parametrize("kind", KINDS)
+def test_slowed_returns_the_base_backends_result(kind):
+    """slowed[percent=5] (base numpy) returns numpy.fft's output unchanged, bit for bit, at
+    a power of two and a prime; numpy itself is checked against mpmath above."""
+    slowed, numpy_backend = load_backend("slowed[percent=5]"), load_backend("numpy")
+    for n in (16, 17):
+        case = Case(kind, "float64", n)
+        x = reference_input(kind, n).astype(case.input_dtype)
+        plan = slowed.plan(case)
+        got = np.asarray(plan.execute(plan.prepare(x.copy())))
+        expected = np.asarray(numpy_backend.plan(case).execute(x.copy()))
+        assert got.dtype == expected.dtype and np.array_equal(got, expected), (kind, n)
 
 
 def test_mpmath_reference_matches_closed_forms():
