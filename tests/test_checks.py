@@ -26,7 +26,8 @@ from fftgauge.harness.execution import jobs
 from fftgauge.backends.registry import load_backend
 from fftgauge.harness.battery import context, exact_checks, value_checks
 from fftgauge.harness.cases import Case, norm_factor
-from fftgauge.harness.dft import hermitian_full
+from fftgauge.harness.battery.reference import reference_transform
+from fftgauge.harness.dft import hermitian_full, machine_epsilon
 from fftgauge.harness.battery.checks import CHECKS, applicable_checks, check_case, run_case_checks
 from fftgauge.harness.errors import UsageError
 from fftgauge.harness.rows import DIAGNOSES, STATUSES
@@ -382,3 +383,72 @@ def test_runs_in_a_worker_process():
         rows = worker.call(jobs.run_case_checks, ("fft", "float64", 32, "backward"), 1,
                            ["accuracy", "concurrent"], timeout_seconds=60)
     assert [(r["check"], r["status"]) for r in rows] == [("accuracy", "pass"), ("concurrent", "pass")]
+
+
+# -- concurrent and repeatable: rounding-level differences are not faults ------------------------
+
+THREAD_SETTINGS = str(Path(__file__).parent / "data" / "thread_settings.py")
+
+
+@pytest.mark.parametrize("dtype, n", [("float64", 64), ("float64", 1000), ("float32", 4096)])
+def test_thread_local_setting_backend_passes_concurrent(dtype, n):
+    """Like a library whose result follows its thread count: bitwise different in other threads,
+    accurate everywhere (checked here against the reference first), so not thread-unsafe."""
+    import threading
+
+    backend = load_backend(f"{THREAD_SETTINGS}:ThreadSettingBackend")
+    case = Case("fft", dtype, n)
+    plan = backend.plan(case)
+    x = (np.random.default_rng(1).standard_normal(n) + 1j * np.random.default_rng(2).standard_normal(n)
+         ).astype(case.input_dtype)
+    here = plan.execute(x)
+    there = []
+    worker = threading.Thread(target=lambda: there.append(plan.execute(x)))
+    worker.start()
+    worker.join()
+    assert not np.array_equal(here, there[0]), "the test backend must differ bitwise between threads"
+    ref = reference_transform(x, case)
+    eps = machine_epsilon(dtype)
+    assert ref.relative_error(here) < 10 * eps and ref.relative_error(there[0]) < 10 * eps
+    row = check_case(backend, case, 3, ["concurrent"])[0]
+    assert row.status == "pass", row.message
+    assert "rounding-level" in row.message and " eps" in row.message and row.value > 0
+
+
+def test_shared_scratch_still_fails_concurrent_with_its_size_in_eps():
+    row = check_case(broken("shared_scratch_fft"), Case("fft", "float64", 256), 4, ["concurrent"])[0]
+    assert (row.status, row.diagnosis) == ("fail", "thread-unsafe"), row.message
+    assert row.value > 1e-3 and "run-to-run spread is 0 eps" in row.message and " eps" in row.message
+
+
+def test_declared_not_bitwise_reproducible_passes_repeatable_within_the_limit():
+    """bitwise_reproducible=False: rounding-level differences pass; the same noise undeclared fails."""
+    row = check_case(load_backend(f"{THREAD_SETTINGS}:NotBitwiseBackend"), Case("fft", "float64", 128), 1,
+                     ["repeatable", "concurrent"])
+    assert [(r.check, r.status) for r in row] == [("repeatable", "pass"), ("concurrent", "pass")], \
+        [r.message for r in row]
+    assert "not bitwise reproducible" in row[0].message and 0 < row[0].value <= row[0].limit
+    undeclared = check_case(broken("noisy_fft"), Case("fft", "float64", 128), 1, ["repeatable"])[0]
+    assert (undeclared.status, undeclared.diagnosis) == ("fail", "nondeterministic")
+
+
+def test_concurrent_threads_run_under_the_callers_thread_caps():
+    """threadpoolctl's own report, read inside a crew thread under thread_caps_applied, shows the
+    caller's cap (1), and the thread's settings are put back afterwards."""
+    from threadpoolctl import threadpool_info, threadpool_limits
+
+    from fftgauge.harness.battery.thread_crew import thread_caps, thread_caps_applied, thread_crew
+
+    if not threadpool_info():
+        pytest.skip("no thread pool library loaded")
+    seen = []
+    with threadpool_limits(limits=1):
+        caps = thread_caps()
+        assert caps and all(threads == 1 for _, threads in caps)
+
+        def task():
+            with thread_caps_applied(caps):
+                seen.append([pool["num_threads"] for pool in threadpool_info()])
+
+        assert thread_crew().run([task], timeout_seconds=30)
+    assert seen and all(v == 1 for v in seen[0])

@@ -1,16 +1,25 @@
-"""The threads of the ``concurrent`` check: a crew started once per process and reused.
+"""The threads of the ``concurrent`` check: a crew started once per process and reused, and
+the thread-pool caps its tasks run under.
 
 Starting four threads costs milliseconds on a busy machine, more than the calls themselves
 at small n, so every case's ``concurrent`` check hands its calls to the same crew.
+
+A thread-pool cap (threadpoolctl: OpenMP's ``omp_set_num_threads``, MKL's thread count) may
+hold only in the thread that set it, and a library's result may depend bitwise on its thread
+count. :func:`thread_caps` reads the caps the calling thread runs under and
+:func:`thread_caps_applied` sets them inside another thread, so the ``concurrent`` check's
+threads run the backend as the calling thread does.
 """
 
 from __future__ import annotations
 
 import os
 import queue
+import sys
 import threading
 import time
-from typing import Callable
+from contextlib import contextmanager
+from typing import Any, Callable, Iterator
 
 #: Threads in the crew (the ``concurrent`` check's threads).
 CREW_SIZE = 4
@@ -91,3 +100,38 @@ def thread_crew() -> ThreadCrew:
         if not _CREW:
             _CREW.append(ThreadCrew(CREW_SIZE))
         return _CREW[0]
+
+
+#: (len(sys.modules), threadpoolctl controller) of this process, made again after new imports
+#: (a thread-pool library arrives with an import; scanning the loaded libraries costs milliseconds).
+_CONTROLLER: list[tuple[int, Any]] = []
+
+
+def _controller() -> Any:
+    from threadpoolctl import ThreadpoolController
+
+    if not _CONTROLLER or _CONTROLLER[0][0] != len(sys.modules):
+        _CONTROLLER[:] = [(len(sys.modules), ThreadpoolController())]
+    return _CONTROLLER[0][1]
+
+
+def thread_caps() -> tuple[tuple[Any, int], ...]:
+    """Return the thread-pool caps the calling thread runs under: ``(library, threads)`` for
+    every pool threadpoolctl finds loaded (BLAS, OpenMP), ``library`` its controller."""
+    return tuple((lib, int(lib.num_threads)) for lib in _controller().lib_controllers)
+
+
+@contextmanager
+def thread_caps_applied(caps: tuple[tuple[Any, int], ...]) -> Iterator[None]:
+    """Run the block with ``caps`` (from :func:`thread_caps`) set in the calling thread, and
+    set back what the thread had before on leaving."""
+    saved = [(lib, int(lib.num_threads)) for lib, _ in caps]
+    for lib, threads in caps:
+        if int(lib.num_threads) != threads:
+            lib.set_num_threads(threads)
+    try:
+        yield
+    finally:
+        for lib, threads in saved:
+            if int(lib.num_threads) != threads:
+                lib.set_num_threads(threads)
