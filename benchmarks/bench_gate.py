@@ -50,8 +50,8 @@ MODE_LABELS = {"ab": "A/B", "stored": "stored", "referenced": "referenced"}
 def gate_request(mode: str, percent: float, args: argparse.Namespace, folder: str | None, seed: int):
     """Return the GateRequest of one gate run of a configuration."""
     from fftgauge.harness.timing.affinity import choose_cpus, parse_pin
-    from fftgauge.harness.cli.gate import load_stored_runs
-    from fftgauge.harness.gate.run import GateRequest, GateSettings
+    from fftgauge.harness.gate.history import load_stored_runs
+    from fftgauge.harness.gate.request import GateRequest, GateSettings
     from fftgauge.harness.sizes import parse_sizes
 
     settings = GateSettings(budget_seconds=args.budget if mode != "record" else min(args.budget, 10.0), seed=seed,
@@ -81,7 +81,7 @@ def gate_request(mode: str, percent: float, args: argparse.Namespace, folder: st
 
 def one_run(req: Any, save_to: str | None) -> dict[str, Any]:
     """Run one gate; return what the benchmark keeps of it."""
-    from fftgauge.harness.cli.gate import save_run
+    from fftgauge.harness.gate.history import save_run
     from fftgauge.harness.gate.run import run_gate
 
     started = time.monotonic()

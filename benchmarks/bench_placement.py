@@ -4,7 +4,7 @@ the gate's several processes per side (harness/affinity.py, harness/gate_samplin
 For each size, ``--pairs-of-processes`` times, the script starts a fresh pair of worker
 processes running the *same* backend (numpy by default), interleaves ``--blocks`` block
 pairs of them exactly as the gate does (:class:`fftgauge.harness.gate.sampling.WorkerSampler` with one
-process per side) and prints the paired ratio (:func:`fftgauge.harness.gate.run.estimate_paired`). Since
+process per side) and prints the paired ratio (:func:`fftgauge.harness.gate.estimates.estimate_paired`). Since
 both sides run identical code, every ratio away from 1 is an effect of the processes: the
 CPU each was placed on, and where code and data landed in memory. The same is done with the
 whole run pinned to one CPU (:func:`fftgauge.harness.timing.affinity.pinned`), alternating the two ways so
@@ -27,7 +27,7 @@ sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 def one_pair(spec: str, n: int, blocks: int, seed: int) -> float:
     """Return the paired new/old ratio of one fresh pair of processes running ``spec`` at size ``n``."""
     from fftgauge.harness.cases import Case
-    from fftgauge.harness.gate.run import estimate_paired
+    from fftgauge.harness.gate.estimates import estimate_paired
     from fftgauge.harness.gate.sampling import WorkerSampler
 
     class Item:

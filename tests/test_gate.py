@@ -10,7 +10,8 @@ import pytest
 from scipy import stats as sps
 
 from fftgauge.harness import cli
-from fftgauge.harness.gate.run import decide, estimate_ab, holm_adjusted, is_conclusive, timing_verdict
+from fftgauge.harness.gate.decision import decide, holm_adjusted, is_conclusive, timing_verdict
+from fftgauge.harness.gate.estimates import estimate_ab
 from fftgauge.harness.stats import holm_bonferroni, mann_whitney_p
 
 RNG = np.random.default_rng(20261202)
@@ -105,7 +106,7 @@ def test_a_crashing_backend_still_writes_the_summary_and_exits_1(tmp_path):
 
 
 def _stored_run(path, seconds, p10, yard=None):
-    from fftgauge.harness.gate.run import StoredRun
+    from fftgauge.harness.gate.history import StoredRun
 
     row = {"backend": "numpy", "kind": "fft", "dtype": "float64", "n": 1024, "norm": "backward",
            "seconds": seconds, "seconds_low": seconds * 0.98, "seconds_high": seconds * 1.02}
@@ -120,7 +121,8 @@ def test_stored_mode_compares_10th_percentiles_when_every_run_has_them():
     candidate measured on a quiet one: the medians would read 0.77, the 10th percentiles
     (what load moves least) read about 1."""
     from fftgauge.harness.cases import Case
-    from fftgauge.harness.gate.run import baseline_for, estimate_stored
+    from fftgauge.harness.gate.estimates import estimate_stored
+    from fftgauge.harness.gate.history import baseline_for
 
     case = Case("fft", "float64", 1024)
     runs = [_stored_run(f"r{i}", 13e-6 * (1 + 0.01 * i), 10e-6 * (1 + 0.005 * i)) for i in range(3)]
@@ -141,7 +143,8 @@ def test_stored_mode_compares_10th_percentiles_when_every_run_has_them():
 
 def test_stored_mode_yardstick_statistic_follows_its_records():
     from fftgauge.harness.cases import Case
-    from fftgauge.harness.gate.run import baseline_for, estimate_stored
+    from fftgauge.harness.gate.estimates import estimate_stored
+    from fftgauge.harness.gate.history import baseline_for
     from fftgauge.harness.gate.yardstick import YARDSTICK_ROUNDS, YARDSTICK_VERSION, summarise
 
     yard = summarise([1e-3 * (1 + 0.001 * k) for k in range(40)])
@@ -190,7 +193,8 @@ def test_referenced_mode_needs_stored_ratios(tmp_path, capsys):
 
 def test_ratio_baseline_prefers_ab_ratio_and_reads_older_ab_rows():
     from fftgauge.harness.cases import Case
-    from fftgauge.harness.gate.run import StoredRun, estimate_referenced, estimate_paired, ratio_baseline_for
+    from fftgauge.harness.gate.estimates import estimate_paired, estimate_referenced
+    from fftgauge.harness.gate.history import StoredRun, ratio_baseline_for
 
     def run(path, **fields):
         row = {"backend": "mine", "baseline_backend": "numpy", "kind": "fft", "dtype": "float64", "n": 64,

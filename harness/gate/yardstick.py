@@ -5,7 +5,7 @@ median per-call time with the run. When a stored baseline is compared with a fre
 time is first expressed in yardstick units (divided by the yardstick's median time measured
 in the same run), so that a machine that got uniformly faster or slower (another clock
 speed, a noisier neighbour, a slower day of the same CI runner) does not look like a change
-of the backend. :mod:`fftgauge.harness.gate.run` applies the correction; this module holds the workload.
+of the backend. :mod:`fftgauge.harness.gate.estimates` applies the correction; this module holds the workload.
 
 Why a pure-Python loop, not a numpy kernel
 ------------------------------------------
