@@ -319,7 +319,8 @@ def _from_object(parsed: ParsedSpec, obj: Any, extra: dict[str, Any], companion:
     from fftgauge.backends.user_function import FunctionBackend, derived_label
 
     spec = parsed.text
-    if companion is not None and not callable(obj):
+    is_adapter = isinstance(obj, Backend) or (isinstance(obj, type) and issubclass(obj, Backend))
+    if companion is not None and (is_adapter or not callable(obj) or not callable(companion)):
         raise UsageError(f"backend {spec!r}: {parsed.attr}+{parsed.companion} pairs two plain functions; "
                          f"{parsed.attr!r} is a {type(obj).__name__}")
     if isinstance(obj, type) and issubclass(obj, Backend):

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from fftgauge.backends.base import Backend, Capabilities, FunctionPlan, OptionSpec
+from fftgauge.backends.base import Backend, Capabilities, FunctionPlan, OptionSpec, SizeRule
 from fftgauge.harness.cases import Case
 
 #: Not callable, not an adapter: naming it is a usage error.
@@ -54,3 +54,55 @@ class IncompleteBackend(Backend):
     """An adapter class that forgot to implement ``capabilities`` and ``plan``."""
 
     name = "incomplete"
+
+
+def numpy_inverse(x):
+    """A plain callable computing numpy's inverse DFT (1/N on the inverse): a companion of numpy_forward."""
+    return np.fft.ifft(x)
+
+
+def unscaled_inverse(x):
+    """An inverse DFT without the 1/N: a wrong companion under numpy's convention."""
+    return np.fft.ifft(x) * len(x)
+
+
+def pow2_only_forward(x):
+    """numpy's forward DFT that refuses what the library it stands for refuses: n < 16, non-powers of two."""
+    n = len(x)
+    if n < 16 or n & (n - 1):
+        raise ValueError(f"size {n} is not a power of two from 16")
+    return np.fft.fft(x)
+
+
+class RangedLibraryBackend(Backend):
+    """numpy.fft behind the size claims of an embedded DSP library (stated in issue 12 for
+    CMSIS-DSP): complex FFTs on powers of two 16..4096, real ones on powers of two 32..4096,
+    and a float32 real FFT only at the listed sizes."""
+
+    name = "ranged"
+    description = "numpy.fft with an embedded library's size claims"
+
+    @property
+    def version(self) -> str:
+        return "0.0-test"
+
+    def capabilities(self) -> Capabilities:
+        real = SizeRule("pow2", 32, 4096)
+        return Capabilities(norms=("backward",), sizes=SizeRule("pow2", 16, 4096),
+                            size_rules={"rfft": real, "irfft": real,
+                                        ("rfft", "float32"): SizeRule("pow2", only=(32, 64, 128))})
+
+    def plan(self, case: Case) -> FunctionPlan:
+        fn = getattr(np.fft, case.kind)
+        n = case.n
+        return FunctionPlan(case, (lambda x: fn(x, n=n)) if case.kind == "irfft" else fn)
+
+
+def numpy_rfft(x):
+    """numpy's real forward DFT (N//2 + 1 outputs)."""
+    return np.fft.rfft(x)
+
+
+def numpy_irfft(X, n):
+    """numpy's real inverse DFT, called as f(X, n): a companion of numpy_rfft."""
+    return np.fft.irfft(X, n)
