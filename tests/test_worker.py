@@ -568,3 +568,27 @@ def test_exception_text_names_the_users_line():
     except ZeroDivisionError as exc:
         text = exception_text(exc, folder=ROOT)
     assert re.match(r"^ZeroDivisionError: n = 0 \(at tests/test_worker\.py:\d+ in users_fft\)$", text), text
+
+
+# -- starting workers from the user's own script -------------------------------------------
+PLAIN_SCRIPT = """
+import fftgauge
+print("TOP-LEVEL RAN", flush=True)
+rows = fftgauge.check(["numpy"], sizes="1..8", kinds=["fft"], dtypes=["float64"])
+print("STATUSES", sorted(set(rows["status"])), flush=True)
+"""
+
+
+def test_python_api_from_a_plain_script_without_a_main_guard(tmp_path):
+    """The README's Python API call pasted into a plain script (no ``if __name__ ==
+    "__main__":``): it succeeds, and its top level runs once (workers never re-import the
+    user's script)."""
+    script = tmp_path / "plain.py"
+    script.write_text(PLAIN_SCRIPT)
+    env = {**os.environ, "PYTHONPATH": ROOT + os.pathsep + os.environ.get("PYTHONPATH", "")}
+    done = subprocess.run([sys.executable, str(script)], capture_output=True, text=True, cwd=tmp_path,
+                          env=env, timeout=300)
+    assert done.returncode == 0, done.stderr[-2000:]
+    assert done.stdout.count("TOP-LEVEL RAN") == 1, done.stdout
+    assert "STATUSES ['pass', 'skip']" in done.stdout or "STATUSES ['pass']" in done.stdout, done.stdout
+    assert "Traceback" not in done.stderr

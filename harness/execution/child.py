@@ -63,6 +63,20 @@ class ChildSettings:
     sys_path: tuple[str, ...] | None = None
 
 
+def serve(fd: int) -> None:
+    """Entry point of a child started as its own interpreter (the ``"subprocess"`` start
+    method): read the :class:`ChildSettings` from the connection on file descriptor ``fd``,
+    then run :func:`child_main`. Returns when the child is done."""
+    from multiprocessing.connection import Connection
+
+    conn = Connection(fd)
+    try:
+        settings = conn.recv()
+    except (EOFError, OSError):  # the worker went before sending them
+        return
+    child_main(conn, settings)
+
+
 def child_main(conn: Any, settings: ChildSettings, parents_end: Any = None) -> None:
     """Entry point of the child: load the backend, say so, then serve jobs until told to stop
     (or until the parent's end of the pipe closes), and end the processes the backend left.

@@ -8,21 +8,19 @@ up there by name.
 
 How the child is run, and why
 -----------------------------
-- **Start method.** ``spawn`` by default: a fresh interpreter, so no lock, thread pool or
-  OpenMP runtime of the parent is inherited half-initialised (``fork`` after threads have
-  started is unsafe, and numpy's BLAS, pyFFTW and scipy's workers all start threads).
-  Spawn re-imports what the child needs: this module (standard library, numpy,
-  :mod:`fftgauge.harness.cases`), the registry and the one backend. It also imports the parent's
-  main *script* if it was started as a file (``python -m`` mains are skipped), so a
-  console-script entry point should import its sub-commands lazily, and a script that
-  creates a :class:`Worker` must guard its top level with ``if __name__ == "__main__":``
-  (as for any spawn-started process).
-- **Talking.** One :func:`multiprocessing.Pipe`. The child first reports that the backend
-  loaded (or why it did not); then each call sends ``(func, args)`` and waits with
-  :func:`multiprocessing.connection.wait` on both the pipe and the process sentinel, so a
-  dead child is noticed at once, not when the timeout runs out. The job's exception is
-  turned into a one-line reason *in the child* and sent as text, so an exception that
-  cannot be pickled still comes back readable.
+- **Start method.** A fresh interpreter (:mod:`~fftgauge.harness.execution.launch`), so no
+  lock, thread pool or OpenMP runtime of the parent is inherited half-initialised
+  (``fork`` after threads have started is unsafe, and numpy's BLAS, pyFFTW and scipy's
+  workers all start threads). It imports what the child needs (this package, numpy, the
+  registry and the one backend) and never the parent's main script, so the Python API
+  works from a plain script without an ``if __name__ == "__main__":`` guard and from a
+  notebook. The :mod:`multiprocessing` start methods remain available (``start_method=``).
+- **Talking.** One :func:`multiprocessing.Pipe` (a socket pair; the child's end is passed
+  as a file descriptor). The child first reports that the backend loaded (or why it did
+  not); then each call sends ``(func, args, CPU seconds)`` and waits on both the pipe and
+  the process (a process descriptor), so a dead child is noticed at once, not when the
+  timeout runs out. The job's exception is turned into a one-line reason *in the child*
+  and sent as text, so an exception that cannot be pickled still comes back readable.
 - **Timeouts.** When a job overruns, the child is asked (SIGUSR1, through
   :mod:`faulthandler`) where it is, then stopped with ``terminate()`` and, after
   :data:`KILL_GRACE_SECONDS`, ``kill()``; it is always joined, so no zombie is left. The
@@ -85,8 +83,6 @@ from __future__ import annotations
 
 import atexit
 import math
-import multiprocessing
-import multiprocessing.connection
 import multiprocessing.util  # noqa: F401 - its atexit hook must be registered before ours
 import os
 import secrets
@@ -103,7 +99,8 @@ import numpy as np
 
 from fftgauge.harness.errors import BackendFailure, UnsupportedCase, UsageError
 from fftgauge.harness.execution import jobs
-from fftgauge.harness.execution.child import ChildSettings, child_main
+from fftgauge.harness.execution.child import ChildSettings
+from fftgauge.harness.execution.launch import DEFAULT_START_METHOD, start_child, start_methods
 from fftgauge.harness.execution.crash import (death_reason, describe_exception, ended_text, leftover_text,
                                               memory_cap_text, read_log_tail, remove_file, thread_stack, truncate_log,
                                               user_location)
@@ -140,7 +137,8 @@ class Worker:
     concurrency : how many workers run at once (the default cap is shared between them).
     cpu_limit_seconds : CPU-time limit of each job (``RLIMIT_CPU``); ``None`` (the default)
         for the job's timeout times the CPU count plus a few seconds (never before the timeout).
-    start_method : multiprocessing start method; ``spawn`` (the default) is the safe one.
+    start_method : ``"subprocess"`` (the default: a fresh interpreter that never imports the
+        caller's main script), or a :mod:`multiprocessing` start method.
     start_timeout_seconds : how long a fresh child may take to start and load the backend.
 
     Raises
@@ -153,10 +151,10 @@ class Worker:
 
     def __init__(self, spec: str, threads: int | None = None, memory_limit_bytes: int | str | None = "auto",
                  concurrency: int = 1, cpu_limit_seconds: float | None = None,
-                 start_method: str = "spawn", start_timeout_seconds: float = START_TIMEOUT_SECONDS):
-        if start_method not in multiprocessing.get_all_start_methods():
+                 start_method: str = DEFAULT_START_METHOD, start_timeout_seconds: float = START_TIMEOUT_SECONDS):
+        if start_method not in start_methods():
             raise UsageError(f"start method {start_method!r} is not available here; use one of "
-                             f"{', '.join(multiprocessing.get_all_start_methods())}")
+                             f"{', '.join(start_methods())}")
         for name, value in (("threads", threads), ("concurrency", concurrency),
                             ("memory_limit_bytes", None if memory_limit_bytes == "auto" else memory_limit_bytes)):
             if value is not None and (not isinstance(value, (int, np.integer)) or value < 1):
@@ -189,7 +187,6 @@ class Worker:
         self._token = secrets.token_hex(16)
         self._known_pids: set[int] = set()
         self._subreaper = False
-        self._ctx = multiprocessing.get_context(start_method)
         self._process: Any = None
         self._conn: Any = None
         self._main_ident: int | None = None
@@ -322,10 +319,6 @@ class Worker:
             # Removed by close(), or when a worker nobody closed is collected or at exit.
             self._log_remover = weakref.finalize(self, remove_file, self._log_path)
         truncate_log(self._log_path)
-        parent_conn, child_conn = self._ctx.Pipe(duplex=True)
-        # A forked child inherits the parent's end too; it must close it, or it would never
-        # see end-of-file when the parent goes. Spawned children get only what is passed.
-        inherited = parent_conn if self.start_method == "fork" else None
         self.scratch_dir = tempfile.mkdtemp(prefix="fftgauge-scratch-")
         self._scratch_remover = weakref.finalize(self, shutil.rmtree, self.scratch_dir, ignore_errors=True)
         settings = ChildSettings(
@@ -333,11 +326,10 @@ class Worker:
             load_cpu_seconds=cpu_seconds_for(self.start_timeout_seconds, self.cpu_limit_seconds),
             log_path=self._log_path, parent_pid=os.getpid(), token=self._token,
             user_dir=user_folder(), scratch_dir=self.scratch_dir, sys_path=tuple(sys.path))
-        process = self._ctx.Process(target=child_main, name=f"fftgauge-worker {self.spec}",
-                                    args=(child_conn, settings, inherited))
-        process.start()
-        child_conn.close()
-        self._process, self._conn = process, parent_conn
+        try:
+            self._process, self._conn = start_child(settings, self.start_method, self._log_path)
+        except OSError as exc:
+            raise BackendFailure(f"the worker process could not be started: {describe_exception(exc)}") from None
         self.starts += 1
         self._job_cpu_seconds = cpu_seconds_for(self.start_timeout_seconds, self.cpu_limit_seconds)
         status, payload = self._await_reply(self.start_timeout_seconds, loading=True)
@@ -354,8 +346,8 @@ class Worker:
         """Return the child's next message (``(status, payload)`` when loading, else
         ``(status, payload, left)``), or stop the child and raise BackendFailure."""
         during = " while loading" if loading else ""
-        ready = multiprocessing.connection.wait([self._conn, self._process.sentinel], timeout_seconds)
-        if self._conn in ready:
+        ready = self._process.wait_for(self._conn, timeout_seconds)
+        if ready == "message":
             try:
                 data = self._conn.recv_bytes()
             except (EOFError, OSError):
@@ -365,7 +357,7 @@ class Worker:
             except Exception as exc:  # the child is fine; only its answer is unreadable here
                 raise BackendFailure(f"the job's result cannot be read in the main process: "
                                      f"{describe_exception(exc)}") from None
-        if ready:
+        if ready == "ended":
             raise self._death_failure(during)
         where = self._ask_where()
         at_cap = self._at_memory_cap()
