@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import json
+import subprocess
 import sys
 import textwrap
 
@@ -399,3 +401,53 @@ def test_entry_point_load_failure_with_a_fake_entry_point(monkeypatch):
     monkeypatch.setattr(registry, "_entry_points", lambda: {"fake-ep": FakeEntryPoint()})
     message = _usage_error("fake-ep")
     assert "entry point failed to load: ImportError: the plugin's own import broke" in message
+
+
+# -- a file's folder on the import path; did you mean ---------------------------------------
+
+NEIGHBOUR_USER = '''
+import numpy as np
+from fft_core import forward     # the module beside this file
+
+def fft(x):
+    return forward(x)
+'''
+
+
+def test_a_backend_file_imports_its_neighbour(tmp_path, monkeypatch):
+    folder = tmp_path / "fft_src"
+    folder.mkdir()
+    (folder / "fft_core.py").write_text("import numpy as np\n\ndef forward(x):\n    return np.fft.fft(x)\n")
+    (folder / "my_fft.py").write_text(NEIGHBOUR_USER)
+    monkeypatch.chdir(tmp_path)
+    monkeypatch.setattr(sys, "path", list(sys.path))
+    monkeypatch.delitem(sys.modules, "fft_core", raising=False)
+    backend = load_backend("fft_src/my_fft.py:fft")
+    x = _x(16)
+    assert np.array_equal(backend.plan(Case("fft", "float64", 16)).execute(x), np.fft.fft(x))
+    assert sys.path[0] == str(folder)
+
+
+def test_a_backend_file_imports_its_neighbour_in_the_worker_too(tmp_path):
+    # The battery loads the SPEC again in each worker process: the same rule holds there.
+    folder = tmp_path / "fft_src"
+    folder.mkdir()
+    (folder / "fft_core.py").write_text("import numpy as np\n\ndef forward(x):\n    return np.fft.fft(x)\n")
+    (folder / "my_fft.py").write_text(NEIGHBOUR_USER)
+    done = subprocess.run([sys.executable, "-m", "fftgauge", "check", "--backend", "fft_src/my_fft.py:fft",
+                           "--sizes", "8,16", "--kinds", "fft", "--dtypes", "float64", "--quiet",
+                           "--json", "out.json"], cwd=tmp_path, capture_output=True, text=True, timeout=300)
+    assert done.returncode == 0, done.stderr
+    rows = json.loads((tmp_path / "out.json").read_text())["rows"]
+    assert rows and {r["backend"] for r in rows} == {"my_fft:fft"}
+    assert not [r for r in rows if r["status"] == "error"]
+    assert any(r["status"] == "pass" for r in rows)
+
+
+@pytest.mark.parametrize("name, suggestion", [("numpyy", "numpy"), ("scpy", "scipy"), ("radix2dit", "radix2-dit")])
+def test_an_unknown_name_offers_the_closest_known_one(name, suggestion):
+    assert f"unknown backend {name!r}; did you mean {suggestion!r}" in _usage_error(name)   # difflib's ratio >= 0.6
+
+
+def test_an_unknown_name_far_from_every_known_one_offers_none():
+    assert "did you mean" not in _usage_error("zzzzqqq")
