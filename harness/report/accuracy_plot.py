@@ -3,35 +3,18 @@ failing cases marked."""
 
 from __future__ import annotations
 
-from typing import Any, Iterable, Mapping
+from typing import Any, Iterable
 
-import numpy as np
-
-from fftgauge.harness.cases import Case
+from fftgauge.harness.cases import is_power_of_two
+from fftgauge.harness.dft import machine_epsilon
 from fftgauge.harness.errors import UsageError
-from fftgauge.harness.report.figures import (BOUND_COLOUR, FAIL_COLOUR, as_dicts, backend_colours,
-                                             check_plot_path, draw_series, end_labels, matplotlib_module,
-                                             new_figure, panel_keys, pow2_axis, right_room, save_figure,
-                                             split_series, style_axes, style_legend)
+from fftgauge.harness.report.findings import bound_eps_units, machine_epsilon
+from fftgauge.harness.report.figures import (BOUND_COLOUR, FAIL_COLOUR, as_dicts, backend_colours, check_plot_path,
+                                             draw_series, figure_legend, matplotlib_module, name_lines, new_figure,
+                                             panel_keys, save_figure, split_series, style_axes, style_handles, styled)
 
 
-def _eps(dtype: str) -> float:
-    """Machine epsilon of a real precision (IEEE Std 754-2019: 2^-23 binary32, 2^-52 binary64)."""
-    return float(np.finfo(Case("fft", dtype, 1).real_dtype).eps)
-
-
-def bound_eps_units(row: Mapping[str, Any]) -> float | None:
-    """Return the row's limit in eps units: ``limit * eps_units / value`` (the row's own scale),
-    else ``limit / eps`` of its precision; None without a positive limit."""
-    limit = row.get("limit")
-    if limit is None or limit <= 0:
-        return None
-    value, eps_units = row.get("value"), row.get("eps_units")
-    if value and eps_units and value > 0 and eps_units > 0:
-        return limit * eps_units / value
-    return limit / _eps(row["dtype"])
-
-
+@styled
 def draw_accuracy(check_rows: Iterable[Any], title: str | None = None):
     """Return a Figure of accuracy (relative rms error in eps units) against N, with the error bound.
 
@@ -57,6 +40,7 @@ def draw_accuracy(check_rows: Iterable[Any], title: str | None = None):
     keys = panel_keys(rows)
     colours = backend_colours(r["backend"] for r in rows)
     fig, axes = new_figure(len(keys), title or "Accuracy: relative rms error (lower is better)")
+    has_bound = has_fails = False
     for ax, (kind, dtype) in zip(axes, keys):
         panel = [r for r in rows if r["kind"] == kind and r["dtype"] == dtype]
         series = split_series(panel, lambda r: r["eps_units"])
@@ -73,23 +57,31 @@ def draw_accuracy(check_rows: Iterable[Any], title: str | None = None):
             bn = sorted(bounds)
             ax.plot(bn, [bounds[n] for n in bn], color=BOUND_COLOUR, linestyle=(0, (6, 3)), linewidth=1.8,
                     gid="bound", label="_bound")
-            ends.append(("error bound", bn[-1], bounds[bn[-1]], BOUND_COLOUR))
+            has_bound = True
         fails = [r for r in panel if r["status"] == "fail"]
-        fail_handles = []
         if fails:
-            fail_handles = ax.plot([r["n"] for r in fails], [r["eps_units"] for r in fails], linestyle="none",
-                                   marker="x", markersize=9, markeredgewidth=2.2, color=FAIL_COLOUR, gid="fail",
-                                   label="fails the check")
-        pow2_axis(ax, min(r["n"] for r in panel), max(r["n"] for r in panel), right_room(
-            list(series) + (["error bound"] if bounds else [])))
+            ax.plot([r["n"] for r in fails], [r["eps_units"] for r in fails], linestyle="none",
+                             marker="x", markersize=9, markeredgewidth=2.2, color=FAIL_COLOUR, gid="fail",
+                             label="× fails the check")
         ax.yaxis.set_major_formatter(FuncFormatter(lambda v, _: f"{v:g}"))
-        end_labels(ax, ends, log_y=True)
-        style_legend(ax, series, "upper left", fail_handles)
+        name_lines(ax, ends, True, min(r["n"] for r in panel), max(r["n"] for r in panel))
+        has_fails = has_fails or bool(fails)
         style_axes(ax)
         n_exact = sum(1 for r in exact if r["kind"] == kind and r["dtype"] == dtype)
-        hidden = f" ({n_exact} exact result{'s' if n_exact > 1 else ''}, 0 eps, not shown)" if n_exact else ""
-        ax.set_title(f"{kind} {dtype}{hidden}")
-        ax.set_ylabel(f"relative rms error (eps units, eps = {_eps(dtype):.3g})")
+        hidden = f"\n{n_exact} exact result{'s' if n_exact > 1 else ''} (0 eps) not shown" if n_exact else ""
+        ax.set_title(f"{kind} {dtype} (eps = {machine_epsilon(dtype):.3g}){hidden}")
+        ax.set_ylabel("relative rms error (eps units)")
+    from matplotlib.lines import Line2D
+
+    extra = []
+    if has_bound:
+        extra.append(Line2D([], [], color=BOUND_COLOUR, linestyle=(0, (6, 3)), linewidth=1.8,
+                            label="error bound: the limit each case is checked against"))
+    if has_fails:
+        extra.append(Line2D([], [], linestyle="none", marker="x", markersize=9, markeredgewidth=2.2,
+                            color=FAIL_COLOUR, label="red cross: fails the check"))
+    others = any(not is_power_of_two(r["n"]) for r in rows)
+    figure_legend(fig, colours, style_handles(others) + extra)
     return fig
 
 

@@ -11,23 +11,62 @@ from fftgauge.harness.report.inputs import ReportInputs, file_stem, history_case
 from fftgauge.harness.results import write_text_atomic
 
 
+#: What the time-per-point plot shows, every mark and band explained.
+TIME_CAPTION = (
+    "Time per point: the median time of one transform divided by N, against N (both axes logarithmic; lower is "
+    "faster). Lines join the powers of two; hollow diamonds are the other sizes (primes, smooth and odd sizes), "
+    "left off the line so that a slow prime stands out. The shaded band around a line is the 95% confidence "
+    "interval of its median. The grey lines are cost models drawn through the fastest time at a mid-range power of "
+    "two (the grey ring): dashed, proportional to N log2 N (an FFT's cost; a backend running parallel to it scales like an FFT), "
+    "dotted, proportional to N^2 (a direct DFT's cost). Backends are named at their lines' ends, or in the legend "
+    "where those names would overlap.")
+
+#: What the relative-speed plot shows.
+RELATIVE_CAPTION = (
+    "Speed relative to the fastest: each backend's median time divided by the fastest backend's median time at the "
+    "same N (logarithmic; 1× is the fastest at that size, 2× twice as slow). Only sizes timed by two or more "
+    "backends are shown. Lines join the powers of two; hollow diamonds are the other sizes; the dashed line marks 1×.")
+
+#: What the accuracy plot shows.
+ACCURACY_CAPTION = (
+    "Accuracy: the relative rms error of each case in units of its precision's machine epsilon (2^-23 for float32, "
+    "2^-52 for float64), against N (both axes logarithmic; lower is better). Lines join the powers of two; hollow "
+    "diamonds are the other sizes. The dashed black line is the error bound each case is checked against (at each "
+    "N the largest limit there); red crosses are cases that fail the accuracy check. Exact results (0 eps) cannot "
+    "be drawn on a logarithmic axis: a panel's title counts them.")
+
+
+def history_caption(case: Case, runs: int) -> str:
+    """Return the caption of one case's history plot over ``runs`` stored runs."""
+    return (f"History of {case.label()} over {runs} stored runs, oldest first (named by commit where the run "
+            f"recorded one, else by its time in UTC). One panel per backend, each on its own scale of at least "
+            f"±10% of its median; error bars are the 95% interval of each run's median; the dashed line is the "
+            f"median over the runs. Gate runs add a panel of candidate/baseline time ratios (dashed: 1, no change).")
+
+
 def draw_plots(inputs: ReportInputs, out: str, fmt: str, cases: list[Case] | None) -> tuple[dict[str, list], list[str]]:
-    """Draw every plot that applies; return ({section: [(path, caption)]}, notes for the user)."""
+    """Draw every plot that applies; return ({section: [(path, caption)]}, notes for the user).
+
+    Timing files give the time-per-point plot and, where two or more backends timed a size,
+    the relative-speed plot; check files the accuracy plot; folders a history per case.
+    """
     from fftgauge.harness.report import plots
+    from fftgauge.harness.report.time_plots import relative_rows
+    from fftgauge.harness.report.figures import timed_rows
 
     images: dict[str, list] = {"time": [], "check": [], "history": []}
     notes: list[str] = []
     if inputs.time:
         rows = merged_time_rows(inputs.time)
-        images["time"].append((plots.plot_time(rows, os.path.join(out, f"time.{fmt}")),
-                               "time per transform against N, with the N log2 N and N^2 model lines"))
-        images["time"].append((plots.plot_rate(rows, os.path.join(out, f"rate.{fmt}")),
-                               "GFLOP/s against N (5 N log2 N convention, 2.5 N log2 N for real transforms)"))
+        if relative_rows(timed_rows(rows)):
+            images["time"].append((plots.plot_relative(rows, os.path.join(out, f"relative-speed.{fmt}")),
+                                   RELATIVE_CAPTION))
+        images["time"].append((plots.plot_time(rows, os.path.join(out, f"time-per-point.{fmt}")), TIME_CAPTION))
     for path, doc in inputs.check:
         if any(r.get("check") == "accuracy" and (r.get("eps_units") or 0) > 0 for r in doc["rows"]):
             name = "accuracy" if len(inputs.check) == 1 else f"accuracy-{file_stem(path)}"
             images["check"].append((plots.plot_accuracy(doc["rows"], os.path.join(out, f"{name}.{fmt}")),
-                                    "accuracy against N, with the error bound"))
+                                    ACCURACY_CAPTION))
         else:
             notes.append(f"{path} holds no accuracy results above zero: no accuracy plot")
     for folder, docs in inputs.histories:
@@ -42,7 +81,7 @@ def draw_plots(inputs: ReportInputs, out: str, fmt: str, cases: list[Case] | Non
             if case.norm != "backward":
                 name += f"-{case.norm}"
             images["history"].append((plots.plot_history(docs, case, os.path.join(out, f"{name}.{fmt}")),
-                                      f"history of {case.label()} over {len(docs)} stored runs"))
+                                      history_caption(case, len(docs))))
     return images, notes
 
 

@@ -24,12 +24,14 @@ from fftgauge.harness.errors import UsageError
 #: Extensions a plot can be written as.
 FORMATS = ("png", "svg")
 
-#: Resolution of PNG files (dots per inch); a 7.5 x 5.2 inch panel is about 975 x 675 pixels.
+#: Resolution of PNG files (dots per inch); an 8.6 x 5.4 inch panel is about 1120 x 700 pixels.
 PNG_DPI = 130
 
+#: Text sizes (points) chosen so that a two-column figure shown 1,400 pixels wide still reads at
+#: about 14 pixels for the smallest text.
 STYLE = {
-    "font.size": 11, "axes.titlesize": 13, "axes.labelsize": 12, "xtick.labelsize": 10.5,
-    "ytick.labelsize": 10.5, "legend.fontsize": 10, "axes.spines.top": False, "axes.spines.right": False,
+    "font.size": 14, "axes.titlesize": 16, "axes.labelsize": 14.5, "xtick.labelsize": 13.5,
+    "ytick.labelsize": 13.5, "legend.fontsize": 13.5, "axes.spines.top": False, "axes.spines.right": False,
     "svg.fonttype": "none",
 }
 MODEL_COLOUR = "0.35"
@@ -51,6 +53,27 @@ def matplotlib_module():
     except ImportError:
         raise UsageError("plots need matplotlib: install matplotlib (pip install 'fftgauge[plots]')") from None
     return matplotlib, Figure
+
+
+def styled(draw):
+    """Return ``draw`` (a function building a Figure) run inside matplotlib's ``rc_context`` of
+    :data:`STYLE`, so that every text it creates (titles, labels, legends) takes the style's
+    sizes; matplotlib is imported when ``draw`` is called.
+
+    Raises
+    ------
+    UsageError
+        From the call, when matplotlib is not installed.
+    """
+    import functools
+
+    @functools.wraps(draw)
+    def wrapper(*args, **kwargs):
+        matplotlib, _ = matplotlib_module()
+        with matplotlib.rc_context(STYLE):
+            return draw(*args, **kwargs)
+
+    return wrapper
 
 
 def require_matplotlib() -> None:
@@ -137,12 +160,12 @@ def new_figure(n_panels: int, title: str | None):
     ncols = 1 if n_panels <= 1 else 2
     nrows = max(1, math.ceil(n_panels / ncols))
     with matplotlib.rc_context(STYLE):
-        fig = Figure(figsize=(7.5 * ncols, 5.2 * nrows), layout="constrained")
+        fig = Figure(figsize=(8.6 * ncols, 5.4 * nrows), layout="constrained")
         axes = list(np.atleast_1d(fig.subplots(nrows, ncols, squeeze=False)).ravel())
     for ax in axes[n_panels:]:
         ax.set_visible(False)
     if title:
-        fig.suptitle(title, fontsize=14)
+        fig.suptitle(title, fontsize=17)
     return fig, axes[:n_panels]
 
 
@@ -180,57 +203,54 @@ def seconds_tick(value: float, _pos: Any = None) -> str:
 
 
 def right_room(labels: Iterable[str]) -> float:
-    """Return the fraction of a panel's width to keep free for end-of-line labels."""
+    """Return the fraction of a panel's width to keep free for end-of-line labels (a little
+    room when there are none)."""
     longest = max((len(s) for s in labels), default=0)
-    return min(0.32, 0.06 + 0.017 * longest)
+    return min(0.36, 0.06 + 0.021 * longest) if longest else 0.02
 
 
-def spread(values: list[float], min_gap: float) -> list[float]:
-    """Return ``values`` moved apart (keeping their order) so that neighbours are ``min_gap`` apart.
+#: Two end labels closer than this fraction of the panel's height collide.
+LABEL_MIN_GAP = 0.06
 
-    Labels are pushed up from the lowest, then the whole set is shifted back down by half
-    the total displacement so that labels stay near their lines.
+#: End labels whose lines end within this many octaves of each other share a column.
+LABEL_SAME_COLUMN_OCTAVES = 2.0
+
+
+def labels_fit(ends: list[tuple], y_lo: float, y_hi: float, log_y: bool) -> bool:
+    """Return whether the (text, x, y, colour) end labels can sit at their lines' ends without
+    two of them colliding (closer than :data:`LABEL_MIN_GAP` of the height in one column)."""
+    to = (lambda v: math.log10(v) if v > 0 else math.log10(y_lo)) if log_y else (lambda v: v)
+    span = (to(y_hi) - to(y_lo)) or 1.0
+    points = sorted((math.log2(end[1]), (to(end[2]) - to(y_lo)) / span) for end in ends)
+    for i, (x_i, y_i) in enumerate(points):
+        for x_j, y_j in points[i + 1:]:
+            if x_j - x_i <= LABEL_SAME_COLUMN_OCTAVES and abs(y_j - y_i) < LABEL_MIN_GAP:
+                return False
+    return True
+
+
+def end_labels(ax, ends: list[tuple]) -> None:
+    """Write each (text, x, y, colour) label in bold just right of (x, y), its line's end.
+
+    Call only when :func:`labels_fit`; otherwise name the lines in the legend.
     """
-    order = sorted(range(len(values)), key=lambda i: values[i])
-    placed = [values[i] for i in order]
-    for j in range(1, len(placed)):
-        placed[j] = max(placed[j], placed[j - 1] + min_gap)
-    shift = (sum(placed) - sum(values[i] for i in order)) / (2 * len(placed)) if placed else 0.0
-    out = [0.0] * len(values)
-    for j, i in enumerate(order):
-        out[i] = placed[j] - shift
-    return out
+    for text, x, y, colour in (end[:4] for end in ends):
+        ax.annotate(text, (x, y), xytext=(7, 0), textcoords="offset points", va="center", ha="left",
+                    color=colour, fontsize=14, fontweight="bold", annotation_clip=False, gid=f"label:{text}")
 
 
-def end_labels(ax, ends: list[tuple], log_y: bool) -> None:
-    """Write each (text, x, y, colour[, model]) label just right of (x, y).
-
-    Labels ending at the same x are spread apart vertically so that they do not overlap;
-    backend labels are bold, model labels (``model`` true) grey italic.
-    """
-    if not ends:
-        return
+def name_lines(ax, ends: list[tuple], log_y: bool, n_lo: int, n_hi: int) -> bool:
+    """Name the backends' lines at their ends when the labels fit (:func:`labels_fit`) and set
+    the size axis with room for them; return whether they were placed. Where they would
+    collide, no label is written: the figure's legend (:func:`figure_legend`) names every
+    backend by its colour."""
     y_lo, y_hi = ax.get_ylim()
-    to = (lambda v: math.log10(v)) if log_y else (lambda v: v)
-    back = (lambda v: 10.0**v) if log_y else (lambda v: v)
-    span = to(y_hi) - to(y_lo)
-    by_x: dict[float, list[int]] = {}
-    for i, end in enumerate(ends):
-        by_x.setdefault(end[1], []).append(i)
-    margin = 0.03 * span
-    ys = [min(max(to(end[2]) if end[2] > 0 or not log_y else to(y_lo), to(y_lo) + margin), to(y_hi) - margin)
-          for end in ends]
-    for idx in by_x.values():
-        moved = spread([ys[i] for i in idx], 0.055 * span)
-        for i, y in zip(idx, moved):
-            ys[i] = y
-    for end, y in zip(ends, ys):
-        text, x, _, colour = end[:4]
-        model = len(end) > 4 and end[4]
-        ax.annotate(text, (x, back(y)), xytext=(7, 0), textcoords="offset points", va="center", ha="left",
-                    color=colour, fontsize=11.5 if model else 11, fontweight="normal" if model else "bold",
-                    fontstyle="italic" if model else "normal", annotation_clip=False,
-                    gid=f"label:{text}")
+    if labels_fit(ends, y_lo, y_hi, log_y):
+        pow2_axis(ax, n_lo, n_hi, right_room([end[0] for end in ends]))
+        end_labels(ax, ends)
+        return True
+    pow2_axis(ax, n_lo, n_hi, right_room([]))
+    return False
 
 
 def split_series(rows: list[dict[str, Any]], value_of) -> dict[str, dict[str, Any]]:
@@ -267,19 +287,31 @@ def draw_series(ax, series: dict[str, dict[str, Any]], colours: dict[str, Any], 
     return ends
 
 
-def style_legend(ax, series: dict[str, dict[str, Any]], loc: str, extra: Sequence[Any] = ()) -> None:
-    """Add a small legend of marker styles (powers of two, other sizes) plus ``extra`` handles.
+def style_handles(any_other_sizes: bool, band: str | None = None) -> list:
+    """Return legend handles that explain the marks: the line through the powers of two, the
+    hollow markers of other sizes (when there are any) and, with ``band`` (its meaning), the
+    shaded band."""
+    from matplotlib.lines import Line2D
+    from matplotlib.patches import Patch
 
-    Backends are labelled at their lines' ends, not here. No legend when there is nothing
-    to explain (no other sizes, no extra handles).
-    """
+    handles = [Line2D([], [], color="0.3", marker="o", markersize=4.5, linewidth=2.0,
+                      label="line: powers of two")]
+    if any_other_sizes:
+        handles.append(Line2D([], [], color="0.3", marker="D", markersize=5.5, markerfacecolor="none",
+                              linestyle="none", label="hollow: other sizes"))
+    if band:
+        handles.append(Patch(facecolor="0.3", alpha=0.25, label=f"band: {band}"))
+    return handles
+
+
+def figure_legend(fig, colours: Mapping[str, Any], handles: list) -> None:
+    """Put one legend under the panels: every backend by its colour, then ``handles`` (what the
+    marks, bands and grey lines mean). Colours are the same in every panel."""
     from matplotlib.lines import Line2D
 
-    handles = list(extra)
-    if any(s["others"] for s in series.values()):
-        handles = [Line2D([], [], color="0.3", marker="o", markersize=4.5, linewidth=2.0, label="powers of two"),
-                   Line2D([], [], color="0.3", marker="D", markersize=5.5, markerfacecolor="none",
-                          linestyle="none", label="other sizes")] + handles
-    if handles:
-        ax.legend(handles=handles, loc=loc, frameon=True, framealpha=0.9)
-
+    named = [Line2D([], [], color=colour, marker="o", markersize=4.5, linewidth=2.4, label=name)
+             for name, colour in colours.items()]
+    entries = named + handles
+    columns = 4 if fig.get_figwidth() > 12 else 2
+    fig.legend(handles=entries, loc="outside lower center", ncol=min(columns, len(entries)), frameon=False,
+               handlelength=2.6, columnspacing=2.0)

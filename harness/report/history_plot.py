@@ -9,8 +9,8 @@ import numpy as np
 
 from fftgauge.harness.cases import Case
 from fftgauge.harness.errors import UsageError
-from fftgauge.harness.report.figures import (MODEL_COLOUR, STYLE, backend_colours, check_plot_path,
-                                             matplotlib_module, save_figure, seconds_tick, style_axes)
+from fftgauge.harness.report.figures import (MODEL_COLOUR, STYLE, backend_colours, check_plot_path, matplotlib_module,
+                                             save_figure, seconds_tick, style_axes, styled)
 
 
 def run_label(doc: Mapping[str, Any]) -> str:
@@ -75,9 +75,10 @@ def _history_panel(ax, pts: list[tuple], labels: list[str], colour: Any, ratio: 
     ax.set_ylim(lo - pad, hi + pad)
     ax.set_xlim(-0.5, len(labels) - 0.5)
     ax.set_title("dashed: no change (1.0)" if ratio else f"dashed: median over runs, {format_seconds(centre, 'µs')}",
-                 loc="right", fontsize=10, color=MODEL_COLOUR)
+                 loc="right", fontsize=13, color=MODEL_COLOUR)
 
 
+@styled
 def draw_history(docs: Iterable[Mapping[str, Any]], case: Case, backend: str | None = None,
                  title: str | None = None):
     """Return a Figure of one case's median time (with its 95% interval) over stored runs.
@@ -118,19 +119,19 @@ def draw_history(docs: Iterable[Mapping[str, Any]], case: Case, backend: str | N
     with matplotlib.rc_context(STYLE):
         fig = Figure(figsize=(max(7.5, 1.5 + 0.6 * len(labels)), 1.2 + 2.7 * len(panels)), layout="constrained")
         axes = list(np.atleast_1d(fig.subplots(len(panels), 1, squeeze=False, sharex=True)).ravel())
-    fig.suptitle(title or f"History of {case.label()} over {len(labels)} stored runs (error bars: 95% interval)",
-                 fontsize=13.5)
+    fig.suptitle(title or f"History of {case.label()} over {len(labels)} stored runs\n(error bars: 95% interval "
+                          f"of each run's median)", fontsize=16)
     for ax, (field, name, data) in zip(axes, panels):
         if field == "seconds":
             _history_panel(ax, data, labels, colours[name], ratio=False, gid=f"backend:{name}")
             ax.yaxis.set_major_formatter(FuncFormatter(seconds_tick))
             ax.set_ylabel("median time")
-            ax.set_title(name, loc="left", color=colours[name], fontweight="bold", fontsize=12)
+            ax.set_title(name, loc="left", color=colours[name], fontweight="bold", fontsize=15)
         else:
             for bname, pts in sorted(data.items()):
                 _history_panel(ax, pts, labels, colours[bname], ratio=True, gid=f"ratio:{bname}")
             ax.set_ylabel("candidate / baseline")
-            ax.set_title("gate: candidate / baseline time, " + ", ".join(sorted(data)), loc="left", fontsize=12)
+            ax.set_title("gate: candidate / baseline time, " + ", ".join(sorted(data)), loc="left", fontsize=15)
         style_axes(ax)
     axes[-1].set_xticks(range(len(labels)), labels, rotation=35, ha="right")
     axes[-1].set_xlabel("stored run (commit, or time of the run in UTC)")

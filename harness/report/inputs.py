@@ -85,9 +85,9 @@ def file_stem(path: str) -> str:
     return os.path.splitext(os.path.basename(os.path.normpath(path)))[0] or "results"
 
 
-def merged_time_rows(time_docs: list[tuple[str, dict[str, Any]]]) -> list[dict[str, Any]]:
-    """Return the rows of every time file together; when two files time the same backend and
-    case, each row's backend becomes ``backend [file stem]`` so that the runs stay apart."""
+def run_tags(time_docs: list[tuple[str, dict[str, Any]]]) -> dict[str, str]:
+    """Return a short tag per time file (``A``, ``B``, ... in the order given; ``A2`` past ``Z``)
+    when two files time the same backend and case, else {} (the backends' names suffice)."""
     keys: dict[tuple, str] = {}
     clash = False
     for path, doc in time_docs:
@@ -95,10 +95,21 @@ def merged_time_rows(time_docs: list[tuple[str, dict[str, Any]]]) -> list[dict[s
             key = (row["backend"], row["kind"], row["dtype"], row["n"], row.get("threads"), row.get("norm"))
             if keys.setdefault(key, path) != path:
                 clash = True
+    if not clash:
+        return {}
+    letters = [chr(ord("A") + i % 26) + (str(i // 26 + 1) if i >= 26 else "") for i in range(len(time_docs))]
+    return {path: tag for (path, _), tag in zip(time_docs, letters)}
+
+
+def merged_time_rows(time_docs: list[tuple[str, dict[str, Any]]]) -> list[dict[str, Any]]:
+    """Return the rows of every time file together; when two files time the same backend and
+    case, each row's backend becomes ``backend [tag]`` (:func:`run_tags`) so that the runs
+    stay apart with short labels."""
+    tags = run_tags(time_docs)
     rows = []
     for path, doc in time_docs:
         for row in doc["rows"]:
-            rows.append({**row, "backend": f"{row['backend']} [{file_stem(path)}]"} if clash else dict(row))
+            rows.append({**row, "backend": f"{row['backend']} [{tags[path]}]"} if tags else dict(row))
     return rows
 
 

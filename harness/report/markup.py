@@ -68,6 +68,12 @@ def _relative_link(path: str, page_path: str) -> str:
     return urllib.parse.quote(rel)
 
 
+def alt_text(caption: str) -> str:
+    """Return the first sentence of an image's caption (up to its first colon or full stop), as
+    the image's short alternative text."""
+    return re.split(r"[:.] ", caption, maxsplit=1)[0]
+
+
 def render_markdown(blocks: list[tuple], md_path: str) -> str:
     """Return the blocks as Markdown; image links are relative to ``md_path``'s folder."""
     out = []
@@ -85,7 +91,7 @@ def render_markdown(blocks: list[tuple], md_path: str) -> str:
             _, header, rows, bold = block
             out.append(markdown_table(header, rows, bold))
         elif tag == "img":
-            out.append(f"![{escape_markdown(block[2])}]({_relative_link(block[1], md_path)})\n\n"
+            out.append(f"![{escape_markdown(alt_text(block[2]))}]({_relative_link(block[1], md_path)})\n\n"
                        f"*{escape_markdown(block[2])}*")
     return "\n\n".join(out) + "\n"
 
@@ -101,7 +107,7 @@ PAGE_STYLE = (
     ".verdict.INCOMPLETE{background:#fff2cc;color:#6b4e00}"
     ".table-wrap{overflow-x:auto}table{border-collapse:collapse;margin:.8em 0}"
     "td,th{border:1px solid #ccc;padding:.25em .6em;text-align:right;vertical-align:top}"
-    "td.text,th.text{text-align:left}th{background:#f3f3f3}"
+    "td.text,th.text{text-align:left}td.short{white-space:nowrap}th{background:#f3f3f3}"
     "pre{background:#f7f7f7;padding:1em;white-space:pre-wrap;word-break:break-word}"
     "figure{margin:1.2em 0}img{max-width:100%;height:auto}figcaption{color:#444;max-width:75em;margin-top:.3em}"
 )
@@ -121,7 +127,8 @@ def _html_table(header: list[str], rows: list[list[str]], bold: set[tuple[int, i
         cells = []
         for j, c in enumerate(row):
             inner = f"<strong>{esc(str(c))}</strong>" if (i, j) in bold else esc(str(c))
-            cells.append(f'<td class="text">{inner}</td>' if j in text_cols else f"<td>{inner}</td>")
+            short = " short" if len(str(c)) <= 24 else ""
+            cells.append(f'<td class="text{short}">{inner}</td>' if j in text_cols else f"<td>{inner}</td>")
         lines.append("<tr>" + "".join(cells) + "</tr>")
     return (f'<div class="table-wrap"><table>\n<thead><tr>{head}</tr></thead>\n<tbody>\n' + "\n".join(lines)
             + "\n</tbody>\n</table></div>")
@@ -147,7 +154,7 @@ def render_html(blocks: list[tuple], html_path: str) -> str:
             body.append(_html_table(*block[1:]))
         elif tag == "img":
             src = esc(_relative_link(block[1], html_path))
-            body.append(f'<figure><img src="{src}" alt="{esc(block[2])}"/><figcaption>{esc(block[2])}'
+            body.append(f'<figure><img src="{src}" alt="{esc(alt_text(block[2]))}"/><figcaption>{esc(block[2])}'
                         f"</figcaption></figure>")
     return ("<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\"/>\n<title>fftgauge report</title>\n"
             f"<style>{PAGE_STYLE}</style>\n</head>\n<body>\n" + "\n".join(body) + "\n</body>\n</html>\n")

@@ -1,0 +1,132 @@
+"""What a battery run found, in words: one finding per distinct cause (backend, check and
+diagnosis, or the way a case could not run), with every size it covers and the worst case's
+own message, and the verdict of a run.
+
+Nothing is hidden behind "and N more": two causes are two findings, and a finding names
+all its sizes (compressed as ``A..B`` runs). The diagnosis codes' meanings are the
+contract's vocabulary.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any, Iterable, Mapping
+
+import numpy as np
+
+from fftgauge.harness.cases import Case
+
+#: What each diagnosis code means (the contract's vocabulary, "diagnosis" table).
+DIAGNOSIS_MEANINGS = {
+    "sign": "the transform uses the opposite exponent sign (or conjugates)",
+    "scale": "right shape of answer, wrong normalisation (by N, 1/N, 1/sqrt(N), ...)",
+    "bit-reversed": "outputs are right but in bit-reversed order",
+    "shifted": "outputs are right but circularly shifted (for example a centred spectrum)",
+    "precision": "errors at the level of a lower precision than the one asked for",
+    "truncated-size": "the size was changed internally (zero-padding or truncation)",
+    "input-modified": "the caller's input array was changed",
+    "nondeterministic": "the same input gives different outputs",
+    "dtype": "output dtype of lower precision than the input's",
+    "shape": "output length or shape is wrong",
+    "nonfinite": "NaN/Inf inputs do not propagate as the DFT requires, or finite inputs give NaN/Inf",
+    "real-only": "the imaginary part of the input is ignored",
+    "thread-unsafe": "results differ when the backend is called from several threads at once",
+    "unknown": "wrong, and none of the known bugs explains it",
+}
+
+
+def machine_epsilon(dtype: str) -> float:
+    """Machine epsilon of a real precision (IEEE Std 754-2019: 2^-23 binary32, 2^-52 binary64)."""
+    return float(np.finfo(Case("fft", dtype, 1).real_dtype).eps)
+
+
+def bound_eps_units(row: Mapping[str, Any]) -> float | None:
+    """Return the row's limit in eps units: ``limit * eps_units / value`` (the row's own scale),
+    else ``limit / eps`` of its precision; None without a positive limit."""
+    limit = row.get("limit")
+    if limit is None or limit <= 0:
+        return None
+    value, eps_units = row.get("value"), row.get("eps_units")
+    if value and eps_units and value > 0 and eps_units > 0:
+        return limit * eps_units / value
+    return limit / machine_epsilon(row["dtype"])
+
+
+@dataclass(frozen=True)
+class Finding:
+    """One cause of failing rows: ``backend``, ``check``, ``cause`` (a diagnosis code, or the
+    status ``error`` or ``fail`` when none was given), the (kind, dtype) pairs and sizes it
+    covers, ``cases`` (rows), and the worst row (largest error in eps units, else the first)."""
+
+    backend: str
+    check: str
+    cause: str
+    panels: tuple[str, ...]
+    sizes: tuple[int, ...]
+    cases: int
+    worst: Mapping[str, Any]
+
+    @property
+    def could_not_run(self) -> bool:
+        """Whether the backend raised, crashed, hung or returned something unusable (an ``error``)."""
+        return self.worst.get("status") == "error"
+
+    def sentence(self) -> str:
+        """Return the finding as one sentence: who, which check, what it means, where, the worst case."""
+        from fftgauge.harness.report.check_tables import compress_sizes
+
+        meaning = DIAGNOSIS_MEANINGS.get(self.cause)
+        if self.could_not_run:
+            what = "could not run (it raised, crashed, hung or returned something unusable)"
+        elif meaning:
+            what = f"{self.cause}: {meaning}"
+        else:
+            what = "wrong answer"
+        worst = self.worst
+        detail = str(worst.get("message") or "").strip() or "no message"
+        bound = bound_eps_units(worst)
+        if worst.get("eps_units") is not None and bound is not None and not self.could_not_run:
+            detail += f" against a bound of {bound:.3g} eps"
+        plural = "s" if self.cases != 1 else ""
+        return (f"{self.backend} ({', '.join(self.panels)}), {self.check} check: {what}; at "
+                f"n = {compress_sizes(self.sizes, limit=10**6)} ({self.cases} case{plural}); worst, "
+                f"{worst.get('kind')} {worst.get('dtype')} n = {worst.get('n')}: {detail}.")
+
+
+def findings(rows: Iterable[Mapping[str, Any]]) -> list[Finding]:
+    """Return one :class:`Finding` per distinct (backend, check, cause) among the ``fail`` and
+    ``error`` rows, wrong answers first, then could-not-run, each group by backend."""
+    groups: dict[tuple[str, str, str, str], list[Mapping[str, Any]]] = {}
+    for row in rows:
+        if row.get("status") in ("fail", "error"):
+            cause = row.get("diagnosis") or row["status"]
+            groups.setdefault((row["status"], row["backend"], str(row.get("check")), cause), []).append(row)
+    out = []
+    for (status, backend, check, cause), members in sorted(groups.items(), key=lambda kv: (kv[0][0] == "error",
+                                                                                             kv[0][1:])):
+        panels = tuple(dict.fromkeys(f"{r['kind']} {r['dtype']}" for r in members))
+        worst = max(members, key=lambda r: r.get("eps_units") or 0.0)
+        out.append(Finding(backend=backend, check=check, cause=cause, panels=panels,
+                           sizes=tuple(sorted({int(r["n"]) for r in members})), cases=len(members), worst=worst))
+    return out
+
+
+def case_counts(rows: Iterable[Mapping[str, Any]]) -> dict[str, int]:
+    """Return how many cases (backend x kind x dtype x norm x n) passed, gave a wrong answer
+    (``wrong``: some check failed), could not run (``error``: some check errored) or were
+    skipped (every check skipped)."""
+    cases: dict[tuple, set[str]] = {}
+    for r in rows:
+        key = (r["backend"], r["kind"], r["dtype"], r.get("norm") or "backward", r["n"])
+        cases.setdefault(key, set()).add(r["status"])
+    counts = {"passed": 0, "wrong": 0, "error": 0, "skipped": 0}
+    for statuses in cases.values():
+        if "error" in statuses:
+            counts["error"] += 1
+        elif "fail" in statuses:
+            counts["wrong"] += 1
+        elif statuses == {"skip"}:
+            counts["skipped"] += 1
+        else:
+            counts["passed"] += 1
+    return counts
