@@ -9,7 +9,7 @@ shared host). The cap is a resource limit the child sets on itself (:func:`limit
 - On Linux it is ``RLIMIT_DATA``, which (since Linux 4.7) counts the private writable memory
   a process maps: heap, anonymous ``mmap``, thread stacks. Unlike ``RLIMIT_AS`` it does not
   count address space only *reserved* (``PROT_NONE``): glibc reserves 64 MiB per thread
-  arena, OpenBLAS, OpenMP runtimes and GPU drivers reserve far more, and under a 512 MiB
+  arena, OpenBLAS and OpenMP runtimes reserve more, and under a 512 MiB
   ``RLIMIT_AS`` even ``import scipy.fft`` fails ("failed to map segment from shared object")
   where a 512 MiB ``RLIMIT_DATA`` lets it load and still stops a 2 GiB ``numpy.ones``.
 - Elsewhere (other POSIX systems) it is ``RLIMIT_AS``; where neither exists, no cap.
