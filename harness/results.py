@@ -47,6 +47,27 @@ def write_text_atomic(path: str, text: str) -> None:
         raise
 
 
+#: The ``--json`` (or other output path) value that means standard output.
+STDOUT_PATH = "-"
+
+
+def is_stdout(path: str | None) -> bool:
+    """Return True when ``path`` asks for standard output (:data:`STDOUT_PATH`)."""
+    return path == STDOUT_PATH
+
+
+def write_output(path: str, text: str) -> None:
+    """Write ``text`` to standard output when ``path`` is ``-``, else atomically to the file
+    (:func:`write_text_atomic`, which raises UsageError for an unwritable location)."""
+    if is_stdout(path):
+        import sys
+
+        sys.stdout.write(text if text.endswith("\n") else text + "\n")
+        sys.stdout.flush()
+    else:
+        write_text_atomic(path, text)
+
+
 def _cpu_model() -> str:
     try:
         with open("/proc/cpuinfo", encoding="utf-8") as fh:

@@ -11,12 +11,13 @@ from __future__ import annotations
 
 import argparse
 import math
+import sys
 from typing import Any
 
 from fftgauge.harness import dft
 from fftgauge.harness.cli import add_common_options
 from fftgauge.harness.timing.opcount import DEFAULT_COUNTING_SPECS, DIRECT_COUNT_MAX_N, count_table
-from fftgauge.harness.results import dumps, envelope, write_text_atomic
+from fftgauge.harness.results import dumps, envelope, is_stdout, write_output, write_text_atomic
 from fftgauge.harness.sizes import parse_sizes
 
 DEFAULT_SIZES = "2^1..2^16"
@@ -74,11 +75,17 @@ def summary_line(rows: list[dict[str, Any]]) -> str:
             f"times the complex multiplications of radix-2")
 
 
-def _cell(value: Any) -> str:
+#: Digits after the point of the direct/radix-2 ratio column: one format down the column.
+RATIO_DECIMALS = 1
+
+
+def _cell(value: Any, key: str) -> str:
+    """Return one table cell: ``-`` for None, the ratio column with :data:`RATIO_DECIMALS`
+    decimals whatever its size, counts as integers."""
     if value is None:
         return "-"
-    if isinstance(value, float):
-        return f"{value:.4g}"
+    if key == "direct_to_radix2_mults":
+        return f"{value:.{RATIO_DECIMALS}f}"
     return str(value)
 
 
@@ -87,12 +94,15 @@ def table_text(rows: list[dict[str, Any]]) -> str:
     import pandas as pd
 
     columns = pd.MultiIndex.from_tuples([(group, heading) for _, group, heading in _COLUMNS])
-    data = [[_cell(r[key]) for key, _, _ in _COLUMNS] for r in rows]
+    data = [[_cell(r[key], key) for key, _, _ in _COLUMNS] for r in rows]
     return pd.DataFrame(data, columns=columns).to_string(index=False)
 
 
 def run(args: argparse.Namespace) -> int:
     """Print the count table and the summary sentence (write JSON/CSV when asked); return 0.
+
+    ``--json -`` writes the JSON to standard output and the table and sentence to standard
+    error, so that standard output holds the JSON alone.
 
     Raises
     ------
@@ -109,16 +119,17 @@ def run(args: argparse.Namespace) -> int:
             "direct_count_max_n": DIRECT_COUNT_MAX_N,
         })
         doc["rows"] = rows
-        write_text_atomic(args.json, dumps(doc))
+        write_output(args.json, dumps(doc))
     if args.csv:
         import pandas as pd
 
         write_text_atomic(args.csv, pd.DataFrame(rows, dtype=object).to_csv(index=False))
+    out = sys.stderr if is_stdout(args.json) else sys.stdout
     if not args.quiet:
         trivial = "counting" if count_trivial else "skipping"
         print(f"complex operations of one complex fft per size (models count every twiddle; "
               f"counted columns run {DEFAULT_COUNTING_SPECS['radix2']} and {DEFAULT_COUNTING_SPECS['direct']}, "
-              f"{trivial} W^0 multiplications; - : not a power of two, or above the counting limit):")
-        print(table_text(rows))
-    print(summary_line(rows))
+              f"{trivial} W^0 multiplications; - : not a power of two, or above the counting limit):", file=out)
+        print(table_text(rows), file=out)
+    print(summary_line(rows), file=out)
     return 0

@@ -3,11 +3,13 @@
 from __future__ import annotations
 
 import argparse
+import sys
 import time
 
 from fftgauge.harness.cases import DTYPES, KINDS, NORMS
 from fftgauge.harness.cli import add_common_options, default_results_path, parse_choice_list
 from fftgauge.harness.errors import UsageError
+from fftgauge.harness.results import STDOUT_PATH, dumps, is_stdout, write_output
 from fftgauge.harness.timing.runner import (DEFAULT_BUDGET_SECONDS, DEFAULT_CASE_TIMEOUT_SECONDS, DEFAULT_ROUNDS, DEFAULT_SAMPLES,
                             TimingRequest, run_timing)
 from fftgauge.harness.sizes import parse_sizes
@@ -114,23 +116,31 @@ def write_csv(doc: dict, path: str) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    """Time the cases; print the tables; return 0, or 1 when a backend errored on a case."""
+    """Time the cases; print the tables; return 0, or 1 when a backend errored on a case.
+
+    ``--json -`` writes the JSON to standard output once the run ends, and the tables to
+    standard error, so that standard output holds the JSON alone.
+    """
     req = request_from_args(args)
     if args.plot:
         from fftgauge.harness.report.plots import check_plot_path, require_matplotlib
         check_plot_path(args.plot)
         require_matplotlib()
-    path = args.json or default_results_path("time")
+    to_stdout = is_stdout(args.json)
+    path = None if to_stdout else args.json or default_results_path("time")
+    out = sys.stderr if to_stdout else sys.stdout
     started = time.perf_counter()
     doc = run_timing(req, json_path=path, quiet=args.quiet)
     elapsed = time.perf_counter() - started
-    print(summary_text(doc))
+    print(summary_text(doc), file=out)
+    if to_stdout:
+        write_output(STDOUT_PATH, dumps(doc))
     if args.csv:
         write_csv(doc, args.csv)
-    written = [path] + ([args.csv] if args.csv else [])
+    written = [path or "standard output"] + ([args.csv] if args.csv else [])
     if args.plot:
         from fftgauge.harness.report.plots import plot_time
         written.append(plot_time(doc["rows"], args.plot))
     print(f"\nthreads {req.threads}; seed {req.seed}; {len(doc['rows'])} rows in {elapsed:.1f} s; "
-          f"written to {', '.join(written)}")
+          f"written to {', '.join(written)}", file=out)
     return 1 if any(r.get("status") == "error" for r in doc["rows"]) else 0
