@@ -592,3 +592,13 @@ def test_python_api_from_a_plain_script_without_a_main_guard(tmp_path):
     assert done.stdout.count("TOP-LEVEL RAN") == 1, done.stdout
     assert "STATUSES ['pass', 'skip']" in done.stdout or "STATUSES ['pass']" in done.stdout, done.stdout
     assert "Traceback" not in done.stderr
+
+
+def test_good_backends_load_and_run_under_a_small_cap():
+    """The cap counts memory mapped writable, not address space only reserved: scipy.fft
+    (OpenBLAS underneath, which reserves address space in bulk) loads and runs under a
+    512 MiB cap. Reference: numpy.fft (check-values.md), same input."""
+    x = signal_x(64)
+    with Worker("scipy", memory_limit_bytes=CAP_512_MIB) as worker:
+        y = worker.call(PLAN, Case("fft", "float64", 64), x, timeout_seconds=TIMEOUT_SECONDS)
+    np.testing.assert_allclose(y, np.fft.fft(x), rtol=0, atol=1e-12 * np.abs(x).sum())
