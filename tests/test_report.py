@@ -420,11 +420,33 @@ def test_page_says_what_each_finding_means(tmp_path):
     """One sentence per cause with the diagnosis code's meaning (the contract's vocabulary), every size it covers,
     and the worst case's message with its bound; no "and N more"."""
     md, page = report_pages(tmp_path, CHECK_FILE)
-    sentence = ("demo-recurrence (fft float64, fft float32), accuracy check: precision: errors at the level of a "
-                "lower precision than the one asked for; at n = 2048, 4096, 8192, 16384 (8 cases); worst, fft "
-                "float64 n = 16384: relative rms error 646 eps against a bound of 84 eps.")
+    sentence = ("demo-recurrence (fft float64, fft float32): precision (errors at the level of a lower precision "
+                "than the one asked for), seen by the accuracy check at n = 2048, 4096, 8192, 16384 (8 cases). "
+                "accuracy, fft float64 n = 16384: relative rms error 646 eps, against a bound of 84 eps.")
     assert sentence in md and html.escape(sentence) in page
     assert "more cases" not in md and "its bound (eps)" in md
+
+
+def test_findings_group_by_cause_across_checks():
+    """One finding per backend and cause: a diagnosis seen by several checks is one sentence naming the checks;
+    errors with different messages are different causes, the same message at other sizes is one."""
+    from fftgauge.harness.report.findings import findings
+
+    def row(check, n, status="fail", diagnosis="sign", message="m", eps=None):
+        return {"backend": "b", "kind": "fft", "dtype": "float64", "n": n, "check": check, "status": status,
+                "diagnosis": diagnosis if status == "fail" else None, "message": message, "eps_units": eps}
+
+    rows = [row("accuracy", 8, eps=5.0), row("impulse", 8), row("accuracy", 16, eps=9.0), row("pairs", 16),
+            row("accuracy", 8, diagnosis="scale", eps=2.0),
+            row("accuracy", 7, "error", message="raised ValueError: n = 7"),
+            row("accuracy", 9, "error", message="raised ValueError: n = 9"),
+            row("accuracy", 11, "error", message="timed out after 120 s"), row("accuracy", 1, "pass")]
+    found = findings(rows)
+    assert [(f.cause, f.checks, f.sizes) for f in found] == [
+        ("scale", ("accuracy",), (8,)), ("sign", ("accuracy", "impulse", "pairs"), (8, 16)),
+        ("error", ("accuracy",), (7, 9)), ("error", ("accuracy",), (11,))]
+    assert found[1].worst["n"] == 16 and "3 checks (accuracy, impulse, pairs)" in found[1].sentence()
+    assert "opposite exponent sign" in found[1].sentence() and "could not run" in found[3].sentence()
 
 
 def test_page_shows_planning_time_memory_and_rate(tmp_path, time_doc):

@@ -35,7 +35,7 @@ def draw_accuracy(check_rows: Iterable[Any], title: str | None = None):
     if not rows:
         raise UsageError("no accuracy rows with an error above zero to plot (run fftgauge check with the accuracy "
                          "check)")
-    from matplotlib.ticker import FuncFormatter
+    from matplotlib.ticker import FuncFormatter, LogFormatterSciNotation
 
     keys = panel_keys(rows)
     colours = backend_colours(r["backend"] for r in rows)
@@ -63,7 +63,8 @@ def draw_accuracy(check_rows: Iterable[Any], title: str | None = None):
             ax.plot([r["n"] for r in fails], [r["eps_units"] for r in fails], linestyle="none",
                              marker="x", markersize=9, markeredgewidth=2.2, color=FAIL_COLOUR, gid="fail",
                              label="× fails the check")
-        ax.yaxis.set_major_formatter(FuncFormatter(lambda v, _: f"{v:g}"))
+        wide = max(ys) / min(ys) > 1e5  # plain numbers up to 5 decades, powers of ten beyond
+        ax.yaxis.set_major_formatter(LogFormatterSciNotation() if wide else FuncFormatter(lambda v, _: f"{v:g}"))
         name_lines(ax, ends, True, min(r["n"] for r in panel), max(r["n"] for r in panel))
         has_fails = has_fails or bool(fails)
         style_axes(ax)

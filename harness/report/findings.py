@@ -9,6 +9,7 @@ contract's vocabulary.
 
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass
 from typing import Any, Iterable, Mapping
 
@@ -54,13 +55,15 @@ def bound_eps_units(row: Mapping[str, Any]) -> float | None:
 
 @dataclass(frozen=True)
 class Finding:
-    """One cause of failing rows: ``backend``, ``check``, ``cause`` (a diagnosis code, or the
-    status ``error`` or ``fail`` when none was given), the (kind, dtype) pairs and sizes it
-    covers, ``cases`` (rows), and the worst row (largest error in eps units, else the first)."""
+    """One cause of failing rows of one backend: ``cause`` (a diagnosis code; ``fail`` when a
+    failing row has none; ``error`` for a case that could not run), the ``checks`` that saw
+    it, the (kind, dtype) ``panels`` and ``sizes`` it covers, ``cases`` (distinct kind x
+    dtype x norm x n), and the row quoted: the accuracy row with the largest error where the
+    accuracy check saw it, else the row with the largest error in eps units, else the first."""
 
     backend: str
-    check: str
     cause: str
+    checks: tuple[str, ...]
     panels: tuple[str, ...]
     sizes: tuple[int, ...]
     cases: int
@@ -69,45 +72,62 @@ class Finding:
     @property
     def could_not_run(self) -> bool:
         """Whether the backend raised, crashed, hung or returned something unusable (an ``error``)."""
-        return self.worst.get("status") == "error"
+        return self.cause == "error"
 
     def sentence(self) -> str:
-        """Return the finding as one sentence: who, which check, what it means, where, the worst case."""
+        """Return the finding as one sentence: who, what it means, which checks saw it, where,
+        and the quoted case's own message (with its bound, for an accuracy row)."""
         from fftgauge.harness.report.check_tables import compress_sizes
 
+        worst = self.worst
+        message = str(worst.get("message") or "").strip()
         meaning = DIAGNOSIS_MEANINGS.get(self.cause)
         if self.could_not_run:
             what = "could not run (it raised, crashed, hung or returned something unusable)"
         elif meaning:
-            what = f"{self.cause}: {meaning}"
+            what = self.cause + ("" if meaning in message else f" ({meaning})")
         else:
             what = "wrong answer"
-        worst = self.worst
-        detail = str(worst.get("message") or "").strip() or "no message"
-        bound = bound_eps_units(worst)
-        if worst.get("eps_units") is not None and bound is not None and not self.could_not_run:
-            detail += f" against a bound of {bound:.3g} eps"
+        if worst.get("check") == "accuracy" and not self.could_not_run:
+            bound = bound_eps_units(worst)
+            if bound is not None:
+                message += f", against a bound of {bound:.3g} eps"
+        checks = (f"the {self.checks[0]} check" if len(self.checks) == 1 else
+                  f"{len(self.checks)} checks ({', '.join(self.checks)})")
         plural = "s" if self.cases != 1 else ""
-        return (f"{self.backend} ({', '.join(self.panels)}), {self.check} check: {what}; at "
-                f"n = {compress_sizes(self.sizes, limit=10**6)} ({self.cases} case{plural}); worst, "
-                f"{worst.get('kind')} {worst.get('dtype')} n = {worst.get('n')}: {detail}.")
+        return (f"{self.backend} ({', '.join(self.panels)}): {what}, seen by {checks} at "
+                f"n = {compress_sizes(self.sizes, limit=10**6)} ({self.cases} case{plural}). "
+                f"{worst.get('check')}, {worst.get('kind')} {worst.get('dtype')} n = {worst.get('n')}: "
+                f"{message or 'no message'}.")
+
+
+def _error_kind(message: Any) -> str:
+    """Return an error message with its numbers blanked, so that one cause at many sizes is one key."""
+    return re.sub(r"\d+(\.\d+)?(e[-+]?\d+)?", "#", str(message or ""))[:200]
 
 
 def findings(rows: Iterable[Mapping[str, Any]]) -> list[Finding]:
-    """Return one :class:`Finding` per distinct (backend, check, cause) among the ``fail`` and
-    ``error`` rows, wrong answers first, then could-not-run, each group by backend."""
-    groups: dict[tuple[str, str, str, str], list[Mapping[str, Any]]] = {}
+    """Return one :class:`Finding` per distinct cause of each backend among the ``fail`` and
+    ``error`` rows: wrong answers by diagnosis code, could-not-run by message (numbers aside);
+    wrong answers first, then could-not-run, each by backend."""
+    groups: dict[tuple[bool, str, str, str], list[Mapping[str, Any]]] = {}
     for row in rows:
-        if row.get("status") in ("fail", "error"):
-            cause = row.get("diagnosis") or row["status"]
-            groups.setdefault((row["status"], row["backend"], str(row.get("check")), cause), []).append(row)
+        if row.get("status") == "fail":
+            key = (False, row["backend"], row.get("diagnosis") or "fail", "")
+        elif row.get("status") == "error":
+            key = (True, row["backend"], "error", _error_kind(row.get("message")))
+        else:
+            continue
+        groups.setdefault(key, []).append(row)
     out = []
-    for (status, backend, check, cause), members in sorted(groups.items(), key=lambda kv: (kv[0][0] == "error",
-                                                                                             kv[0][1:])):
-        panels = tuple(dict.fromkeys(f"{r['kind']} {r['dtype']}" for r in members))
-        worst = max(members, key=lambda r: r.get("eps_units") or 0.0)
-        out.append(Finding(backend=backend, check=check, cause=cause, panels=panels,
-                           sizes=tuple(sorted({int(r["n"]) for r in members})), cases=len(members), worst=worst))
+    for (_, backend, cause, _), members in sorted(groups.items(), key=lambda kv: kv[0]):
+        accuracy = [r for r in members if r.get("check") == "accuracy"]
+        worst = max(accuracy or members, key=lambda r: r.get("eps_units") or 0.0)
+        out.append(Finding(
+            backend=backend, cause=cause, checks=tuple(dict.fromkeys(str(r.get("check")) for r in members)),
+            panels=tuple(dict.fromkeys(f"{r['kind']} {r['dtype']}" for r in members)),
+            sizes=tuple(sorted({int(r["n"]) for r in members})),
+            cases=len({(r["kind"], r["dtype"], r.get("norm") or "backward", r["n"]) for r in members}), worst=worst))
     return out
 
 

@@ -215,7 +215,8 @@ def timing_summary(time_rows: Iterable[Any], micro: str = "µs") -> list[list[st
     the median and largest planning time, and at the largest N its median time, peak memory
     and rate, with the best rate over all sizes (GFLOP/s by :func:`rate_gflops`).
 
-    Rows that are not ``ok`` or hold no time are left out.
+    Lines are in the order fft, ifft, rfft, irfft, then precision, then backend; rows that
+    are not ``ok`` or hold no time are left out.
     """
     rows = [dataclasses.asdict(r) if dataclasses.is_dataclass(r) else dict(r) for r in time_rows]
     rows = [r for r in rows if r.get("status", "ok") == "ok" and r.get("seconds")]
@@ -228,7 +229,9 @@ def timing_summary(time_rows: Iterable[Any], micro: str = "µs") -> list[list[st
     for r in rows:
         groups.setdefault((r["backend"], r["kind"], r["dtype"]), []).append(r)
     lines = []
-    for (backend, kind, dtype), mine in groups.items():
+    kinds = {"fft": 0, "ifft": 1, "rfft": 2, "irfft": 3}
+    for (backend, kind, dtype), mine in sorted(groups.items(), key=lambda kv: (kinds.get(kv[0][1], 9), kv[0][1],
+                                                                              kv[0][2], kv[0][0])):
         mine.sort(key=lambda r: r["n"])
         shared = [r for r in mine if best[(kind, dtype, r["n"])][1] >= 2]
         wins = sum(1 for r in shared if r["seconds"] <= best[(kind, dtype, r["n"])][0])
