@@ -45,10 +45,46 @@ _map_source_folders()
 
 from typing import Sequence  # noqa: E402
 
-from fftgauge.backends.registry import list_backends, load_backend  # noqa: E402
-from fftgauge.harness.cases import Case  # noqa: E402
+#: Names this package exports from its sub-modules, imported on first use (PEP 562), so
+#: ``import fftgauge`` (and ``fftgauge --help``) stays quick: name -> module holding it.
+#: The adapter API (``Backend``, ``Capabilities``, ``Plan``, ...) is what a user's own
+#: adapter needs (docs/writing-an-adapter.md).
+LAZY_EXPORTS = {
+    "Case": "fftgauge.harness.cases",
+    "list_backends": "fftgauge.backends.registry",
+    "load_backend": "fftgauge.backends.registry",
+    "Backend": "fftgauge.backends.base",
+    "Plan": "fftgauge.backends.base",
+    "FunctionPlan": "fftgauge.backends.base",
+    "OptionSpec": "fftgauge.backends.base",
+    "OpCount": "fftgauge.backends.base",
+    "Capabilities": "fftgauge.backends.claims",
+    "SizeRule": "fftgauge.backends.claims",
+    "Conventions": "fftgauge.backends.claims",
+}
 
-__all__ = ["__version__", "Case", "check", "list_backends", "load_backend"]
+__all__ = ["__version__", "check", *LAZY_EXPORTS]
+
+
+def __getattr__(name: str):
+    """Return an exported name of :data:`LAZY_EXPORTS`, importing its module on first use.
+
+    Raises
+    ------
+    AttributeError
+        For a name this package does not export.
+    """
+    if name not in LAZY_EXPORTS:
+        raise AttributeError(f"module 'fftgauge' has no attribute {name!r}")
+    import importlib
+
+    value = getattr(importlib.import_module(LAZY_EXPORTS[name]), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__() -> list[str]:
+    return sorted(set(globals()) | set(LAZY_EXPORTS))
 
 
 def check(backends: Sequence[str] | None = None, sizes: str | None = None, kinds=None, dtypes=None,

@@ -451,3 +451,15 @@ def test_an_unknown_name_offers_the_closest_known_one(name, suggestion):
 
 def test_an_unknown_name_far_from_every_known_one_offers_none():
     assert "did you mean" not in _usage_error("zzzzqqq")
+
+
+def test_the_adapter_api_is_exported_by_fftgauge_lazily():
+    # `import fftgauge` alone must not import numpy (fftgauge --help stays quick); the adapter
+    # API comes from the package itself and is the same objects as in fftgauge.backends.
+    script = ("import sys, fftgauge; heavy = 'numpy' in sys.modules\n"
+              "from fftgauge import Backend, Capabilities, Plan, FunctionPlan, OptionSpec, SizeRule, Conventions\n"
+              "import fftgauge.backends.base as base\n"
+              "print(heavy, Backend is base.Backend and Capabilities is base.Capabilities and Plan is base.Plan)")
+    done = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True, timeout=60)
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.split() == ["False", "True"]
