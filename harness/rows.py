@@ -14,7 +14,7 @@ STATUSES = ("pass", "fail", "error", "skip")
 
 DIAGNOSES = (
     "sign", "scale", "bit-reversed", "shifted", "precision", "truncated-size", "input-modified",
-    "nondeterministic", "dtype", "shape", "nonfinite", "real-only", "thread-unsafe", "unknown",
+    "nondeterministic", "dtype", "shape", "nonfinite", "real-only", "thread-unsafe", "overflow", "unknown",
 )
 
 

@@ -263,3 +263,73 @@ def test_diagnosis_of_broken_inverse_kinds():
     row = check_case(load_backend(f"{BROKEN}:SameSignInverseBackend"), Case("fft", "float64", 40), 3,
                      ["round-trip"])[0]
     assert row.diagnosis == "sign" and "ifft is at fault" in row.message
+
+
+# -- robust diagnosis: small sizes, inputs that hide a hypothesis, small scales, overflow ----------
+
+def test_n1_computed_in_float32_is_precision_not_sign():
+    """At n = 1 the DFT is the identity (X[0] = x[0], the DFT's definition): a float64 value
+    rounded to float32 is a precision loss; no fitted constant may make the conjugate match."""
+    case = Case("fft", "float64", 1)
+    x = np.array([0.3 + 0.7j])
+    y = x.astype(np.complex64).astype(np.complex128)
+    code, why = diagnose(case, x, y)
+    assert code == "precision", why
+    assert diagnose(case, x, np.conj(x))[0] == "sign"  # the exact conjugate is still the sign bug
+
+
+@pytest.mark.parametrize("kind, n", [("fft", 2), ("irfft", 2), ("rfft", 2), ("fft", 1)])
+def test_small_sizes_use_fixed_factors_only(kind, n):
+    """A result off by a random complex constant at n <= 2 is not explained by a fitted constant."""
+    case = Case(kind, "float64", n)
+    x = rand(case, 4)
+    y = np_transform(case, x) * (0.79 - 0.61j if kind != "irfft" else 0.79)
+    assert diagnose(case, x, y)[0] not in ("sign", "bit-reversed", "shifted", "truncated-size", "real-only")
+
+
+def test_dc_only_spectrum_with_a_fixed_point_bias_is_not_truncated_size():
+    """irfft of a DC-only half spectrum is a constant (the DFT's definition), which is also what
+    the zero-padded size-2N candidate gives, halved: that candidate is the truth up to a scale
+    on this input, no evidence for itself. The output 1.5e-5 low is a scale, with its factor."""
+    case = Case("irfft", "float32", 4096)
+    x = np.zeros(case.input_length, dtype=np.complex64)
+    x[0] = 1000
+    y = (np.fft.irfft(x.astype(np.complex128), case.n) * (1 - 1.5e-5)).astype(np.float32)
+    code, why = diagnose(case, x, y)
+    assert code == "scale" and "0.999985" in why, why
+
+
+@pytest.mark.parametrize("dtype", ["float32", "float64"])
+def test_a_small_uniform_scale_is_scale_with_its_factor(dtype):
+    case = Case("fft", dtype, 64)
+    x = rand(case, 5)
+    y = (np_transform(case, x) * (1 + 1.5e-5)).astype(case.output_dtype)
+    code, why = diagnose(case, x, y)
+    assert code == "scale" and "1.000015" in why and "+1.5e-05" in why, why
+
+
+@pytest.mark.parametrize("kind", ["fft", "rfft"])
+def test_dc_wrap_around_of_a_large_constant_is_overflow(kind):
+    """A constant input of amplitude 0.9 sums to X[0] = 0.9 N (the DFT's definition); a Q31-like
+    sum wraps past the top of [-N/2, N/2) to X[0] - N, a sign flip at the rail."""
+    case = Case(kind, "float32", 64)
+    x = np.full(case.input_length, 0.9, dtype=case.input_dtype)
+    truth = np_transform(case, x)
+    for wrong_dc in (truth[0] - case.n, -truth[0]):
+        y = truth.copy()
+        y[0] = wrong_dc
+        code, why = diagnose(case, x, y.astype(case.output_dtype))
+        assert code == "overflow", why
+        assert "largest magnitude (0)" in why and "sign flipped" in why
+
+
+def test_overflow_is_not_claimed_for_a_negated_or_scaled_transform():
+    """-X of a generic input (errors everywhere) and 2 X of a DC-only input (no sign flip) are scale."""
+    case = Case("fft", "float64", 64)
+    x = rand(case, 6)
+    assert diagnose(case, x, -np_transform(case, x))[0] == "scale"
+    dc = np.full(64, 0.5 + 0j)
+    assert diagnose(case, dc, 2 * np_transform(case, dc))[0] == "scale"
+    impulse = np.zeros(64, dtype=complex)
+    impulse[0] = 1  # a flat spectrum: every output is of largest magnitude
+    assert diagnose(case, impulse, -np_transform(case, impulse))[0] == "scale"

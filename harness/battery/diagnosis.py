@@ -11,6 +11,13 @@ when ``y`` equals it up to one constant factor (fitted by least squares) to with
 precisions below the one asked for (``precision``, or ``dtype`` when the output array itself
 has a lower-precision dtype); else the code is ``unknown``.
 
+Two rules keep a match honest. A constant is fitted only where the output has more real
+values than twice the constant's parameters (n = 1 or 2 otherwise: every candidate fits one
+complex value); there the candidate may only be scaled by 1, N, 1/N, sqrt(N) or 1/sqrt(N)
+(:func:`fixed_factors`). A candidate that equals the truth up to a scale on the given input
+(a zero-padded transform of a DC-only spectrum, say) is no evidence for itself and is skipped.
+A small uniform scale (1 + 1.5e-5) is ``scale``, with its factor.
+
 Codes and what is tested, in this order (the first match wins when two explain ``y``
 equally well, for example on an input whose transform is symmetric):
 
@@ -30,6 +37,8 @@ sign            output equals the opposite-sign transform (X[k] <-> X[N-k]) or t
 bit-reversed    output equals the exact transform in bit-reversed order (N = 2^t >= 4)
 shifted         output equals the exact transform circularly shifted by s bins
 real-only       output equals the transform of the real part of the input
+overflow        (tested before the candidates) only the outputs of largest magnitude are
+                wrong, some with the sign flipped: a fixed-point sum wrapped around
 precision       right structure, error between 0.1 unit roundoff and a few times the
                 accuracy limit of a lower precision (float32 under float64 or long
                 double, float64 under long double, float16 under float32)
@@ -39,20 +48,22 @@ unknown         none of the above
 
 from __future__ import annotations
 
-from typing import Any, Callable
+from typing import Any
 
 import numpy as np
 
 from fftgauge.harness.cases import Case
-from fftgauge.harness.dft import (
-    bit_reversal_permutation, hermitian_full, is_power_of_two, machine_epsilon, norm_factor, unit_roundoff,
-)
+from fftgauge.harness.battery.hypotheses import ReferenceFn, candidates, resize_input, values128
+from fftgauge.harness.dft import is_power_of_two, machine_epsilon, norm_factor, unit_roundoff
 
 #: A candidate matches when ``norm(y - a * candidate) / norm(a * candidate)`` is below this
 #: for the best constant ``a``. Far above any FFT's rounding error in float32 (about 1e-6)
 #: and far below the distance between two different hypotheses for a generic input (of
 #: order 1), so a match is unambiguous.
 MATCH_RELATIVE = 1e-3
+
+#: ``overflow``: the outputs at least this fraction of the largest magnitude are "the largest".
+OVERFLOW_FRACTION = 0.5
 
 #: A fitted constant within this relative distance of 1 is "no scaling".
 UNIT_FACTOR_RELATIVE = 1e-3
@@ -68,9 +79,6 @@ _LOWER_PRECISIONS = {
     "float64": ("float32",),
     "longdouble": ("float64", "float32"),
 }
-ReferenceFn = Callable[[np.ndarray, Case], Any]
-
-
 # -- small helpers ---------------------------------------------------------------------------
 
 def _norm(v: np.ndarray) -> float:
@@ -81,18 +89,49 @@ def _norm(v: np.ndarray) -> float:
     return float(np.sqrt(np.sum(np.abs(v) ** 2)))
 
 
-def _fit(candidate: np.ndarray, y: np.ndarray) -> tuple[complex, float]:
-    """Return ``(a, r)``: the least-squares constant ``a`` with ``y ~ a * candidate`` and the
-    relative residual ``norm(y - a c) / norm(a c)`` (``inf`` when ``a c`` is zero)."""
+def _fit(candidate: np.ndarray, y: np.ndarray, factors: tuple[float, ...] | None = None) -> tuple[complex, float]:
+    """Return ``(a, r)``: the constant ``a`` with ``y ~ a * candidate`` and the relative
+    residual ``norm(y - a c) / norm(a c)`` (``inf`` when ``a c`` is zero).
+
+    ``a`` is the least-squares complex constant, or, when ``factors`` is given, the one of
+    those fixed factors with the smallest residual (no constant is fitted).
+    """
     cc = np.vdot(candidate, candidate).real
     if cc == 0.0 or not np.isfinite(cc):
         return 0j, float("inf")
-    a = complex(np.vdot(candidate, y) / cc)
-    scaled = a * candidate
-    denom = _norm(scaled)
-    if denom == 0.0:
-        return a, float("inf")
-    return a, _norm(y - scaled) / denom
+    if factors is None:
+        choices: tuple[complex, ...] = (complex(np.vdot(candidate, y) / cc),)
+    else:
+        choices = tuple(complex(f) for f in factors)
+    best = (0j, float("inf"))
+    for a in choices:
+        scaled = a * candidate
+        denom = _norm(scaled)
+        r = _norm(y - scaled) / denom if denom else float("inf")
+        if not r >= best[1]:
+            best = (a, r)
+    return best
+
+
+#: Real free parameters of a fitted complex constant.
+CONSTANT_PARAMETERS = 2
+
+
+def fixed_factors(case: Case) -> tuple[float, ...] | None:
+    """Return the fixed factors a candidate may be scaled by for ``case``, or None when a
+    complex constant may be fitted.
+
+    A fitted constant makes any candidate match once the output has no more real values
+    than twice the constant's parameters (n = 1: one complex value, which every candidate
+    fits): up to that, a candidate is scaled only by 1, N, 1/N, sqrt(N) or 1/sqrt(N).
+    """
+    return _factors_for(case.output_length * (1 if case.kind == "irfft" else 2), case.n)
+
+
+def _factors_for(real_values: int, n: int) -> tuple[float, ...] | None:
+    if real_values > 2 * CONSTANT_PARAMETERS:
+        return None
+    return tuple(dict.fromkeys((1.0, float(n), 1.0 / n, float(np.sqrt(n)), 1.0 / float(np.sqrt(n)))))
 
 
 def factor_name(value: float, n: int) -> str:
@@ -121,6 +160,9 @@ def _scale_words(case: Case, a: complex, n: int) -> str:
     if abs(a.imag) > UNIT_FACTOR_RELATIVE * abs(a) or a.real <= 0:
         return f"output is off by a constant factor {a:.4g}"
     ratio = a.real
+    if _is_unit(a):
+        return (f"output is {ratio:.7g} times the right one: a uniform scale error of {ratio - 1:+.3g} "
+                f"(a rounded or fixed-point normalisation factor, for example)")
     due = norm_factor(n, case.norm, case.is_inverse)
     got = due * ratio
     if ratio > 1:
@@ -149,134 +191,6 @@ def _with_scale(words: str, a: complex, n: int) -> str:
     return f"{words}, and multiplied by {a:.4g}"
 
 
-def _plausible_sizes(n: int) -> list[int]:
-    """Return lengths a buggy backend may have used instead of ``n``: next/previous power of two,
-    n +- 1, 2n, the nearest 5-smooth sizes above and below."""
-    out = []
-    up = 1 << max(0, (n - 1).bit_length())
-    if up == n:
-        up = 2 * n
-    out.append(up)
-    down = 1 << max(0, n.bit_length() - 1)
-    if down == n:
-        down = n // 2
-    out.append(down)
-    out += [n + 1, n - 1, 2 * n]
-
-    def smooth(m: int) -> bool:
-        for p in (2, 3, 5):
-            while m % p == 0:
-                m //= p
-        return m == 1
-
-    above = n + 1
-    while not smooth(above):
-        above += 1
-    below = n - 1
-    while below > 1 and not smooth(below):
-        below -= 1
-    out += [above, below]
-    seen: list[int] = []
-    for m in out:
-        if m >= 1 and m != n and m not in seen:
-            seen.append(m)
-    return seen
-
-
-def _resize_input(x: np.ndarray, length: int) -> np.ndarray:
-    """Return ``x`` zero-padded or truncated to ``length`` values."""
-    out = np.zeros(length, dtype=x.dtype)
-    k = min(length, x.shape[0])
-    out[:k] = x[:k]
-    return out
-
-
-def _shift_candidates(truth: np.ndarray, y: np.ndarray) -> list[int]:
-    """Return the circular shifts worth testing: fftshift/ifftshift, +-1, and those that line
-    up the largest values of ``y`` with the largest of the truth."""
-    length = truth.shape[0]
-    if length < 2:
-        return []
-    shifts = [length // 2, (length + 1) // 2, 1, length - 1]
-    top = min(3, length)
-    peaks_t = np.argsort(-np.abs(truth))[:top]
-    peaks_y = np.argsort(-np.abs(y))[:top]
-    shifts += [int((py - pt) % length) for py in peaks_y for pt in peaks_t]
-    out: list[int] = []
-    for s in shifts:
-        s %= length
-        if s and s not in out:
-            out.append(s)
-    return out
-
-
-def _shift_words(s: int, length: int) -> str:
-    if s == length // 2:
-        what = "an fftshift-centred spectrum (zero frequency moved to the middle)"
-    elif s == (length + 1) // 2:
-        what = "an ifftshift applied to the spectrum"
-    else:
-        what = "the output index is offset"
-    return f"outputs are right but circularly shifted by {s} bin{'s' if s != 1 else ''}: {what}"
-
-
-# -- the candidates ----------------------------------------------------------------------------
-
-def _candidates(case: Case, x: np.ndarray, truth: np.ndarray, y: np.ndarray,
-                reference_fn: ReferenceFn) -> list[tuple[str, str, np.ndarray]]:
-    """Return ``(code, words, candidate)`` for every structural hypothesis, the truth itself first."""
-    n, kind = case.n, case.kind
-    out: list[tuple[str, str, np.ndarray]] = [("scale", "", truth)]
-    forward = not case.is_inverse
-    wanted, other = ("-", "+") if forward else ("+", "-")
-    opposite = (f"output matches the transform with the opposite exponent sign ({other} where {wanted} is "
-                f"required): X[k] and X[N-k] are swapped")
-    if kind in ("fft", "ifft"):
-        out.append(("sign", opposite, truth[(-np.arange(n)) % n]))
-        out.append(("sign", "output is the complex conjugate of the right one", np.conj(truth)))
-    elif kind == "rfft":
-        out.append(("sign", opposite + " (for a real input: the conjugate)", np.conj(truth)))
-    else:  # irfft: the output is real, the opposite sign reverses it in time
-        out.append(("sign", opposite + " (for irfft: the output is reversed in time)", truth[(-np.arange(n)) % n]))
-    if is_power_of_two(n) and n >= 4:
-        perm = bit_reversal_permutation(n)
-        words = ("outputs are right but in bit-reversed order: the final reordering of a "
-                 "decimation-in-frequency FFT is missing")
-        if kind == "rfft":
-            full = hermitian_full(truth, n, np.complex128)
-            out.append(("bit-reversed", words, full[perm][: truth.shape[0]]))
-        else:
-            out.append(("bit-reversed", words, truth[perm]))
-    for s in _shift_candidates(truth, y):
-        out.append(("shifted", _shift_words(s, truth.shape[0]), np.roll(truth, s)))
-    if kind != "rfft" and np.any(np.imag(x) != 0):
-        xr = np.real(x).astype(x.dtype)
-        ref = reference_fn(xr, case)
-        out.append(("real-only", "output matches the transform of the real part of the input: the imaginary "
-                                 "part is ignored", _values128(ref)))
-    for m in _plausible_sizes(n):
-        other_case = Case(kind, case.dtype, m, case.norm)
-        if other_case.output_length < truth.shape[0]:
-            # the input truncated to m values, transformed at the asked length
-            xt = _resize_input(_resize_input(x, other_case.input_length), case.input_length)
-            dropped = case.input_length - other_case.input_length
-            words = (f"output is the transform of the input truncated to {other_case.input_length} values "
-                     f"(the last {dropped} ignored, as for a transform of size {m})")
-            out.append(("truncated-size", words, _values128(reference_fn(xt, case))))
-        else:
-            xp = _resize_input(x, other_case.input_length)
-            full = _values128(reference_fn(xp, other_case))
-            words = (f"output is the first {truth.shape[0]} values of the transform of the input zero-padded "
-                     f"to {m}{' (the next power of two)' if is_power_of_two(m) and m > n else ''}")
-            out.append(("truncated-size", words, full[: truth.shape[0]]))
-    return out
-
-
-def _values128(ref: Any) -> np.ndarray:
-    """Return a reference's values as complex128 (plenty for telling hypotheses apart)."""
-    return np.asarray(ref.values()).astype(np.complex128)
-
-
 def _wrong_length(case: Case, x: np.ndarray, y: np.ndarray, reference_fn: ReferenceFn) -> tuple[str, str]:
     """Diagnose an output of the wrong length: a changed transform size, else ``shape``."""
     length, expected = y.shape[0], case.output_length
@@ -288,7 +202,7 @@ def _wrong_length(case: Case, x: np.ndarray, y: np.ndarray, reference_fn: Refere
         other_case = Case(case.kind, case.dtype, m, case.norm)
         if other_case.output_length != length:
             continue
-        cand = _values128(reference_fn(_resize_input(x, other_case.input_length), other_case))
+        cand = values128(reference_fn(resize_input(x, other_case.input_length), other_case))
         a, r = _fit(cand, yc)
         if r <= MATCH_RELATIVE:
             how = "zero-padded" if m > case.n else "truncated"
@@ -312,6 +226,43 @@ def _precision_level(case: Case, err: float, limit: float) -> str | None:
 def _lower_dtype(case: Case, y: np.ndarray) -> bool:
     """True when ``y``'s dtype is of lower precision than the case's output dtype."""
     return float(np.finfo(y.dtype).eps) > float(np.finfo(case.output_dtype).eps)
+
+
+def overflow_words(truth: np.ndarray, y: np.ndarray) -> str | None:
+    """Return the account of a wrap-around overflow in ``y``, or None when ``y`` shows none.
+
+    Fixed-point arithmetic that overflows wraps around: the outputs of largest magnitude come
+    out with the opposite sign (or past the other rail), the rest are right. The pattern: every
+    wrong output is among the largest ones (``|X[k]| >= OVERFLOW_FRACTION max |X|``), those
+    largest ones are a minority of the outputs (on an input whose outputs are all equally large
+    a flipped sign is a ``scale`` of -1, not an overflow), the outputs outside them are right to
+    within ``MATCH_RELATIVE`` of the whole, and at least one wrong output has a real or
+    imaginary part of the opposite sign to the right one's, where that part is itself large.
+    """
+    mag = np.abs(truth)
+    top = float(np.max(mag)) if mag.size else 0.0
+    if top == 0.0:
+        return None
+    big = mag >= OVERFLOW_FRACTION * top
+    if 2 * int(np.count_nonzero(big)) > truth.shape[0]:
+        return None
+    err = y - truth
+    if _norm(err[~big]) > MATCH_RELATIVE * _norm(truth):
+        return None
+    wrong = big & (np.abs(err) > MATCH_RELATIVE * mag)
+    flipped = np.zeros_like(wrong)
+    for part in (np.real, np.imag):
+        t_part, y_part = part(truth), part(y)
+        flipped |= wrong & (np.abs(t_part) >= OVERFLOW_FRACTION * top) & (np.sign(y_part) == -np.sign(t_part))
+    if not np.any(flipped):
+        return None
+    where = np.flatnonzero(wrong)
+    shown = ", ".join(map(str, where[:6])) + (", ..." if where.shape[0] > 6 else "")
+    count = where.shape[0]
+    which = f"the {count} outputs of largest magnitude ({shown}) are" if count > 1 else \
+        f"the output of largest magnitude ({shown}) is"
+    return (f"wrap-around overflow: only {which} wrong, {int(np.count_nonzero(flipped))} with the sign flipped, as "
+            f"fixed-point arithmetic gives when a sum passes the top of its range; the other outputs are right")
 
 
 # -- the entry points --------------------------------------------------------------------------
@@ -373,20 +324,22 @@ def diagnose(case: Case, x: np.ndarray, y: Any, reference_fn: ReferenceFn | None
         return "nonfinite", f"output has {bad} NaN/Inf value{'s' if bad != 1 else ''} for a finite input"
 
     ref = reference_fn(x, case)
-    truth = _values128(ref)
+    truth = values128(ref)
     truth_norm = _norm(truth)
     err = float(np.linalg.norm(ref.error(y))) / truth_norm if truth_norm else float("inf")
     if truth_norm == 0.0:
         return "unknown", "the exact transform of this input is zero, and the output is not"
     y128 = y.astype(np.complex128)
+    wrapped = overflow_words(truth, y128)
+    if wrapped is not None:
+        return "overflow", wrapped
+    factors = fixed_factors(case)
     matches = []
-    for code, words, cand in _candidates(case, x, truth, y128, reference_fn):
-        if code != "scale" and _norm(cand - truth) <= MATCH_RELATIVE * truth_norm:
-            continue  # the hypothesis is the truth itself for this input: nothing to tell apart
-        a, r = _fit(cand, y128)
+    for code, words, cand in candidates(case, x, truth, y128, reference_fn):
+        if code != "scale" and _fit(truth, cand, factors)[1] <= MATCH_RELATIVE:
+            continue  # on this input the hypothesis is the truth up to a scale: no evidence for itself
+        a, r = _fit(cand, y128, factors)
         if r > MATCH_RELATIVE or r * 4 >= max(err, 1e-300):
-            continue
-        if code == "scale" and _is_unit(a):
             continue
         matches.append((r, len(matches), code, words, a))
     if matches:
@@ -421,7 +374,8 @@ def diagnose_round_trip(x: np.ndarray, z: np.ndarray, n: int, reversed_ok: bool 
     x = np.asarray(x).astype(np.complex128)
     z = np.asarray(z).astype(np.complex128)
     base_err = _norm(z - x) / max(_norm(x), 1e-300)
-    a, r = _fit(x, z)
+    factors = _factors_for(2 * x.shape[0], n)
+    a, r = _fit(x, z, factors)
     if r <= MATCH_RELATIVE and not _is_unit(a):
         if abs(a.imag) <= UNIT_FACTOR_RELATIVE * abs(a) and a.real > 0:
             ratio = a.real
@@ -432,7 +386,7 @@ def diagnose_round_trip(x: np.ndarray, z: np.ndarray, n: int, reversed_ok: bool 
         return "scale", f"{subject} times {a:.4g}"
     if reversed_ok and n > 2:
         rev = x[(-np.arange(x.shape[0])) % x.shape[0]]
-        a, r = _fit(rev, z)
+        a, r = _fit(rev, z, factors)
         if r <= MATCH_RELATIVE and r * 4 < base_err:
             return "sign", _with_scale(f"{subject} reversed in time: both transforms use the same exponent sign",
                                        a, n)

@@ -32,6 +32,7 @@ DIAGNOSIS_MEANINGS = {
     "nonfinite": "NaN/Inf inputs do not propagate as the DFT requires, or finite inputs give NaN/Inf",
     "real-only": "the imaginary part of the input is ignored",
     "thread-unsafe": "results differ when the backend is called from several threads at once",
+    "overflow": "wrap-around overflow: the largest outputs are wrong, some with the sign flipped",
     "unknown": "wrong, and none of the known bugs explains it",
 }
 
