@@ -735,7 +735,10 @@ def test_reports_escape_what_they_quote(tmp_path, time_doc, check_doc, capsys):
 def test_markdown_escaping_and_fences():
     from fftgauge.harness.report.markup import escape_markdown, markdown_fence
 
-    assert escape_markdown("a_b*c [x](y) #1 ~z~") == r"a\_b\*c \[x\](y) \#1 \~z\~"
+    assert escape_markdown("a_b*c [x](y) #1 ~z~") == r"a\_b\*c \[x\](y) #1 \~z\~"
+    assert [escape_markdown(s) for s in ("# h", "- item", "12. item", "+ x")] == [r"\# h", r"\- item", r"12\. item",
+                                                                                r"\+ x"]
+    assert escape_markdown("- cell", block=False) == "- cell"  # a table cell starts no block
     assert escape_markdown("1 < 2 & 3 > 2") == "1 &lt; 2 &amp; 3 &gt; 2"
     fenced = markdown_fence("before ``` inside")
     assert fenced.startswith("````text\n") and fenced.endswith("\n````")

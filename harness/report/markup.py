@@ -19,16 +19,21 @@ from typing import Any
 
 #: Characters with a meaning in Markdown text (CommonMark's punctuation that starts
 #: emphasis, code, links, headings, list items, strike-through or table cells), escaped with a backslash.
-_MARKDOWN_SPECIAL = re.compile(r"([\\`*_\[\]#+|~])")
+_MARKDOWN_SPECIAL = re.compile(r"([\\`*_\[\]|~])")
+
+#: What makes a line a heading, a list item or a thematic break when it starts the text.
+_MARKDOWN_LINE_START = re.compile(r"^(\s*)([#+\-=]|\d+[.)])")
 
 
-def escape_markdown(text: Any) -> str:
+def escape_markdown(text: Any, block: bool = True) -> str:
     """Return ``text`` as Markdown that shows it literally on one line.
 
     ``&``, ``<`` and ``>`` become entities (so ``<img src=x onerror=...>`` is shown, not
-    run), Markdown's punctuation (``\\ ` * _ [ ] # + | ~``) is backslash-escaped
-    (CommonMark, "Backslash escapes"; in a GitHub table ``\\|`` keeps a cell whole), and
-    line breaks become spaces.
+    run), Markdown's punctuation (``\\ ` * _ [ ] | ~``) is backslash-escaped (CommonMark,
+    "Backslash escapes"; in a GitHub table ``\\|`` keeps a cell whole), line breaks become
+    spaces, and where the text starts a block (``block``: a paragraph or heading, not a
+    table cell) a leading ``#``, ``+``, ``-``, ``=`` or ``1.`` that would make it a heading
+    or a list item is escaped too.
 
     Examples
     --------
@@ -37,14 +42,17 @@ def escape_markdown(text: Any) -> str:
     """
     text = str(text).replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
     text = re.sub(r"\s*[\r\n]+\s*", " ", text)
-    return _MARKDOWN_SPECIAL.sub(r"\\\1", text)
+    text = _MARKDOWN_SPECIAL.sub(r"\\\1", text)
+    if not block:
+        return text
+    return _MARKDOWN_LINE_START.sub(lambda m: m.group(1) + m.group(2)[:-1] + "\\" + m.group(2)[-1], text)
 
 
 def markdown_table(header: list[str], rows: list[list[str]], bold: set[tuple[int, int]] = frozenset()) -> str:
     """Return a Markdown (GitHub) table of plain-text cells, each escaped
     (:func:`escape_markdown`); the cells in ``bold`` ((row, column) pairs) are bold."""
     def cell(text: Any, strong: bool = False) -> str:
-        shown = escape_markdown(text)
+        shown = escape_markdown(text, block=False)
         return f"**{shown}**" if strong and shown else shown
 
     lines = ["| " + " | ".join(cell(h) for h in header) + " |", "|" + "|".join("---" for _ in header) + "|"]
