@@ -32,8 +32,10 @@ from typing import Any
 import fftgauge
 from fftgauge.harness.execution.child import ChildSettings, child_main
 
-#: The start method a worker uses unless told otherwise.
-DEFAULT_START_METHOD = "subprocess"
+#: The start method of a fresh interpreter (POSIX): what a worker uses unless told otherwise.
+SUBPROCESS = "subprocess"
+#: The start method a worker uses unless told otherwise (``spawn`` where not POSIX).
+DEFAULT_START_METHOD = SUBPROCESS if os.name == "posix" else "spawn"
 #: How often, in seconds, a wait polls a child where no process descriptor is available.
 POLL_SECONDS = 0.05
 #: What the interpreter runs in a ``"subprocess"`` child: put fftgauge's folder first on
@@ -44,7 +46,7 @@ BOOT_SOURCE = ("import sys; sys.path.insert(0, sys.argv[1]); "
 
 def start_methods() -> list[str]:
     """Return the start methods this platform offers (``"subprocess"`` first where POSIX)."""
-    own = [DEFAULT_START_METHOD] if os.name == "posix" else []
+    own = [SUBPROCESS] if os.name == "posix" else []
     return own + multiprocessing.get_all_start_methods()
 
 
@@ -135,7 +137,7 @@ def start_child(settings: ChildSettings, start_method: str, log_path: str) -> tu
     OSError
         When the process cannot be started (the interpreter is missing, no processes left).
     """
-    if start_method == DEFAULT_START_METHOD:
+    if start_method == SUBPROCESS:
         return _start_subprocess(settings, log_path)
     ctx = multiprocessing.get_context(start_method)
     parent_conn, child_conn = ctx.Pipe(duplex=True)
