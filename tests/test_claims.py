@@ -11,7 +11,7 @@ from pathlib import Path
 
 import pytest
 
-from fftgauge.backends.claims import Capabilities, SizeRule
+from fftgauge.backends.claims import Capabilities, Conventions, SizeRule
 from fftgauge.backends.registry import load_backend
 from fftgauge.harness.battery.checks import check_case
 from fftgauge.harness.cases import Case
@@ -133,3 +133,38 @@ def test_two_backends_with_one_label_exit_2_naming_it(tmp_path):
     assert done.returncode == 2
     lines = done.stderr.strip().splitlines()
     assert len(lines) == 1 and "same label 'same'" in lines[0] and "Traceback" not in done.stderr
+
+
+# -- declared conventions (SPEC side) -----------------------------------------------------------
+
+def test_declared_conventions_travel_with_the_claims():
+    from fftgauge.harness.execution import jobs
+
+    spec = f"{SAMPLES}:numpy_forward[sign=+1,forward_scale=1/n,order=bit-reversed,label=firmware]"
+    backend = load_backend(spec)
+    assert backend.conventions == Conventions(sign=1, forward_scale="1/n", order="bit-reversed")
+    claims = jobs.backend_claims(backend, [("fft", "float64", 8, "backward")], None)
+    assert claims.label == "firmware" and claims.capabilities.conventions == backend.conventions
+    d = json.loads(json.dumps(claims.record(spec)))
+    assert d["capabilities"]["conventions"] == {"sign": 1, "forward_scale": "1/n", "inverse_scale": None,
+                                                "order": "bit-reversed", "packing": None}
+
+
+def test_a_spec_declaration_overrides_the_adapters_own_field_by_field():
+    backend = load_backend(f"{SAMPLES}:PackedRealBackend[order=centred]")
+    assert backend.capabilities().conventions == Conventions(packing="dc-nyquist", inverse_scale="1")
+    assert backend.conventions == Conventions(packing="dc-nyquist", inverse_scale="1", order="centred")
+    assert backend.describe().capabilities.conventions == backend.conventions
+    assert load_backend("numpy").conventions == Conventions()    # numpy's own convention: nothing declared
+
+
+@pytest.mark.parametrize("option, fragment", [
+    ("sign=1", "option sign='1' must be one of -1, +1"),
+    ("order=reversed", "option order='reversed' must be one of natural, bit-reversed, centred"),
+    ("forward_scale=n", "must be one of 1, 1/n, 1/sqrt(n)"),
+    ("packing=perm", "must be one of complex, dc-nyquist, halfcomplex"),
+])
+def test_an_unknown_convention_value_is_one_line_naming_it(option, fragment):
+    with pytest.raises(UsageError) as info:
+        load_backend(f"numpy[{option}]")
+    assert fragment in str(info.value) and "\n" not in str(info.value)

@@ -84,18 +84,40 @@ def summary_frame(df: pd.DataFrame) -> pd.DataFrame:
     return pd.DataFrame(lines)
 
 
-def _first_messages(df: pd.DataFrame, limit: int = 8) -> list[str]:
-    """Return one plain-words line per distinct (backend, check, diagnosis) failure, worst first."""
-    bad = df[df["status"].isin(["fail", "error"])]
+#: Findings the terminal summary lists per backend before it says how many more there are
+#: (each backend's first finding is always listed; the rest are in the results file).
+FINDINGS_PER_BACKEND = 12
+
+
+def finding_lines(rows: Iterable[dict[str, Any]], per_backend: int = FINDINGS_PER_BACKEND) -> list[str]:
+    """Return the terminal's findings: one line per distinct cause of each backend (a diagnosis
+    code, or a way a case could not run) with the checks that saw it, grouped by backend in the order the backends first appear, wrong answers before
+    cases that could not run.
+
+    Nothing is cut silently: past ``per_backend`` lines for one backend, one line says how many
+    more findings that backend has and where they are; every backend's first finding is listed.
+    Each line gives the cases and sizes the cause covers and the worst case's message
+    (:func:`fftgauge.harness.report.findings.findings` does the grouping).
+    """
+    from fftgauge.harness.report.findings import findings
+
+    rows = [dict(r) for r in rows]
+    order = list(dict.fromkeys(str(r["backend"]) for r in rows))
+    by_backend: dict[str, list] = {b: [] for b in order}
+    for found in findings(rows):
+        by_backend.setdefault(found.backend, []).append(found)
     out = []
-    for (backend, check, diag), group in bad.groupby(["backend", "check", "diagnosis"], dropna=False, sort=False):
-        first = group.iloc[0]
-        where = f"{first['kind']} {first['dtype']} n={first['n']}"
-        more = f" (and {len(group) - 1} more cases)" if len(group) > 1 else ""
-        tag = diag if isinstance(diag, str) else first["status"]
-        out.append(f"  {backend} · {check} · {tag}: {where}: {first['message']}{more}")
-        if len(out) >= limit:
-            break
+    for backend, found_here in by_backend.items():
+        for found in found_here[:max(1, per_backend)]:
+            worst = found.worst
+            plural = "s" if found.cases != 1 else ""
+            out.append(f"  {backend} · {found.cause} ({', '.join(found.checks)}): {found.cases} case{plural} "
+                       f"({', '.join(found.panels)}) at n = {compress_sizes(found.sizes)}; worst "
+                       f"{worst.get('kind')} {worst.get('dtype')} n={worst.get('n')}: {worst.get('message')}")
+        hidden = len(found_here) - max(1, per_backend)
+        if hidden > 0:
+            out.append(f"  {backend}: {hidden} more finding{'s' if hidden != 1 else ''} (distinct causes) not listed "
+                       f"here; every row is in the results file (its path is printed below)")
     return out
 
 
@@ -115,7 +137,8 @@ def format_summary(df: pd.DataFrame) -> str:
     verdict = ("PASS: every case held" if total_bad == 0 else
                f"FAIL: {total_bad} case(s) failed or errored, {total_ok} passed")
     lines = [verdict, "", text]
-    findings = _first_messages(df)
+    findings = finding_lines(df.astype(object).where(df.notna(), None).to_dict("records"))
     if findings:
-        lines += ["", "findings (backend · check · diagnosis: first case: what was seen):"] + findings
+        lines += ["", "findings, one per cause (backend · diagnosis (checks): cases, sizes; worst case: what was "
+                      "seen):"] + findings
     return "\n".join(lines)

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from fftgauge.backends.base import Backend, Capabilities, FunctionPlan, OptionSpec, SizeRule
+from fftgauge.backends.base import Backend, Capabilities, Conventions, FunctionPlan, OptionSpec, SizeRule
 from fftgauge.harness.cases import Case
 
 #: Not callable, not an adapter: naming it is a usage error.
@@ -106,3 +106,18 @@ def numpy_rfft(x):
 def numpy_irfft(X, n):
     """numpy's real inverse DFT, called as f(X, n): a companion of numpy_rfft."""
     return np.fft.irfft(X, n)
+
+
+class PackedRealBackend(Backend):
+    """An adapter that declares its own conventions in its capabilities (an embedded-style real
+    FFT: DC and Nyquist share the first pair, the inverse is unscaled), for the tests of what
+    is declared; it computes nothing (plan() raises)."""
+
+    name = "packed-real"
+
+    def capabilities(self) -> Capabilities:
+        return Capabilities(kinds=("rfft", "irfft"), norms=("backward",),
+                            conventions=Conventions(packing="dc-nyquist", inverse_scale="1"))
+
+    def plan(self, case: Case) -> FunctionPlan:
+        raise NotImplementedError("packed-real only declares conventions; it computes nothing")

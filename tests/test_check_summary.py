@@ -1,0 +1,55 @@
+"""Tests of the terminal summary's findings (harness/report/check_tables.py): never cut
+silently, one line per distinct cause, every backend's first finding listed.
+
+Source: the rows are made here by hand, so what each line must say is known exactly.
+"""
+
+from __future__ import annotations
+
+from fftgauge.harness.report.check_tables import finding_lines, format_summary, rows_frame
+
+
+def _row(backend, check, status, diagnosis=None, n=16, kind="fft", dtype="float32", message="m", eps=None):
+    return {"backend": backend, "kind": kind, "dtype": dtype, "norm": "backward", "n": n, "check": check,
+            "status": status, "value": None, "limit": None, "eps_units": eps, "diagnosis": diagnosis,
+            "message": message, "reference": None}
+
+
+CODES = ["sign", "scale", "bit-reversed", "shifted", "precision", "truncated-size", "nonfinite", "real-only",
+         "dtype", "shape"]
+
+
+def test_more_causes_than_the_old_limit_are_all_listed():
+    """Two backends with ten distinct causes each (the old summary stopped after 8 lines in all):
+    every cause is a line, including the second backend's real bug."""
+    rows = []
+    for backend in ("lib-f32", "lib-q31"):
+        for code in CODES:
+            rows += [_row(backend, "accuracy", "fail", code, n=n) for n in (16, 32, 64)]
+            rows.append(_row(backend, "parseval", "fail", code, n=16))
+        rows.append(_row(backend, "accuracy", "pass", n=128))
+    rows.append(_row("lib-q31", "accuracy", "fail", "overflow", n=4096, message="wrap-around overflow: DC"))
+    lines = finding_lines(rows)
+    assert len(lines) == 21
+    assert sum("lib-q31 · overflow (accuracy)" in line for line in lines) == 1
+    assert all("3 cases (fft float32) at n = 16, 32, 64" in line for line in lines if "overflow" not in line)
+    assert all("(accuracy, parseval)" in line for line in lines if "overflow" not in line)
+    text = format_summary(rows_frame(rows))
+    assert "wrap-around overflow: DC" in text and "lib-f32 · shape" in text
+
+
+def test_past_the_per_backend_lines_the_summary_says_how_many_more():
+    rows = [_row("noisy", "accuracy", "fail", code) for code in CODES]
+    rows += [_row("crashy", "accuracy", "error", message="the backend raised RuntimeError: boom")]
+    lines = finding_lines(rows, per_backend=4)
+    noisy = [line for line in lines if line.startswith("  noisy")]
+    assert len(noisy) == 5 and "6 more findings (distinct causes) not listed" in noisy[-1]
+    assert lines[-1].startswith("  crashy · error (accuracy): 1 case") and "boom" in lines[-1]
+    assert finding_lines(rows, per_backend=0)[0].startswith("  noisy · ")  # each backend's first, always
+    assert finding_lines(rows, per_backend=0)[2].startswith("  crashy · error")
+
+
+def test_wrong_answers_come_before_could_not_run_within_a_backend():
+    rows = [_row("b", "accuracy", "error", message="hung"), _row("b", "parseval", "fail", "unknown")]
+    lines = finding_lines(rows)
+    assert [line.split(":")[0] for line in lines] == ["  b · unknown (parseval)", "  b · error (accuracy)"]
