@@ -602,3 +602,22 @@ def test_good_backends_load_and_run_under_a_small_cap():
     with Worker("scipy", memory_limit_bytes=CAP_512_MIB) as worker:
         y = worker.call(PLAN, Case("fft", "float64", 64), x, timeout_seconds=TIMEOUT_SECONDS)
     np.testing.assert_allclose(y, np.fft.fft(x), rtol=0, atol=1e-12 * np.abs(x).sum())
+
+
+def test_abort_from_another_thread_stops_a_running_job_at_once():
+    """A shutdown path calls abort() from another thread while a job hangs with a daemonised
+    sleeper: the waiting call raises 'stopped: the run was interrupted' (not a crash), no
+    sleeper and no child is left, and close() still works."""
+    before = sleepers()
+    with Worker(spec("daemon_then_hang_fft")) as worker:
+        worker.call(DESCRIBE, timeout_seconds=TIMEOUT_SECONDS)
+        pid = worker.pid
+        _wait = threading.Timer(1.0, worker.abort)
+        _wait.start()
+        try:
+            with pytest.raises(BackendFailure, match=r"^stopped: the run was interrupted$"):
+                worker.call(PLAN, FFT8, signal_x(8), timeout_seconds=60)
+        finally:
+            _wait.cancel()
+    assert _gone(pid, within_seconds=5)
+    assert _gone_all(sleepers() - before), "abort left a sleeper behind"

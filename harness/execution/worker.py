@@ -187,6 +187,7 @@ class Worker:
         self._token = secrets.token_hex(16)
         self._known_pids: set[int] = set()
         self._subreaper = False
+        self._aborted = False
         self._process: Any = None
         self._conn: Any = None
         self._main_ident: int | None = None
@@ -296,6 +297,26 @@ class Worker:
             self._log_path = self._log_remover = None
         _LIVE_WORKERS.discard(self)
 
+    def abort(self) -> None:
+        """Kill the child and every process its backend started, at once, without waiting.
+
+        The one method that may be called from another thread (a signal handler's, while a
+        lane's thread waits in :meth:`call`): that call then raises
+        ``BackendFailure("stopped: the run was interrupted")`` and the worker can still be
+        closed (which reaps what was killed). Never raises.
+        """
+        process = self._process
+        if process is None:
+            return
+        self._aborted = True
+        try:
+            end_processes(worker_processes(process.pid, None if self._subreaper else self._token,
+                                           set(self._known_pids)))
+            kill_group(process.pid)
+            process.kill()
+        except Exception:  # noqa: BLE001 - the run is stopping; what is left, close() reaps
+            pass
+
     def __enter__(self) -> "Worker":
         return self
 
@@ -375,6 +396,9 @@ class Worker:
         log = read_log_tail(self._log_path)
         ended = self._stop_child()
         tail = f"; {ended_text(ended)}" if ended else ""
+        if self._aborted:
+            self._aborted = False
+            return BackendFailure("stopped: the run was interrupted")
         if code is None:  # the pipe broke but the process lived on: it has been stopped now
             return BackendFailure(f"the backend closed its connection to the main process{during}; "
                                   f"stopped{tail}")
