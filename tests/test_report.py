@@ -742,3 +742,11 @@ def test_markdown_escaping_and_fences():
     assert escape_markdown("1 < 2 & 3 > 2") == "1 &lt; 2 &amp; 3 &gt; 2"
     fenced = markdown_fence("before ``` inside")
     assert fenced.startswith("````text\n") and fenced.endswith("\n````")
+
+
+def test_every_diagnosis_code_has_a_meaning():
+    """The page's sentences explain every code rows may carry (fftgauge.harness.rows.DIAGNOSES)."""
+    from fftgauge.harness.report.findings import DIAGNOSIS_MEANINGS
+    from fftgauge.harness.rows import DIAGNOSES
+
+    assert set(DIAGNOSES) <= set(DIAGNOSIS_MEANINGS)

@@ -17,7 +17,8 @@ import numpy as np
 
 from fftgauge.harness.cases import Case
 
-#: What each diagnosis code means (the contract's vocabulary, "diagnosis" table).
+#: What each diagnosis code means (the contract's vocabulary, "diagnosis" table, and the codes
+#: this project added, docs/reference.md); a code missing here is shown by its name alone.
 DIAGNOSIS_MEANINGS = {
     "sign": "the transform uses the opposite exponent sign (or conjugates)",
     "scale": "right shape of answer, wrong normalisation (by N, 1/N, 1/sqrt(N), ...)",
@@ -32,6 +33,7 @@ DIAGNOSIS_MEANINGS = {
     "nonfinite": "NaN/Inf inputs do not propagate as the DFT requires, or finite inputs give NaN/Inf",
     "real-only": "the imaginary part of the input is ignored",
     "thread-unsafe": "results differ when the backend is called from several threads at once",
+    "overflow": "only the largest outputs are wrong, some with their sign flipped: a fixed-point sum wrapped around",
     "overflow": "wrap-around overflow: the largest outputs are wrong, some with the sign flipped",
     "unknown": "wrong, and none of the known bugs explains it",
 }
@@ -87,6 +89,8 @@ class Finding:
             what = "could not run (it raised, crashed, hung or returned something unusable)"
         elif meaning:
             what = self.cause + ("" if meaning in message else f" ({meaning})")
+        elif self.cause != "fail":
+            what = self.cause
         else:
             what = "wrong answer"
         if worst.get("check") == "accuracy" and not self.could_not_run:
