@@ -10,8 +10,11 @@
 4. busywait: the median the timer reports for the busy-wait backend (a cost known in
    advance: 1 ms and 200 us per call), warm and with cold caches (target: within
    0.9x-1.5x; the unit tests check the timer's arithmetic on a fake clock instead).
+5. signals: seconds from SIGINT, SIGTERM and SIGHUP (sent to the process group once the
+   results file holds a row) to the exit of ``fftgauge time`` on a slow backend (busy-waits of
+   50 ms per call), three times each (target: under 2 s).
 
-Run: ``.venv/bin/python benchmarks/bench_timing.py [overhead|reproducibility|sweep|busywait|all]``
+Run: ``.venv/bin/python benchmarks/bench_timing.py [overhead|reproducibility|sweep|busywait|signals|all]``
 """
 
 from __future__ import annotations
@@ -133,9 +136,46 @@ def busywait(attempts: int = 3) -> None:
               f"(all: {', '.join(f'{r:.3f}' for r in ratios)}); target 0.9-1.5: {verdict}")
 
 
+def _seconds_to_stop(signum: int, tmp: str) -> tuple[float, int, int]:
+    """Return (seconds from the signal to the exit, exit code, rows kept) of one stopped run."""
+    path = os.path.join(tmp, f"stop-{signum}.json")
+    if os.path.exists(path):
+        os.unlink(path)
+    proc = subprocess.Popen([sys.executable, "-m", "fftgauge", "time", "--backend", "busywait[seconds=0.05]",
+                             "--kinds", "fft", "--sizes", "2^4..2^20", "--samples", "5", "--rounds", "1",
+                             "--no-memory", "--quiet", "--json", path], cwd=ROOT, stdout=subprocess.DEVNULL,
+                            stderr=subprocess.DEVNULL, start_new_session=True)
+    rows = 0
+    while rows < 1 and proc.poll() is None:
+        time.sleep(0.05)
+        try:
+            rows = len(json.load(open(path))["rows"])
+        except (OSError, ValueError, KeyError):
+            rows = 0
+    sent = time.perf_counter()
+    os.killpg(proc.pid, signum)
+    code = proc.wait()
+    seconds = time.perf_counter() - sent
+    return seconds, code, len(json.load(open(path))["rows"])
+
+
+def signals(repeats: int = 3) -> None:
+    """Seconds from a signal to the exit of `fftgauge time` on a slow backend."""
+    import signal
+
+    print(f"signals: seconds from the signal to the exit of `fftgauge time --backend busywait[seconds=0.05]` "
+          f"(load average {os.getloadavg()[0]:.2f})")
+    with tempfile.TemporaryDirectory() as tmp:
+        for signum in (signal.SIGINT, signal.SIGTERM, signal.SIGHUP):
+            runs = [_seconds_to_stop(signum, tmp) for _ in range(repeats)]
+            worst = max(s for s, _, _ in runs)
+            print(f"  {signal.Signals(signum).name}: {', '.join(f'{s:.2f} s (exit {c}, {r} rows)' for s, c, r in runs)}; "
+                  f"target under 2 s: {'meets' if worst < 2 else 'MISSES'}")
+
+
 if __name__ == "__main__":
     which = sys.argv[1] if len(sys.argv) > 1 else "all"
     for name, fn in (("overhead", overhead), ("reproducibility", reproducibility), ("sweep", sweep),
-                     ("busywait", busywait)):
+                     ("busywait", busywait), ("signals", signals)):
         if which in (name, "all"):
             fn()

@@ -3,8 +3,10 @@
 from __future__ import annotations
 
 import argparse
+import signal
 import sys
 import time
+from contextlib import contextmanager
 
 from fftgauge.harness.cases import DTYPES, KINDS, NORMS
 from fftgauge.harness.cli import add_common_options, default_results_path, parse_choice_list
@@ -119,7 +121,9 @@ def run(args: argparse.Namespace) -> int:
     """Time the cases; print the tables; return 0, or 1 when a backend errored on a case.
 
     ``--json -`` writes the JSON to standard output once the run ends, and the tables to
-    standard error, so that standard output holds the JSON alone.
+    standard error, so that standard output holds the JSON alone. SIGINT, SIGTERM or SIGHUP
+    stop the run: what finished is written (``complete`` false), the summary printed, and
+    the exit code is 128 + the signal's number (130, 143, 129).
     """
     req = request_from_args(args)
     if args.plot:
@@ -130,17 +134,73 @@ def run(args: argparse.Namespace) -> int:
     path = None if to_stdout else args.json or default_results_path("time")
     out = sys.stderr if to_stdout else sys.stdout
     started = time.perf_counter()
-    doc = run_timing(req, json_path=path, quiet=args.quiet)
+    doc: dict = {}
+    try:
+        with stop_signals():
+            run_timing(req, json_path=path, quiet=args.quiet, doc=doc)
+    except (KeyboardInterrupt, StopRequested) as exc:
+        return _stopped(doc, args, path, out, exc)
     elapsed = time.perf_counter() - started
     print(summary_text(doc), file=out)
-    if to_stdout:
-        write_output(STDOUT_PATH, dumps(doc))
-    if args.csv:
-        write_csv(doc, args.csv)
-    written = [path or "standard output"] + ([args.csv] if args.csv else [])
+    written = _write_outputs(doc, args, path)
     if args.plot:
         from fftgauge.harness.report.plots import plot_time
         written.append(plot_time(doc["rows"], args.plot))
     print(f"\nthreads {req.threads}; seed {req.seed}; {len(doc['rows'])} rows in {elapsed:.1f} s; "
           f"written to {', '.join(written)}", file=out)
     return 1 if any(r.get("status") == "error" for r in doc["rows"]) else 0
+
+
+class StopRequested(BaseException):
+    """Interim (until the shared shutdown module lands): SIGTERM or SIGHUP during the run; a
+    BaseException, like KeyboardInterrupt, so that no ``except Exception`` swallows it."""
+
+    def __init__(self, signum: int):
+        super().__init__(signal.Signals(signum).name)
+        self.signum = signum
+
+
+def signal_number(exc: BaseException) -> int:
+    """Return the signal behind ``exc``: its ``signum``, SIGINT for KeyboardInterrupt."""
+    return int(getattr(exc, "signum", signal.SIGINT))
+
+
+@contextmanager
+def stop_signals():
+    """Interim: raise :class:`StopRequested` on SIGTERM and SIGHUP inside the block (SIGINT
+    raises KeyboardInterrupt already); the previous handlers come back after it."""
+    def handler(signum, frame):
+        raise StopRequested(signum)
+
+    names = [n for n in ("SIGTERM", "SIGHUP") if hasattr(signal, n)]
+    previous = {n: signal.signal(getattr(signal, n), handler) for n in names}
+    try:
+        yield
+    finally:
+        for n, h in previous.items():
+            signal.signal(getattr(signal, n), h)
+
+
+def _write_outputs(doc: dict, args: argparse.Namespace, path: str | None) -> list[str]:
+    """Write the JSON to standard output when asked (the file was streamed already) and the
+    CSV; return what was written."""
+    if path is None:
+        write_output(STDOUT_PATH, dumps(doc))
+    if args.csv:
+        write_csv(doc, args.csv)
+    return [path or "standard output"] + ([args.csv] if args.csv else [])
+
+
+def _stopped(doc: dict, args: argparse.Namespace, path: str | None, out, exc: BaseException) -> int:
+    """Print the summary of a run stopped by a signal, write what finished; return 128 + signal."""
+    signum = signal_number(exc)
+    name = signal.Signals(signum).name
+    if not doc.get("schema"):
+        print(f"fftgauge: stopped by {name} before the first case; nothing written", file=sys.stderr)
+        return 128 + signum
+    if doc["rows"]:
+        print(summary_text(doc), file=out)
+    written = _write_outputs(doc, args, path)
+    print(f"\nfftgauge: stopped by {name}: {len(doc['rows'])} rows finished, written to {', '.join(written)} "
+          f"(marked complete: false)", file=sys.stderr)
+    return 128 + signum

@@ -94,10 +94,15 @@ def _time_round(worker: Any, label: str, case: Case, req: TimingRequest, round_i
         return placeholder_row(label, case, req.threads, "error", str(exc))
 
 
-def run_timing(req: TimingRequest, json_path: str | None = None, quiet: bool = True) -> dict[str, Any]:
+def run_timing(req: TimingRequest, json_path: str | None = None, quiet: bool = True,
+               doc: dict[str, Any] | None = None) -> dict[str, Any]:
     """Time every case of ``req`` on every backend; return the ``fftgauge-time/1`` document.
 
-    Rows are streamed to ``json_path`` as they finish.
+    Rows are streamed to ``json_path`` as they finish. The envelope's ``complete`` is false
+    until the last case is done: a run stopped by an exception (Ctrl-C's KeyboardInterrupt,
+    a signal turned into an exception, a failure) leaves the file, and ``doc`` when given
+    (filled in place, rows sorted), holding the cases that finished with ``complete`` false,
+    and the exception propagates.
 
     Raises
     ------
@@ -106,29 +111,32 @@ def run_timing(req: TimingRequest, json_path: str | None = None, quiet: bool = T
     """
     from fftgauge.harness.timing.affinity import pinned
 
+    doc = {} if doc is None else doc
     with pinned(req.cpus) as cpus:
-        return _run_timing_pinned(req, json_path, quiet, cpus)
+        return _run_timing_pinned(req, json_path, quiet, cpus, doc)
 
 
 def _run_timing_pinned(req: TimingRequest, json_path: str | None, quiet: bool,
-                       cpus: tuple[int, ...] | None) -> dict[str, Any]:
+                       cpus: tuple[int, ...] | None, doc: dict[str, Any]) -> dict[str, Any]:
     """:func:`run_timing`'s body, run with this thread pinned to ``cpus`` (recorded in the document)."""
     from fftgauge.harness.execution.worker import Worker
 
     kinds = req.kinds or KINDS
     cases = [Case(k, d, n, norm) for k in kinds for d in req.dtypes for norm in req.norms for n in req.sizes]
     workers = {spec: Worker(spec, threads=req.threads) for spec in req.specs}
+    position: dict[str, int] = {}
     try:
         claims = {spec: describe_cases(workers[spec], spec, cases, req.max_n_pure_python, req.timeout_seconds)
                   for spec in req.specs}
         require_unique_labels({spec: claims[spec].label for spec in req.specs})
-        doc = envelope(TIME_SCHEMA, req.seed, extra={
-            "threads": req.threads, "pinned_cpus": list(cpus) if cpus else None,
+        position.update({claims[spec].label: i for i, spec in enumerate(req.specs)})
+        doc.update(envelope(TIME_SCHEMA, req.seed, extra={
+            "complete": False, "threads": req.threads, "pinned_cpus": list(cpus) if cpus else None,
             "backends": {claims[s].label: claims[s].record(s) for s in req.specs},
             "request": {"kinds": list(kinds), "dtypes": list(req.dtypes), "norms": list(req.norms),
                         "sizes": list(req.sizes), "samples": req.samples, "budget_seconds": req.budget_seconds,
                         "cold_cache": req.cold_cache, "rounds": req.rounds},
-        })
+        }))
         writer = ResultsWriter(json_path, doc)
         progress = Progress(total=len(cases) * len(req.specs), quiet=quiet, desc="timing")
         order = random.Random(req.seed)
@@ -136,14 +144,15 @@ def _run_timing_pinned(req: TimingRequest, json_path: str | None, quiet: bool,
             for first in range(0, len(cases), WINDOW_CASES):
                 window = list(range(first, min(first + WINDOW_CASES, len(cases))))
                 _time_window(window, cases, claims, workers, req, order, writer, progress)
+            doc["complete"] = True
         finally:
             progress.close()
+            doc["rows"].sort(key=lambda r: (KINDS.index(r["kind"]), r["dtype"], r["norm"], r["n"],
+                                            position[r["backend"]]))
             writer.close()
     finally:
         for worker in workers.values():
             worker.close()
-    position = {claims[spec].label: i for i, spec in enumerate(req.specs)}
-    doc["rows"].sort(key=lambda r: (KINDS.index(r["kind"]), r["dtype"], r["norm"], r["n"], position[r["backend"]]))
     return doc
 
 
