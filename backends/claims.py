@@ -14,16 +14,13 @@ from dataclasses import asdict, dataclass, field, replace
 from typing import Any, Mapping
 
 from fftgauge.harness.cases import DTYPES, KINDS, NORMS, is_power_of_two
+# The declared conventions' vocabularies live with the conventions themselves (harness/dft.py:
+# SIGNS, the exponent signs of the forward transform; SCALES, the factors on the plain sum;
+# ORDERS, natural, bit-reversed and centred output), which also converts a reference to them.
+from fftgauge.harness.dft import ORDERS, SCALES, SIGNS  # noqa: F401 - re-exported
 
 #: Size forms a rule states: every size, or powers of two only.
 SIZE_FORMS = ("any", "pow2")
-#: Exponent signs of the forward transform: numpy's (-1) and the opposite one.
-SIGNS = (-1, 1)
-#: Scale factors a routine may apply to the plain (unscaled) sum: none, 1/N, 1/sqrt(N).
-SCALES = ("1", "1/n", "1/sqrt(n)")
-#: Output orders of a complex transform: natural (k = 0..N-1), bit-reversed (radix-2 DIT
-#: without its final reordering), centred (DC at index N//2, numpy.fft.fftshift's order).
-ORDERS = ("natural", "bit-reversed", "centred")
 #: Layouts of a real transform's half spectrum (docs/reference.md has a table of each):
 #: ``complex`` numpy's N//2 + 1 complex values; ``dc-nyquist`` N reals (Re X0, Re X[N/2],
 #: Re X1, Im X1, ..., Re X[N/2-1], Im X[N/2-1]), DC and Nyquist sharing the first pair (even N);

@@ -197,3 +197,85 @@ def machine_epsilon(dtype: str) -> float:
         For an unknown precision.
     """
     return 2.0 * unit_roundoff(dtype)
+
+
+# -- declared conventions ------------------------------------------------------------------------
+
+#: Exponent signs of the forward transform: numpy's (-1) and the opposite one.
+SIGNS = (-1, 1)
+#: Factors a routine may apply to the plain (unscaled) sum.
+SCALES = ("1", "1/n", "1/sqrt(n)")
+#: Output orders of a complex transform: natural, bit-reversed (a radix-2 FFT without its
+#: reordering), centred (DC at index n // 2, numpy.fft.fftshift's order).
+ORDERS = ("natural", "bit-reversed", "centred")
+
+_SCALE_POWERS = {"1": 0.0, "1/n": 1.0, "1/sqrt(n)": 0.5}
+
+
+def scale_factor(n: int, scale: str, real: Callable[[Any], Any] = float,
+                 sqrt: Callable[[Any], Any] = math.sqrt) -> Any:
+    """Return the factor a declared scale (one of :data:`SCALES`) stands for, in ``real``'s
+    number type (see :func:`norm_factor`).
+
+    Raises
+    ------
+    ValueError
+        For a scale not in :data:`SCALES`.
+    """
+    if scale not in _SCALE_POWERS:
+        raise ValueError(f"unknown scale {scale!r}; expected one of {', '.join(SCALES)}")
+    p = _SCALE_POWERS[scale]
+    one = real(1)
+    if p == 0.0:
+        return one
+    return one / real(n) if p == 1.0 else one / sqrt(real(n))
+
+
+def to_convention(y: np.ndarray, kind: str, n: int, norm: str = "backward", sign: int | None = None,
+                  scale: str | None = None, order: str | None = None) -> np.ndarray:
+    """Return ``y``, the output of ``kind`` in numpy's convention with ``norm`` (natural order),
+    as a routine with the declared convention gives it; None keeps numpy's for that field.
+
+    ``sign``: the exponent sign of the routine's *forward* transform (+1: the opposite of
+    numpy's). A complex output then comes reversed in frequency, ``Y[-k mod n]``; an rfft
+    half spectrum conjugated; an irfft signal reversed in time, ``y[-j mod n]`` (the DFT's
+    definition: the opposite sign of a real signal's spectrum is its conjugate).
+    ``scale``: the factor the routine applies to the plain sum of this kind (one of
+    :data:`SCALES`), in place of the one ``norm`` asks for (:func:`norm_factor`).
+    ``order``: for ``fft`` and ``ifft`` outputs, ``bit-reversed`` (n a power of two, entry
+    ``i`` is ``Y[rev(i)]``) or ``centred`` (``numpy.fft.fftshift(Y)``).
+
+    The result has ``y``'s dtype; the scale is applied in long double for long double arrays.
+
+    Raises
+    ------
+    ValueError
+        For an unknown kind, sign, scale or order, an order on a real kind, or
+        ``bit-reversed`` at a size that is not a power of two.
+    """
+    if kind not in ("fft", "ifft", "rfft", "irfft"):
+        raise ValueError(f"unknown transform kind {kind!r}")
+    if sign is not None and sign not in SIGNS:
+        raise ValueError(f"sign must be -1 or 1, got {sign!r}")
+    if order is not None and order not in ORDERS:
+        raise ValueError(f"unknown output order {order!r}; expected one of {', '.join(ORDERS)}")
+    if order not in (None, "natural") and kind in ("rfft", "irfft"):
+        raise ValueError(f"an output order applies to complex outputs (fft, ifft), not to {kind}")
+    y = np.asarray(y)
+    out = y.copy()
+    if sign == 1:
+        if kind == "rfft":
+            out = np.conj(out)
+        else:
+            out = out[(-np.arange(n)) % n]
+    if scale is not None:
+        inverse = kind in ("ifft", "irfft")
+        wide = y.dtype in (np.dtype(np.longdouble), np.dtype(np.clongdouble))
+        real, root = (np.longdouble, np.sqrt) if wide else (float, math.sqrt)
+        factor = scale_factor(n, scale, real, root) / norm_factor(n, norm, inverse, real, root)
+        out = (out * factor).astype(y.dtype)
+    if order == "bit-reversed":
+        out = out[bit_reversal_permutation(n)]
+    elif order == "centred":
+        out = np.roll(out, n // 2)  # numpy.fft.fftshift's order: a roll by n // 2
+    return out

@@ -109,3 +109,72 @@ def test_epsilon_and_unit_roundoff_are_numpys(name, dtype):
 def test_size_label():
     assert [dft.size_label(n) for n in (1, 2, 1024, 1000, 3)] == ["1", "2^1", "2^10", "1000", "3"]
     assert dft.size_label(1 << 20, mathtext=True) == "$2^{20}$"
+
+
+# -- declared conventions (sources: numpy.fft, the DFT's definition, the N = 8 table above) -------
+
+def _signal(n, seed=3):
+    rng = np.random.default_rng(seed)
+    return rng.standard_normal(n) + 1j * rng.standard_normal(n)
+
+
+@pytest.mark.parametrize("n", [1, 2, 7, 8])
+def test_opposite_sign_of_each_kind(n):
+    """The +j forward transform of x is n ifft(x) (numpy.fft.ifft's definition); its inverse is
+    n^-1 times the -j sum; rfft's half is conjugated; irfft's output is reversed in time."""
+    x = _signal(n)
+    np.testing.assert_allclose(dft.to_convention(np.fft.fft(x), "fft", n, sign=1), n * np.fft.ifft(x), atol=1e-12)
+    np.testing.assert_allclose(dft.to_convention(np.fft.ifft(x), "ifft", n, sign=1), np.fft.fft(x) / n, atol=1e-13)
+    np.testing.assert_allclose(dft.to_convention(np.fft.rfft(x.real), "rfft", n, sign=1),
+                               (n * np.fft.ifft(x.real))[: n // 2 + 1], atol=1e-12)
+    half = np.fft.rfft(x.real)
+    want = (np.fft.fft(dft.hermitian_full(half, n)) / n).real  # the -j sum, scaled by 1/n
+    np.testing.assert_allclose(dft.to_convention(np.fft.irfft(half, n), "irfft", n, sign=1), want, atol=1e-12)
+
+
+@pytest.mark.parametrize("scale, norm", [("1/n", "forward"), ("1/sqrt(n)", "ortho"), ("1", "backward")])
+def test_declared_forward_scale_is_numpys_norm(scale, norm):
+    n = 12
+    x = _signal(n)
+    for kind_norm in dft.NORMS:
+        got = dft.to_convention(np.fft.fft(x, norm=kind_norm), "fft", n, kind_norm, scale=scale)
+        np.testing.assert_allclose(got, np.fft.fft(x, norm=norm), rtol=1e-13)
+
+
+def test_declared_inverse_scale_and_long_double():
+    n = 10
+    x = _signal(n)
+    np.testing.assert_allclose(dft.to_convention(np.fft.ifft(x), "ifft", n, scale="1"), np.fft.ifft(x, norm="forward"),
+                               rtol=1e-13)
+    y = np.fft.ifft(x).astype(np.clongdouble)
+    assert dft.to_convention(y, "ifft", n, scale="1/sqrt(n)").dtype == np.dtype(np.clongdouble)
+
+
+def test_output_orders():
+    """bit-reversed: entry i is Y[rev(i)] (the N = 8 table); centred: numpy.fft.fftshift."""
+    x = _signal(8)
+    y = np.fft.fft(x)
+    assert np.array_equal(dft.to_convention(y, "fft", 8, order="bit-reversed"), y[[0, 4, 2, 6, 1, 5, 3, 7]])
+    for n in (7, 8):
+        y = np.fft.fft(_signal(n))
+        assert np.array_equal(dft.to_convention(y, "fft", n, order="centred"), np.fft.fftshift(y))
+    assert np.array_equal(dft.to_convention(y, "fft", 8, order="natural"), y)
+
+
+def test_conventions_compose_sign_scale_then_order():
+    """A +j, 1/n-scaled, centred routine: fftshift(ifft(x)) (numpy.fft.ifft is the +j sum over n)."""
+    x = _signal(16)
+    got = dft.to_convention(np.fft.fft(x), "fft", 16, sign=1, scale="1/n", order="centred")
+    np.testing.assert_allclose(got, np.fft.fftshift(np.fft.ifft(x)), atol=1e-14)
+
+
+@pytest.mark.parametrize("kwargs, match", [({"sign": 2}, "sign"), ({"scale": "1/N^2"}, "unknown scale"),
+                                           ({"order": "reversed"}, "unknown output order"),
+                                           ({"order": "centred", "kind": "rfft"}, "complex outputs")])
+def test_bad_conventions_are_refused(kwargs, match):
+    kind = kwargs.pop("kind", "fft")
+    with pytest.raises(ValueError, match=match):
+        dft.to_convention(np.zeros(5, dtype=complex) if kind == "fft" else np.zeros(3, dtype=complex), kind, 5,
+                          **kwargs)
+    with pytest.raises(ValueError, match="power of two"):
+        dft.to_convention(np.zeros(6, dtype=complex), "fft", 6, order="bit-reversed")
