@@ -85,3 +85,14 @@ def test_time_json_dash_writes_json_to_standard_output(tmp_path):
     assert doc["schema"] == "fftgauge-time/1" and sorted(r["n"] for r in doc["rows"]) == [16, 32]
     assert "written to standard output" in out.stderr
     assert not (tmp_path / "-").exists()
+
+
+def test_rate_of_a_row_without_its_own_rate_uses_the_conventional_count():
+    """5 N log2 N / seconds / 1e9 (common practice): N = 1024 at 10 us gives 5.12 GFLOP/s,
+    the real transform half of it; a row's own gflops field wins (by hand)."""
+    from fftgauge.harness.report.time_tables import rate_gflops
+
+    assert rate_gflops({"n": 1024, "kind": "fft", "seconds": 1e-5}) == 5.12
+    assert rate_gflops({"n": 1024, "kind": "rfft", "seconds": 1e-5}) == 2.56
+    assert rate_gflops({"n": 1024, "kind": "fft", "seconds": 1e-5, "gflops": 3.0}) == 3.0
+    assert rate_gflops({"n": 1, "kind": "fft", "seconds": 1e-5}) is None

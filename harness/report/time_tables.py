@@ -197,10 +197,10 @@ def rate_gflops(row: dict[str, Any]) -> float | None:
         return float(row["gflops"])
     if not row.get("seconds") or row["n"] < 2:
         return None
-    from fftgauge.harness.timing.opcount import pseudo_flops
+    from fftgauge.harness.timing.opcount import gflops, pseudo_flops
 
     flops = row.get("flops") or pseudo_flops(row["n"], row["kind"] in ("rfft", "irfft"))
-    return flops / row["seconds"] / 1e9
+    return gflops(flops, row["seconds"])
 
 
 #: Columns of :func:`timing_summary`.
