@@ -87,13 +87,15 @@ def norm_factor(n: int, norm: str, inverse: bool, real: Callable[[Any], Any] = f
     ValueError
         For a norm not in :data:`NORMS`.
     """
-    p = norm_power(norm, inverse)
+    return _power_factor(n, norm_power(norm, inverse), real, sqrt)
+
+
+def _power_factor(n: int, p: float, real: Callable[[Any], Any], sqrt: Callable[[Any], Any]) -> Any:
+    """Return ``n^-p`` for p in (0, 0.5, 1), each a correctly rounded operation in ``real``'s type."""
     one = real(1)
     if p == 0.0:
         return one
-    if p == 1.0:
-        return one / real(n)
-    return one / sqrt(real(n))
+    return one / real(n) if p == 1.0 else one / sqrt(real(n))
 
 
 # -- real transforms: the half spectrum ---------------------------------------------------------
@@ -224,11 +226,7 @@ def scale_factor(n: int, scale: str, real: Callable[[Any], Any] = float,
     """
     if scale not in _SCALE_POWERS:
         raise ValueError(f"unknown scale {scale!r}; expected one of {', '.join(SCALES)}")
-    p = _SCALE_POWERS[scale]
-    one = real(1)
-    if p == 0.0:
-        return one
-    return one / real(n) if p == 1.0 else one / sqrt(real(n))
+    return _power_factor(n, _SCALE_POWERS[scale], real, sqrt)
 
 
 def to_convention(y: np.ndarray, kind: str, n: int, norm: str = "backward", sign: int | None = None,
