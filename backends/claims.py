@@ -299,6 +299,11 @@ class BackendClaims:
         """The backend's capabilities (conventions declared in its SPEC included)."""
         return self.description.capabilities
 
+    def claims_kind(self, kind: str) -> bool:
+        """Return True when the backend computes ``kind`` at all: a case of a kind it never
+        claimed is no finding of a run that did not name its kinds (no summary row)."""
+        return self.capabilities.claims_kind(kind)
+
     def record(self, spec: str) -> dict[str, Any]:
         """Return the entry of a results file's ``backends`` map: the SPEC and the description."""
         return {"spec": spec, **self.description.as_dict()}

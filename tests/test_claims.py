@@ -168,3 +168,12 @@ def test_an_unknown_convention_value_is_one_line_naming_it(option, fragment):
     with pytest.raises(UsageError) as info:
         load_backend(f"numpy[{option}]")
     assert fragment in str(info.value) and "\n" not in str(info.value)
+
+
+def test_the_claims_say_which_kinds_a_plain_callable_never_claimed():
+    from fftgauge.harness.execution import jobs
+
+    backend = load_backend(f"{SAMPLES}:numpy_forward+numpy_inverse")
+    claims = jobs.backend_claims(backend, [(k, "float64", 8, "backward") for k in ("fft", "ifft", "rfft")], None)
+    assert [claims.claims_kind(k) for k in ("fft", "ifft", "rfft", "irfft")] == [True, True, False, False]
+    assert claims.reasons[:2] == (None, None) and "does not compute rfft" in claims.reasons[2]
