@@ -6,7 +6,6 @@ from __future__ import annotations
 from typing import Any, Iterable
 
 from fftgauge.harness.cases import is_power_of_two
-from fftgauge.harness.dft import machine_epsilon
 from fftgauge.harness.errors import UsageError
 from fftgauge.harness.report.findings import bound_eps_units, machine_epsilon
 from fftgauge.harness.report.figures import (BOUND_COLOUR, FAIL_COLOUR, as_dicts, backend_colours, check_plot_path,

@@ -13,9 +13,7 @@ import re
 from dataclasses import dataclass
 from typing import Any, Iterable, Mapping
 
-import numpy as np
-
-from fftgauge.harness.cases import Case
+from fftgauge.harness.dft import machine_epsilon  # accuracy_plot imports it from here too
 
 #: What each diagnosis code means (the contract's vocabulary, "diagnosis" table, and the codes
 #: this project added, docs/reference.md); a code missing here is shown by its name alone.
@@ -34,14 +32,8 @@ DIAGNOSIS_MEANINGS = {
     "real-only": "the imaginary part of the input is ignored",
     "thread-unsafe": "results differ when the backend is called from several threads at once",
     "overflow": "only the largest outputs are wrong, some with their sign flipped: a fixed-point sum wrapped around",
-    "overflow": "wrap-around overflow: the largest outputs are wrong, some with the sign flipped",
     "unknown": "wrong, and none of the known bugs explains it",
 }
-
-
-def machine_epsilon(dtype: str) -> float:
-    """Machine epsilon of a real precision (IEEE Std 754-2019: 2^-23 binary32, 2^-52 binary64)."""
-    return float(np.finfo(Case("fft", dtype, 1).real_dtype).eps)
 
 
 def bound_eps_units(row: Mapping[str, Any]) -> float | None:
