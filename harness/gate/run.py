@@ -92,6 +92,9 @@ def build_items(req: GateRequest, sampler: Any, doc: dict[str, Any]) -> list[Gat
                            key=lambda c: (KINDS.index(c.kind), c.dtype, c.norm, c.n))
         claims = sampler.claims(spec, cases)
         label = claims.label
+        if label in doc["backends"]:  # two SPECs, one label: exit 2 naming it
+            from fftgauge.backends.registry import require_unique_labels
+            require_unique_labels({doc["backends"][label]["spec"]: label, spec: label})
         doc["backends"][label] = claims.record(spec)
         base_label = req.baseline_label or label
         if req.mode == "stored":
