@@ -177,3 +177,12 @@ def test_the_claims_say_which_kinds_a_plain_callable_never_claimed():
     claims = jobs.backend_claims(backend, [(k, "float64", 8, "backward") for k in ("fft", "ifft", "rfft")], None)
     assert [claims.claims_kind(k) for k in ("fft", "ifft", "rfft", "irfft")] == [True, True, False, False]
     assert claims.reasons[:2] == (None, None) and "does not compute rfft" in claims.reasons[2]
+
+
+def test_two_gate_backends_with_one_label_exit_2_naming_it(tmp_path):
+    done = subprocess.run([sys.executable, "-m", "fftgauge", "gate", "--backend", "numpy[label=x]",
+                           "--backend", "scipy[label=x]", "--sizes", "8", "--kinds", "fft", "--dtypes", "float64",
+                           "--save", str(tmp_path / "saved"), "--quiet"],
+                          cwd=tmp_path, capture_output=True, text=True, timeout=300)
+    assert done.returncode == 2 and "Traceback" not in done.stderr
+    assert "have the same label 'x'" in done.stderr.strip().splitlines()[-1]
