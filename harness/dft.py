@@ -251,29 +251,62 @@ def to_convention(y: np.ndarray, kind: str, n: int, norm: str = "backward", sign
         For an unknown kind, sign, scale or order, an order on a real kind, or
         ``bit-reversed`` at a size that is not a power of two.
     """
-    if kind not in ("fft", "ifft", "rfft", "irfft"):
-        raise ValueError(f"unknown transform kind {kind!r}")
-    if sign is not None and sign not in SIGNS:
-        raise ValueError(f"sign must be -1 or 1, got {sign!r}")
-    if order is not None and order not in ORDERS:
-        raise ValueError(f"unknown output order {order!r}; expected one of {', '.join(ORDERS)}")
-    if order not in (None, "natural") and kind in ("rfft", "irfft"):
-        raise ValueError(f"an output order applies to complex outputs (fft, ifft), not to {kind}")
+    _check_convention(kind, sign, scale, order)
     y = np.asarray(y)
     out = y.copy()
     if sign == 1:
-        if kind == "rfft":
-            out = np.conj(out)
-        else:
-            out = out[(-np.arange(n)) % n]
+        out = np.conj(out) if kind == "rfft" else out[(-np.arange(n)) % n]
     if scale is not None:
-        inverse = kind in ("ifft", "irfft")
-        wide = y.dtype in (np.dtype(np.longdouble), np.dtype(np.clongdouble))
-        real, root = (np.longdouble, np.sqrt) if wide else (float, math.sqrt)
-        factor = scale_factor(n, scale, real, root) / norm_factor(n, norm, inverse, real, root)
-        out = (out * factor).astype(y.dtype)
+        out = (out * _rescale(y.dtype, kind, n, norm, scale)).astype(y.dtype)
     if order == "bit-reversed":
         out = out[bit_reversal_permutation(n)]
     elif order == "centred":
         out = np.roll(out, n // 2)  # numpy.fft.fftshift's order: a roll by n // 2
     return out
+
+
+def from_convention(y: np.ndarray, kind: str, n: int, norm: str = "backward", sign: int | None = None,
+                    scale: str | None = None, order: str | None = None) -> np.ndarray:
+    """Return the output in numpy's convention with ``norm`` (natural order) that a routine with
+    the declared convention gave as ``y``: the inverse of :func:`to_convention`, so that every
+    check applies to it unchanged (a convention other than the declared one stays visible).
+
+    Raises
+    ------
+    ValueError
+        As :func:`to_convention`.
+    """
+    _check_convention(kind, sign, scale, order)
+    y = np.asarray(y)
+    out = y.copy()
+    if order == "bit-reversed":
+        out = out[bit_reversal_permutation(n)]  # an involution
+    elif order == "centred":
+        out = np.roll(out, -(n // 2))  # numpy.fft.ifftshift's order
+    if scale is not None:
+        out = (out / _rescale(y.dtype, kind, n, norm, scale)).astype(y.dtype)
+    if sign == 1:
+        out = np.conj(out) if kind == "rfft" else out[(-np.arange(n)) % n]
+    return out
+
+
+def _check_convention(kind: str, sign: int | None, scale: str | None, order: str | None) -> None:
+    """Raise ValueError for an unknown kind, sign, scale or order, or an order on a real kind."""
+    if kind not in ("fft", "ifft", "rfft", "irfft"):
+        raise ValueError(f"unknown transform kind {kind!r}")
+    if sign is not None and sign not in SIGNS:
+        raise ValueError(f"sign must be -1 or 1, got {sign!r}")
+    if scale is not None and scale not in SCALES:
+        raise ValueError(f"unknown scale {scale!r}; expected one of {', '.join(SCALES)}")
+    if order is not None and order not in ORDERS:
+        raise ValueError(f"unknown output order {order!r}; expected one of {', '.join(ORDERS)}")
+    if order not in (None, "natural") and kind in ("rfft", "irfft"):
+        raise ValueError(f"an output order applies to complex outputs (fft, ifft), not to {kind}")
+
+
+def _rescale(dtype: np.dtype, kind: str, n: int, norm: str, scale: str) -> Any:
+    """Return the declared ``scale`` over the factor ``norm`` asks for, in long double for long double arrays."""
+    inverse = kind in ("ifft", "irfft")
+    wide = dtype in (np.dtype(np.longdouble), np.dtype(np.clongdouble))
+    real, root = (np.longdouble, np.sqrt) if wide else (float, math.sqrt)
+    return scale_factor(n, scale, real, root) / norm_factor(n, norm, inverse, real, root)

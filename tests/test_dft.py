@@ -178,3 +178,30 @@ def test_bad_conventions_are_refused(kwargs, match):
                           **kwargs)
     with pytest.raises(ValueError, match="power of two"):
         dft.to_convention(np.zeros(6, dtype=complex), "fft", 6, order="bit-reversed")
+
+
+CONVENTIONS = [(1, None, None), (None, "1/n", None), (None, "1/sqrt(n)", None), (1, "1", "bit-reversed"),
+               (None, None, "centred"), (1, "1/n", "centred")]
+
+
+@pytest.mark.parametrize("kind, sign, scale, order", [(kind, *c) for kind in ("fft", "ifft", "rfft", "irfft")
+                                                      for c in CONVENTIONS if c[2] is None or kind in ("fft", "ifft")])
+def test_from_convention_undoes_to_convention(kind, sign, scale, order):
+    n = 16
+    x = _signal(n)
+    y = {"fft": np.fft.fft(x), "ifft": np.fft.ifft(x), "rfft": np.fft.rfft(x.real),
+         "irfft": np.fft.irfft(x[: n // 2 + 1], n)}[kind]
+    declared = dft.to_convention(y, kind, n, "ortho", sign, scale, order)
+    np.testing.assert_allclose(dft.from_convention(declared, kind, n, "ortho", sign, scale, order), y, rtol=1e-14,
+                               atol=1e-15)
+
+
+def test_from_convention_leaves_a_different_convention_visible():
+    """Declared 1/n but scaled by 1/sqrt(n): undoing the declared 1/n leaves a factor sqrt(n)."""
+    n = 16
+    x = _signal(n)
+    actual = np.fft.fft(x, norm="ortho")
+    back = dft.from_convention(actual, "fft", n, "backward", scale="1/n")
+    np.testing.assert_allclose(back, np.sqrt(n) * np.fft.fft(x), rtol=1e-13)
+    with pytest.raises(ValueError, match="unknown scale"):
+        dft.from_convention(actual, "fft", n, scale="n")
