@@ -452,3 +452,32 @@ def test_concurrent_threads_run_under_the_callers_thread_caps():
 
         assert thread_crew().run([task], timeout_seconds=30)
     assert seen and all(v == 1 for v in seen[0])
+
+
+def test_mkl_fft_passes_concurrent_where_installed(monkeypatch):
+    """Intel MKL (mkl_fft) sums in an order set by its thread count: capped at one thread in the
+    calling thread and left at its default in the check's threads (the caps not carried, as
+    before), its results differ bitwise but within rounding, and concurrent passes; with the
+    caps carried into the threads they agree bitwise. Skipped where mkl_fft is not installed."""
+    mkl_fft = pytest.importorskip("mkl_fft")
+    from threadpoolctl import threadpool_limits
+
+    from fftgauge.backends.base import Backend, Capabilities, FunctionPlan
+    from fftgauge.harness.battery import behaviour_checks
+
+    class Mkl(Backend):
+        name = "mkl_fft"
+
+        def capabilities(self):
+            return Capabilities(kinds=("fft",), dtypes=("float32", "float64"))
+
+        def plan(self, case):
+            return FunctionPlan(case, lambda x: mkl_fft.fft(x, norm=case.norm))
+
+    case = Case("fft", "float64", 16384)
+    with threadpool_limits(limits=1, user_api="blas"):
+        carried = check_case(Mkl(), case, 1, ["concurrent"])[0]
+        monkeypatch.setattr(behaviour_checks, "thread_caps", lambda: ())
+        default_threads = check_case(Mkl(), case, 1, ["concurrent"])[0]
+    assert carried.status == "pass" and carried.value == 0.0, carried.message
+    assert default_threads.status == "pass", default_threads.message
