@@ -90,7 +90,7 @@ def __dir__() -> list[str]:
 def check(backends: Sequence[str] | None = None, sizes: str | None = None, kinds=None, dtypes=None,
           norms=None, checks=None, seed: int = 1234, json_path: str | None = None,
           timeout_seconds: float | None = None, threads: int | None = None,
-          pure_python_max_n: int | None = None):
+          pure_python_max_n: int | None = None, limits=None, limits_file: str | None = None):
     """Run the correctness battery and return its rows as a pandas DataFrame.
 
     Parameters mirror ``fftgauge check`` and are validated by the same request builder
@@ -98,12 +98,14 @@ def check(backends: Sequence[str] | None = None, sizes: str | None = None, kinds
     ``backends`` are SPEC strings (default: every available built-in), ``sizes`` uses the
     ``--sizes`` grammar (default ``@default``), ``kinds``/``dtypes``/``norms``/``checks`` are
     lists or comma strings. The full document (envelope and rows) is written to ``json_path``
-    when given.
+    when given. ``limits`` are the user's pass criteria instead of the built-in bounds (a mapping
+    ``{"accuracy": "8 eps"}`` or ``--limit`` strings), ``limits_file`` a TOML file of them
+    (docs/reference.md, "User limits"); the rows record the limit used in ``limit_source``.
 
     Raises
     ------
     fftgauge.harness.errors.UsageError
-        For an unknown backend, a malformed size list or an unknown kind/dtype/check.
+        For an unknown backend, a malformed size list, an unknown kind/dtype/check or a bad limit.
     """
     from fftgauge.harness.battery.request import DEFAULT_CASE_TIMEOUT_SECONDS, build_request
     from fftgauge.harness.battery.run import run_battery
@@ -112,6 +114,6 @@ def check(backends: Sequence[str] | None = None, sizes: str | None = None, kinds
     req = build_request(backends=backends, sizes=sizes, kinds=kinds, dtypes=dtypes, norms=norms, checks=checks,
                         seed=seed, threads=threads,
                         timeout_seconds=DEFAULT_CASE_TIMEOUT_SECONDS if timeout_seconds is None else timeout_seconds,
-                        pure_python_max_n=pure_python_max_n)
+                        pure_python_max_n=pure_python_max_n, limits=limits, limits_file=limits_file)
     doc = run_battery(req, json_path=json_path, quiet=True)
     return rows_frame(doc["rows"])

@@ -14,7 +14,7 @@ STATUSES = ("pass", "fail", "error", "skip")
 
 DIAGNOSES = (
     "sign", "scale", "bit-reversed", "shifted", "precision", "truncated-size", "input-modified",
-    "nondeterministic", "dtype", "shape", "nonfinite", "real-only", "thread-unsafe", "overflow", "unknown",
+    "nondeterministic", "dtype", "shape", "nonfinite", "real-only", "thread-unsafe", "overflow", "user-limit", "unknown",
 )
 
 
@@ -42,6 +42,12 @@ class CheckRow:
     message: str = ""
     norm: str = "backward"
     reference: str | None = None
+    #: Where ``limit`` came from: ``bound`` (the check's built-in bound) or ``user`` (a
+    #: ``--limit``/``--limits`` criterion, :mod:`fftgauge.harness.battery.criteria`); None without a limit.
+    limit_source: str | None = None
+    #: With a user limit: the built-in bound it replaced, and the bound's diagnosis of a row it fails.
+    bound_limit: float | None = None
+    bound_diagnosis: str | None = None
 
     def as_dict(self) -> dict[str, Any]:
         """Return the row as a JSON-able dict (contract field order first)."""

@@ -239,7 +239,8 @@ class CheckContext:
         return CheckRow(backend=self.label, kind=self.case.kind, dtype=self.case.dtype, n=self.case.n,
                         check=check, status=status, value=value, limit=limit, eps_units=eps_units,
                         diagnosis=diagnosis if status == "fail" else None, message=message,
-                        norm=self.case.norm, reference=reference)
+                        norm=self.case.norm, reference=reference,
+                        limit_source="bound" if limit is not None else None)
 
     def diagnose(self, x: np.ndarray, y: np.ndarray) -> tuple[str, str]:
         """Return ``diagnose(case, x, y)``; a diagnosis that itself fails gives ``unknown``."""

@@ -44,6 +44,8 @@ class BatteryRequest:
     threads: int | None = None
     timeout_seconds: float = DEFAULT_CASE_TIMEOUT_SECONDS
     max_n_pure_python: int | None = None
+    #: The user's pass criteria (:func:`fftgauge.harness.battery.criteria.build_limits`); empty: the built-in bounds.
+    limits: tuple = ()
 
 
 def choice_list(value: str | Sequence[str] | None, allowed: Sequence[str], what: str) -> tuple[str, ...] | None:
@@ -66,7 +68,8 @@ def build_request(backends: Sequence[str] | None = None, sizes: str | None = Non
                   norms: str | Sequence[str] | None = None, checks: str | Sequence[str] | None = None,
                   seed: int = 1234, threads: int | None = None,
                   timeout_seconds: float = DEFAULT_CASE_TIMEOUT_SECONDS,
-                  pure_python_max_n: int | None = None) -> BatteryRequest:
+                  pure_python_max_n: int | None = None, limits=None,
+                  limits_file: str | None = None) -> BatteryRequest:
     """Return the validated :class:`BatteryRequest` for these arguments.
 
     Parameters
@@ -80,15 +83,19 @@ def build_request(backends: Sequence[str] | None = None, sizes: str | None = Non
     timeout_seconds : seconds one case may take before its worker is killed.
     pure_python_max_n : largest size given to the pure-Python references; None:
         :data:`DEFAULT_PURE_PYTHON_MAX_N` when ``sizes`` is not given, else no limit; 0: no limit.
+    limits, limits_file : the user's pass criteria: ``--limit`` strings or a mapping
+        ``{check: "AMOUNT UNIT"}``, and a TOML file of them
+        (:func:`fftgauge.harness.battery.criteria.build_limits`).
 
     Raises
     ------
     UsageError
         For a malformed size list, an unknown kind/dtype/norm/check, a non-positive timeout or
-        thread count, or a negative size limit (the message names the value).
+        thread count, a negative size limit, or a bad pass criterion (the message names the value).
     """
     from fftgauge.backends.registry import default_specs
     from fftgauge.harness.battery.checks import CHECKS
+    from fftgauge.harness.battery.criteria import build_limits
     from fftgauge.harness.sizes import parse_sizes
 
     if not timeout_seconds > 0:
@@ -111,4 +118,5 @@ def build_request(backends: Sequence[str] | None = None, sizes: str | None = Non
         threads=threads,
         timeout_seconds=float(timeout_seconds),
         max_n_pure_python=limit or None,
+        limits=build_limits(limits, limits_file),
     )

@@ -188,6 +188,7 @@ def _run_lane(lane: _Lane, batches: BatchQueue, cases: list[Case], req: BatteryR
     """Take batches from ``batches`` until it has none for this lane, passing rows to ``sink``
     as they come; closes the lane's worker."""
     from fftgauge.harness.battery.checks import CHECKS
+    from fftgauge.harness.battery.criteria import apply_limits
 
     names = list(check_names or CHECKS)
     try:
@@ -200,7 +201,7 @@ def _run_lane(lane: _Lane, batches: BatchQueue, cases: list[Case], req: BatteryR
                                        req.threads or 1, timeout_seconds=req.timeout_seconds)
                 except BackendFailure as exc:
                     rows = [row.as_dict() for row in error_rows(batch.label, case, names, str(exc))]
-                sink.add(rows)
+                sink.add(apply_limits(rows, req.limits))
                 progress.advance(note=f"{batch.label} {case.label()}")
     finally:
         lane.close()
@@ -269,7 +270,8 @@ def run_battery(req: BatteryRequest, json_path: str | None = None, quiet: bool =
             "reference": {dtype: reference_method(dtype) for dtype in req.dtypes},
             "backends": {claims[s].label: claims[s].record(s) for s in req.specs},
             "request": {"kinds": list(kinds), "dtypes": list(req.dtypes), "norms": list(req.norms),
-                        "sizes": list(req.sizes), "checks": check_names or list(CHECKS)},
+                        "sizes": list(req.sizes), "checks": check_names or list(CHECKS),
+                        **({"limits": {lim.check: lim.as_dict() for lim in req.limits}} if req.limits else {})},
         })
         writer = ResultsWriter(json_path, doc)
         writer.add(_skip_rows(req, claims, cases))

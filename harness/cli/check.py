@@ -18,6 +18,7 @@ from fftgauge.harness.cli import add_common_options, default_results_path
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     """Add this sub-command's options to ``parser``."""
     add_common_options(parser, "backend", "kinds", "dtypes", "sizes", "seed", "json", "quiet", "threads")
+    add_criteria_and_outputs(parser)
     parser.add_argument("--norms", metavar="LIST", help="comma list of backward, ortho, forward (default backward)")
     parser.add_argument("--checks", metavar="LIST", help="comma list of checks to run (default: all)")
     parser.add_argument("--timeout", type=float, default=DEFAULT_CASE_TIMEOUT_SECONDS, metavar="SECONDS",
@@ -39,7 +40,8 @@ def request_from_args(args: argparse.Namespace) -> BatteryRequest:
     """
     return build_request(backends=args.backend, sizes=args.sizes, kinds=args.kinds, dtypes=args.dtypes,
                          norms=args.norms, checks=args.checks, seed=args.seed, threads=args.threads,
-                         timeout_seconds=args.timeout, pure_python_max_n=args.pure_python_max_n)
+                         timeout_seconds=args.timeout, pure_python_max_n=args.pure_python_max_n,
+                         limits=args.limit, limits_file=args.limits)
 
 
 def run(args: argparse.Namespace) -> int:
@@ -47,15 +49,43 @@ def run(args: argparse.Namespace) -> int:
     from fftgauge.harness.battery.run import run_battery
     from fftgauge.harness.report.check_tables import format_summary, rows_frame
 
+    from fftgauge.harness.battery.criteria import limit_notes
+    from fftgauge.harness.report.check_outputs import stdout_output, write_check_outputs
+
     req = request_from_args(args)
+    out = sys.stderr if stdout_output(output_paths(args)) else sys.stdout
     path = args.json or default_results_path("check")
     started = time.perf_counter()
     doc = run_battery(req, json_path=path, quiet=args.quiet)
     elapsed = time.perf_counter() - started
     df = rows_frame(doc["rows"])
-    print(format_summary(df))
+    print(format_summary(df), file=out)
+    for note in limit_notes(doc["rows"], doc["request"].get("limits")):
+        print(f"note: {note}", file=out)
+    written = [path] + write_check_outputs(doc, junit=args.junit, markdown=args.markdown, csv=args.csv)
     refs = ", ".join(f"{method} for {dtype}" for dtype, method in doc["reference"].items())
-    print(f"\nreference: {refs}; seed {req.seed}; {len(df)} rows in {elapsed:.1f} s; written to {path}",
-          file=sys.stdout)
+    print(f"\nreference: {refs}; seed {req.seed}; {len(df)} rows in {elapsed:.1f} s; written to {', '.join(written)}",
+          file=out)
     bad = df["status"].isin(["fail", "error"]).any() if not df.empty else False
     return 1 if bad else 0
+
+
+def add_criteria_and_outputs(parser: argparse.ArgumentParser) -> None:
+    """Add the user's pass criteria (``--limit``, ``--limits``) and the CI outputs (``--junit``,
+    ``--markdown``, ``--csv``) to ``parser``."""
+    parser.add_argument("--limit", action="append", metavar="[CHECK=]LIMIT",
+                        help="your pass criterion instead of the built-in bound, repeatable: CHECK=8eps, "
+                             "CHECK=1e-3rel, CHECK=-90dB, accuracy=1e-6abs@RMS (absolute rms error for an input of "
+                             "rms RMS); CHECK all or left out: every value check")
+    parser.add_argument("--limits", metavar="FILE", help='TOML file of criteria: a [limits] table of CHECK = "8 eps" '
+                                                         "(--limit entries win)")
+    parser.add_argument("--junit", metavar="PATH", help="write a JUnit XML report (one test case per backend x kind "
+                                                        "x precision x check; - for standard output)")
+    parser.add_argument("--markdown", metavar="PATH", help="write a Markdown summary for a pull-request comment "
+                                                           "(- for standard output)")
+    parser.add_argument("--csv", metavar="PATH", help="write every row as CSV (- for standard output)")
+
+
+def output_paths(args: argparse.Namespace) -> dict[str, str | None]:
+    """Return the outputs asked for: option name -> path (None when not asked)."""
+    return {"json": args.json, "junit": args.junit, "markdown": args.markdown, "csv": args.csv}

@@ -32,6 +32,7 @@ DIAGNOSIS_MEANINGS = {
     "real-only": "the imaginary part of the input is ignored",
     "thread-unsafe": "results differ when the backend is called from several threads at once",
     "overflow": "only the largest outputs are wrong, some with their sign flipped: a fixed-point sum wrapped around",
+    "user-limit": "within the built-in bound but above the user's own limit (--limit, --limits)",
     "unknown": "wrong, and none of the known bugs explains it",
 }
 
