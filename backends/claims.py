@@ -16,16 +16,12 @@ from typing import Any, Mapping
 from fftgauge.harness.cases import DTYPES, KINDS, NORMS, is_power_of_two
 # The declared conventions' vocabularies live with the conventions themselves (harness/dft.py:
 # SIGNS, the exponent signs of the forward transform; SCALES, the factors on the plain sum;
-# ORDERS, natural, bit-reversed and centred output), which also converts a reference to them.
-from fftgauge.harness.dft import ORDERS, SCALES, SIGNS  # noqa: F401 - re-exported
+# ORDERS, natural, bit-reversed and centred output; PACKINGS, the layouts of a half spectrum,
+# with pack_half_spectrum/unpack_half_spectrum), which also converts a reference to them.
+from fftgauge.harness.dft import ORDERS, PACKINGS, SCALES, SIGNS  # noqa: F401 - re-exported
 
 #: Size forms a rule states: every size, or powers of two only.
 SIZE_FORMS = ("any", "pow2")
-#: Layouts of a real transform's half spectrum (docs/reference.md has a table of each):
-#: ``complex`` numpy's N//2 + 1 complex values; ``dc-nyquist`` N reals (Re X0, Re X[N/2],
-#: Re X1, Im X1, ..., Re X[N/2-1], Im X[N/2-1]), DC and Nyquist sharing the first pair (even N);
-#: ``halfcomplex`` N reals (Re X0, Re X1, ..., Re X[N//2], Im X[(N-1)//2], ..., Im X1).
-PACKINGS = ("complex", "dc-nyquist", "halfcomplex")
 
 
 @dataclass(frozen=True)

@@ -213,6 +213,69 @@ ORDERS = ("natural", "bit-reversed", "centred")
 
 _SCALE_POWERS = {"1": 0.0, "1/n": 1.0, "1/sqrt(n)": 0.5}
 
+#: Layouts of a real transform's half spectrum X[0 .. n//2]: ``complex``, numpy's n//2 + 1
+#: complex values; ``dc-nyquist``, n reals (even n) Re X0, Re X[n/2], Re X1, Im X1, ...,
+#: Re X[n/2-1], Im X[n/2-1], DC and Nyquist sharing the first pair; ``halfcomplex``, n reals
+#: Re X0, Re X1, ..., Re X[n//2], Im X[(n-1)//2], ..., Im X1 (the imaginary parts backwards).
+PACKINGS = ("complex", "dc-nyquist", "halfcomplex")
+
+
+def pack_half_spectrum(half: np.ndarray, n: int, packing: str) -> np.ndarray:
+    """Return the half spectrum ``half`` (n//2 + 1 complex values, numpy's layout) in
+    ``packing`` (:data:`PACKINGS`): a copy for ``complex``, else n reals of ``half``'s
+    precision. The imaginary parts of DC and even-n Nyquist are dropped (a real signal has
+    none there).
+
+    Raises
+    ------
+    ValueError
+        For an unknown packing, ``dc-nyquist`` at odd n, or a ``half`` of the wrong length.
+    """
+    half = np.asarray(half)
+    _check_packing(packing, n, half.shape[0], n // 2 + 1)
+    if packing == "complex":
+        return half.copy()
+    re, im = np.real(half), np.imag(half)
+    if packing == "halfcomplex":
+        return np.concatenate([re[: n // 2 + 1], im[1: (n + 1) // 2][::-1]])
+    out = np.empty(n, dtype=re.dtype)
+    out[0], out[1] = re[0], re[n // 2]
+    out[2::2], out[3::2] = re[1: n // 2], im[1: n // 2]
+    return out
+
+
+def unpack_half_spectrum(packed: np.ndarray, n: int, packing: str) -> np.ndarray:
+    """Return numpy's half spectrum (n//2 + 1 complex values) that ``packed`` holds in
+    ``packing``: the inverse of :func:`pack_half_spectrum`.
+
+    Raises
+    ------
+    ValueError
+        For an unknown packing, ``dc-nyquist`` at odd n, or a ``packed`` of the wrong length.
+    """
+    packed = np.asarray(packed)
+    _check_packing(packing, n, packed.shape[0], n // 2 + 1 if packing == "complex" else n)
+    if packing == "complex":
+        return packed.copy()
+    half = np.zeros(n // 2 + 1, dtype=np.result_type(packed.dtype, np.complex64))
+    if packing == "halfcomplex":
+        half.real = packed[: n // 2 + 1]
+        half.imag[1: (n + 1) // 2] = packed[n // 2 + 1:][::-1]
+        return half
+    half.real[0], half.real[n // 2] = packed[0], packed[1]
+    half.real[1: n // 2], half.imag[1: n // 2] = packed[2::2], packed[3::2]
+    return half
+
+
+def _check_packing(packing: str, n: int, length: int, due: int) -> None:
+    """Raise ValueError for an unknown packing, dc-nyquist at odd n, or a length other than ``due``."""
+    if packing not in PACKINGS:
+        raise ValueError(f"unknown packing {packing!r}; expected one of {', '.join(PACKINGS)}")
+    if packing == "dc-nyquist" and n % 2:
+        raise ValueError(f"the dc-nyquist packing needs an even n (DC and Nyquist share a pair), got n = {n}")
+    if length != due:
+        raise ValueError(f"{packing} packing of n = {n} holds {due} values, got {length}")
+
 
 def scale_factor(n: int, scale: str, real: Callable[[Any], Any] = float,
                  sqrt: Callable[[Any], Any] = math.sqrt) -> Any:

@@ -205,3 +205,48 @@ def test_from_convention_leaves_a_different_convention_visible():
     np.testing.assert_allclose(back, np.sqrt(n) * np.fft.fft(x), rtol=1e-13)
     with pytest.raises(ValueError, match="unknown scale"):
         dft.from_convention(actual, "fft", n, scale="n")
+
+
+# -- packed half spectra -----------------------------------------------------------------------
+# Worked by hand for x = [1, 1, 1, 1, 0, 0, 0, 0], w = exp(-j pi / 4) (the DFT's definition):
+# X0 = 4; X1 = 1 + w + w^2 + w^3 = 1 - j (1 + sqrt 2); X2 = 1 + w^2 + w^4 + w^6 = 0;
+# X3 = 1 + w^3 + w^6 + w^9 = 1 + j (1 - sqrt 2); X4 = 1 - 1 + 1 - 1 = 0. Checked against numpy.fft.rfft.
+
+R2 = np.sqrt(2.0)
+HAND_HALF = np.array([4, 1 - 1j * (1 + R2), 0, 1 + 1j * (1 - R2), 0])
+HAND_PACKED = {
+    "dc-nyquist": [4, 0, 1, -(1 + R2), 0, 0, 1, 1 - R2],   # Re X0, Re X4, Re X1, Im X1, Re X2, Im X2, Re X3, Im X3
+    "halfcomplex": [4, 1, 0, 1, 0, 1 - R2, 0, -(1 + R2)],  # Re X0 .. Re X4, Im X3, Im X2, Im X1
+}
+
+
+def test_hand_worked_half_spectrum_is_numpys():
+    np.testing.assert_allclose(np.fft.rfft([1, 1, 1, 1, 0, 0, 0, 0]), HAND_HALF, atol=1e-15)
+
+
+@pytest.mark.parametrize("packing", ["dc-nyquist", "halfcomplex"])
+def test_packings_of_the_hand_worked_example(packing):
+    got = dft.pack_half_spectrum(HAND_HALF, 8, packing)
+    np.testing.assert_allclose(got, HAND_PACKED[packing], atol=1e-15)
+    assert got.dtype == np.float64
+    np.testing.assert_allclose(dft.unpack_half_spectrum(got, 8, packing), HAND_HALF, atol=1e-15)
+
+
+@pytest.mark.parametrize("packing, n", [("halfcomplex", 1), ("halfcomplex", 7), ("halfcomplex", 10),
+                                        ("dc-nyquist", 2), ("dc-nyquist", 10), ("complex", 5)])
+def test_pack_then_unpack_gives_the_half_spectrum(packing, n):
+    half = np.fft.rfft(np.random.default_rng(n).standard_normal(n)).astype(np.complex64)
+    packed = dft.pack_half_spectrum(half, n, packing)
+    assert packed.shape == ((n // 2 + 1,) if packing == "complex" else (n,))
+    back = dft.unpack_half_spectrum(packed, n, packing)
+    assert back.dtype == np.complex64
+    np.testing.assert_array_equal(back, dft.clean_half_spectrum(half, n))
+
+
+def test_bad_packings_are_refused():
+    with pytest.raises(ValueError, match="unknown packing"):
+        dft.pack_half_spectrum(HAND_HALF, 8, "interleaved")
+    with pytest.raises(ValueError, match="even n"):
+        dft.pack_half_spectrum(np.zeros(4, complex), 7, "dc-nyquist")
+    with pytest.raises(ValueError, match="holds 8 values"):
+        dft.unpack_half_spectrum(np.zeros(5), 8, "halfcomplex")
