@@ -325,6 +325,7 @@ def limit_notes(rows: Iterable[dict[str, Any]], limits: Mapping[str, Mapping[str
     for name, info in limits.items():
         own = [r for c, rs in judged.items() for r in rs if c == name or (name == ALL_CHECKS and c not in limits)]
         criterion = info.get("criterion", "?")
+        name = "every value check" if name == ALL_CHECKS else name
         if not own:
             notes.append(f"limit for {name} is {criterion}: no row of this run was judged by it")
             continue
@@ -341,15 +342,15 @@ def limit_notes(rows: Iterable[dict[str, Any]], limits: Mapping[str, Mapping[str
         else:
             notes.append(f"limit for {name} is {criterion}, {span} x the built-in bound: looser than it on "
                          f"{looser} of {len(factors)} rows, where a bug below it would not be caught")
-    hidden: dict[str, list[dict[str, Any]]] = {}
-    for rs in judged.values():
-        for r in rs:
-            if r.get("status") == "pass" and r.get("value") is not None and r["value"] > r["bound_limit"]:
-                hidden.setdefault(r["check"], []).append(r)
-    for name, rs in hidden.items():
-        sizes = sorted({r["n"] for r in rs})
-        shown = ", ".join(map(str, sizes[:8])) + (", ..." if len(sizes) > 8 else "")
-        codes = sorted({r.get("bound_diagnosis") or "unknown" for r in rs})
-        notes.append(f"{len(rs)} {name} row(s) pass only under the user's limit: the built-in bound fails them "
-                     f"(diagnosis {', '.join(codes)}; n = {shown})")
+    hidden = [r for rs in judged.values() for r in rs
+              if r.get("status") == "pass" and r.get("value") is not None and r["value"] > r["bound_limit"]]
+    if hidden:
+        from fftgauge.harness.report.check_tables import compress_sizes
+
+        per_check = dict.fromkeys(r["check"] for r in hidden)
+        codes = sorted({r.get("bound_diagnosis") or "unknown" for r in hidden})
+        where = "; ".join(f"{name} at n = {compress_sizes([r['n'] for r in hidden if r['check'] == name])}"
+                          for name in per_check)
+        notes.append(f"{len(hidden)} row(s) pass only under the user's limit: the built-in bound fails them "
+                     f"(diagnosis {', '.join(codes)}): {where}")
     return notes
