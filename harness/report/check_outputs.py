@@ -221,6 +221,9 @@ def _settings_line(doc: Mapping[str, Any]) -> str:
 def _panel_lines(doc: Mapping[str, Any]) -> tuple[list[str], list[list[str]], set[tuple[int, int]]]:
     """Return the compact table: one line per backend x kind x dtype (x norm)."""
     groups = grouped_cases(doc)
+    limits = (doc.get("request") or {}).get("limits") or {}
+    user = limits.get("accuracy") or limits.get(WHOLE_CASE_CHECK)
+    limit_words = {"bound": "built-in bound", "user": f"yours: {user.get('criterion')}" if user else "yours"}
     panels: dict[tuple[str, str, str, str], dict[str, Any]] = {}
     for (backend, kind, dtype, norm, check), rows in groups.items():
         p = panels.setdefault((backend, kind, dtype, norm), {"pass": 0, "fail": [], "error": [], "skip": 0,
@@ -238,8 +241,8 @@ def _panel_lines(doc: Mapping[str, Any]) -> tuple[list[str], list[list[str]], se
             eps = [r["eps_units"] for r in rows if r.get("eps_units") is not None]
             if eps:
                 p["eps"] = max(eps)
-            sources = {r.get("limit_source") for r in rows if r.get("limit_source")}
-            p["limit"] = ", ".join(sorted(sources)) or None
+            sources = sorted({r.get("limit_source") for r in rows if r.get("limit_source")})
+            p["limit"] = ", ".join(limit_words.get(s, s) for s in sources) or None
     with_norm = any(key[3] != "backward" for key in panels)
     header = ["backend", "kind", "precision"] + (["norm"] if with_norm else []) + [
         "checks passed", "failing checks", "could not run", "skipped", "worst accuracy (eps)", "accuracy limit"]
