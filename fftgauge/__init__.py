@@ -90,7 +90,8 @@ def __dir__() -> list[str]:
 def check(backends: Sequence[str] | None = None, sizes: str | None = None, kinds=None, dtypes=None,
           norms=None, checks=None, seed: int = 1234, json_path: str | None = None,
           timeout_seconds: float | None = None, threads: int | None = None,
-          pure_python_max_n: int | None = None, limits=None, limits_file: str | None = None):
+          pure_python_max_n: int | None = None, limits=None, limits_file: str | None = None,
+          case_budget_seconds: float | None = None):
     """Run the correctness battery and return its rows as a pandas DataFrame.
 
     Parameters mirror ``fftgauge check`` and are validated by the same request builder
@@ -114,6 +115,7 @@ def check(backends: Sequence[str] | None = None, sizes: str | None = None, kinds
     req = build_request(backends=backends, sizes=sizes, kinds=kinds, dtypes=dtypes, norms=norms, checks=checks,
                         seed=seed, threads=threads,
                         timeout_seconds=DEFAULT_CASE_TIMEOUT_SECONDS if timeout_seconds is None else timeout_seconds,
-                        pure_python_max_n=pure_python_max_n, limits=limits, limits_file=limits_file)
+                        pure_python_max_n=pure_python_max_n, limits=limits, limits_file=limits_file,
+                        **({} if case_budget_seconds is None else {"case_budget_seconds": case_budget_seconds}))
     doc = run_battery(req, json_path=json_path, quiet=True)
     return rows_frame(doc["rows"])

@@ -258,7 +258,7 @@ def test_cli_and_python_api_build_the_same_request(monkeypatch):
     """``fftgauge check`` and ``fftgauge.check()`` go through one request builder: the same
     defaults (sizes, precisions, the pure-Python references' size limit) with and without sizes."""
     import fftgauge
-    from fftgauge.harness.battery.request import DEFAULT_PURE_PYTHON_MAX_N
+    from fftgauge.harness.battery.budget import DEFAULT_CASE_BUDGET_SECONDS, REFERENCE_CASE_BUDGET_SECONDS
     from fftgauge.harness.cli import build_parser
     from fftgauge.harness.cli.check import request_from_args
 
@@ -271,9 +271,12 @@ def test_cli_and_python_api_build_the_same_request(monkeypatch):
         fftgauge.check(["direct"], **kwargs)
         assert seen.pop() == request_from_args(parser.parse_args(["check", *argv]))
     fftgauge.check(["direct"])
-    assert seen.pop().max_n_pure_python == DEFAULT_PURE_PYTHON_MAX_N
+    req = seen.pop()
+    assert (req.case_budget_seconds, req.reference_budget_seconds) == (DEFAULT_CASE_BUDGET_SECONDS,
+                                                                       REFERENCE_CASE_BUDGET_SECONDS)
     fftgauge.check(["direct"], sizes="@pow2")
-    assert seen.pop().max_n_pure_python is None
+    req = seen.pop()
+    assert (req.max_n_pure_python, req.reference_budget_seconds) == (None, None)
 
 
 @pytest.mark.timeout(300)

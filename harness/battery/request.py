@@ -11,6 +11,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Sequence
 
+from fftgauge.harness.battery.budget import DEFAULT_CASE_BUDGET_SECONDS, REFERENCE_CASE_BUDGET_SECONDS
 from fftgauge.harness.cases import DTYPES, KINDS, NORMS, parse_choice_list
 from fftgauge.harness.errors import UsageError
 
@@ -26,10 +27,6 @@ DEFAULT_DTYPES = ("float32", "float64")
 #: The normalisations of a run that does not name them.
 DEFAULT_NORMS = ("backward",)
 
-#: Size limit applied to the pure-Python references in a run that does not name sizes.
-DEFAULT_PURE_PYTHON_MAX_N = 512
-
-
 @dataclass(frozen=True)
 class BatteryRequest:
     """What to run: validated at the boundary (:func:`build_request`), trusted here."""
@@ -44,6 +41,10 @@ class BatteryRequest:
     threads: int | None = None
     timeout_seconds: float = DEFAULT_CASE_TIMEOUT_SECONDS
     max_n_pure_python: int | None = None
+    #: Seconds one case may take by its estimate (budget.py); None: no budget.
+    case_budget_seconds: float | None = DEFAULT_CASE_BUDGET_SECONDS
+    #: The (smaller) budget of the pure-Python references; None: the case budget.
+    reference_budget_seconds: float | None = None
     #: The user's pass criteria (:func:`fftgauge.harness.battery.criteria.build_limits`); empty: the built-in bounds.
     limits: tuple = ()
 
@@ -69,7 +70,8 @@ def build_request(backends: Sequence[str] | None = None, sizes: str | None = Non
                   seed: int = 1234, threads: int | None = None,
                   timeout_seconds: float = DEFAULT_CASE_TIMEOUT_SECONDS,
                   pure_python_max_n: int | None = None, limits=None,
-                  limits_file: str | None = None) -> BatteryRequest:
+                  limits_file: str | None = None,
+                  case_budget_seconds: float | None = DEFAULT_CASE_BUDGET_SECONDS) -> BatteryRequest:
     """Return the validated :class:`BatteryRequest` for these arguments.
 
     Parameters
@@ -81,8 +83,11 @@ def build_request(backends: Sequence[str] | None = None, sizes: str | None = Non
     seed : seed of every random input.
     threads : threads for backends that take a thread option, and the BLAS cap per worker.
     timeout_seconds : seconds one case may take before its worker is killed.
-    pure_python_max_n : largest size given to the pure-Python references; None:
-        :data:`DEFAULT_PURE_PYTHON_MAX_N` when ``sizes`` is not given, else no limit; 0: no limit.
+    pure_python_max_n : largest size given to the pure-Python references (None or 0: no size
+        limit; when neither it nor ``sizes`` is given, the references get the budget
+        :data:`~fftgauge.harness.battery.budget.REFERENCE_CASE_BUDGET_SECONDS` instead).
+    case_budget_seconds : seconds one case may take by its estimate; cases over it are
+        skipped for time (0 or None: no budget).
     limits, limits_file : the user's pass criteria: ``--limit`` strings or a mapping
         ``{check: "AMOUNT UNIT"}``, and a TOML file of them
         (:func:`fftgauge.harness.battery.criteria.build_limits`).
@@ -104,9 +109,12 @@ def build_request(backends: Sequence[str] | None = None, sizes: str | None = Non
         raise UsageError(f"threads must be a positive integer, got {threads}")
     if pure_python_max_n is not None and pure_python_max_n < 0:
         raise UsageError(f"the pure-Python size limit must be 0 (none) or a positive size, got {pure_python_max_n}")
-    limit = pure_python_max_n
-    if limit is None:
-        limit = DEFAULT_PURE_PYTHON_MAX_N if sizes is None else 0
+    if case_budget_seconds is not None and case_budget_seconds < 0:
+        raise UsageError(f"the case budget must be 0 (none) or positive seconds, got {case_budget_seconds:g}")
+    budget = case_budget_seconds or None
+    reference_budget = None
+    if sizes is None and pure_python_max_n is None:
+        reference_budget = min(REFERENCE_CASE_BUDGET_SECONDS, budget or REFERENCE_CASE_BUDGET_SECONDS)
     return BatteryRequest(
         specs=tuple(backends) if backends else tuple(default_specs()),
         kinds=choice_list(kinds, KINDS, "kind"),
@@ -117,6 +125,8 @@ def build_request(backends: Sequence[str] | None = None, sizes: str | None = Non
         seed=int(seed),
         threads=threads,
         timeout_seconds=float(timeout_seconds),
-        max_n_pure_python=limit or None,
+        max_n_pure_python=pure_python_max_n or None,
+        case_budget_seconds=budget,
+        reference_budget_seconds=reference_budget,
         limits=build_limits(limits, limits_file),
     )

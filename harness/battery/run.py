@@ -29,6 +29,7 @@ cores (measured ten times slower with two workers on two cores).
 
 from __future__ import annotations
 
+import dataclasses
 import os
 import queue
 import threading
@@ -43,6 +44,8 @@ from fftgauge.backends.registry import require_unique_labels
 from fftgauge.harness.execution.dispatch import Progress, describe_cases
 from fftgauge.harness.errors import BackendFailure, UsageError
 from fftgauge.harness.results import ResultsWriter, envelope
+from fftgauge.harness.battery.budget import probe_sizes, time_reason
+from fftgauge.harness.battery.unclaimed import unclaim_size_classes
 from fftgauge.harness.battery.request import DEFAULT_CASE_TIMEOUT_SECONDS, BatteryRequest  # noqa: F401 - re-exported
 from fftgauge.harness.rows import error_rows, skip_rows
 
@@ -217,17 +220,61 @@ def _describe_all(workers: dict[str, Any], req: BatteryRequest, cases: list[Case
         The first SPEC's (in the order asked) that cannot be loaded or fails to describe itself.
     """
     def describe(spec: str) -> dict[str, Any]:
-        return describe_cases(workers[spec], spec, cases, req.max_n_pure_python, req.timeout_seconds)
+        claims = describe_cases(workers[spec], spec, cases, req.max_n_pure_python, req.timeout_seconds)
+        return with_time_reasons(workers[spec], claims, req, cases)
 
     with ThreadPoolExecutor(max_workers=max(1, min(parallel, len(req.specs)))) as pool:
         futures = {spec: pool.submit(describe, spec) for spec in req.specs}
         return {spec: futures[spec].result() for spec in req.specs}
 
 
+def probe_cases(claims: Any, cases: list[Case]) -> list[Case]:
+    """Return the cases whose single calls estimate a backend's cost (:mod:`.budget`): one kind,
+    precision and normalisation it claims (float64 and backward where it can), at the sizes
+    :func:`~fftgauge.harness.battery.budget.probe_sizes` picks from its claimed ones."""
+    claimed = [c for c, reason in zip(cases, claims.reasons) if reason is None]
+    if not claimed:
+        return []
+    kind = claimed[0].kind
+    dtypes = {c.dtype for c in claimed if c.kind == kind}
+    dtype = "float64" if "float64" in dtypes else sorted(dtypes)[0]
+    norms = {c.norm for c in claimed if (c.kind, c.dtype) == (kind, dtype)}
+    norm = "backward" if "backward" in norms else sorted(norms)[0]
+    sizes = probe_sizes([c.n for c in claimed if (c.kind, c.dtype, c.norm) == (kind, dtype, norm)])
+    return [Case(kind, dtype, n, norm) for n in sizes]
+
+
+def with_time_reasons(worker: Any, claims: Any, req: BatteryRequest, cases: list[Case]) -> Any:
+    """Return ``claims`` with the cases whose estimated duration exceeds the budget marked as
+    skipped for time (:func:`~fftgauge.harness.battery.budget.time_reason`).
+
+    The budget is ``req.case_budget_seconds``, or ``req.reference_budget_seconds`` for a
+    pure-Python reference; a probe that fails (the backend crashed or hung) leaves the claims
+    as they are: the cases then run and show what happens.
+    """
+    budget = req.case_budget_seconds
+    if req.reference_budget_seconds is not None and getattr(claims.capabilities, "pure_python", False):
+        budget = req.reference_budget_seconds
+    probe = probe_cases(claims, cases)
+    if not budget or not probe:
+        return claims
+    try:
+        probes = worker.call(jobs.call_seconds, [(c.kind, c.dtype, c.n, c.norm) for c in probe], req.seed,
+                             timeout_seconds=req.timeout_seconds)
+    except BackendFailure:
+        return claims
+    reasons = tuple(reason if reason is not None else time_reason(claims.label, probes, case, budget)
+                    for case, reason in zip(cases, claims.reasons))
+    return dataclasses.replace(claims, reasons=reasons)
+
+
 def _skip_rows(req: BatteryRequest, claims: dict[str, dict[str, Any]], cases: list[Case]) -> list[dict]:
-    """Return one ``skip`` row per case a backend does not claim (the reason as its message)."""
+    """Return one ``skip`` row per case a backend does not claim (the reason as its message);
+    in a run that does not name its kinds, none for a kind the backend never computes (the
+    contract's default is every kind the backend supports)."""
     return [row.as_dict() for spec in req.specs for case, reason in zip(cases, claims[spec].reasons)
-            if reason is not None for row in skip_rows(claims[spec].label, case, [SKIPPED_CASE_CHECK], reason)]
+            if reason is not None and (req.kinds is not None or claims[spec].claims_kind(case.kind))
+            for row in skip_rows(claims[spec].label, case, [SKIPPED_CASE_CHECK], reason)]
 
 
 def _sort_rows(rows: list[dict], req: BatteryRequest, claims: dict[str, dict[str, Any]], order: list[str]) -> None:
@@ -291,6 +338,7 @@ def run_battery(req: BatteryRequest, json_path: str | None = None, quiet: bool =
             try:
                 sink.close()
             finally:
+                doc["rows"][:] = unclaim_size_classes(doc["rows"], doc["backends"])
                 _sort_rows(doc["rows"], req, claims, list(CHECKS))
                 writer.close()
     finally:

@@ -10,8 +10,8 @@ import argparse
 import sys
 import time
 
-from fftgauge.harness.battery.request import (DEFAULT_CASE_TIMEOUT_SECONDS, DEFAULT_PURE_PYTHON_MAX_N, BatteryRequest,
-                                              build_request)
+from fftgauge.harness.battery.budget import DEFAULT_CASE_BUDGET_SECONDS, REFERENCE_CASE_BUDGET_SECONDS
+from fftgauge.harness.battery.request import DEFAULT_CASE_TIMEOUT_SECONDS, BatteryRequest, build_request
 from fftgauge.harness.cli import add_common_options, default_results_path
 
 
@@ -25,8 +25,12 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help=f"seconds one case may take before the backend is killed (default "
                              f"{DEFAULT_CASE_TIMEOUT_SECONDS:g})")
     parser.add_argument("--pure-python-max-n", type=int, default=None, metavar="N",
-                        help="largest size given to the pure-Python references (default "
-                             f"{DEFAULT_PURE_PYTHON_MAX_N} when --sizes is not given, else no limit; 0: no limit)")
+                        help="largest size given to the pure-Python references (default: no size limit; without "
+                             f"--sizes they get a budget of {REFERENCE_CASE_BUDGET_SECONDS:g} s per case instead)")
+    parser.add_argument("--case-budget", type=float, default=DEFAULT_CASE_BUDGET_SECONDS, metavar="SECONDS",
+                        help="skip, as 'skipped for time', the cases whose estimated duration (each backend's "
+                             "seconds per call, measured on its smallest sizes) exceeds this "
+                             f"(default {DEFAULT_CASE_BUDGET_SECONDS:g}; 0: no budget)")
 
 
 def request_from_args(args: argparse.Namespace) -> BatteryRequest:
@@ -41,12 +45,13 @@ def request_from_args(args: argparse.Namespace) -> BatteryRequest:
     return build_request(backends=args.backend, sizes=args.sizes, kinds=args.kinds, dtypes=args.dtypes,
                          norms=args.norms, checks=args.checks, seed=args.seed, threads=args.threads,
                          timeout_seconds=args.timeout, pure_python_max_n=args.pure_python_max_n,
-                         limits=args.limit, limits_file=args.limits)
+                         limits=args.limit, limits_file=args.limits, case_budget_seconds=args.case_budget)
 
 
 def run(args: argparse.Namespace) -> int:
     """Run the battery; print the summary; return 0 (all held), 1 (a check failed or errored)."""
     from fftgauge.harness.battery.run import run_battery
+    from fftgauge.harness.battery.unclaimed import not_run_lines
     from fftgauge.harness.report.check_tables import format_summary, rows_frame
 
     from fftgauge.harness.battery.criteria import limit_notes
@@ -60,6 +65,10 @@ def run(args: argparse.Namespace) -> int:
     elapsed = time.perf_counter() - started
     df = rows_frame(doc["rows"])
     print(format_summary(df), file=out)
+    not_run = not_run_lines(doc["rows"])
+    if not_run:
+        print("\nnot run (sizes not claimed, or skipped for time; one line per reason):", file=out)
+        print("\n".join(not_run), file=out)
     for note in limit_notes(doc["rows"], doc["request"].get("limits")):
         print(f"note: {note}", file=out)
     written = [path] + write_check_outputs(doc, junit=args.junit, markdown=args.markdown, csv=args.csv)

@@ -101,6 +101,14 @@ def backend_claims(backend: Any, case_fields: list[tuple], max_n_pure_python: in
     return BackendClaims(backend.label, backend.describe(), tuple(reasons))
 
 
+def call_seconds(backend: Any, case_fields: list[tuple], seed: int) -> list[tuple[int, float | None]]:
+    """Return the seconds of one call per case, smallest sizes first, until the calls get long;
+    see :func:`fftgauge.harness.battery.budget.measure_call_seconds`."""
+    from fftgauge.harness.battery.budget import measure_call_seconds
+
+    return measure_call_seconds(backend, case_fields, seed)
+
+
 #: (cap, len(sys.modules)) when this process last capped its BLAS pools (worker side).
 _BLAS_CAP: list[tuple[int, int]] = []
 
@@ -192,7 +200,7 @@ def blas_thread_caps(backend: Any) -> list[int]:
 
 #: The job functions, by name (what the child looks up).
 JOBS: dict[str, Any] = {f.__name__: f for f in (
-    plan_and_execute, describe_backend, unsupported_reason, backend_claims, run_case_job,
+    plan_and_execute, describe_backend, unsupported_reason, backend_claims, call_seconds, run_case_job,
     run_case_checks, time_case, prepare_case, sample_block, release_case, yardstick_block,
     blas_thread_caps)}
 

@@ -132,10 +132,12 @@ def format_summary(df: pd.DataFrame) -> str:
     if (shown["norm"] == "backward").all():
         shown = shown.drop(columns=["norm"])
     text = shown.to_string(index=False)
-    total_bad = int(summary["failed"].sum() + summary["errors"].sum())
-    total_ok = int(summary["passed"].sum())
-    verdict = ("PASS: every case held" if total_bad == 0 else
-               f"FAIL: {total_bad} case(s) failed or errored, {total_ok} passed")
+    from fftgauge.harness.report.findings import case_counts
+
+    counts = case_counts(df.to_dict("records"))
+    verdict = ("PASS: every case held" if counts["wrong"] + counts["error"] == 0 else
+               f"FAIL: {counts['wrong']} case(s) gave wrong answers, {counts['error']} could not run (raised, "
+               f"crashed, timed out or returned something unusable), {counts['passed']} passed")
     lines = [verdict, "", text]
     findings = finding_lines(df.astype(object).where(df.notna(), None).to_dict("records"))
     if findings:
