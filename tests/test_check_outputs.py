@@ -202,3 +202,22 @@ def test_two_outputs_on_standard_output_exit_2(capsys):
     assert main(["check", "--backend", "numpy", "--sizes", "8", "--junit", "-", "--csv", "-"]) == 2
     err = capsys.readouterr().err
     assert err.count("\n") == 1 and "only one output can go to standard output" in err
+
+
+def test_unwritable_output_exits_2_before_the_run(tmp_path, capsys):
+    folder = tmp_path / "locked"
+    folder.mkdir()
+    folder.chmod(0o500)
+    try:
+        if os.access(folder, os.W_OK):
+            pytest.skip("running as a user who can write anywhere")
+        assert main(["check", "--backend", "numpy", "--sizes", "8", "--junit", str(folder / "r.xml")]) == 2
+    finally:
+        folder.chmod(0o700)
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "cannot write --junit" in err
+
+
+def test_output_path_that_is_a_folder_exits_2(tmp_path, capsys):
+    assert main(["check", "--backend", "numpy", "--sizes", "8", "--markdown", str(tmp_path)]) == 2
+    assert "is a folder" in capsys.readouterr().err

@@ -55,10 +55,10 @@ def run(args: argparse.Namespace) -> int:
     from fftgauge.harness.report.check_tables import format_summary, rows_frame
 
     from fftgauge.harness.battery.criteria import limit_notes
-    from fftgauge.harness.report.check_outputs import stdout_output, write_check_outputs
+    from fftgauge.harness.report.check_outputs import validate_outputs, write_check_outputs
 
     req = request_from_args(args)
-    out = sys.stderr if stdout_output(output_paths(args)) else sys.stdout
+    out = sys.stderr if validate_outputs(output_paths(args)) else sys.stdout
     path = args.json or default_results_path("check")
     started = time.perf_counter()
     doc = run_battery(req, json_path=path, quiet=args.quiet)

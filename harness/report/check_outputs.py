@@ -326,13 +326,15 @@ def write_check_outputs(doc: Mapping[str, Any], junit: str | None = None, markdo
     return written
 
 
-def stdout_output(paths: Mapping[str, str | None]) -> str | None:
-    """Return the option (of ``paths``: option -> path) that writes to standard output, or None.
+def validate_outputs(paths: Mapping[str, str | None]) -> str | None:
+    """Check the outputs asked for (option -> path, None when not asked) before a run starts, and
+    return the option that writes to standard output (``-``), or None.
 
     Raises
     ------
     UsageError
-        When more than one output is ``-`` (standard output can hold one document).
+        When more than one output is ``-`` (standard output can hold one document), or a path is a
+        folder or lies in a folder that cannot be written (naming the option and the path).
     """
     from fftgauge.harness.errors import UsageError
     from fftgauge.harness.results import is_stdout
@@ -340,4 +342,14 @@ def stdout_output(paths: Mapping[str, str | None]) -> str | None:
     to_stdout = [name for name, path in paths.items() if path and is_stdout(path)]
     if len(to_stdout) > 1:
         raise UsageError(f"only one output can go to standard output (-), got {' and '.join('--' + n for n in to_stdout)}")
+    for name, path in paths.items():
+        if not path or is_stdout(path):
+            continue
+        if os.path.isdir(path):
+            raise UsageError(f"--{name} {path} is a folder; give a file name")
+        folder = os.path.dirname(os.path.abspath(path))
+        while not os.path.isdir(folder) and os.path.dirname(folder) != folder:
+            folder = os.path.dirname(folder)
+        if not os.access(folder, os.W_OK | os.X_OK):
+            raise UsageError(f"cannot write --{name} {path}: {folder} is not writable; choose a writable location")
     return to_stdout[0] if to_stdout else None
