@@ -89,7 +89,8 @@ class Finding:
         if worst.get("check") == "accuracy" and not self.could_not_run:
             bound = bound_eps_units(worst)
             if bound is not None:
-                message += f", against a bound of {bound:.3g} eps"
+                against = "the user's limit" if worst.get("limit_source") == "user" else "a bound"
+                message += f", against {against} of {bound:.3g} eps"
         checks = (f"the {self.checks[0]} check" if len(self.checks) == 1 else
                   f"{len(self.checks)} checks ({', '.join(self.checks)})")
         plural = "s" if self.cases != 1 else ""
