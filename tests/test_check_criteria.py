@@ -248,3 +248,15 @@ def test_limit_is_a_dataclass_of_the_criterion():
     assert Limit("accuracy", 1e-6, "absolute", 0.5).describe() == "1e-06 absolute rms at input rms 0.5"
     with pytest.raises(UsageError):
         build_limits(["accuracy=8"])
+
+
+def test_python_api_takes_limits():
+    import fftgauge
+
+    df = fftgauge.check(["numpy"], sizes="16", kinds=["fft"], dtypes=["float64"], checks=["accuracy", "shape"],
+                        limits={"accuracy": "1e-3 rel"})
+    by_check = df.set_index("check")
+    assert by_check.loc["accuracy", "limit_source"] == "user" and by_check.loc["accuracy", "limit"] == 1e-3
+    assert by_check.loc["shape", "limit_source"] == "bound"
+    with pytest.raises(UsageError, match="has no unit"):
+        fftgauge.check(["numpy"], sizes="16", limits=["accuracy=8"])
