@@ -221,3 +221,13 @@ def test_unwritable_output_exits_2_before_the_run(tmp_path, capsys):
 def test_output_path_that_is_a_folder_exits_2(tmp_path, capsys):
     assert main(["check", "--backend", "numpy", "--sizes", "8", "--markdown", str(tmp_path)]) == 2
     assert "is a folder" in capsys.readouterr().err
+
+
+def test_markdown_verdict_says_a_pass_hides_bound_failures(run):
+    doc = copy.deepcopy(run[1])
+    doc["rows"] = [r for r in doc["rows"] if r["backend"] != doc["rows"][-1]["backend"]]  # drop the raising backend
+    lim = parse_limit_option("10rel")
+    doc["rows"] = apply_limits(doc["rows"], [lim])
+    doc["request"]["limits"] = {"all": lim.as_dict()}
+    first = markdown_summary(doc).splitlines()[2]
+    assert first.startswith("**PASS**: every case held under the user's limits, but the built-in bounds fail")
