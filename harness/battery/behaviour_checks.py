@@ -11,10 +11,11 @@ from typing import Any
 import numpy as np
 
 from fftgauge.harness.battery.context import (
-    CheckContext, copy_output, finite_or_none, fmt_eps, norm2, one_line, relative,
+    CheckContext, copy_output, finite_or_none, fmt_eps, norm2, relative,
 )
 from fftgauge.harness.battery.thread_crew import CREW_SIZE, thread_caps, thread_caps_applied, thread_crew
 from fftgauge.harness.errors import BackendFailure
+from fftgauge.harness.execution.crash import exception_text
 from fftgauge.harness.rows import CheckRow
 
 #: Threads the ``concurrent`` check runs at once, and calls each thread makes per plan.
@@ -33,10 +34,13 @@ SPREAD_FACTOR = 2.0
 # -- behaviour -------------------------------------------------------------------------------------
 
 def check_input_intact(ctx: CheckContext) -> list[CheckRow]:
-    """The caller's input array is left unchanged (unless the backend declares ``in_place``)."""
-    x = ctx.random_input("input-intact")
+    """The caller's input array is left unchanged (unless the backend declares ``in_place``).
+
+    The input is in the backend's declared convention (the array it is handed itself).
+    """
+    x = ctx.native_input(ctx.random_input("input-intact"))
     keep = x.copy()
-    ctx.run(x, copy_input=False)
+    ctx.run_native(x, copy_input=False)
     changed = int(np.count_nonzero(mismatched(keep, x)))
     if not changed:
         return [ctx.row("input-intact", "pass", eps=False, message="the input array is unchanged")]
@@ -132,10 +136,11 @@ def check_repeatable(ctx: CheckContext) -> list[CheckRow]:
 
 
 def _sequential(ctx: CheckContext, plans: list, xs: list) -> list[np.ndarray]:
-    """Return ``plans[t]``'s output for ``xs[t]``, one call after another in this thread."""
+    """Return ``plans[t]``'s output for ``xs[t]``, one call after another in this thread
+    (inputs and outputs in the backend's own convention)."""
     out = []
     for plan, x in zip(plans, xs):
-        out.append(ctx.run(x, plan))
+        out.append(ctx.run_native(x, plan))
     return out
 
 
@@ -159,15 +164,15 @@ def check_concurrent(ctx: CheckContext) -> list[CheckRow]:
     same time as the others.
     """
     case, dtype = ctx.case, ctx.case.dtype
-    xs = [ctx.random_input(f"concurrent-{t}") for t in range(CONCURRENT_THREADS)]
-    alone = [ctx.run(x) for x in xs]
-    spread = max(differences(a, again)[1] for a, again in zip(alone, [ctx.run(x) for x in xs]))
+    xs = [ctx.native_input(ctx.random_input(f"concurrent-{t}")) for t in range(CONCURRENT_THREADS)]
+    alone = [ctx.run_native(x) for x in xs]
+    spread = max(differences(a, again)[1] for a, again in zip(alone, [ctx.run_native(x) for x in xs]))
     try:
         with np.errstate(all="ignore"):
             probe_a = ctx.plan.execute(np.array(xs[0], copy=True))
             probe_b = ctx.plan.execute(np.array(xs[1 % len(xs)], copy=True))
     except Exception as exc:  # noqa: BLE001
-        raise BackendFailure(f"the backend raised {type(exc).__name__}: {one_line(exc)}") from None
+        raise BackendFailure(f"the backend raised {exception_text(exc)}") from None
     reuses_buffer = isinstance(probe_a, np.ndarray) and isinstance(probe_b, np.ndarray) and \
         np.shares_memory(probe_a, probe_b)
     own_plans = []
@@ -177,7 +182,7 @@ def check_concurrent(ctx: CheckContext) -> list[CheckRow]:
     except Exception as exc:  # noqa: BLE001
         for p in own_plans:
             p.close()
-        raise BackendFailure(f"planning again raised {type(exc).__name__}: {one_line(exc)}") from None
+        raise BackendFailure(f"planning again raised {exception_text(exc)}") from None
     try:
         own_alone = _sequential(ctx, own_plans, xs)
         caps = thread_caps()
@@ -195,7 +200,7 @@ def check_concurrent(ctx: CheckContext) -> list[CheckRow]:
     for per_thread in results:
         for how, t, out in per_thread:
             if how == "raised":
-                bad.append(f"a concurrent call raised {type(out).__name__}: {one_line(out)}")
+                bad.append(f"a concurrent call raised {exception_text(out)}")
                 continue
             count, rel = differences(own_alone[t] if how == "own plan" else alone[t], out)
             worst = max(worst, rel)
@@ -290,12 +295,14 @@ def check_strided(ctx: CheckContext) -> list[CheckRow]:
     the accuracy limit of each other (S = both norms) pass too, since a backend may take a
     different code path for strided data. A difference is named by what differs: shape,
     dtype, or the values (with a test of whether the backend read memory in order,
-    ignoring the strides).
+    ignoring the strides). The layouts are of the input in the backend's declared convention,
+    and the outputs are compared as the backend gives them.
     """
     case = ctx.case
-    x = ctx.random_input("strided")
-    filler = ctx.random_input("strided-filler")
-    base = ctx.run(x)
+    given = ctx.random_input("strided")
+    x = ctx.native_input(given)
+    filler = ctx.native_input(ctx.random_input("strided-filler"))
+    base = ctx.run_native(x)
     length = x.shape[0]
     big = np.empty(2 * length, dtype=x.dtype)
     big[::2], big[1::2] = x, filler
@@ -312,7 +319,7 @@ def check_strided(ctx: CheckContext) -> list[CheckRow]:
     for name, view, memory_order in layouts:
         if not np.array_equal(view, x):
             raise RuntimeError(f"internal: the {name} view does not hold the input values")
-        out = ctx.run(view, copy_input=False)
+        out = ctx.run_native(view, copy_input=False)
         if out.shape != base.shape:
             return [ctx.row("strided", "fail", diagnosis="shape", eps=False,
                             message=f"{name}: output shape {out.shape}, contiguous input gives {base.shape}")]
@@ -328,12 +335,12 @@ def check_strided(ctx: CheckContext) -> list[CheckRow]:
             continue
         code, why = "unknown", "the values differ"
         if memory_order is not None and length > 1:
-            as_read = ctx.run(np.ascontiguousarray(memory_order))
+            as_read = ctx.run_native(np.ascontiguousarray(memory_order))
             if as_read.shape == out.shape and differences(as_read, out)[0] == 0:
                 why = ("the output is the transform of the array's memory read in order: the backend ignores "
                        "the strides")
         if why == "the values differ":
-            code, why = ctx.diagnose(x, out)
+            code, why = ctx.diagnose(given, ctx.from_native(out))
         return [ctx.row("strided", "fail", value, ctx.limit + ctx.rounding, diagnosis=code,
                         message=f"{name}: output differs from the contiguous input's by "
                                 f"{fmt_eps(value, case.dtype)}; {why}")]
@@ -342,18 +349,19 @@ def check_strided(ctx: CheckContext) -> list[CheckRow]:
 
 
 def check_precision(ctx: CheckContext) -> list[CheckRow]:
-    """The output's dtype is of the case's precision or higher (real for irfft, complex otherwise)."""
+    """The output's dtype is of the case's precision or higher (real for irfft and for an rfft
+    with a declared packing of n reals, complex otherwise)."""
     case = ctx.case
-    x = ctx.random_input("precision")
+    x = ctx.native_input(ctx.random_input("precision"))
     try:
         with np.errstate(all="ignore"):
             out = ctx.plan.execute(np.array(x, copy=True))
     except Exception as exc:  # noqa: BLE001
-        raise BackendFailure(f"the backend raised {type(exc).__name__}: {one_line(exc)}") from None
+        raise BackendFailure(f"the backend raised {exception_text(exc)}") from None
     if not isinstance(out, np.ndarray):
         return [ctx.row("precision", "fail", diagnosis="dtype", eps=False,
                         message=f"output is a {type(out).__name__}, not a numpy array")]
-    want = case.output_dtype
+    want = ctx.convention.output_dtype(case)
     got = out.dtype
     if got.kind not in "fc":
         return [ctx.row("precision", "fail", diagnosis="dtype", eps=False,
@@ -370,11 +378,11 @@ def check_precision(ctx: CheckContext) -> list[CheckRow]:
 
 
 def check_shape(ctx: CheckContext) -> list[CheckRow]:
-    """The output is 1-D with ``case.output_length`` values."""
+    """The output is 1-D with ``case.output_length`` values (n reals for an rfft with a declared packing)."""
     case = ctx.case
-    out = ctx.run(ctx.random_input("shape"))
-    if out.shape != (case.output_length,):
-        return [ctx.row("shape", "fail", float(out.size), float(case.output_length), diagnosis="shape", eps=False,
-                        message=f"output shape {out.shape} where ({case.output_length},) is due")]
-    return [ctx.row("shape", "pass", float(out.size), float(case.output_length), eps=False,
-                    message=f"output shape ({case.output_length},)")]
+    due = ctx.convention.output_length(case)
+    out = ctx.run_native(ctx.native_input(ctx.random_input("shape")))
+    if out.shape != (due,):
+        return [ctx.row("shape", "fail", float(out.size), float(due), diagnosis="shape", eps=False,
+                        message=f"output shape {out.shape} where ({due},) is due")]
+    return [ctx.row("shape", "pass", float(out.size), float(due), eps=False, message=f"output shape ({due},)")]

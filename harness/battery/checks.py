@@ -27,6 +27,7 @@ from fftgauge.harness.battery.behaviour_checks import (
     check_strided,
 )
 from fftgauge.harness.battery.context import CheckContext, OutputProblem, one_line
+from fftgauge.harness.battery.conventions import DeclaredConvention
 from fftgauge.harness.battery.exact_checks import check_convolution, check_pairs
 from fftgauge.harness.battery.reference import reference_transform
 from fftgauge.harness.battery.value_checks import (
@@ -35,6 +36,7 @@ from fftgauge.harness.battery.value_checks import (
 )
 from fftgauge.harness.cases import Case
 from fftgauge.harness.errors import BackendFailure, UsageError
+from fftgauge.harness.execution.crash import exception_text
 from fftgauge.harness.rows import CheckRow, error_rows, skip_rows
 
 __all__ = ["CHECKS", "CheckContext", "OutputProblem", "applicable_checks", "check_case", "inapplicable_reason",
@@ -105,15 +107,17 @@ def run_check(ctx: CheckContext, name: str) -> list[CheckRow]:
         return [ctx.row(name, "error", eps=False, message=one_line(exc))]
     except Exception as exc:  # noqa: BLE001 - one check's failure must not stop the others
         return [ctx.row(name, "error", eps=False,
-                        message=f"the {name} check could not run: {type(exc).__name__}: {one_line(exc)}")]
+                        message=f"the {name} check could not run: {exception_text(exc)}")]
 
 
 def check_case(backend: Backend, case: Case, seed: int, check_names: list[str] | None = None,
                reference_fn: Callable[[np.ndarray, Case], Any] = reference_transform) -> list[CheckRow]:
     """Plan ``case`` once and return the rows of the asked checks (all of :data:`CHECKS` by default).
 
-    A case the backend does not claim gives ``skip`` rows; a plan that raises gives an
-    ``error`` row for every asked check.
+    A case the backend does not claim, or where its declared convention cannot be undone
+    (``order=bit-reversed`` at a size that is not a power of two, ``packing=dc-nyquist`` at
+    an odd one), gives ``skip`` rows; a plan that raises gives an ``error`` row for every
+    asked check (the exception with the line that raised it).
 
     Raises
     ------
@@ -125,13 +129,13 @@ def check_case(backend: Backend, case: Case, seed: int, check_names: list[str] |
     if unknown:
         raise UsageError(f"unknown check {unknown[0]!r}; checks: {', '.join(CHECKS)}")
 
-    reason = backend.unsupported_reason(case)
+    reason = backend.unsupported_reason(case) or convention_reason(backend, case)
     if reason is not None:
         return skip_rows(backend.label, case, names, reason)
     try:
         plan = backend.plan(case)
     except Exception as exc:  # noqa: BLE001
-        return error_rows(backend.label, case, names, f"planning failed: {type(exc).__name__}: {one_line(exc)}")
+        return error_rows(backend.label, case, names, f"planning failed: {exception_text(exc)}")
     ctx = CheckContext(backend, case, plan, seed, reference_fn=reference_fn)
     try:
         return [row for name in names for row in run_check(ctx, name)]
@@ -141,6 +145,13 @@ def check_case(backend: Backend, case: Case, seed: int, check_names: list[str] |
             plan.close()
         except Exception:  # noqa: BLE001
             pass
+
+
+def convention_reason(backend: Backend, case: Case) -> str | None:
+    """Return why ``backend``'s declared convention cannot be undone at ``case``, or None
+    (:meth:`~fftgauge.harness.battery.conventions.DeclaredConvention.unsupported_reason`)."""
+    declared = getattr(backend, "conventions", None)
+    return DeclaredConvention(declared).unsupported_reason(case) if declared is not None else None
 
 
 def run_case_checks(backend: Backend, case_fields: tuple, seed: int, check_names: list[str]) -> list[dict]:

@@ -18,11 +18,13 @@ import numpy as np
 from fftgauge.backends.base import Backend, Capabilities, Plan
 from fftgauge.harness.battery import bounds
 from fftgauge.harness.battery import inputs
+from fftgauge.harness.battery.conventions import ConventionMismatch, DeclaredConvention
 from fftgauge.harness.battery.diagnosis import diagnose
 from fftgauge.harness.battery.reference import reference_transform
 from fftgauge.harness.cases import Case
 from fftgauge.harness.dft import clean_half_spectrum, norm_factor
 from fftgauge.harness.errors import BackendFailure
+from fftgauge.harness.execution.crash import exception_text
 from fftgauge.harness.rows import CheckRow
 
 #: Unit roundoffs (of the case's precision) added to every tolerance for forming the
@@ -97,10 +99,13 @@ class CheckContext:
     limit: float | None = None
     _companions: dict = field(default_factory=dict, repr=False)
     _diagnosis: tuple[str, str] | None = field(default=None, repr=False)
+    _convention: DeclaredConvention | None = field(default=None, repr=False)
 
     def __post_init__(self) -> None:
         if self.limit is None:
             self.limit = bounds.accuracy_limit(self.case)
+        declared = getattr(self.backend, "conventions", None)
+        self._convention = DeclaredConvention(declared if declared is not None else self.capabilities.conventions)
 
     # -- what the case is --------------------------------------------------------------------
     @property
@@ -112,6 +117,11 @@ class CheckContext:
     def capabilities(self) -> Capabilities:
         """The backend's claims."""
         return self.backend.capabilities()
+
+    @property
+    def convention(self) -> DeclaredConvention:
+        """The conventions the backend declared (numpy's where it declared none)."""
+        return self._convention
 
     @property
     def unit_roundoff(self) -> float:
@@ -156,8 +166,27 @@ class CheckContext:
         return clean_half_spectrum(x, case.n) if case.kind == "irfft" else x
 
     # -- running the backend ---------------------------------------------------------------
-    def run(self, x: np.ndarray, plan: Plan | None = None, copy_input: bool = True) -> np.ndarray:
-        """Return a copy of ``plan.execute(x)`` as an ndarray (plans may reuse output buffers).
+    def run(self, x: np.ndarray, plan: Plan | None = None, copy_input: bool = True,
+            case: Case | None = None) -> np.ndarray:
+        """Return the backend's output for ``x`` through ``plan`` (default: the case's), both in
+        numpy's convention: ``x`` is turned into the backend's declared convention first and
+        its output back (:class:`~fftgauge.harness.battery.conventions.DeclaredConvention`).
+        ``case`` is the plan's case (default: this one). See :meth:`run_native`.
+
+        Raises
+        ------
+        BackendFailure
+            When the backend raises.
+        OutputProblem
+            When it returns something that is not an array of numbers, or a packed half
+            spectrum of the wrong length.
+        """
+        case = case or self.case
+        return self.from_native(self.run_native(self.native_input(x, case), plan, copy_input), case)
+
+    def run_native(self, x: np.ndarray, plan: Plan | None = None, copy_input: bool = True) -> np.ndarray:
+        """Return a copy of ``plan.execute(x)`` as an ndarray (plans may reuse output buffers),
+        ``x`` and the output in the backend's own convention.
 
         ``copy_input`` True passes a copy of ``x``, so a backend that writes to its input
         cannot spoil the check's own arrays.
@@ -165,7 +194,7 @@ class CheckContext:
         Raises
         ------
         BackendFailure
-            When the backend raises.
+            When the backend raises (its message names the line, as a crash does).
         OutputProblem
             When it returns something that is not an array of numbers.
         """
@@ -175,8 +204,26 @@ class CheckContext:
             with np.errstate(all="ignore"):
                 out = plan.execute(arg)
         except Exception as exc:  # noqa: BLE001 - any exception of the backend is an error row
-            raise BackendFailure(f"the backend raised {type(exc).__name__}: {one_line(exc)}") from None
+            raise BackendFailure(f"the backend raised {exception_text(exc)}") from None
         return copy_output(out)
+
+    def native_input(self, x: np.ndarray, case: Case | None = None) -> np.ndarray:
+        """Return the input ``x`` (numpy's convention) of ``case`` (default: this one) as the
+        backend takes it in its declared convention (``x`` itself when that changes nothing)."""
+        return self.convention.to_backend(x, case or self.case)
+
+    def from_native(self, y: np.ndarray, case: Case | None = None) -> np.ndarray:
+        """Return the backend's output ``y`` of ``case`` (default: this one) in numpy's convention.
+
+        Raises
+        ------
+        OutputProblem
+            ``shape`` for a packed half spectrum of the wrong length.
+        """
+        try:
+            return self.convention.from_backend(y, case or self.case)
+        except ConventionMismatch as exc:
+            raise OutputProblem("shape", str(exc)) from None
 
     def output(self, y: np.ndarray, case: Case | None = None) -> np.ndarray:
         """Return ``y`` as a work-precision complex array after checking its shape and kind.
@@ -195,7 +242,7 @@ class CheckContext:
 
     def transform(self, x: np.ndarray, plan: Plan | None = None, case: Case | None = None) -> np.ndarray:
         """Return the checked output of ``x`` (see :meth:`run` and :meth:`output`)."""
-        return self.output(self.run(x, plan), case)
+        return self.output(self.run(x, plan, case=case), case)
 
     def companion(self) -> tuple[Plan | None, Case, str | None]:
         """Return ``(plan, case, None)`` for the inverse kind of this case, or ``(None, case, reason)``.
@@ -214,8 +261,7 @@ class CheckContext:
                 try:
                     self._companions[case] = (self.backend.plan(case), None)
                 except Exception as exc:  # noqa: BLE001
-                    raise BackendFailure(f"planning {case.kind} raised {type(exc).__name__}: "
-                                         f"{one_line(exc)}") from None
+                    raise BackendFailure(f"planning {case.kind} raised {exception_text(exc)}") from None
         plan, reason = self._companions[case]
         return plan, case, reason
 
@@ -233,8 +279,16 @@ class CheckContext:
     def row(self, check: str, status: str, value: float | None = None, limit: float | None = None,
             diagnosis: str | None = None, message: str = "", eps: bool = True,
             reference: str | None = None) -> CheckRow:
-        """Return one row of this case; ``eps_units`` from ``value`` when ``eps`` is True."""
+        """Return one row of this case; ``eps_units`` from ``value`` when ``eps`` is True.
+
+        When the backend declared a convention of its own for this kind, the message ends
+        with it (``"[declared convention: sign=+1; checked in numpy's]"``), so a reader sees
+        what every value was measured against.
+        """
         value = finite_or_none(value)
+        declared = self.convention.describe(self.case)
+        if declared:
+            message = f"{message} [declared convention: {declared}; checked in numpy's]".lstrip()
         eps_units = bounds.eps_units(value, self.case.dtype) if (eps and value is not None) else None
         return CheckRow(backend=self.label, kind=self.case.kind, dtype=self.case.dtype, n=self.case.n,
                         check=check, status=status, value=value, limit=limit, eps_units=eps_units,
@@ -243,9 +297,16 @@ class CheckContext:
                         limit_source="bound" if limit is not None else None)
 
     def diagnose(self, x: np.ndarray, y: np.ndarray) -> tuple[str, str]:
-        """Return ``diagnose(case, x, y)``; a diagnosis that itself fails gives ``unknown``."""
+        """Return ``diagnose(case, x, y)`` for an output ``y`` in numpy's convention; a diagnosis
+        that itself fails gives ``unknown``.
+
+        When the backend declared a convention, what is found is what remains after undoing
+        it (a ``scale`` names the declared factor and the one the backend applies; the row
+        names the declared convention, see :meth:`row`).
+        """
         try:
-            return diagnose(self.case, x, y, self.reference_fn, self.limit)
+            return diagnose(self.case, x, y, self.reference_fn, self.limit,
+                            declared_scale=self.convention.scale(self.case))
         except Exception as exc:  # noqa: BLE001
             return "unknown", f"no diagnosis ({type(exc).__name__}: {one_line(exc)})"
 

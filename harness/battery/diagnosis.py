@@ -54,7 +54,7 @@ import numpy as np
 
 from fftgauge.harness.cases import Case
 from fftgauge.harness.battery.hypotheses import ReferenceFn, candidates, resize_input, values128
-from fftgauge.harness.dft import is_power_of_two, machine_epsilon, norm_factor, unit_roundoff
+from fftgauge.harness.dft import is_power_of_two, machine_epsilon, norm_factor, scale_factor, unit_roundoff
 
 #: A candidate matches when ``norm(y - a * candidate) / norm(a * candidate)`` is below this
 #: for the best constant ``a``. Far above any FFT's rounding error in float32 (about 1e-6)
@@ -155,20 +155,26 @@ def _is_unit(a: complex) -> bool:
     return abs(a - 1.0) <= UNIT_FACTOR_RELATIVE
 
 
-def _scale_words(case: Case, a: complex, n: int) -> str:
-    """Return the plain-words account of an output that is ``a`` times the right one."""
+def _scale_words(case: Case, a: complex, n: int, declared_scale: str | None = None) -> str:
+    """Return the plain-words account of an output that is ``a`` times the right one
+    (``declared_scale``: the factor the backend declared, see :func:`diagnose`)."""
     if abs(a.imag) > UNIT_FACTOR_RELATIVE * abs(a) or a.real <= 0:
         return f"output is off by a constant factor {a:.4g}"
     ratio = a.real
     if _is_unit(a):
         return (f"output is {ratio:.7g} times the right one: a uniform scale error of {ratio - 1:+.3g} "
                 f"(a rounded or fixed-point normalisation factor, for example)")
-    due = norm_factor(n, case.norm, case.is_inverse)
-    got = due * ratio
     if ratio > 1:
         head = f"output is {factor_name(ratio, n)} times too large"
     else:
         head = f"output is {factor_name(1.0 / ratio, n)} times too small"
+    if declared_scale is not None:
+        declared = scale_factor(n, declared_scale)
+        which = "inverse_scale" if case.is_inverse else "forward_scale"
+        return (f"{head}: it scales by {factor_name(declared * ratio, n)} where it declares "
+                f"{factor_name(declared, n)} ({which}={declared_scale})")
+    due = norm_factor(n, case.norm, case.is_inverse)
+    got = due * ratio
     due_name, got_name = factor_name(due, n), factor_name(got, n)
     words = f"{head}: it is scaled by {got_name} where {due_name} is due"
     if got_name == "1" and due_name == "1/N":
@@ -268,7 +274,7 @@ def overflow_words(truth: np.ndarray, y: np.ndarray) -> str | None:
 # -- the entry points --------------------------------------------------------------------------
 
 def diagnose(case: Case, x: np.ndarray, y: Any, reference_fn: ReferenceFn | None = None,
-             limit: float | None = None) -> tuple[str, str]:
+             limit: float | None = None, declared_scale: str | None = None) -> tuple[str, str]:
     """Return the most likely bug behind a wrong output, as ``(code, message)``.
 
     Parameters
@@ -281,6 +287,10 @@ def diagnose(case: Case, x: np.ndarray, y: Any, reference_fn: ReferenceFn | None
     limit : the relative 2-norm error limit of ``case``
         (:func:`fftgauge.harness.battery.bounds.accuracy_limit` when None); used to place an error at the
         level of a lower precision.
+    declared_scale : the scale the backend declared for this kind (``"1/n"``, see
+        :data:`fftgauge.harness.dft.SCALES`), when ``y`` is its output with that scale
+        undone; a ``scale`` finding then names the declared factor and the one applied
+        (``"it scales by 1/sqrt(N) where it declares 1/N"``).
 
     Returns
     -------
@@ -345,7 +355,7 @@ def diagnose(case: Case, x: np.ndarray, y: Any, reference_fn: ReferenceFn | None
     if matches:
         _, _, code, words, a = min(matches)
         if code == "scale":
-            return "scale", _scale_words(case, a, case.n)
+            return "scale", _scale_words(case, a, case.n, declared_scale)
         return code, _with_scale(words, a, case.n)
 
     eps_case = machine_epsilon(case.dtype)
