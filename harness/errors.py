@@ -24,3 +24,15 @@ class UnsupportedCase(Exception):
 
 class BackendFailure(Exception):
     """A backend raised, crashed, hung or returned something unusable while running a case."""
+
+
+class RunStopped(KeyboardInterrupt):
+    """A run stopped by a signal before it finished (a KeyboardInterrupt, so a script's Ctrl-C
+    handling still applies). ``signal_name`` (``SIGINT``, ``SIGTERM``, ``SIGHUP``),
+    ``exit_code`` (130, 143, 129) and ``doc``: the results document of what finished."""
+
+    def __init__(self, signal_name: str, exit_code: int, doc: dict):
+        super().__init__(f"stopped by {signal_name}")
+        self.signal_name = signal_name
+        self.exit_code = exit_code
+        self.doc = doc

@@ -23,13 +23,27 @@ from fftgauge import __version__
 from fftgauge.harness.errors import UsageError
 
 
+_UMASK_LOCK = threading.Lock()
+
+
+def file_mode() -> int:
+    """Return the permission bits a new file gets under this process's umask (0o666 & ~umask)."""
+    with _UMASK_LOCK:
+        mask = os.umask(0o022)
+        os.umask(mask)
+    return 0o666 & ~mask
+
+
 def write_text_atomic(path: str, text: str) -> None:
-    """Write ``text`` to ``path`` atomically (temporary file + rename).
+    """Write ``text`` to ``path`` atomically (temporary file + rename); the file's permissions
+    follow the umask, as for any file the user creates (a temporary file alone would be 0600).
 
     Raises
     ------
     UsageError
         When the folder does not exist or is not writable.
+    OSError
+        When writing fails once the file is open (a full disk: ENOSPC); nothing is left behind.
     """
     folder = os.path.dirname(os.path.abspath(path))
     try:
@@ -38,6 +52,7 @@ def write_text_atomic(path: str, text: str) -> None:
     except OSError as exc:
         raise UsageError(f"cannot write {path!r}: {exc.strerror}; choose a writable location") from None
     try:
+        os.fchmod(fd, file_mode())
         with os.fdopen(fd, "w", encoding="utf-8") as fh:
             fh.write(text)
         os.replace(tmp, path)
@@ -45,6 +60,32 @@ def write_text_atomic(path: str, text: str) -> None:
         if os.path.exists(tmp):
             os.unlink(tmp)
         raise
+
+
+def check_output_path(path: str | None, option: str = "--json") -> None:
+    """Check, before any work, that ``path`` can be written: not a folder, its folder existing
+    (or creatable) and writable. ``None`` and ``-`` (standard output) always pass.
+
+    Raises
+    ------
+    UsageError
+        Naming the path and what is wrong with it.
+    """
+    if path is None or is_stdout(path):
+        return
+    if os.path.isdir(path):
+        raise UsageError(f"{option} {path!r} is a folder; give a file name, e.g. {os.path.join(path, 'run.json')}")
+    if os.path.exists(path) and not os.access(path, os.W_OK):
+        raise UsageError(f"{option} {path!r} is not writable; choose a writable location")
+    folder = os.path.dirname(os.path.abspath(path))
+    existing = folder
+    while not os.path.isdir(existing):
+        parent = os.path.dirname(existing)
+        if parent == existing or (os.path.exists(existing) and not os.path.isdir(existing)):
+            raise UsageError(f"{option} {path!r}: {existing!r} is not a folder; choose a writable location")
+        existing = parent
+    if not os.access(existing, os.W_OK | os.X_OK):
+        raise UsageError(f"{option} {path!r}: the folder {existing!r} is not writable; choose a writable location")
 
 
 #: The ``--json`` (or other output path) value that means standard output.
@@ -163,6 +204,8 @@ def dumps(doc: dict[str, Any]) -> str:
     """Return ``doc`` as JSON text: the envelope indented, one row per line (numpy scalars
     converted; NaN/Inf written as null)."""
     head = {k: v for k, v in doc.items() if k != "rows"}
+    if "schema" in head and "complete" not in head:
+        head["complete"] = True  # a document written in one go is complete; a stream says so itself
     text = json.dumps(_clean(head), indent=1, default=_json_default, allow_nan=False)
     if "rows" not in doc:
         return text + "\n"
@@ -187,47 +230,106 @@ def _clean(obj: Any) -> Any:
 REWRITE_SPACING = 20.0
 
 
+class ResultsWriteError(UsageError):
+    """The results file could not be written during or at the end of a run (a full disk, a
+    folder that went away). The message names the path and where the rows were kept
+    instead; ``doc`` holds the whole document (every row) in memory."""
+
+    def __init__(self, message: str, doc: dict[str, Any]):
+        super().__init__(message)
+        self.doc = doc
+
+
+def fallback_path(path: str) -> str:
+    """Return where the rows go when ``path`` cannot be written: a file of the same name in
+    the system's temporary folder (with this process's id, so runs do not overwrite each other)."""
+    stem, ext = os.path.splitext(os.path.basename(path) or "results.json")
+    return os.path.join(tempfile.gettempdir(), f"{stem}-{os.getpid()}{ext or '.json'}")
+
+
 class ResultsWriter:
     """Streams rows into a results file, rewriting it atomically as rows arrive.
 
     Rewriting the whole file keeps it valid JSON at every moment, so an interrupted run
-    leaves a readable file holding every row written so far. To keep long runs from
+    leaves a readable file holding every row written so far; until :meth:`close` says
+    otherwise the envelope says ``"complete": false``. To keep long runs from
     spending their time rewriting a growing file, a rewrite happens at most every
     ``min_interval_seconds`` and never sooner than :data:`REWRITE_SPACING` times the last
     rewrite's duration after it (so rewriting costs at most about 1/REWRITE_SPACING of the
-    run), and always on :meth:`close`. ``path=None`` keeps rows in memory only. Safe to
-    call from several threads.
+    run), and always on :meth:`close`. ``path=None`` keeps rows in memory only; ``path="-"``
+    writes the document to standard output once, on :meth:`close`. A write that fails (a
+    full disk) stops the rewrites but keeps every row in memory; :meth:`close` then writes
+    them to :func:`fallback_path` and raises :class:`ResultsWriteError`. Safe to call from
+    several threads.
     """
 
-    def __init__(self, path: str | None, doc: dict[str, Any], min_interval_seconds: float = 1.0):
+    def __init__(self, path: str | None, doc: dict[str, Any], min_interval_seconds: float = 1.0,
+                 writer: Any = None):
         self.path = path
         self.doc = doc
         self.min_interval_seconds = min_interval_seconds
+        #: The function that writes a file: ``writer(path, text)`` (a test passes a failing one).
+        self.writer = writer or write_text_atomic
+        #: The OSError that stopped the rewrites, or None.
+        self.error: OSError | None = None
         self._lock = threading.Lock()
         self._last_write = 0.0
         self._last_duration = 0.0
-        if path:
+        doc["complete"] = False
+        if self._streams():
             self.flush()
+
+    def _streams(self) -> bool:
+        return bool(self.path) and not is_stdout(self.path) and self.error is None
 
     def add(self, rows: Iterable[dict[str, Any]]) -> None:
         """Append ``rows``; rewrite the file if the last rewrite is old enough."""
         with self._lock:
             self.doc["rows"].extend(rows)
             wait = max(self.min_interval_seconds, REWRITE_SPACING * self._last_duration)
-            if self.path and time.monotonic() - self._last_write >= wait:
+            if self._streams() and time.monotonic() - self._last_write >= wait:
                 self._write()
 
     def flush(self) -> None:
-        """Write the document as it stands now."""
+        """Write the document as it stands now (unless an earlier write failed)."""
         with self._lock:
-            if self.path:
+            if self._streams():
                 self._write()
 
-    close = flush
+    def close(self, complete: bool = True) -> None:
+        """Write the final document, marked ``complete`` (False: the run was cut short).
+
+        Raises
+        ------
+        ResultsWriteError
+            When the file could not be written (now or during the run): the message names
+            the path, the error and the fallback file holding the rows (or why there is none).
+        """
+        with self._lock:
+            self.doc["complete"] = bool(complete)
+            if self.path and is_stdout(self.path):
+                write_output(self.path, dumps(self.doc))
+                return
+            if self._streams():
+                self._write()
+            if self.error is None or not self.path:
+                return
+            reason = self.error.strerror or str(self.error)
+            spare = fallback_path(self.path)
+            try:
+                write_text_atomic(spare, dumps(self.doc))
+                kept = f"the {len(self.doc['rows'])} rows are kept in {spare}"
+            except (OSError, UsageError) as exc:
+                kept = f"the rows could not be kept in {spare} either ({getattr(exc, 'strerror', None) or exc})"
+            raise ResultsWriteError(f"could not write the results to {self.path!r}: {reason}; {kept}", self.doc)
 
     def _write(self) -> None:
         start = time.monotonic()
-        write_text_atomic(self.path, dumps(self.doc))
+        try:
+            self.writer(self.path, dumps(self.doc))
+        except OSError as exc:
+            self.error = exc
+            return
         self._last_write = time.monotonic()
         self._last_duration = self._last_write - start
 

@@ -33,6 +33,7 @@ import dataclasses
 import os
 import queue
 import threading
+import time
 from collections import deque
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
@@ -42,7 +43,8 @@ from fftgauge.harness.execution import jobs
 from fftgauge.harness.cases import Case
 from fftgauge.backends.registry import require_unique_labels
 from fftgauge.harness.execution.dispatch import Progress, describe_cases
-from fftgauge.harness.errors import BackendFailure, UsageError
+from fftgauge.harness.errors import BackendFailure, RunStopped, UsageError
+from fftgauge.harness.shutdown import stop_reason
 from fftgauge.harness.results import ResultsWriter, envelope
 from fftgauge.harness.battery.budget import probe_sizes, time_reason
 from fftgauge.harness.battery.unclaimed import unclaim_size_classes
@@ -91,6 +93,12 @@ class BatchQueue:
         self.total_batches = sum(len(q) for q in self._left.values())
         self._started: set[str] = set()
         self._lock = threading.Lock()
+        #: True once :meth:`stop` was called: no batch is handed out any more.
+        self.stopped = False
+
+    def stop(self) -> None:
+        """Hand out no more batches (the run is stopping)."""
+        self.stopped = True
 
     def next(self, spec: str | None) -> Batch | None:
         """Return the next batch for a lane now working on backend ``spec`` (None: on none yet),
@@ -103,6 +111,8 @@ class BatchQueue:
         which a single batch, the backend's smallest size, does not repay).
         """
         with self._lock:
+            if self.stopped:
+                return None
             if spec is not None and self._left.get(spec):
                 return self._left[spec].popleft()
             for other in self._order:
@@ -143,6 +153,13 @@ class _Lane:
         if self._worker is not None:
             self._worker.close()
         self._worker, self.spec = None, None
+
+    def abort(self) -> None:
+        """Kill the current worker's child at once (from another thread: the run is stopping);
+        the lane's waiting call then fails and the lane ends."""
+        worker = self._worker
+        if worker is not None:
+            worker.abort()
 
 
 class RowSink:
@@ -199,10 +216,14 @@ def _run_lane(lane: _Lane, batches: BatchQueue, cases: list[Case], req: BatteryR
             worker = lane.worker_for(batch.spec)
             for index in batch.indices:
                 case = cases[index]
+                if batches.stopped:
+                    return
                 try:
                     rows = worker.call(jobs.run_case_job, (case.kind, case.dtype, case.n, case.norm), req.seed, names,
                                        req.threads or 1, timeout_seconds=req.timeout_seconds)
                 except BackendFailure as exc:
+                    if batches.stopped:  # killed because the run is stopping: the case did not finish
+                        return
                     rows = [row.as_dict() for row in error_rows(batch.label, case, names, str(exc))]
                 sink.add(apply_limits(rows, req.limits))
                 progress.advance(note=f"{batch.label} {case.label()}")
@@ -223,9 +244,15 @@ def _describe_all(workers: dict[str, Any], req: BatteryRequest, cases: list[Case
         claims = describe_cases(workers[spec], spec, cases, req.max_n_pure_python, req.timeout_seconds)
         return with_time_reasons(workers[spec], claims, req, cases)
 
-    with ThreadPoolExecutor(max_workers=max(1, min(parallel, len(req.specs)))) as pool:
+    pool = ThreadPoolExecutor(max_workers=max(1, min(parallel, len(req.specs))))
+    try:
         futures = {spec: pool.submit(describe, spec) for spec in req.specs}
-        return {spec: futures[spec].result() for spec in req.specs}
+        answers = {spec: futures[spec].result() for spec in req.specs}
+    except BaseException:  # an interruption: the caller kills the workers, so do not wait here
+        pool.shutdown(wait=False, cancel_futures=True)
+        raise
+    pool.shutdown(wait=True)
+    return answers
 
 
 def probe_cases(claims: Any, cases: list[Case]) -> list[Case]:
@@ -290,12 +317,18 @@ def run_battery(req: BatteryRequest, json_path: str | None = None, quiet: bool =
     """Run the battery and return the ``fftgauge-check/1`` document (rows included).
 
     Rows are streamed to ``json_path`` (when given) as cases finish, so an interrupted run
-    keeps what it finished.
+    keeps what it finished; the envelope's ``complete`` says whether the run finished.
 
     Raises
     ------
     UsageError
         When a backend SPEC cannot be loaded or a check name is unknown.
+    RunStopped
+        When SIGINT (or SIGTERM/SIGHUP inside :func:`~fftgauge.harness.shutdown.stop_on_signals`)
+        stopped the run: its ``doc`` holds what finished (written, ``complete: false``).
+    fftgauge.harness.results.ResultsWriteError
+        When the results file could not be written (its ``doc`` holds every row; the message
+        names the fallback file).
     """
     from fftgauge.harness.battery.checks import CHECKS
     from fftgauge.harness.battery.reference import reference_method
@@ -327,12 +360,10 @@ def run_battery(req: BatteryRequest, json_path: str | None = None, quiet: bool =
         spare_lock = threading.Lock()
         lanes = [_Lane(workers, spare_lock, req) for _ in range(min(parallel, max(1, batches.total_batches)))]
         sink = RowSink(writer)
+        stop: KeyboardInterrupt | None = None
         try:
-            with ThreadPoolExecutor(max_workers=len(lanes)) as pool:
-                futures = [pool.submit(_run_lane, lane, batches, cases, req, check_names, sink, progress)
-                           for lane in lanes]
-                for fut in futures:
-                    fut.result()
+            stop = drive_lanes(lanes, batches, workers,
+                               lambda lane: _run_lane(lane, batches, cases, req, check_names, sink, progress))
         finally:
             progress.close()
             try:
@@ -340,8 +371,68 @@ def run_battery(req: BatteryRequest, json_path: str | None = None, quiet: bool =
             finally:
                 doc["rows"][:] = unclaim_size_classes(doc["rows"], doc["backends"])
                 _sort_rows(doc["rows"], req, claims, list(CHECKS))
-                writer.close()
+                writer.close(complete=stop is None)
+    except KeyboardInterrupt:  # while describing: end the workers at once, not after their start-up
+        for worker in workers.values():
+            worker.abort()
+        raise
     finally:
         for worker in workers.values():
             worker.close()
+    if stop is not None:
+        name, code = stop_reason(stop)
+        raise RunStopped(name, code, doc) from stop
     return doc
+
+
+#: Seconds between the main thread's looks at the lanes (how soon it sees a signal's exception).
+JOIN_POLL_SECONDS = 0.1
+#: Seconds the lanes get to end after their workers were killed, before the run stops without them.
+STOP_WAIT_SECONDS = 1.0
+
+
+def drive_lanes(lanes: list[_Lane], batches: BatchQueue, workers: dict[str, Any],
+                run_lane: Any) -> KeyboardInterrupt | None:
+    """Run ``run_lane(lane)`` for every lane in a thread of its own until all are done; return
+    None, or the interruption (KeyboardInterrupt, or the StopRequested of a SIGTERM/SIGHUP)
+    that stopped them.
+
+    On an interruption the queue stops handing out batches, every lane's worker and every
+    spare worker is killed at once (their calls fail, and the lanes end without rows for the
+    cases they were running), and the lanes get :data:`STOP_WAIT_SECONDS` to end: the threads
+    are daemons, so none keeps the process alive.
+
+    Raises
+    ------
+    BaseException
+        The first exception a lane raised (after every lane has ended).
+    """
+    errors: list[BaseException] = []
+
+    def lane_main(lane: _Lane) -> None:
+        try:
+            run_lane(lane)
+        except BaseException as exc:  # noqa: BLE001 - raised again in the main thread
+            errors.append(exc)
+
+    threads = [threading.Thread(target=lane_main, args=(lane,), name=f"fftgauge-lane-{i}", daemon=True)
+               for i, lane in enumerate(lanes)]
+    for thread in threads:
+        thread.start()
+    try:
+        for thread in threads:
+            while thread.is_alive():
+                thread.join(JOIN_POLL_SECONDS)
+    except KeyboardInterrupt as stop:
+        batches.stop()
+        for lane in lanes:
+            lane.abort()
+        for worker in list(workers.values()):
+            worker.abort()
+        deadline = time.monotonic() + STOP_WAIT_SECONDS
+        for thread in threads:
+            thread.join(max(0.0, deadline - time.monotonic()))
+        return stop
+    if errors:
+        raise errors[0]
+    return None

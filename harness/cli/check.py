@@ -9,6 +9,7 @@ from __future__ import annotations
 import argparse
 import sys
 import time
+from typing import Any
 
 from fftgauge.harness.battery.budget import DEFAULT_CASE_BUDGET_SECONDS, REFERENCE_CASE_BUDGET_SECONDS
 from fftgauge.harness.battery.request import DEFAULT_CASE_TIMEOUT_SECONDS, BatteryRequest, build_request
@@ -51,6 +52,9 @@ def request_from_args(args: argparse.Namespace) -> BatteryRequest:
 def run(args: argparse.Namespace) -> int:
     """Run the battery; print the summary; return 0 (all held), 1 (a check failed or errored)."""
     from fftgauge.harness.battery.run import run_battery
+    from fftgauge.harness.errors import RunStopped
+    from fftgauge.harness.results import ResultsWriteError
+    from fftgauge.harness.shutdown import stop_on_signals
     from fftgauge.harness.battery.unclaimed import not_run_lines
     from fftgauge.harness.report.check_tables import format_summary, rows_frame
 
@@ -61,8 +65,17 @@ def run(args: argparse.Namespace) -> int:
     out = sys.stderr if validate_outputs(output_paths(args)) else sys.stdout
     path = args.json or default_results_path("check")
     started = time.perf_counter()
-    doc = run_battery(req, json_path=path, quiet=args.quiet)
+    stopped = write_error = None
+    try:
+        with stop_on_signals():
+            doc = run_battery(req, json_path=path, quiet=args.quiet)
+    except RunStopped as exc:
+        stopped, doc = exc, exc.doc
+    except ResultsWriteError as exc:
+        write_error, doc = exc, exc.doc
     elapsed = time.perf_counter() - started
+    if stopped is not None or write_error is not None:
+        return report_cut_short(doc, stopped, write_error, out, elapsed)
     df = rows_frame(doc["rows"])
     print(format_summary(df), file=out)
     not_run = not_run_lines(doc["rows"])
@@ -77,6 +90,26 @@ def run(args: argparse.Namespace) -> int:
           file=out)
     bad = df["status"].isin(["fail", "error"]).any() if not df.empty else False
     return 1 if bad else 0
+
+
+def report_cut_short(doc: dict, stopped: Any, write_error: Any, out: Any, elapsed: float) -> int:
+    """Print the summary of what finished in a run that a signal stopped or whose results file
+    could not be written, and return the exit code: the signal's (130, 143, 129), or 2 for a
+    results file that could not be written (the message names the fallback file)."""
+    from fftgauge.harness.report.check_tables import format_summary, rows_frame
+
+    df = rows_frame(doc["rows"])
+    if not df.empty:
+        print(format_summary(df), file=out)
+    if stopped is not None:
+        finished = len({(r["backend"], r["kind"], r["dtype"], r["norm"], r["n"]) for r in doc["rows"]
+                        if r["check"] != "all"})
+        print(f"\nstopped by {stopped.signal_name} after {elapsed:.1f} s: {finished} case(s) finished; the results "
+              f"file is marked incomplete (\"complete\": false)", file=out)
+    if write_error is not None:
+        print(f"fftgauge: error: {write_error}", file=sys.stderr)
+        return 2
+    return stopped.exit_code
 
 
 def add_criteria_and_outputs(parser: argparse.ArgumentParser) -> None:
