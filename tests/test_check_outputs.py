@@ -231,3 +231,34 @@ def test_markdown_verdict_says_a_pass_hides_bound_failures(run):
     doc["request"]["limits"] = {"all": lim.as_dict()}
     first = markdown_summary(doc).splitlines()[2]
     assert first.startswith("**PASS**: every case held under the user's limits, but the built-in bounds fail")
+
+
+@pytest.mark.timeout(180)
+def test_a_stopped_run_writes_its_outputs_from_what_finished(tmp_path):
+    """SIGINT mid-run (the real command line in its own process group): the JUnit XML,
+    Markdown and CSV are written from the rows that finished and say the run is incomplete."""
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    root = os.path.dirname(HERE)
+    out = tmp_path / "run.json"
+    cmd = [sys.executable, "-m", "fftgauge", "check", "--backend", "tests/data/slow_fft.py:fft", "--sizes", "1..200",
+           "--dtypes", "float64", "--case-budget", "0", "--quiet", "--json", str(out),
+           "--junit", str(tmp_path / "r.xml"), "--markdown", str(tmp_path / "r.md"), "--csv", str(tmp_path / "r.csv")]
+    proc = subprocess.Popen(cmd, cwd=root, env={**os.environ, "PYTHONPATH": root}, stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE, text=True, start_new_session=True)
+    deadline = time.monotonic() + 120
+    while time.monotonic() < deadline and not (out.exists() and json.loads(out.read_text())["rows"]):
+        time.sleep(0.2)
+    assert proc.poll() is None, proc.communicate()
+    os.killpg(proc.pid, signal.SIGINT)
+    stdout, stderr = proc.communicate(timeout=60)
+    assert proc.returncode == 130, stderr
+    assert "written from what finished" in stdout, stdout + stderr
+    doc = json.loads(out.read_text())
+    root_el = validate_junit((tmp_path / "r.xml").read_text())
+    assert root_el.find("testsuite/properties/property[@name='complete']").attrib["value"] == "false"
+    assert (tmp_path / "r.md").read_text().startswith("## fftgauge check: INCOMPLETE\n")
+    assert len(list(csv.DictReader(io.StringIO((tmp_path / "r.csv").read_text())))) == len(doc["rows"])

@@ -75,7 +75,11 @@ def run(args: argparse.Namespace) -> int:
         write_error, doc = exc, exc.doc
     elapsed = time.perf_counter() - started
     if stopped is not None or write_error is not None:
-        return report_cut_short(doc, stopped, write_error, out, elapsed)
+        code = report_cut_short(doc, stopped, write_error, out, elapsed)
+        written = write_check_outputs(doc, junit=args.junit, markdown=args.markdown, csv=args.csv)
+        if written:
+            print(f"written from what finished: {', '.join(written)}", file=out)
+        return code
     df = rows_frame(doc["rows"])
     print(format_summary(df), file=out)
     not_run = not_run_lines(doc["rows"])
