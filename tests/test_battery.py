@@ -291,3 +291,28 @@ def test_battery_and_check_case_give_the_same_rows_at_n_1():
     assert sorted(map(key, rows)) == sorted(map(key, want))
     assert {(r["check"], r["status"]) for r in rows if r["check"] in ("time-shift", "modulation")} == {
         ("time-shift", "skip"), ("modulation", "skip")}
+
+
+# -- progress ----------------------------------------------------------------------------------
+
+def test_progress_off_a_terminal_is_a_plain_line_every_few_seconds():
+    """Written to a log (not a terminal): one line per PROGRESS_LINE_SECONDS of a fake clock,
+    no carriage returns; quiet: nothing."""
+    import io
+
+    from fftgauge.harness.execution import dispatch
+
+    now = [0.0]
+    log = io.StringIO()
+    progress = dispatch.Progress(total=100, quiet=False, stream=log, clock=lambda: now[0])
+    for i in range(100):
+        now[0] += 0.5  # 50 s in all
+        progress.advance(note=f"case {i}")
+    progress.close()
+    lines = log.getvalue().splitlines()
+    assert "\r" not in log.getvalue()
+    assert len(lines) == int(50 // dispatch.PROGRESS_LINE_SECONDS)
+    assert lines[0].startswith("checking: 20/100 cases (20%) after 10 s")
+    quiet = io.StringIO()
+    dispatch.Progress(total=3, quiet=True, stream=quiet, clock=lambda: now[0]).advance(3)
+    assert quiet.getvalue() == ""

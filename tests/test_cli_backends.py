@@ -161,3 +161,17 @@ def test_help_and_backends_import_nothing_heavy():
                           timeout=120)
     assert done.returncode == 0, done.stderr
     assert done.stdout.strip() == "", f"heavy modules imported at start-up: {done.stdout.strip()[:300]}"
+
+
+def test_check_help_shows_the_defaults_and_the_check_names(capsys):
+    import pytest
+
+    from fftgauge.harness.battery.checks import CHECKS
+
+    with pytest.raises(SystemExit) as done:
+        main(["check", "--help"])
+    assert done.value.code == 0
+    text = " ".join(capsys.readouterr().out.split())
+    for default in ("(default @default)", "(default float32,float64)", "(default results/check-"):
+        assert default in text
+    assert all(name.replace("-", "- ") in text or name in text for name in CHECKS)

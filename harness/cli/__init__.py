@@ -36,8 +36,9 @@ class _Parser(argparse.ArgumentParser):
         raise UsageError(f"{message} (see {self.prog} --help)")
 
 
-def add_common_options(parser: argparse.ArgumentParser, *names: str) -> None:
-    """Add the contract's common options named in ``names`` to ``parser``.
+def add_common_options(parser: argparse.ArgumentParser, *names: str, defaults: dict[str, str] | None = None) -> None:
+    """Add the contract's common options named in ``names`` to ``parser``; ``defaults`` (name ->
+    text) adds "(default TEXT)" to an option's help, for the command whose default it is.
 
     Known names: backend, kinds, dtypes, sizes, seed, json, csv, quiet, threads, pin.
     """
@@ -59,6 +60,8 @@ def add_common_options(parser: argparse.ArgumentParser, *names: str) -> None:
     }
     for name in names:
         flags, kwargs = table[name]
+        if defaults and name in defaults:
+            kwargs = {**kwargs, "help": f"{kwargs['help']} (default {defaults[name]})"}
         parser.add_argument(*flags, **kwargs)
 
 

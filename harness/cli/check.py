@@ -12,16 +12,21 @@ import time
 from typing import Any
 
 from fftgauge.harness.battery.budget import DEFAULT_CASE_BUDGET_SECONDS, REFERENCE_CASE_BUDGET_SECONDS
-from fftgauge.harness.battery.request import DEFAULT_CASE_TIMEOUT_SECONDS, BatteryRequest, build_request
+from fftgauge.harness.battery.request import (DEFAULT_CASE_TIMEOUT_SECONDS, DEFAULT_DTYPES, DEFAULT_SIZES, BatteryRequest,
+                                              build_request)
 from fftgauge.harness.cli import add_common_options, default_results_path
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     """Add this sub-command's options to ``parser``."""
-    add_common_options(parser, "backend", "kinds", "dtypes", "sizes", "seed", "json", "quiet", "threads")
+    from fftgauge.harness.battery.checks import CHECKS  # names only: no pandas, no scipy
+
+    add_common_options(parser, "backend", "kinds", "dtypes", "sizes", "seed", "json", "quiet", "threads",
+                       defaults={"sizes": DEFAULT_SIZES, "dtypes": ",".join(DEFAULT_DTYPES),
+                                 "json": "results/check-YYYYmmdd-HHMMSS.json, UTC; - for standard output"})
     add_criteria_and_outputs(parser)
     parser.add_argument("--norms", metavar="LIST", help="comma list of backward, ortho, forward (default backward)")
-    parser.add_argument("--checks", metavar="LIST", help="comma list of checks to run (default: all)")
+    parser.add_argument("--checks", metavar="LIST", help=f"comma list of checks to run (default: all): {', '.join(CHECKS)}")
     parser.add_argument("--timeout", type=float, default=DEFAULT_CASE_TIMEOUT_SECONDS, metavar="SECONDS",
                         help=f"seconds one case may take before the backend is killed (default "
                              f"{DEFAULT_CASE_TIMEOUT_SECONDS:g})")

@@ -62,6 +62,8 @@ def summary_frame(df: pd.DataFrame) -> pd.DataFrame:
     worst accuracy in eps units, the failing sizes and the diagnoses found."""
     import pandas as pd
 
+    from fftgauge.harness.report.findings import bound_eps_units
+
     if df.empty:
         return pd.DataFrame()
     keys = ["backend", "kind", "dtype", "norm"]
@@ -78,6 +80,8 @@ def summary_frame(df: pd.DataFrame) -> pd.DataFrame:
             "passed": int(counts.get("pass", 0)), "failed": int(counts.get("fail", 0)),
             "errors": int(counts.get("error", 0)), "skipped": int(counts.get("skip", 0)),
             "worst_eps_units": float(acc["eps_units"].max()) if not acc.empty else None,
+            "worst_limit_eps_units": (bound_eps_units(acc.loc[acc["eps_units"].idxmax()].to_dict())
+                                      if not acc.empty else None),
             "failed_sizes": compress_sizes(group.loc[group["case_status"].isin(["fail", "error"]), "n"]),
             "diagnoses": ", ".join(f"{d} x{c}" for d, c in diagnoses.value_counts().items()),
         })
@@ -127,7 +131,10 @@ def format_summary(df: pd.DataFrame) -> str:
         return "no cases were run"
     summary = summary_frame(df)
     shown = summary.copy()
-    shown["worst eps"] = shown.pop("worst_eps_units").map(lambda v: "" if v is None or v != v else f"{v:.3g}")
+    limits = shown.pop("worst_limit_eps_units")
+    shown["worst eps (limit)"] = [
+        "" if v is None or v != v else f"{v:.3g}" + ("" if lim is None or lim != lim else f" ({lim:.3g})")
+        for v, lim in zip(shown.pop("worst_eps_units"), limits)]
     shown = shown.rename(columns={"failed_sizes": "failed sizes"})
     if (shown["norm"] == "backward").all():
         shown = shown.drop(columns=["norm"])
