@@ -260,3 +260,19 @@ def test_python_api_takes_limits():
     assert by_check.loc["shape", "limit_source"] == "bound"
     with pytest.raises(UsageError, match="has no unit"):
         fftgauge.check(["numpy"], sizes="16", limits=["accuracy=8"])
+
+
+def test_absolute_limit_uses_a_declared_scale():
+    """A backend declaring forward_scale 1/n: its outputs' rms is sqrt(N)/N times the inputs'
+    (Parseval with c = 1/N, checked on numpy.fft with norm="forward", which scales by 1/N)."""
+    from fftgauge.backends.claims import Conventions
+
+    n, s, a = 256, 1.0, 1e-9
+    x = np.random.default_rng(3).standard_normal(n) + 0j
+    x *= s / np.sqrt(np.mean(np.abs(x) ** 2))
+    measured = a / np.sqrt(np.mean(np.abs(np.fft.fft(x, norm="forward")) ** 2))
+    lim = parse_limit_option(f"accuracy={a}abs@{s}")
+    row = {**_row(value=1e-16), "n": n}
+    judged = judge_row(row, lim, Conventions(forward_scale="1/n"))
+    assert math.isclose(judged["limit"], measured, rel_tol=1e-9)
+    assert math.isclose(judge_row(row, lim)["limit"], measured / n, rel_tol=1e-9)  # numpy's backward: no 1/N

@@ -14,9 +14,10 @@ Every unit becomes a limit on the row's ``value``, the check's own relative erro
 ``accuracy`` the relative rms error): ``k eps`` is ``k * eps(dtype)``
 (:func:`fftgauge.harness.dft.machine_epsilon`), ``x dB`` is ``10^(x/20)``, and ``a abs@S`` is
 ``a / (S * |c| * sqrt(N))``, with ``c`` the case's normalisation factor
-(:func:`fftgauge.harness.dft.norm_factor`): by Parseval's theorem the outputs' rms is
-``|c| sqrt(N)`` times the inputs' rms (exactly for fft/ifft; for rfft/irfft the half
-spectrum's rms stands for the full one's, equal up to the DC and Nyquist terms). An absolute
+(:func:`fftgauge.harness.dft.norm_factor`), or the scale the backend declares for the
+transform (``forward_scale``/``inverse_scale`` in its conventions): by Parseval's theorem the
+outputs' rms is ``|c| sqrt(N)`` times the inputs' rms (exactly for fft/ifft; for rfft/irfft
+the half spectrum's rms stands for the full one's, equal up to the DC and Nyquist terms). An absolute
 limit applies to ``accuracy`` only: the other checks measure relative to sums of several
 transforms' norms, for which no single input scale holds.
 
@@ -86,16 +87,18 @@ class Limit:
             return f"{self.amount:g} absolute rms at input rms {self.scale:g}"
         return f"{self.amount:g} {self.unit}"
 
-    def relative_limit(self, dtype: str, n: int, norm: str, kind: str) -> float:
+    def relative_limit(self, dtype: str, n: int, norm: str, kind: str, declared_scale: str | None = None) -> float:
         """Return the criterion as a limit on a row's relative error for a case (see the module
-        docstring for each unit's conversion).
+        docstring for each unit's conversion). ``declared_scale`` (one of
+        :data:`fftgauge.harness.dft.SCALES`) is the factor the backend declares it applies to this
+        transform, whatever the norm; an absolute limit then uses it in place of the norm's factor.
 
         Raises
         ------
         ValueError
             For an unknown precision or norm (cannot happen for a row the battery made).
         """
-        from fftgauge.harness.dft import machine_epsilon, norm_factor
+        from fftgauge.harness.dft import machine_epsilon, norm_factor, scale_factor
 
         if self.unit == "eps":
             return self.amount * machine_epsilon(dtype)
@@ -103,7 +106,9 @@ class Limit:
             return self.amount
         if self.unit == "dB":
             return 10.0 ** (self.amount / 20.0)
-        gain = abs(norm_factor(int(n), norm, kind in ("ifft", "irfft"))) * math.sqrt(int(n))
+        factor = (scale_factor(int(n), declared_scale) if declared_scale else
+                  norm_factor(int(n), norm, kind in ("ifft", "irfft")))
+        gain = abs(factor) * math.sqrt(int(n))
         return self.amount / (self.scale * gain)
 
     def as_dict(self) -> dict[str, Any]:
@@ -268,8 +273,17 @@ def limit_for(limits: Iterable[Limit], check: str) -> Limit | None:
     return by_check.get(ALL_CHECKS) if check in LIMITED_CHECKS else None
 
 
-def judge_row(row: dict[str, Any], limit: Limit | None) -> dict[str, Any]:
+def declared_scale(conventions: Any, kind: str) -> str | None:
+    """Return the scale a backend's declared conventions (a
+    :class:`~fftgauge.backends.claims.Conventions`, or None) give transforms of ``kind``, or None."""
+    if conventions is None:
+        return None
+    return getattr(conventions, "inverse_scale" if kind in ("ifft", "irfft") else "forward_scale", None)
+
+
+def judge_row(row: dict[str, Any], limit: Limit | None, conventions: Any = None) -> dict[str, Any]:
     """Return ``row`` (a check row as a dict) judged against ``limit``; a copy when changed.
+    ``conventions`` are the backend's declared ones (their scale enters an absolute limit).
 
     Rows without a built-in limit (skip, error, a wrong shape) and rows of checks ``limit``
     does not hold for are returned as they are, with ``limit_source`` ``bound`` where they
@@ -280,7 +294,8 @@ def judge_row(row: dict[str, Any], limit: Limit | None) -> dict[str, Any]:
         if bound is not None and row.get("limit_source") is None:
             return {**row, "limit_source": "bound"}
         return row
-    user = limit.relative_limit(row["dtype"], row["n"], row.get("norm") or "backward", row["kind"])
+    user = limit.relative_limit(row["dtype"], row["n"], row.get("norm") or "backward", row["kind"],
+                                declared_scale(conventions, row["kind"]))
     value = row.get("value")
     passes = value is not None and value <= user
     out = {**row, "limit": user, "limit_source": "user", "bound_limit": bound}
@@ -302,9 +317,10 @@ def judge_row(row: dict[str, Any], limit: Limit | None) -> dict[str, Any]:
     return out
 
 
-def apply_limits(rows: list[dict[str, Any]], limits: Sequence[Limit]) -> list[dict[str, Any]]:
-    """Return the rows judged against the user's limits (:func:`judge_row`); unchanged rows as they are."""
-    return [judge_row(row, limit_for(limits, row.get("check", ""))) for row in rows]
+def apply_limits(rows: list[dict[str, Any]], limits: Sequence[Limit], conventions: Any = None) -> list[dict[str, Any]]:
+    """Return the rows of one backend judged against the user's limits (:func:`judge_row`; its
+    declared ``conventions``, if any); unchanged rows as they are."""
+    return [judge_row(row, limit_for(limits, row.get("check", "")), conventions) for row in rows]
 
 
 def limit_notes(rows: Iterable[dict[str, Any]], limits: Mapping[str, Mapping[str, Any]] | None) -> list[str]:

@@ -225,7 +225,7 @@ def _run_lane(lane: _Lane, batches: BatchQueue, cases: list[Case], req: BatteryR
                     if batches.stopped:  # killed because the run is stopping: the case did not finish
                         return
                     rows = [row.as_dict() for row in error_rows(batch.label, case, names, str(exc))]
-                sink.add(apply_limits(rows, req.limits))
+                sink.add(apply_limits(rows, req.limits, getattr(batch.capabilities, "conventions", None)))
                 progress.advance(note=f"{batch.label} {case.label()}")
     finally:
         lane.close()
