@@ -120,3 +120,73 @@ class TimeRow:
     def as_dict(self) -> dict[str, Any]:
         """Return the row as a JSON-able dict."""
         return asdict(self)
+
+
+@dataclass(frozen=True)
+class GateRow:
+    """One case of a gate run (``fftgauge-gate/1``): candidate time / baseline time and the verdict.
+
+    Contract fields first: ``ratio`` with its 95% interval ``ratio_low``/``ratio_high``,
+    ``p_value`` (before Holm) and ``verdict`` (``slower``, ``faster``, ``same``, ``accuracy``;
+    None when the case was not compared: record mode, skip, error, incomplete). Beyond the
+    contract: ``status`` (``ok``, ``skip``, ``error``, ``incomplete``), ``p_holm`` (Holm-adjusted),
+    ``significant``, ``conclusive`` (the interval straddles neither threshold: the sampling
+    loop's stopping rule), ``inconclusive`` (the verdict is ``same`` and the interval still
+    reaches above 1 + threshold: a slowdown the run could not rule out), ``timing_verdict``;
+    ``seconds``/``seconds_low``/``seconds_high`` the candidate's **median** per-call time and its
+    interval, ``seconds_p10``/``seconds_p10_low``/``seconds_p10_high`` its 10th percentile,
+    ``compared_statistic`` what a stored-mode ratio compares (``p10`` or ``median``),
+    ``baseline_seconds`` the baseline's median (``baseline_seconds_p10`` its 10th percentile in
+    stored mode), ``ratio_raw`` the ratio before the yardstick correction (stored mode, in the
+    compared statistic) or of the two sides' medians (A/B), ``ab_ratio`` fields this run's
+    new/old ratio (two-sided modes, what a later referenced run compares with); accuracy
+    fields with ``--accuracy`` (None otherwise).
+    """
+
+    backend: str
+    kind: str
+    dtype: str
+    n: int
+    ratio: float | None = None
+    ratio_low: float | None = None
+    ratio_high: float | None = None
+    p_value: float | None = None
+    verdict: str | None = None
+    norm: str = "backward"
+    status: str = "ok"
+    message: str = ""
+    p_holm: float | None = None
+    significant: bool | None = None
+    conclusive: bool | None = None
+    inconclusive: bool | None = None
+    timing_verdict: str | None = None
+    seconds: float | None = None
+    seconds_low: float | None = None
+    seconds_high: float | None = None
+    seconds_p10: float | None = None
+    seconds_p10_low: float | None = None
+    seconds_p10_high: float | None = None
+    compared_statistic: str | None = None
+    baseline_backend: str | None = None
+    baseline_seconds: float | None = None
+    baseline_seconds_p10: float | None = None
+    ratio_raw: float | None = None
+    yardstick_corrected: bool | None = None
+    samples: int = 0
+    baseline_samples: int | None = None
+    baseline_runs: int | None = None
+    method: str | None = None
+    ab_ratio: float | None = None
+    ab_ratio_low: float | None = None
+    ab_ratio_high: float | None = None
+    sampling_seconds: float = 0.0
+    plan_seconds: float | None = None
+    eps_units: float | None = None
+    baseline_eps_units: float | None = None
+    bound_eps_units: float | None = None
+    battery_failures: tuple[str, ...] | None = None
+    new_battery_failures: tuple[str, ...] | None = None
+
+    def as_dict(self) -> dict[str, Any]:
+        """Return the row as a JSON-able dict (contract fields first)."""
+        return asdict(self)

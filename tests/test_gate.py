@@ -239,3 +239,110 @@ def test_stored_mode_end_to_end_compares_10th_percentiles(tmp_path):
                      str(history), "--threshold", "50%", "--budget", "2", "--quiet", "--json", str(js)])
     doc = json.loads(js.read_text())
     assert code == 1 and doc["rows"][0]["verdict"] == "slower" and doc["rows"][0]["ratio"] > 2
+
+
+# -- a fake sampler: the gate's run without processes and without a real clock ----------------
+
+class FakeClock:
+    """Seconds that pass only when the fake sampler says so."""
+
+    def __init__(self):
+        self.now = 0.0
+
+    def __call__(self):
+        return self.now
+
+
+class FakeSampler:
+    """Stands in for WorkerSampler: each side's per-call seconds drawn from a seeded lognormal
+    (``times`` maps a worker key to its median seconds, ``spread`` the log-scale sigma), each
+    block pair advancing the fake clock by ``pair_seconds``; ``yardstick_seconds`` gives one
+    yardstick block per sample() call."""
+
+    def __init__(self, times, clock, spread=0.01, pair_seconds=0.01, yardstick_seconds=1e-3,
+                 samples_per_block=5, seed=3, labels=None, low_tail=None):
+        self.times, self.clock, self.spread = dict(times), clock, spread
+        self.pair_seconds, self.yardstick_seconds = pair_seconds, yardstick_seconds
+        self.samples_per_block = samples_per_block
+        self.rng = np.random.default_rng(seed)
+        self.labels = labels or {}
+        self.low_tail = low_tail
+        self.calls = []
+        self.given = {}
+        self.released = []
+        self.yardstick_failure = None
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        return None
+
+    def claims(self, key, cases):
+        from types import SimpleNamespace
+
+        label = self.labels.get(key, key)
+        return SimpleNamespace(label=label, reasons=(None,) * len(cases),
+                               record=lambda spec: {"spec": spec, "name": label})
+
+    def prepare(self, item):
+        return {item.new_key: {"plan_seconds": 0.0, "loops": 1}}
+
+    def _block(self, seconds):
+        return list(seconds * np.exp(self.rng.normal(0.0, self.spread, self.samples_per_block)))
+
+    def sample(self, item, pairs):
+        from fftgauge.harness.gate.sampling import Draw
+
+        self.calls.append((item.case.n, pairs))
+        draw = Draw()
+        for _ in range(pairs):
+            draw.new.extend(self._block(self.times[item.new_key]))
+            self.given.setdefault(item.case.n, []).extend(draw.new[-self.samples_per_block:])
+            if item.old_key:
+                draw.old.extend(self._block(self.times[item.old_key]))
+        draw.yardstick.extend(self._block(self.yardstick_seconds))
+        self.clock.now += pairs * self.pair_seconds
+        return draw
+
+    def release(self, item):
+        self.released.append(item.case.n)
+
+
+def _stored_row(n, seconds, p10, backend="numpy"):
+    return {"backend": backend, "kind": "fft", "dtype": "float64", "n": n, "norm": "backward",
+            "seconds": seconds, "seconds_low": seconds * 0.99, "seconds_high": seconds * 1.01,
+            "seconds_p10": p10, "seconds_p10_low": p10 * 0.995, "seconds_p10_high": p10 * 1.005}
+
+
+def _fake_run(req, sampler, clock):
+    from fftgauge.harness.gate.run import run_gate
+
+    return run_gate(req, sampler_factory=lambda _req: sampler, clock=clock)
+
+
+def test_stored_mode_row_seconds_is_the_median_and_p10_has_its_own_field():
+    """The schema says ``seconds`` is the median per-call time: in stored mode too, where the
+    ratio compares 10th percentiles (those go to seconds_p10 and compared_statistic)."""
+    from fftgauge.harness.gate.history import StoredRun
+    from fftgauge.harness.gate.request import GateRequest, GateSettings
+
+    runs = tuple(StoredRun(path=f"r{i}", created=f"2026-12-0{i + 1}T00:00:00Z", schema="fftgauge-time/1",
+                           machine={}, yardstick=None, rows=(_stored_row(1024, 12e-6, 10e-6),),
+                           backends={"numpy": "numpy"}) for i in range(3))
+    req = GateRequest(mode="stored", specs=("numpy",), stored_runs=runs, baseline_path="h",
+                      settings=GateSettings(budget_seconds=1.0))
+    clock = FakeClock()
+    sampler = FakeSampler({"numpy": 11e-6}, clock, spread=0.05)
+    doc = _fake_run(req, sampler, clock)
+    (row,) = doc["rows"]
+    given = np.sort(sampler.given[1024])
+    assert row["compared_statistic"] == "p10" and row["status"] == "ok" and row["samples"] == given.size
+    # numpy's median of what the sampler gave; the 10th percentile as the order statistic of
+    # rank ceil(0.1 n) (Conover 1999, the sample quantile fftgauge.harness.stats.quantile_ci uses)
+    assert row["seconds"] == pytest.approx(float(np.median(given)), rel=1e-12)
+    assert row["seconds_p10"] == pytest.approx(float(given[int(np.ceil(0.1 * given.size)) - 1]), rel=1e-12)
+    assert row["seconds_p10"] < row["seconds"]  # 5% spread: distinct order statistics
+    assert row["baseline_seconds"] == pytest.approx(12e-6) and row["baseline_seconds_p10"] == pytest.approx(10e-6)
+    # no yardstick in the stored runs: the ratio is the plain ratio of 10th percentiles
+    assert row["ratio"] == pytest.approx(row["seconds_p10"] / 10e-6, rel=1e-9)

@@ -52,6 +52,17 @@ def is_conclusive(est: Estimate, threshold: float) -> bool:
     return not (est.ratio_low < up < est.ratio_high) and not (est.ratio_low < down < est.ratio_high)
 
 
+def undecided(verdict: str | None, est: Estimate, threshold: float) -> bool:
+    """Return True when a case's timing is *inconclusive* for the gate: its verdict is ``same``
+    and its interval still reaches above ``1 + threshold``, so a slowdown beyond the threshold
+    is not ruled out. A ``slower``, ``faster`` or ``accuracy`` verdict, a record-mode case (no
+    ratio) and a ``same`` whose interval stays below ``1 + threshold`` are decided.
+    """
+    if verdict != "same" or math.isnan(est.ratio_high):
+        return False
+    return est.ratio_high > 1.0 + threshold
+
+
 def holm_adjusted(p_values: Sequence[float]) -> list[float]:
     """Return Holm's adjusted p-values: ``p~_(i) = max_{j <= i} min(1, (m - j + 1) p_(j))`` on the
     ascending order, so that ``p~_i <= alpha`` exactly when Holm's procedure rejects H_i at ``alpha``.

@@ -89,9 +89,11 @@ class Estimate:
     """One case's comparison: ``ratio`` = candidate time / baseline time with its interval.
 
     ``seconds``/``seconds_low``/``seconds_high`` are the candidate's median per-call time and
-    its distribution-free interval; ``baseline_seconds`` the baseline's median (raw seconds);
-    ``ratio_raw`` the plain ratio of the two medians (stored mode: before the yardstick
-    correction; A/B mode: unpaired); ``corrected`` whether the yardstick correction was
+    its distribution-free interval, in every mode (a stored-mode ratio may compare 10th
+    percentiles: the rows carry those in fields of their own); ``baseline_seconds`` the
+    baseline's median (raw seconds; NaN where unknown); ``ratio_raw`` the ratio before the
+    yardstick correction, in the statistic compared (stored mode), or the plain ratio of the
+    two sides' medians (A/B mode: unpaired); ``corrected`` whether the yardstick correction was
     applied; ``method`` how the interval and p-value were formed.
     """
 
@@ -115,7 +117,7 @@ class StoredBaseline:
     Attributes
     ----------
     value : the centre, median of the per-run values (yardstick units when ``corrected``).
-    raw_seconds : median of the runs' raw median seconds.
+    raw_seconds : median of the runs' raw values of ``statistic`` (seconds, not yardstick units).
     centre_var : variance of ``log(value)`` (log scale).
     between_var : variance of a new run's log median around the centre beyond its own
         within-run noise (run-to-run variation); 0 for a single run.
@@ -126,6 +128,8 @@ class StoredBaseline:
     statistic : what the values are (:data:`STATISTICS`): ``p10``, the 10th percentile of
         the per-call times, when every run holding the case stored it, else ``median``.
     yardstick_statistic : the same for the yardstick records of a corrected baseline.
+    median_seconds : median of the runs' median seconds (what the rows' ``baseline_seconds``
+        report whatever the statistic compared); None when not given.
     """
 
     value: float
@@ -137,6 +141,7 @@ class StoredBaseline:
     corrected: bool
     statistic: str = "median"
     yardstick_statistic: str = "median"
+    median_seconds: float | None = None
 
 
 def _z(confidence: float) -> float:
@@ -238,7 +243,8 @@ def estimate_paired(old: Sequence[float], new: Sequence[float], samples_per_bloc
 def stored_baseline(values: Sequence[tuple[float, float, float]],
                     yardsticks: Sequence[tuple[float, float, float]] | None = None,
                     confidence: float = 0.95, statistic: str = "median",
-                    yardstick_statistic: str = "median") -> StoredBaseline:
+                    yardstick_statistic: str = "median",
+                    medians: Sequence[float] | None = None) -> StoredBaseline:
     """Return a case's baseline from the stored runs that hold it.
 
     Parameters
@@ -248,6 +254,8 @@ def stored_baseline(values: Sequence[tuple[float, float, float]],
         to put the values in yardstick units, or None for raw seconds.
     confidence : coverage of the stored intervals.
     statistic, yardstick_statistic : recorded in the result (:data:`STATISTICS`).
+    medians : per run the median seconds, summarised into ``median_seconds``; default: the
+        values themselves when ``statistic`` is ``median``.
 
     Method (one-way random-effects decomposition on the log scale; common practice): with
     ``l_i = log v_i`` (``v_i`` the run's value, divided by its yardstick when given) and
@@ -275,7 +283,10 @@ def stored_baseline(values: Sequence[tuple[float, float, float]],
         scaled = raw / ys
         within = within + np.array([log_variance_from_interval(*y, confidence) for y in yardsticks])
     k = len(values)
-    kinds = {"corrected": yardsticks is not None, "statistic": statistic, "yardstick_statistic": yardstick_statistic}
+    if medians is None and statistic == "median":
+        medians = raw
+    kinds = {"corrected": yardsticks is not None, "statistic": statistic, "yardstick_statistic": yardstick_statistic,
+             "median_seconds": None if medians is None or not len(medians) else float(np.median(medians))}
     if k == 1:
         return StoredBaseline(value=float(scaled[0]), raw_seconds=float(raw[0]), centre_var=float(within[0]),
                               between_var=0.0, dof=None, runs=1, **kinds)
@@ -307,19 +318,22 @@ def estimate_stored(baseline: StoredBaseline, new: Sequence[float], yardstick_no
         When ``new`` is empty, its median is not positive, or ``baseline.corrected`` and
         ``yardstick_now`` is None.
     """
-    med, low, high = sample_statistic(new, baseline.statistic, confidence)
-    if not med > 0:
+    m, low, high = sample_statistic(new, baseline.statistic, confidence)
+    if not m > 0:
         raise ValueError(f"the candidate's {baseline.statistic} time is at or below the timing loop's overhead floor")
-    value, var = med, log_variance_from_interval(med, low, high, confidence)
+    value, var = m, log_variance_from_interval(m, low, high, confidence)
     if baseline.corrected:
         yard = None if yardstick_now is None else stat_triple(yardstick_now, baseline.yardstick_statistic)
         if yard is None:
             raise ValueError("a yardstick-corrected baseline needs this run's yardstick")
-        value = med / yard[0]
+        value = m / yard[0]
         var += log_variance_from_interval(*yard, confidence)
     ratio, ratio_low, ratio_high, p = against_baseline(value, var, baseline, confidence)
-    return Estimate(ratio=ratio, ratio_low=ratio_low, ratio_high=ratio_high, p_value=p, seconds=med, seconds_low=low,
-                    seconds_high=high, baseline_seconds=baseline.raw_seconds, ratio_raw=med / baseline.raw_seconds,
+    med, med_low, med_high = median_ci(new, confidence)
+    base_median = baseline.median_seconds if baseline.median_seconds is not None else float("nan")
+    return Estimate(ratio=ratio, ratio_low=ratio_low, ratio_high=ratio_high, p_value=p, seconds=med,
+                    seconds_low=med_low, seconds_high=med_high, baseline_seconds=base_median,
+                    ratio_raw=m / baseline.raw_seconds,
                     corrected=baseline.corrected,
                     method=f"{baseline.statistic} times, log-scale interval over {baseline.runs} stored run(s)"
                            + (", yardstick-corrected" if baseline.corrected else ", uncorrected"))

@@ -84,13 +84,14 @@ def baseline_for(runs: Sequence[StoredRun], label: str, case: Case,
                 break
     statistic = common_statistic([r for _, r in holding])
     values = [stat_triple(r, statistic) for _, r in holding]
-    raw = stored_baseline(values, None, confidence, statistic)
+    medians = [float(r["seconds"]) for _, r in holding]
+    raw = stored_baseline(values, None, confidence, statistic, medians=medians)
     corrected = None
     if all(comparable(run.yardstick) for run, _ in holding):
         records = [run.yardstick for run, _ in holding]
         yard_statistic = common_statistic(records)
         corrected = stored_baseline(values, [stat_triple(y, yard_statistic) for y in records], confidence,
-                                    statistic, yard_statistic)
+                                    statistic, yard_statistic, medians=medians)
     accuracy = None
     for run, row in reversed(holding):  # runs are oldest first
         if row.get("battery_failures") is not None:

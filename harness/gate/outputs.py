@@ -147,7 +147,7 @@ def markdown_summary(doc: dict[str, Any]) -> str:
     elif rows:
         ratio_name = {"ab": "new / old", "referenced": "(new / old) now / stored"}.get(doc.get("mode"),
                                                                                      "now / baseline")
-        with_acc = any("eps_units" in r for r in rows)
+        with_acc = any(r.get("eps_units") is not None or r.get("battery_failures") is not None for r in rows)
         header = f"| backend | case | {ratio_name} | change | 95% interval | p (Holm) | verdict |"
         rule = "|---|---|---:|---:|---|---:|---|"
         if with_acc:

@@ -29,11 +29,12 @@ import numpy as np
 from fftgauge.harness.cases import KINDS, Case
 from fftgauge.harness.errors import BackendFailure, UnsupportedCase, UsageError
 from fftgauge.harness.gate.adaptive import GateItem, collect, finalise, yardstick_summary
-from fftgauge.harness.gate.decision import compare_accuracy, outcome_of
-from fftgauge.harness.gate.estimates import STATISTICS, StoredBaseline, common_statistic, sample_statistic
+from fftgauge.harness.gate.decision import compare_accuracy, outcome_of, undecided
+from fftgauge.harness.gate.estimates import STATISTICS, common_statistic, sample_statistic
 from fftgauge.harness.gate.history import (GATE_SCHEMA, baseline_for, case_of, ratio_baseline_for, save_run,
                                            stored_cases)
-from fftgauge.harness.gate.request import GateRequest
+from fftgauge.harness.gate.request import GateRequest, GateSettings
+from fftgauge.harness.rows import GateRow
 
 
 def request_cases(req: GateRequest) -> list[Case]:
@@ -150,54 +151,42 @@ def new_doc(req: GateRequest) -> dict[str, Any]:
     return envelope(GATE_SCHEMA, req.seed, extra=extra)
 
 
-def item_row(it: GateItem, confidence: float = 0.95) -> dict[str, Any]:
-    """Return the ``fftgauge-gate/1`` row of an item (contract fields first)."""
+def gate_row(it: GateItem, settings: GateSettings) -> GateRow:
+    """Return the :class:`~fftgauge.harness.rows.GateRow` of an item as it stands.
+
+    ``seconds`` is the candidate's median in every mode; the 10th percentile goes to
+    ``seconds_p10`` (what a stored-mode ratio compares when ``compared_statistic`` is ``p10``).
+    """
     e = it.estimate
     acc = it.accuracy or {}
-    row = {
-        "backend": it.backend, "kind": it.case.kind, "dtype": it.case.dtype, "n": it.case.n,
-        "ratio": None if e is None else e.ratio, "ratio_low": None if e is None else e.ratio_low,
-        "ratio_high": None if e is None else e.ratio_high, "p_value": None if e is None else e.p_value,
-        "verdict": it.verdict if it.status == "ok" else None,
-        "norm": it.case.norm, "status": it.status, "message": it.message or acc.get("message") or "",
-        "p_holm": it.p_holm, "significant": it.significant, "conclusive": it.conclusive,
-        "timing_verdict": it.timing_verdict,
-        "seconds": None if e is None else e.seconds, "seconds_low": None if e is None else e.seconds_low,
-        "seconds_high": None if e is None else e.seconds_high,
-        "baseline_backend": it.baseline_backend, "baseline_seconds": None if e is None else e.baseline_seconds,
-        "ratio_raw": None if e is None else e.ratio_raw, "yardstick_corrected": None if e is None else e.corrected,
-        "samples": len(it.new_samples), "baseline_samples": len(it.old_samples) if it.old_key else None,
-        "baseline_runs": it.baseline.runs if it.baseline is not None else None,
-        "method": None if e is None else e.method,
-        **_p10_fields(it.new_samples, it.baseline, confidence),
-        **_ab_fields(it),
-        "sampling_seconds": it.pair_seconds * it.pairs_taken, "plan_seconds": it.plan_seconds,
-    }
+    ok = it.status == "ok"
+    fields: dict[str, Any] = {}
+    if e is not None:
+        fields.update(ratio=e.ratio, ratio_low=e.ratio_low, ratio_high=e.ratio_high, p_value=e.p_value,
+                      seconds=e.seconds, seconds_low=e.seconds_low, seconds_high=e.seconds_high,
+                      baseline_seconds=e.baseline_seconds, ratio_raw=e.ratio_raw, yardstick_corrected=e.corrected,
+                      method=e.method)
+    if it.new_samples:
+        fields.update(zip(STATISTICS["p10"], sample_statistic(it.new_samples, "p10", settings.confidence)))
+    if it.baseline is not None:
+        fields.update(baseline_runs=it.baseline.runs, compared_statistic=it.baseline.statistic)
+        if it.old_key is None and it.baseline.statistic == "p10":
+            fields["baseline_seconds_p10"] = it.baseline.raw_seconds
+    if it.ab_estimate is not None:
+        ab = it.ab_estimate
+        fields.update(ab_ratio=ab.ratio, ab_ratio_low=ab.ratio_low, ab_ratio_high=ab.ratio_high)
     if it.accuracy is not None:
-        for key in ("eps_units", "baseline_eps_units", "bound_eps_units", "battery_failures", "new_battery_failures"):
-            row[key] = acc.get(key)
-    return row
-
-
-def _p10_fields(samples: Sequence[float], baseline: StoredBaseline | None, confidence: float) -> dict[str, Any]:
-    """Return the candidate's 10th-percentile fields of a row (None without samples), and the
-    statistic a stored-mode comparison used."""
-    out: dict[str, Any] = dict.fromkeys(STATISTICS["p10"])
-    if len(samples):
-        out.update(zip(STATISTICS["p10"], sample_statistic(samples, "p10", confidence)))
-    if baseline is not None:
-        out["compared_statistic"] = baseline.statistic
-    return out
-
-
-def _ab_fields(it: GateItem) -> dict[str, Any]:
-    """Return the row's ``ab_ratio`` fields: this run's new/old ratio and interval (two-sided
-    modes only), which a later referenced run compares with."""
-    if it.old_key is None:
-        return {}
-    ab = it.ab_estimate
-    return dict(zip(STATISTICS["ab_ratio"], (None, None, None) if ab is None else (ab.ratio, ab.ratio_low,
-                                                                                   ab.ratio_high)))
+        fields.update({key: acc.get(key) for key in ("eps_units", "baseline_eps_units", "bound_eps_units")})
+        for key in ("battery_failures", "new_battery_failures"):
+            fields[key] = None if acc.get(key) is None else tuple(acc[key])
+    verdict = it.verdict if ok else None
+    return GateRow(backend=it.backend, kind=it.case.kind, dtype=it.case.dtype, n=it.case.n, verdict=verdict,
+                   norm=it.case.norm, status=it.status, message=it.message or acc.get("message") or "",
+                   p_holm=it.p_holm, significant=it.significant, conclusive=it.conclusive,
+                   inconclusive=None if e is None or not ok else undecided(verdict, e, settings.threshold),
+                   timing_verdict=it.timing_verdict, baseline_backend=it.baseline_backend,
+                   samples=len(it.new_samples), baseline_samples=len(it.old_samples) if it.old_key else None,
+                   sampling_seconds=it.pair_seconds * it.pairs_taken, plan_seconds=it.plan_seconds, **fields)
 
 
 def _worker_sampler(req: GateRequest) -> Any:
@@ -236,8 +225,13 @@ def _check_accuracy(items: Sequence[GateItem], sampler: Any, req: GateRequest) -
 
 
 def run_gate(req: GateRequest, doc: dict[str, Any] | None = None, quiet: bool = True,
-             sampler_factory: Callable[[GateRequest], Any] | None = None) -> dict[str, Any]:
+             sampler_factory: Callable[[GateRequest], Any] | None = None,
+             clock: Callable[[], float] = time.monotonic) -> dict[str, Any]:
     """Run the gate and return its ``fftgauge-gate/1`` document (``doc`` filled in place when given).
+
+    ``sampler_factory`` makes the sampler from the request (default: worker processes,
+    :class:`fftgauge.harness.gate.sampling.WorkerSampler`); ``clock`` (seconds) measures the
+    sampling budget. Tests pass a fake sampler and a fake clock.
 
     The rows, outcome and yardstick are written into ``doc`` in a ``finally``, so a run
     stopped by a failure or Ctrl-C still leaves a document that says how far it got
@@ -266,7 +260,7 @@ def run_gate(req: GateRequest, doc: dict[str, Any] | None = None, quiet: bool = 
                 progress = Progress(total=sum(it.status == "ok" for it in items), quiet=quiet, desc="gate")
                 try:
                     doc["sampling_seconds"] = collect(
-                        items, sampler, req.settings, yardstick,
+                        items, sampler, req.settings, yardstick, clock=clock,
                         on_done=lambda it: (progress.advance(note=it.case.label()), sampler.release(it)))
                 finally:
                     progress.close()
@@ -279,7 +273,7 @@ def run_gate(req: GateRequest, doc: dict[str, Any] | None = None, quiet: bool = 
             for it in items:
                 if it.status == "ok" and it.estimate is None:
                     it.status, it.message = "incomplete", "the run stopped before this case was decided"
-        doc["rows"] = [item_row(it, req.settings.confidence) for it in items]
+        doc["rows"] = [gate_row(it, req.settings).as_dict() for it in items]
         doc["elapsed_seconds"] = time.monotonic() - started
         _record_yardstick(doc, req, yardstick, getattr(sampler, "yardstick_failure", None))
         doc["outcome"], doc["regressed"] = outcome_of(doc["rows"], doc["complete"])
