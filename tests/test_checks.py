@@ -481,3 +481,90 @@ def test_mkl_fft_passes_concurrent_where_installed(monkeypatch):
         default_threads = check_case(Mkl(), case, 1, ["concurrent"])[0]
     assert carried.status == "pass" and carried.value == 0.0, carried.message
     assert default_threads.status == "pass", default_threads.message
+
+
+# -- a backend's exception names its line, as a crash does -----------------------------------------
+
+def line_of(path: str, text: str) -> int:
+    """Return the 1-based line of ``path`` that holds ``text`` (read from the file, not hard-coded)."""
+    return next(i for i, line in enumerate(Path(path).read_text().splitlines(), 1) if text in line)
+
+
+def test_backend_exception_rows_give_file_and_line():
+    boom = line_of(BROKEN, 'raise RuntimeError("ifft exploded")')
+    rows = by_check(check_case(broken("RaisingIfftBackend"), Case("fft", "float64", 16), 1))
+    for name in ("round-trip", "convolution"):
+        assert rows[name].status == "error"
+        assert rows[name].message.startswith("the backend raised RuntimeError: ifft exploded (at ")
+        assert rows[name].message.endswith(f"broken_ffts.py:{boom} in boom)"), rows[name].message
+    rows = by_check(check_case(broken("RaisingIfftBackend"), Case("ifft", "float64", 16), 1))
+    for name in ("accuracy", "precision", "concurrent", "input-intact"):
+        assert f"ifft exploded (at " in rows[name].message and f"broken_ffts.py:{boom} in" in rows[name].message
+    plan_line = line_of(BROKEN, 'raise MemoryError("no room for a plan")')
+    row = check_case(broken("PlanRaisesBackend"), Case("fft", "float64", 8), 1, ["accuracy"])[0]
+    assert row.message.startswith("planning failed: MemoryError: no room for a plan (at ")
+    assert f"broken_ffts.py:{plan_line} in plan" in row.message
+
+
+class CompanionPlanRaises:
+    """fft plans; planning ifft raises (the round trip's companion); planning fft a second
+    time raises too (the concurrent check's own plans)."""
+
+    @staticmethod
+    def make():
+        from fftgauge.backends.base import Backend, Capabilities, FunctionPlan
+
+        class Raising(Backend):
+            name = "companion-raises"
+            planned = 0
+
+            def capabilities(self):
+                return Capabilities(kinds=("fft", "ifft"))
+
+            def plan(self, case):
+                if case.kind == "ifft":
+                    raise KeyError("no inverse today")  # COMPANION-LINE
+                Raising.planned += 1
+                if Raising.planned > 1:
+                    raise OSError("only one plan")  # AGAIN-LINE
+                return FunctionPlan(case, np.fft.fft)
+
+        return Raising()
+
+
+def test_companion_and_replanning_exceptions_give_file_and_line():
+    here = str(Path(__file__))
+    rows = by_check(check_case(CompanionPlanRaises.make(), Case("fft", "float64", 8), 1, ["round-trip", "concurrent"]))
+    assert rows["round-trip"].status == "error"
+    assert rows["round-trip"].message.startswith("planning ifft raised KeyError: 'no inverse today' (at ")
+    assert rows["round-trip"].message.endswith(f"test_checks.py:{line_of(here, '# COMPANION-LINE')} in plan)")
+    assert rows["concurrent"].status == "error"
+    assert rows["concurrent"].message.startswith("planning again raised OSError: only one plan (at ")
+    assert f"test_checks.py:{line_of(here, '# AGAIN-LINE')} in plan" in rows["concurrent"].message
+
+
+def test_a_concurrent_call_that_raises_names_its_line():
+    from fftgauge.backends.base import Backend, Capabilities, FunctionPlan
+    import threading
+
+    main = threading.main_thread()
+
+    def only_in_the_main_thread(x):
+        if threading.current_thread() is not main:
+            raise RuntimeError("not from another thread")  # THREAD-LINE
+        return np.fft.fft(x)
+
+    class MainOnly(Backend):
+        name = "main-only"
+
+        def capabilities(self):
+            return Capabilities(kinds=("fft",))
+
+        def plan(self, case):
+            return FunctionPlan(case, only_in_the_main_thread)
+
+    row = check_case(MainOnly(), Case("fft", "float64", 8), 1, ["concurrent"])[0]
+    here = str(Path(__file__))
+    assert row.status == "fail" and row.diagnosis == "thread-unsafe"
+    assert "first: a concurrent call raised RuntimeError: not from another thread (at " in row.message
+    assert f"test_checks.py:{line_of(here, '# THREAD-LINE')} in only_in_the_main_thread" in row.message
