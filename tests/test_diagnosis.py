@@ -333,3 +333,23 @@ def test_overflow_is_not_claimed_for_a_negated_or_scaled_transform():
     impulse = np.zeros(64, dtype=complex)
     impulse[0] = 1  # a flat spectrum: every output is of largest magnitude
     assert diagnose(case, impulse, -np_transform(case, impulse))[0] == "scale"
+
+
+@pytest.mark.parametrize("declared, applied, words", [
+    ("1/n", "1/sqrt(n)", "output is sqrt(N) times too large: it scales by 1/sqrt(N) where it declares 1/N"),
+    ("1/sqrt(n)", "1/n", "output is sqrt(N) times too small: it scales by 1/N where it declares 1/sqrt(N)"),
+    ("1", "1/n", "output is N times too small: it scales by 1/N where it declares 1"),
+])
+@pytest.mark.parametrize("n", (16, 100))
+def test_scale_names_the_declared_factor_and_the_applied_one(declared, applied, words, n):
+    # A routine applying `applied` to numpy.fft.fft's sum, with the declared scale undone
+    # (divided out), as the battery hands it to the diagnosis.
+    factor = {"1": 1.0, "1/n": 1.0 / n, "1/sqrt(n)": 1.0 / np.sqrt(n)}
+    case = Case("fft", "float64", n)
+    x = random_input(case, case_rng(3, case, "diagnosis"))
+    y = np.fft.fft(x) * factor[applied] / factor[declared]
+    code, message = diagnose(case, x, y, declared_scale=declared)
+    assert code == "scale"
+    assert message == f"{words} (forward_scale={declared})"
+    # Without a declaration, the same output is named against the case's norm.
+    assert "where 1 is due" in diagnose(case, x, y)[1]
