@@ -99,7 +99,8 @@ class Conventions:
     forward_scale : factor the forward transform applies to the plain sum, whatever norm is
         asked (one of :data:`SCALES`).
     inverse_scale : the same for the inverse transform.
-    order : output order of complex outputs (one of :data:`ORDERS`).
+    order : order of a complex transform's spectrum, fft's output and ifft's input (one of
+        :data:`ORDERS`).
     packing : layout of a real transform's half spectrum (one of :data:`PACKINGS`).
 
     Raises

@@ -78,7 +78,8 @@ COMMON_OPTIONS: dict[str, OptionSpec] = {
                                 choices=SCALES),
     "inverse_scale": OptionSpec(str, "", "factor the inverse transform applies: 1, 1/n, 1/sqrt(n)",
                                 choices=SCALES),
-    "order": OptionSpec(str, "", "output order: natural, bit-reversed, centred", choices=ORDERS),
+    "order": OptionSpec(str, "", "spectrum order (fft output, ifft input): natural, bit-reversed, centred",
+                        choices=ORDERS),
     "packing": OptionSpec(str, "", "real transforms' half spectrum: complex, dc-nyquist, halfcomplex",
                           choices=PACKINGS),
 }

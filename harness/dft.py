@@ -304,7 +304,9 @@ def to_convention(y: np.ndarray, kind: str, n: int, norm: str = "backward", sign
     ``scale``: the factor the routine applies to the plain sum of this kind (one of
     :data:`SCALES`), in place of the one ``norm`` asks for (:func:`norm_factor`).
     ``order``: for ``fft`` and ``ifft`` outputs, ``bit-reversed`` (n a power of two, entry
-    ``i`` is ``Y[rev(i)]``) or ``centred`` (``numpy.fft.fftshift(Y)``).
+    ``i`` is ``Y[rev(i)]``) or ``centred`` (``numpy.fft.fftshift(Y)``). (The battery reads a
+    declared order as that of the spectrum: an ``ifft`` *input* in that order, permuted as an
+    ``fft`` output is; see :mod:`fftgauge.harness.battery.conventions`.)
 
     The result has ``y``'s dtype; the scale is applied in long double for long double arrays.
 
