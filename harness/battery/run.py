@@ -287,7 +287,7 @@ def with_time_reasons(worker: Any, claims: Any, req: BatteryRequest, cases: list
         return claims
     try:
         probes = worker.call(jobs.call_seconds, [(c.kind, c.dtype, c.n, c.norm) for c in probe], req.seed,
-                             timeout_seconds=req.timeout_seconds)
+                             req.threads or 1, timeout_seconds=req.timeout_seconds)
     except BackendFailure:
         return claims
     reasons = tuple(reason if reason is not None else time_reason(claims.label, probes, case, budget)

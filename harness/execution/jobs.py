@@ -101,11 +101,14 @@ def backend_claims(backend: Any, case_fields: list[tuple], max_n_pure_python: in
     return BackendClaims(backend.label, backend.describe(), tuple(reasons))
 
 
-def call_seconds(backend: Any, case_fields: list[tuple], seed: int) -> list[tuple[int, float | None]]:
-    """Return the seconds of one call per case, smallest sizes first, until the calls get long;
-    see :func:`fftgauge.harness.battery.budget.measure_call_seconds`."""
+def call_seconds(backend: Any, case_fields: list[tuple], seed: int,
+                 blas_threads: int | None = 1) -> list[tuple[int, float | None]]:
+    """Return the seconds of one call per case, smallest sizes first, until the calls get long,
+    with the BLAS pools capped as the battery's cases run them (:func:`run_case_job`); see
+    :func:`fftgauge.harness.battery.budget.measure_call_seconds`."""
     from fftgauge.harness.battery.budget import measure_call_seconds
 
+    _cap_blas(blas_threads)
     return measure_call_seconds(backend, case_fields, seed)
 
 
