@@ -33,7 +33,6 @@ from fftgauge.harness.dft import bit_reversal_permutation
 
 DATA = Path(__file__).parent / "data"
 ROUTINES = str(DATA / "convention_ffts.py")
-BROKEN = str(DATA / "broken_ffts.py")
 sys.path.insert(0, str(DATA))
 import convention_ffts  # noqa: E402
 

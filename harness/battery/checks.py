@@ -21,7 +21,7 @@ from typing import Any, Callable, Mapping
 
 import numpy as np
 
-from fftgauge.backends.base import Backend, Capabilities
+from fftgauge.backends.base import Backend, Capabilities, Conventions
 from fftgauge.harness.battery.behaviour_checks import (
     check_concurrent, check_input_intact, check_nonfinite, check_precision, check_repeatable, check_shape,
     check_strided,
@@ -151,7 +151,7 @@ def convention_reason(backend: Backend, case: Case) -> str | None:
     """Return why ``backend``'s declared convention cannot be undone at ``case``, or None
     (:meth:`~fftgauge.harness.battery.conventions.DeclaredConvention.unsupported_reason`)."""
     declared = getattr(backend, "conventions", None)
-    return DeclaredConvention(declared).unsupported_reason(case) if declared is not None else None
+    return DeclaredConvention(declared).unsupported_reason(case) if isinstance(declared, Conventions) else None
 
 
 def run_case_checks(backend: Backend, case_fields: tuple, seed: int, check_names: list[str]) -> list[dict]:

@@ -15,7 +15,7 @@ from typing import Any, Callable
 
 import numpy as np
 
-from fftgauge.backends.base import Backend, Capabilities, Plan
+from fftgauge.backends.base import Backend, Capabilities, Conventions, Plan
 from fftgauge.harness.battery import bounds
 from fftgauge.harness.battery import inputs
 from fftgauge.harness.battery.conventions import ConventionMismatch, DeclaredConvention
@@ -105,7 +105,9 @@ class CheckContext:
         if self.limit is None:
             self.limit = bounds.accuracy_limit(self.case)
         declared = getattr(self.backend, "conventions", None)
-        self._convention = DeclaredConvention(declared if declared is not None else self.capabilities.conventions)
+        if not isinstance(declared, Conventions):  # a backend not built on Backend
+            declared = getattr(self.capabilities, "conventions", None)
+        self._convention = DeclaredConvention(declared if isinstance(declared, Conventions) else Conventions())
 
     # -- what the case is --------------------------------------------------------------------
     @property
