@@ -59,7 +59,7 @@ def run(args: argparse.Namespace) -> int:
     from fftgauge.harness.battery.run import run_battery
     from fftgauge.harness.errors import RunStopped
     from fftgauge.harness.results import ResultsWriteError
-    from fftgauge.harness.shutdown import stop_on_signals
+    from fftgauge.harness.shutdown import stop_on_signals, stop_reason
     from fftgauge.harness.battery.unclaimed import not_run_lines
     from fftgauge.harness.report.check_tables import format_summary, rows_frame
 
@@ -78,6 +78,10 @@ def run(args: argparse.Namespace) -> int:
         stopped, doc = exc, exc.doc
     except ResultsWriteError as exc:
         write_error, doc = exc, exc.doc
+    except KeyboardInterrupt as exc:  # before the first case (while the backends describe themselves)
+        name, code = stop_reason(exc)
+        print(f"stopped by {name} before any case ran; nothing was written", file=out)
+        return code
     elapsed = time.perf_counter() - started
     if stopped is not None or write_error is not None:
         code = report_cut_short(doc, stopped, write_error, out, elapsed)
