@@ -86,6 +86,16 @@ def test_plus_sign_fft_against_mpmath():
     assert np.allclose(convention_ffts.plus_sign_ifft(convention_ffts.plus_sign_fft(x)), x, atol=1e-13)
 
 
+def test_plus_sign_real_and_three_convention_routines_against_the_verified_ones():
+    # plus_sign_fft is verified against mpmath above; a real input's half of it is the +1 rfft.
+    x = signal(16, 5).real
+    assert np.allclose(convention_ffts.plus_sign_rfft(x), convention_ffts.plus_sign_fft(x)[:9], atol=1e-12)
+    assert np.allclose(convention_ffts.plus_sign_irfft(convention_ffts.plus_sign_rfft(x), 16), x, atol=1e-14)
+    z = signal(16, 6)
+    want = convention_ffts.plus_sign_fft(z)[bit_reversal_permutation(16)] / 16
+    assert np.allclose(convention_ffts.dsp_style_fft(z), want, atol=1e-14)
+
+
 def test_scaled_and_centred_routines_against_numpy():
     x = signal(10, 4)
     assert np.allclose(convention_ffts.scaled_fft(x), np.fft.fft(x) / 10, atol=1e-15)
@@ -105,6 +115,8 @@ DECLARED = [
     ("plus_sign_fft+plus_sign_ifft[sign=+1]", ("fft", "ifft"), ANY),
     ("centred_fft+centred_ifft[order=centred]", ("fft", "ifft"), ANY),
     ("CentredBackend", ("fft", "ifft"), ANY),
+    ("plus_sign_rfft+plus_sign_irfft[kind=rfft,sign=+1]", ("rfft", "irfft"), ANY),
+    ("dsp_style_fft[sign=+1,forward_scale=1/n,order=bit-reversed,sizes=pow2]", ("fft",), POW2),
     ("dc_nyquist_rfft+dc_nyquist_irfft[kind=rfft,packing=dc-nyquist]", ("rfft", "irfft"),
      (2, 4, 8, 12, 64, 100, 1000, 1024)),
     ("halfcomplex_rfft+halfcomplex_irfft[kind=rfft,packing=halfcomplex]", ("rfft", "irfft"), ANY),

@@ -97,6 +97,23 @@ def centred_ifft(x):
     return np.fft.ifft(np.fft.ifftshift(x)).astype(_complex(x).dtype)
 
 
+def plus_sign_rfft(x):
+    """A real FFT with the exponent sign +1: the conjugate of numpy.fft.rfft (x real)."""
+    return np.conj(np.fft.rfft(x)).astype(_complex(x).dtype)
+
+
+def plus_sign_irfft(p, n):
+    """Its inverse, taking the +1-sign half spectrum: numpy.fft.irfft of its conjugate."""
+    return np.fft.irfft(np.conj(p), n).astype(_real_dtype(p))
+
+
+def dsp_style_fft(x):
+    """Three conventions at once: the +1 sign, 1/N on the forward transform, bit-reversed
+    output, from the DIT above (F+(x) = conj(F(conj(x))))."""
+    x = _complex(x)
+    return (np.conj(bitreversed_dit(np.conj(x))) / x.shape[0]).astype(x.dtype)
+
+
 def _real_dtype(x):
     return np.float32 if np.asarray(x).dtype in (np.float32, np.complex64) else np.float64
 
