@@ -2,8 +2,9 @@
 the ground truth, the accuracy limit), and the small measures the checks compare with.
 
 :class:`CheckContext` draws the inputs (the same for every backend), runs the backend
-(turning what it raises into :class:`~fftgauge.harness.errors.BackendFailure` and what it
-returns into a checked array), plans the companion inverse once, makes rows and diagnoses
+(turning what it raises into :class:`~fftgauge.harness.errors.BackendFailure` with the line
+that raised, and what it returns into a checked array; inputs and outputs pass through the
+backend's declared convention, :mod:`~fftgauge.harness.battery.conventions`), plans the companion inverse once, makes rows and diagnoses
 failures. The checks themselves live in :mod:`~fftgauge.harness.battery.value_checks`,
 :mod:`~fftgauge.harness.battery.exact_checks` and :mod:`~fftgauge.harness.battery.behaviour_checks`.
 """
