@@ -7,6 +7,7 @@ dicts with :func:`dataclasses.asdict` for JSON and into pandas DataFrames at the
 
 from __future__ import annotations
 
+import re
 from dataclasses import asdict, dataclass
 from typing import Any, Iterable
 
@@ -52,6 +53,12 @@ class CheckRow:
     def as_dict(self) -> dict[str, Any]:
         """Return the row as a JSON-able dict (contract field order first)."""
         return asdict(self)
+
+
+def message_cause(message: Any) -> str:
+    """Return a row's message with its numbers blanked (``#``): one cause seen at many sizes
+    (``size must be a power of two, got 12``) is one key."""
+    return re.sub(r"\d+(\.\d+)?(e[-+]?\d+)?", "#", str(message or "")).strip()
 
 
 def skip_rows(backend: str, case: Any, checks: Iterable[str], reason: str) -> list[CheckRow]:

@@ -17,20 +17,14 @@ claimed and which were skipped for time.
 
 from __future__ import annotations
 
-import re
 from typing import Any, Iterable, Mapping
 
 from fftgauge.harness.cases import Case
 from fftgauge.harness.dft import is_power_of_two
-from fftgauge.harness.rows import skip_rows
+from fftgauge.harness.rows import message_cause, skip_rows
 
 #: Prefix of the message of a case found outside the backend's claims by this module.
 UNCLAIMED_PREFIX = "not claimed:"
-
-
-def cause_key(message: Any) -> str:
-    """Return ``message`` with its numbers blanked: one cause at many sizes is one key."""
-    return re.sub(r"\d+(\.\d+)?(e[-+]?\d+)?", "#", str(message or "")).strip()
 
 
 def size_class(raising: set[int], ran: set[int]) -> tuple[str, str | None] | None:
@@ -71,7 +65,7 @@ def _case_causes(rows: Iterable[Mapping[str, Any]]) -> dict[str, dict[tuple, str
         backend, case = r["backend"], (r["kind"], r["dtype"], r.get("norm") or "backward", int(r["n"]))
         out.setdefault(backend, {})[case] = None
         if r["status"] == "error":
-            causes.setdefault((backend, case), set()).add(cause_key(r.get("message")))
+            causes.setdefault((backend, case), set()).add(message_cause(r.get("message")))
         elif r["status"] in ("pass", "fail"):
             answered.add((backend, case))
     for (backend, case), found in causes.items():
@@ -100,7 +94,7 @@ def unclaim_size_classes(rows: list[dict], backends: Mapping[str, Mapping[str, A
             words, option = found_class
             info = backends.get(backend, {})
             example = next(r["message"] for r in rows if r["backend"] == backend and r["status"] == "error"
-                           and int(r["n"]) in raising and cause_key(r.get("message")) == cause)
+                           and int(r["n"]) in raising and message_cause(r.get("message")) == cause)
             hint = ""
             if option and option.split("=")[0] in (info.get("options") or {}):
                 hint = f"; claim it with --backend '{spec_with_option(info.get('spec', backend), option)}'"
@@ -131,7 +125,7 @@ def not_run_lines(rows: Iterable[Mapping[str, Any]]) -> list[str]:
     groups: dict[tuple[str, str], list[Mapping[str, Any]]] = {}
     for r in rows:
         if r["status"] == "skip" and r["check"] == "all":
-            groups.setdefault((r["backend"], cause_key(r.get("message"))), []).append(r)
+            groups.setdefault((r["backend"], message_cause(r.get("message"))), []).append(r)
     lines = []
     for (backend, _), members in groups.items():
         sizes = sorted({int(r["n"]) for r in members})

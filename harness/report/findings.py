@@ -9,7 +9,6 @@ contract's vocabulary.
 
 from __future__ import annotations
 
-import re
 from dataclasses import dataclass
 from typing import Any, Iterable, Mapping
 
@@ -102,7 +101,9 @@ class Finding:
 
 def _error_kind(message: Any) -> str:
     """Return an error message with its numbers blanked, so that one cause at many sizes is one key."""
-    return re.sub(r"\d+(\.\d+)?(e[-+]?\d+)?", "#", str(message or ""))[:200]
+    from fftgauge.harness.rows import message_cause
+
+    return message_cause(message)[:200]
 
 
 def findings(rows: Iterable[Mapping[str, Any]]) -> list[Finding]:
