@@ -1,11 +1,11 @@
-"""``fftgauge time`` stopped by SIGINT, SIGTERM or SIGHUP: the real command line in a
+"""``fftgauge time`` cut short. Signals (SIGINT, SIGTERM, SIGHUP): the real command line in a
 subprocess, a slow backend (busy-waits of 50 ms per call), the signal sent to its process
 group (what a terminal or a CI runner does) once the results file holds a finished row.
 
 Checked: the exit code (128 + the signal's number), the file (``complete`` false, the rows
 that finished and no more), the summary printed, and the seconds from the signal to the exit
 under a generous bound (the goal of 2 s is measured by ``benchmarks/bench_timing.py signals``,
-not asserted here).
+not asserted here). A full disk: a fake writer that fails with ENOSPC, in-process.
 """
 
 from __future__ import annotations
@@ -75,3 +75,31 @@ def test_a_finished_run_says_complete(tmp_path):
                           "--json", str(path)], cwd=ROOT, capture_output=True, text=True, timeout=300)
     assert out.returncode == 0, out.stderr
     assert json.loads(path.read_text())["complete"] is True
+
+
+def test_a_full_disk_keeps_the_rows_and_exits_2(tmp_path, monkeypatch, capsys):
+    """Every write of the results file fails with ENOSPC (a fake writer): the run still ends,
+    prints its tables, keeps the rows in the fallback file and exits 2 with one line."""
+    import errno
+
+    import fftgauge.harness.results as results
+    from fftgauge.harness.cli import main
+
+    target = str(tmp_path / "t.json")
+    real_write = results.write_text_atomic
+
+    def full_disk(path, text):
+        if path == target:
+            raise OSError(errno.ENOSPC, "No space left on device")
+        return real_write(path, text)
+
+    monkeypatch.setattr(results, "write_text_atomic", full_disk)
+    monkeypatch.setattr(results.tempfile, "gettempdir", lambda: str(tmp_path))
+    code = main(["time", "--backend", "null", "--kinds", "fft", "--sizes", "16,32", "--samples", "5",
+                 "--rounds", "1", "--no-memory", "--quiet", "--json", target])
+    out, err = capsys.readouterr()
+    assert code == 2
+    assert "median time per transform" in out
+    assert "No space left on device" in err and "Traceback" not in err and len(err.strip().splitlines()) == 1
+    kept = json.loads(pathlib.Path(results.fallback_path(target)).read_text())
+    assert kept["complete"] is True and len(kept["rows"]) == 2

@@ -3,15 +3,14 @@
 from __future__ import annotations
 
 import argparse
-import signal
 import sys
 import time
-from contextlib import contextmanager
 
 from fftgauge.harness.cases import DTYPES, KINDS, NORMS
-from fftgauge.harness.cli import add_common_options, default_results_path, parse_choice_list
+from fftgauge.harness.cli import EXIT_USAGE, add_common_options, default_results_path, parse_choice_list
 from fftgauge.harness.errors import UsageError
-from fftgauge.harness.results import STDOUT_PATH, dumps, is_stdout, write_output
+from fftgauge.harness.results import ResultsWriteError, check_output_path, is_stdout
+from fftgauge.harness.shutdown import stop_on_signals, stop_reason
 from fftgauge.harness.timing.runner import (DEFAULT_BUDGET_SECONDS, DEFAULT_CASE_TIMEOUT_SECONDS, DEFAULT_ROUNDS, DEFAULT_SAMPLES,
                             TimingRequest, run_timing)
 from fftgauge.harness.sizes import parse_sizes
@@ -131,15 +130,22 @@ def run(args: argparse.Namespace) -> int:
         check_plot_path(args.plot)
         require_matplotlib()
     to_stdout = is_stdout(args.json)
-    path = None if to_stdout else args.json or default_results_path("time")
+    path = args.json or default_results_path("time")
+    check_output_path(path)
+    check_output_path(args.csv, "--csv")
     out = sys.stderr if to_stdout else sys.stdout
     started = time.perf_counter()
     doc: dict = {}
     try:
-        with stop_signals():
+        with stop_on_signals():
             run_timing(req, json_path=path, quiet=args.quiet, doc=doc)
-    except (KeyboardInterrupt, StopRequested) as exc:
+    except KeyboardInterrupt as exc:  # StopRequested (SIGTERM, SIGHUP, SIGINT) is one
         return _stopped(doc, args, path, out, exc)
+    except ResultsWriteError as exc:
+        if doc.get("rows"):
+            print(summary_text(doc), file=out)
+        print(f"fftgauge: error: {exc}", file=sys.stderr)
+        return EXIT_USAGE
     elapsed = time.perf_counter() - started
     print(summary_text(doc), file=out)
     written = _write_outputs(doc, args, path)
@@ -151,56 +157,22 @@ def run(args: argparse.Namespace) -> int:
     return 1 if any(r.get("status") == "error" for r in doc["rows"]) else 0
 
 
-class StopRequested(BaseException):
-    """Interim (until the shared shutdown module lands): SIGTERM or SIGHUP during the run; a
-    BaseException, like KeyboardInterrupt, so that no ``except Exception`` swallows it."""
-
-    def __init__(self, signum: int):
-        super().__init__(signal.Signals(signum).name)
-        self.signum = signum
-
-
-def signal_number(exc: BaseException) -> int:
-    """Return the signal behind ``exc``: its ``signum``, SIGINT for KeyboardInterrupt."""
-    return int(getattr(exc, "signum", signal.SIGINT))
-
-
-@contextmanager
-def stop_signals():
-    """Interim: raise :class:`StopRequested` on SIGTERM and SIGHUP inside the block (SIGINT
-    raises KeyboardInterrupt already); the previous handlers come back after it."""
-    def handler(signum, frame):
-        raise StopRequested(signum)
-
-    names = [n for n in ("SIGTERM", "SIGHUP") if hasattr(signal, n)]
-    previous = {n: signal.signal(getattr(signal, n), handler) for n in names}
-    try:
-        yield
-    finally:
-        for n, h in previous.items():
-            signal.signal(getattr(signal, n), h)
-
-
-def _write_outputs(doc: dict, args: argparse.Namespace, path: str | None) -> list[str]:
-    """Write the JSON to standard output when asked (the file was streamed already) and the
-    CSV; return what was written."""
-    if path is None:
-        write_output(STDOUT_PATH, dumps(doc))
+def _write_outputs(doc: dict, args: argparse.Namespace, path: str) -> list[str]:
+    """Write the CSV when asked (the JSON was written by the run); return what was written."""
     if args.csv:
         write_csv(doc, args.csv)
-    return [path or "standard output"] + ([args.csv] if args.csv else [])
+    return ["standard output" if is_stdout(path) else path] + ([args.csv] if args.csv else [])
 
 
-def _stopped(doc: dict, args: argparse.Namespace, path: str | None, out, exc: BaseException) -> int:
+def _stopped(doc: dict, args: argparse.Namespace, path: str, out, exc: BaseException) -> int:
     """Print the summary of a run stopped by a signal, write what finished; return 128 + signal."""
-    signum = signal_number(exc)
-    name = signal.Signals(signum).name
+    name, code = stop_reason(exc)
     if not doc.get("schema"):
         print(f"fftgauge: stopped by {name} before the first case; nothing written", file=sys.stderr)
-        return 128 + signum
+        return code
     if doc["rows"]:
         print(summary_text(doc), file=out)
     written = _write_outputs(doc, args, path)
     print(f"\nfftgauge: stopped by {name}: {len(doc['rows'])} rows finished, written to {', '.join(written)} "
           f"(marked complete: false)", file=sys.stderr)
-    return 128 + signum
+    return code

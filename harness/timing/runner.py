@@ -98,16 +98,20 @@ def run_timing(req: TimingRequest, json_path: str | None = None, quiet: bool = T
                doc: dict[str, Any] | None = None) -> dict[str, Any]:
     """Time every case of ``req`` on every backend; return the ``fftgauge-time/1`` document.
 
-    Rows are streamed to ``json_path`` as they finish. The envelope's ``complete`` is false
-    until the last case is done: a run stopped by an exception (Ctrl-C's KeyboardInterrupt,
-    a signal turned into an exception, a failure) leaves the file, and ``doc`` when given
-    (filled in place, rows sorted), holding the cases that finished with ``complete`` false,
-    and the exception propagates.
+    Rows are streamed to ``json_path`` as they finish (``-``: the document goes to standard
+    output at the end; :class:`~fftgauge.harness.results.ResultsWriter`). The envelope's
+    ``complete`` is false until the last case is done: a run stopped by an exception (Ctrl-C's
+    KeyboardInterrupt, a signal's :class:`~fftgauge.harness.shutdown.StopRequested`, a
+    failure) leaves the file, and ``doc`` when given (filled in place, rows sorted), holding
+    the cases that finished with ``complete`` false, and the exception propagates.
 
     Raises
     ------
     UsageError
         When a backend SPEC cannot be loaded.
+    ResultsWriteError
+        When the results file could not be written (its ``doc`` holds every row; the rows
+        are kept in a fallback file when possible).
     """
     from fftgauge.harness.timing.affinity import pinned
 
@@ -140,16 +144,17 @@ def _run_timing_pinned(req: TimingRequest, json_path: str | None, quiet: bool,
         writer = ResultsWriter(json_path, doc)
         progress = Progress(total=len(cases) * len(req.specs), quiet=quiet, desc="timing")
         order = random.Random(req.seed)
+        finished = False
         try:
             for first in range(0, len(cases), WINDOW_CASES):
                 window = list(range(first, min(first + WINDOW_CASES, len(cases))))
                 _time_window(window, cases, claims, workers, req, order, writer, progress)
-            doc["complete"] = True
+            finished = True
         finally:
             progress.close()
             doc["rows"].sort(key=lambda r: (KINDS.index(r["kind"]), r["dtype"], r["norm"], r["n"],
                                             position[r["backend"]]))
-            writer.close()
+            writer.close(complete=finished)
     finally:
         for worker in workers.values():
             worker.close()
