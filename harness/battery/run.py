@@ -280,7 +280,7 @@ def with_time_reasons(worker: Any, claims: Any, req: BatteryRequest, cases: list
     as they are: the cases then run and show what happens.
     """
     budget = req.case_budget_seconds
-    if req.reference_budget_seconds is not None and getattr(claims.capabilities, "pure_python", False):
+    if req.reference_budget_seconds is not None and claims.capabilities.pure_python:
         budget = req.reference_budget_seconds
     probe = probe_cases(claims, cases)
     if not budget or not probe:
