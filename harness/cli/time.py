@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 import sys
+import threading
 import time
 
 from fftgauge.harness.cases import DTYPES, KINDS, NORMS
@@ -134,6 +135,7 @@ def run(args: argparse.Namespace) -> int:
     check_output_path(path)
     check_output_path(args.csv, "--csv")
     out = sys.stderr if to_stdout else sys.stdout
+    preload_summary_modules()
     started = time.perf_counter()
     doc: dict = {}
     try:
@@ -155,6 +157,19 @@ def run(args: argparse.Namespace) -> int:
     print(f"\nthreads {req.threads}; seed {req.seed}; {len(doc['rows'])} rows in {elapsed:.1f} s; "
           f"written to {', '.join(written)}", file=out)
     return 1 if any(r.get("status") == "error" for r in doc["rows"]) else 0
+
+
+def preload_summary_modules() -> threading.Thread:
+    """Start importing, in a background thread, what :func:`summary_text` needs (pandas and
+    scipy.stats: about a second on a loaded 2-core machine), so that a run stopped by a
+    signal prints its summary without waiting for them; return the thread."""
+    def load() -> None:
+        import fftgauge.harness.report.time_tables  # noqa: F401  (pandas)
+        import fftgauge.harness.timing.scaling  # noqa: F401  (scipy.stats)
+
+    thread = threading.Thread(target=load, name="fftgauge-preload", daemon=True)
+    thread.start()
+    return thread
 
 
 def _write_outputs(doc: dict, args: argparse.Namespace, path: str) -> list[str]:
