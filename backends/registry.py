@@ -45,6 +45,8 @@ BUILTINS: dict[str, tuple[str, str, str]] = {
     "numpy": ("fftgauge.backends.numpy_fft", "NumpyBackend", "pip install numpy"),
     "scipy": ("fftgauge.backends.scipy_fft", "ScipyBackend", "pip install scipy"),
     "pyfftw": ("fftgauge.backends.pyfftw_plans", "PyfftwBackend", "pip install 'fftgauge[pyfftw]'"),
+    "mkl_fft": ("fftgauge.backends.mkl_fft_dfti", "MklFftBackend", "pip install 'fftgauge[mkl]'"),
+    "ducc0": ("fftgauge.backends.ducc0_fft", "Ducc0Backend", "pip install 'fftgauge[ducc0]'"),
     "radix2-dit": ("fftgauge.backends.radix2", "Radix2DitBackend", "reinstall fftgauge"),
     "radix2-dif": ("fftgauge.backends.radix2", "Radix2DifBackend", "reinstall fftgauge"),
     "direct": ("fftgauge.backends.direct", "DirectBackend", "reinstall fftgauge"),

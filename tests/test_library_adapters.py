@@ -1,0 +1,143 @@
+"""The library adapters (mkl_fft, ducc0, array-api, scipy-backend) against an outside truth.
+
+Ground truth: mpmath (arbitrary precision), direct DFT at 50 digits (tests/mpmath_dft.py),
+on a few sizes (1, 2, prime, power of two, odd and even composites), every kind, norm and
+precision each adapter claims up to float64 (the helper reads outputs through Python's
+complex, a double; long double is covered for the built-ins by
+tests/test_library_backends.py, parametrised over BUILTINS, which converts exactly). Tolerance: relative 2-norm error within
+``4 * eps * max(1, log2 N)`` (the constant of tests/test_library_backends.py, from Higham's
+bound for radix-2 FFTs). An adapter whose library is not installed is skipped.
+"""
+
+from __future__ import annotations
+
+import math
+import threading
+
+import numpy as np
+import pytest
+
+from fftgauge.backends.registry import load_backend
+from fftgauge.harness.cases import KINDS, NORMS, Case
+from fftgauge.harness.errors import UsageError
+from mpmath_dft import relative_error_vs_mpmath
+
+SIZES = (1, 2, 7, 12, 16, 25)
+TOLERANCE_EPS_PER_STAGE = 4.0
+
+
+def tolerance(case: Case) -> float:
+    """Return the relative error allowed for ``case``: 4 eps log2 N (at least 4 eps)."""
+    eps = float(np.finfo(case.real_dtype).eps)
+    return TOLERANCE_EPS_PER_STAGE * eps * max(1.0, math.log2(case.n))
+
+
+def assert_matches_mpmath(spec: str) -> None:
+    """Check every claimed kind, precision and norm of ``spec`` on :data:`SIZES` against mpmath."""
+    backend = load_backend(spec)
+    caps = backend.capabilities()
+    checked = 0
+    for kind in caps.kinds:
+        for dtype in (d for d in caps.dtypes if d != "longdouble"):
+            for norm in caps.norms:
+                for n in SIZES:
+                    case = Case(kind, dtype, n, norm)
+                    err = relative_error_vs_mpmath(backend, case)
+                    assert err <= tolerance(case), f"{spec} {case}: error {err:.3g} above {tolerance(case):.3g}"
+                    checked += 1
+    assert checked >= len(SIZES) * 4 * 3
+
+
+# -- mkl_fft --------------------------------------------------------------------------------
+
+@pytest.mark.parametrize("spec", ["mkl_fft", "mkl_fft[threads=2]"])
+def test_mkl_fft_matches_mpmath(spec):
+    pytest.importorskip("mkl_fft")
+    pytest.importorskip("mkl")
+    assert_matches_mpmath(spec)
+
+
+def test_mkl_fft_claims():
+    """MKL has no long-double FFT, and its results depend bitwise on its thread count."""
+    pytest.importorskip("mkl_fft")
+    caps = load_backend("mkl_fft").capabilities()
+    assert caps.dtypes == ("float32", "float64")
+    assert caps.bitwise_reproducible is False
+    assert caps.thread_option == "threads"
+
+
+def test_mkl_fft_thread_count_is_set_in_each_calling_thread():
+    """The thread count is MKL's thread-local setting: a plan run from a new thread sets it there."""
+    mkl = pytest.importorskip("mkl")
+    backend = load_backend("mkl_fft[threads=2]")
+    plan = backend.plan(Case("fft", "float64", 64))
+    seen = []
+
+    def call():
+        mkl.set_num_threads_local(1)
+        plan.execute(np.ones(64, dtype=np.complex128))
+        seen.append(mkl.get_max_threads())
+
+    t = threading.Thread(target=call)
+    t.start()
+    t.join()
+    # get_max_threads reports the calling thread's setting: the plan set 2 after the thread set 1.
+    assert seen == [2]
+
+
+# -- ducc0 ----------------------------------------------------------------------------------
+
+@pytest.mark.parametrize("spec", ["ducc0", "ducc0[nthreads=2]", "ducc0[in_place=true]"])
+def test_ducc0_matches_mpmath(spec):
+    pytest.importorskip("ducc0")
+    assert_matches_mpmath(spec)
+
+
+def test_ducc0_claims_long_double_and_in_place_when_asked():
+    pytest.importorskip("ducc0")
+    assert "longdouble" in load_backend("ducc0").capabilities().dtypes
+    assert load_backend("ducc0").capabilities().in_place is False
+    assert load_backend("ducc0[in_place=true]").capabilities().in_place is True
+
+
+@pytest.mark.parametrize("in_place", [False, True])
+def test_ducc0_in_place_option_writes_over_the_input_only_when_asked(in_place):
+    """Out of place the caller's array is left alone; in place the output is the input array."""
+    pytest.importorskip("ducc0")
+    backend = load_backend(f"ducc0[in_place={str(in_place).lower()}]")
+    plan = backend.plan(Case("fft", "float64", 16))
+    x = np.arange(16, dtype=np.complex128)
+    before = x.copy()
+    y = plan.execute(x)
+    np.testing.assert_allclose(y, np.fft.fft(before), rtol=0, atol=1e-12 * 16 * 16)
+    assert np.shares_memory(x, y) is in_place
+    assert np.array_equal(x, before) is (not in_place)
+
+
+def test_missing_library_is_unavailable_with_the_install_hint(monkeypatch):
+    """A library that does not import gives one UsageError naming the extra to install."""
+    import builtins
+    import sys
+
+    real_import = builtins.__import__
+
+    def no_ducc0(name, *args, **kwargs):
+        if name == "ducc0" or name.startswith("ducc0."):
+            raise ImportError("No module named 'ducc0'")
+        return real_import(name, *args, **kwargs)
+
+    monkeypatch.delitem(sys.modules, "fftgauge.backends.ducc0_fft", raising=False)
+    monkeypatch.setattr(builtins, "__import__", no_ducc0)
+    with pytest.raises(UsageError, match=r"not available.*pip install 'fftgauge\[ducc0\]'"):
+        load_backend("ducc0")
+
+
+def test_every_kind_and_norm_is_claimed_by_both_libraries():
+    """Both libraries compute all four kinds under all three norms (their documentation)."""
+    for module, spec in (("mkl_fft", "mkl_fft"), ("ducc0", "ducc0")):
+        try:
+            __import__(module)
+        except ImportError:
+            continue
+        caps = load_backend(spec).capabilities()
+        assert caps.kinds == KINDS and caps.norms == NORMS
