@@ -316,3 +316,36 @@ def test_progress_off_a_terminal_is_a_plain_line_every_few_seconds():
     quiet = io.StringIO()
     dispatch.Progress(total=3, quiet=True, stream=quiet, clock=lambda: now[0]).advance(3)
     assert quiet.getvalue() == ""
+
+
+def test_an_interruption_stops_dispatch_and_kills_the_lanes_workers_without_waiting_for_them():
+    """A KeyboardInterrupt in the main thread (raised here by a lane through
+    _thread.interrupt_main, as a signal handler would) stops the queue, aborts every lane's
+    worker and every spare worker, and drive_lanes returns it instead of waiting for the lanes."""
+    import _thread
+
+    class FakeLane:
+        def __init__(self):
+            self.killed = threading.Event()
+
+        def abort(self):
+            self.killed.set()
+
+    class FakeWorker:
+        aborted = False
+
+        def abort(self):
+            self.aborted = True
+
+    lanes, spare = [FakeLane(), FakeLane()], {"s": FakeWorker()}
+    queue, _ = _queue()
+
+    def run_lane(lane):
+        if lane is lanes[0]:
+            _thread.interrupt_main()
+        lane.killed.wait(30)  # a case in flight, until its worker is killed
+
+    stop = battery.drive_lanes(lanes, queue, spare, run_lane)
+    assert isinstance(stop, KeyboardInterrupt)
+    assert queue.stopped and queue.next(None) is None
+    assert all(lane.killed.is_set() for lane in lanes) and spare["s"].aborted

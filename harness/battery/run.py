@@ -48,6 +48,7 @@ from fftgauge.harness.shutdown import stop_reason
 from fftgauge.harness.results import ResultsWriter, envelope
 from fftgauge.harness.battery.budget import probe_sizes, time_reason
 from fftgauge.harness.battery.unclaimed import unclaim_size_classes
+from fftgauge.harness.battery.size_patterns import size_patterns
 from fftgauge.harness.battery.request import DEFAULT_CASE_TIMEOUT_SECONDS, BatteryRequest  # noqa: F401 - re-exported
 from fftgauge.harness.rows import error_rows, skip_rows
 
@@ -371,6 +372,7 @@ def run_battery(req: BatteryRequest, json_path: str | None = None, quiet: bool =
             finally:
                 doc["rows"][:] = unclaim_size_classes(doc["rows"], doc["backends"])
                 _sort_rows(doc["rows"], req, claims, list(CHECKS))
+                doc["size_patterns"] = size_patterns(doc["rows"])  # optional field (docs/reference.md)
                 writer.close(complete=stop is None)
     except KeyboardInterrupt:  # while describing: end the workers at once, not after their start-up
         for worker in workers.values():
@@ -417,9 +419,9 @@ def drive_lanes(lanes: list[_Lane], batches: BatchQueue, workers: dict[str, Any]
 
     threads = [threading.Thread(target=lane_main, args=(lane,), name=f"fftgauge-lane-{i}", daemon=True)
                for i, lane in enumerate(lanes)]
-    for thread in threads:
-        thread.start()
     try:
+        for thread in threads:
+            thread.start()
         for thread in threads:
             while thread.is_alive():
                 thread.join(JOIN_POLL_SECONDS)
@@ -431,7 +433,8 @@ def drive_lanes(lanes: list[_Lane], batches: BatchQueue, workers: dict[str, Any]
             worker.abort()
         deadline = time.monotonic() + STOP_WAIT_SECONDS
         for thread in threads:
-            thread.join(max(0.0, deadline - time.monotonic()))
+            if thread.ident is not None:  # started (a signal may come while they start)
+                thread.join(max(0.0, deadline - time.monotonic()))
         return stop
     if errors:
         raise errors[0]
