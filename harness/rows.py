@@ -15,7 +15,8 @@ STATUSES = ("pass", "fail", "error", "skip")
 
 DIAGNOSES = (
     "sign", "scale", "bit-reversed", "shifted", "precision", "truncated-size", "input-modified",
-    "nondeterministic", "dtype", "shape", "nonfinite", "real-only", "thread-unsafe", "overflow", "user-limit", "unknown",
+    "nondeterministic", "dtype", "shape", "nonfinite", "real-only", "thread-unsafe", "overflow", "user-limit",
+    "localised", "time-shifted", "output-aliased", "unknown",
 )
 
 

@@ -13,6 +13,7 @@ import numpy as np
 from fftgauge.harness.battery.context import (
     CheckContext, copy_output, finite_or_none, fmt_eps, norm2, relative,
 )
+from fftgauge.harness.battery.aliasing import kept_output_change, reuse_allowed
 from fftgauge.harness.battery.thread_crew import CREW_SIZE, thread_caps, thread_caps_applied, thread_crew
 from fftgauge.harness.errors import BackendFailure
 from fftgauge.harness.execution.crash import exception_text
@@ -104,10 +105,17 @@ def rounding_allowance(ctx: CheckContext) -> float:
 def check_repeatable(ctx: CheckContext) -> list[CheckRow]:
     """The same input twice (and again after another input) gives bitwise the same output.
 
+    First, a result the caller kept must not change on the next call (``output-aliased``,
+    :mod:`~fftgauge.harness.battery.aliasing`; for plans that do not declare a reused buffer).
+
     A backend that declares ``bitwise_reproducible=False`` (its summation order may depend on
     its thread count or the data's alignment) passes with outputs that differ within
     :func:`rounding_allowance`; a larger difference fails either way.
     """
+    aliased = kept_output_change(ctx.plan, ctx.native_input(ctx.random_input("output-kept")),
+                                 ctx.native_input(ctx.random_input("output-kept-other")))
+    if aliased is not None:  # harness/battery/aliasing.py: a function's kept result changed
+        return [ctx.row("repeatable", "fail", diagnosis="output-aliased", eps=False, message=aliased)]
     x = ctx.random_input("repeatable")
     other = ctx.random_input("repeatable-other")
     first = ctx.run(x)
@@ -214,9 +222,13 @@ def check_concurrent(ctx: CheckContext) -> list[CheckRow]:
     limits = (f"the backend's own run-to-run spread is {fmt_eps(spread, dtype)}, two accurate outputs may differ by "
               f"{fmt_eps(rounding_allowance(ctx), dtype)}")
     if bad:
-        return [ctx.row("concurrent", "fail", finite_or_none(worst), allowed, diagnosis="thread-unsafe",
-                        message=f"{len(bad)} of {calls} calls from {CONCURRENT_THREADS} threads at once ({scope}) "
-                                f"differ from the same call alone beyond what {limits}; first: {bad[0]}")]
+        aliased = reuses_buffer and not reuse_allowed(ctx.plan)  # one shared buffer: aliasing, not threads
+        return [ctx.row("concurrent", "fail", finite_or_none(worst), allowed,
+                        diagnosis="output-aliased" if aliased else "thread-unsafe",
+                        message=("every call returns the same output buffer, so threads overwrite each other's "
+                                 "results (see repeatable); " if aliased else "")
+                        + f"{len(bad)} of {calls} calls from {CONCURRENT_THREADS} threads at once ({scope}) "
+                          f"differ from the same call alone beyond what {limits}; first: {bad[0]}")]
     if worst == 0.0:
         how = "bitwise"
     else:

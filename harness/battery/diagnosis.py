@@ -39,8 +39,13 @@ shifted         output equals the exact transform circularly shifted by s bins
 real-only       output equals the transform of the real part of the input
 overflow        (tested before the candidates) only the outputs of largest magnitude are
                 wrong, some with the sign flipped: a fixed-point sum wrapped around
-precision       right structure, error between 0.1 unit roundoff and a few times the
-                accuracy limit of a lower precision (float32 under float64 or long
+localised       (after the candidates) the error sits in a few output bins, the rest are
+                right: one wrong twiddle or butterfly (:mod:`~fftgauge.harness.battery.localise`
+                names the bins and, for a power of two, the radix-2 stage); never ``precision``
+time-shifted    every bin off by a phase growing linearly with k: the input delayed by d
+                samples, d possibly fractional (DFT shift theorem)
+precision       right structure, error spread over the bins, between 0.1 unit roundoff
+                and a few times the accuracy limit of a lower precision (float32 under float64 or long
                 double, float64 under long double, float16 under float32)
 unknown         none of the above
 ============== =======================================================================
@@ -54,6 +59,7 @@ import numpy as np
 
 from fftgauge.harness.cases import Case
 from fftgauge.harness.battery.hypotheses import ReferenceFn, candidates, resize_input, values128
+from fftgauge.harness.battery.localise import localise_error
 from fftgauge.harness.dft import is_power_of_two, machine_epsilon, norm_factor, scale_factor, unit_roundoff
 
 #: A candidate matches when ``norm(y - a * candidate) / norm(a * candidate)`` is below this
@@ -363,13 +369,19 @@ def diagnose(case: Case, x: np.ndarray, y: Any, reference_fn: ReferenceFn | None
     if _lower_dtype(case, y):
         return "dtype", (f"output has dtype {y.dtype}, lower precision than the {case.output_dtype} asked for; "
                          f"relative rms error {units:.3g} eps")
+    found = localise_error(case, truth, y128)
+    if found.kind == "bins":
+        return "localised", f"relative rms error {units:.3g} eps, not rounding: {found.words}"
+    if found.kind == "phase-ramp":
+        return "time-shifted", f"relative rms error {units:.3g} eps: {found.words}"
     level = _precision_level(case, err, limit)
     if level is not None:
         return "precision", (f"errors at the level of {level}: relative rms error {units:.3g} eps of "
-                             f"{case.dtype} ({err / machine_epsilon(level):.3g} eps of {level}) with the right structure; "
-                             f"the transform appears to be computed in {level}")
+                             f"{case.dtype} ({err / machine_epsilon(level):.3g} eps of {level}) with the right structure "
+                             f"({found.words}); the transform appears to be computed in {level}")
     return "unknown", (f"relative rms error {err:.3g} ({units:.3g} eps); no single common bug (sign, scale, "
-                       f"order, shift, lower precision, changed size, dropped imaginary part) explains it")
+                       f"order, shift, lower precision, changed size, dropped imaginary part) explains it; "
+                       f"{found.words}")
 
 
 def diagnose_round_trip(x: np.ndarray, z: np.ndarray, n: int, reversed_ok: bool = True,

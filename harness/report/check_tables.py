@@ -146,8 +146,15 @@ def format_summary(df: pd.DataFrame) -> str:
                f"FAIL: {counts['wrong']} case(s) gave wrong answers, {counts['error']} could not run (raised, "
                f"crashed, timed out or returned something unusable), {counts['passed']} passed")
     lines = [verdict, "", text]
-    findings = finding_lines(df.astype(object).where(df.notna(), None).to_dict("records"))
+    records = df.astype(object).where(df.notna(), None).to_dict("records")
+    findings = finding_lines(records)
     if findings:
         lines += ["", "findings, one per cause (backend · diagnosis (checks): cases, sizes; worst case: what was "
                       "seen):"] + findings
+    from fftgauge.harness.battery.size_patterns import pattern_lines
+
+    patterns = pattern_lines(records)
+    if patterns:
+        lines += ["", "size patterns (backend · kind precision: the rule over n that tells failing sizes from "
+                      "passing ones):"] + patterns
     return "\n".join(lines)

@@ -1,0 +1,220 @@
+"""Tests of the localisation: size patterns (harness/battery/size_patterns.py), bins and
+stages (harness/battery/localise.py) and output aliasing (harness/battery/aliasing.py), on
+the broken FFTs of tests/data/localised_bugs.py.
+
+Sources: the ground truth is scipy.fft on long double (the battery's reference) and numpy.fft
+where said; the DFT shift theorem (Oppenheim & Schafer, Discrete-Time Signal Processing,
+3rd ed., Table 8.2: a delay of d samples multiplies X[k] by exp(-2j pi k d / N)) is verified
+numerically with np.roll below; which bins one wrong twiddle of the last radix-2 stage
+touches follows from the decimation-in-time butterfly X[k] = E[k] + W^k O[k],
+X[k + N/2] = E[k] - W^k O[k] (Cooley & Tukey, Math. Comp. 19 (1965) 297-301) and is checked
+against the reference bin by bin; primes and factorisations are checked by trial division
+against the product of the factors.
+"""
+
+from __future__ import annotations
+
+import importlib.util
+import pathlib
+
+import numpy as np
+import pytest
+import scipy.fft
+
+from fftgauge.backends.registry import load_backend
+from fftgauge.harness.battery import diagnosis as diag
+from fftgauge.harness.battery.bounds import accuracy_limit
+from fftgauge.harness.battery.checks import check_case
+from fftgauge.harness.battery.localise import localise_error, stage_of
+from fftgauge.harness.battery.size_patterns import infer_rule, prime_factors, size_patterns
+from fftgauge.harness.cases import Case
+from fftgauge.harness.dft import machine_epsilon, unit_roundoff
+from fftgauge.harness.sizes import is_prime, parse_sizes
+
+DATA = pathlib.Path(__file__).parent / "data" / "localised_bugs.py"
+_spec = importlib.util.spec_from_file_location("localised_bugs", DATA)
+bugs = importlib.util.module_from_spec(_spec)
+_spec.loader.exec_module(bugs)
+
+DEFAULT = parse_sizes("@default")
+
+
+def _exact(x: np.ndarray) -> np.ndarray:
+    """The reference transform: scipy.fft on long double."""
+    return scipy.fft.fft(np.asarray(x).astype(np.clongdouble)).astype(np.complex128)
+
+
+def _input(n: int, dtype=np.complex128, seed: int = 5) -> np.ndarray:
+    rng = np.random.default_rng(seed)
+    return (rng.standard_normal(n) + 1j * rng.standard_normal(n)).astype(dtype)
+
+
+def _lower_precision_level(case: Case, err: float, lower: str) -> bool:
+    """Whether ``err`` lies in the band diagnosis.py calls "the level of ``lower``"
+    (PRECISION_LOW_UNITS u_lower .. PRECISION_HIGH_FACTOR limit eps_lower / eps)."""
+    low = diag.PRECISION_LOW_UNITS * unit_roundoff(lower)
+    high = diag.PRECISION_HIGH_FACTOR * accuracy_limit(case) * machine_epsilon(lower) / machine_epsilon(case.dtype)
+    return low <= err <= high
+
+
+# -- size patterns ----------------------------------------------------------------------------------
+
+def test_prime_factors_multiply_back_and_are_prime():
+    for n in DEFAULT:
+        f = prime_factors(n)
+        assert int(np.prod(f, dtype=object)) == n
+        assert all(is_prime(p) for p in f)
+
+
+@pytest.mark.parametrize("predicate, rule, words", [
+    (lambda n: n % 3 == 0, "divisible-by-3", "radix-3 pass"),
+    (lambda n: n % 5 == 0, "divisible-by-5", "radix-5 pass"),
+    (lambda n: n % 9 == 0, "factor-3-twice", "two radix-3 passes"),
+    (lambda n: n % 2 == 1, "odd", "odd-length"),
+    (lambda n: n >= 4096, "above", "large-size path"),
+    (lambda n: is_prime(n) and n > 64, "prime-above", "Bluestein"),
+    (lambda n: is_prime(n), "prime", "Rader"),
+    (lambda n: n & (n - 1) == 0, "pow2", "power-of-two"),
+])
+def test_a_rule_over_the_default_sizes_is_found_with_its_code_path(predicate, rule, words):
+    failing = [n for n in DEFAULT if predicate(n)]
+    passing = [n for n in DEFAULT if not predicate(n)]
+    found = infer_rule(failing, passing)
+    assert found["rule"] == rule, found["sentence"]
+    assert words in found["suggests"]
+    assert "look at" in found["sentence"]
+
+
+def test_the_bounds_come_from_the_data():
+    found = infer_rule([n for n in DEFAULT if n >= 4096], [n for n in DEFAULT if n < 4096])
+    assert found["words"] == "n > 4095 (every size from 4096 up)"
+    found = infer_rule([n for n in DEFAULT if is_prime(n) and n > 64], [n for n in DEFAULT if not (is_prime(n) and n > 64)])
+    assert found["words"] == "n prime and n > 61 (every prime from 67 up)"
+
+
+def test_no_rule_is_invented():
+    failing = list(bugs.NO_RULE_SIZES)
+    found = infer_rule(failing, [n for n in DEFAULT if n not in failing])
+    assert found["rule"] is None
+    assert found["sentence"].startswith("no size rule fits")
+    everything = infer_rule([4, 8], [])
+    assert everything["rule"] is None and "every size tried" in everything["sentence"]
+
+
+def test_size_patterns_group_rows_and_skip_passing_groups():
+    rows = [{"backend": "b", "kind": "fft", "dtype": "float64", "n": n, "check": "accuracy",
+             "status": "fail" if n % 3 == 0 else "pass"} for n in range(1, 40)]
+    rows += [{"backend": "ok", "kind": "fft", "dtype": "float64", "n": n, "check": "accuracy", "status": "pass"}
+             for n in range(1, 40)]
+    rows += [{"backend": "b", "kind": "fft", "dtype": "float64", "n": 41, "check": "accuracy", "status": "error"}]
+    found = size_patterns(rows)
+    assert [(p["backend"], p["rule"]) for p in found] == [("b", "divisible-by-3")]
+    assert 41 not in found[0]["failing_sizes"] + found[0]["passing_sizes"]  # errors count as neither
+
+
+# -- bins and stages ----------------------------------------------------------------------------------
+
+def test_last_stage_twiddle_is_localised_not_precision():
+    """The issue's case: one wrong twiddle in the last stage of a 4096-point radix-2 FFT."""
+    n = 4096
+    case = Case("fft", "float64", n)
+    x = _input(n)
+    y = bugs.radix2_last_twiddle(x)
+    truth = _exact(x)
+    wrong = np.flatnonzero(np.abs(y - truth) > 1e-9 * np.abs(truth).max())
+    assert list(wrong) == [n // 2 - 1, n - 1]  # the butterfly k = N/2-1, k + N/2 (Cooley-Tukey DIT)
+    err = float(np.linalg.norm(y - truth) / np.linalg.norm(truth))
+    assert _lower_precision_level(case, err, "float32")  # the error's size alone reads as float32's level
+    code, message = diag.diagnose(case, x, y)
+    assert code == "localised"
+    assert "k = 2047, 4095" in message and "last stage" in message
+
+
+def test_stage_of_names_the_dit_stage_of_a_residue_class():
+    # the 8 bins k = 3 (mod 8) of N = 64: stage log2(16) = 4, span 8, twiddle index 3
+    assert stage_of(tuple(range(3, 64, 8)), 64) == (4, 8, 3)
+    assert stage_of((31, 63), 64) == (6, 32, 31)
+    assert stage_of((1, 2), 64) is None
+
+
+def test_an_error_in_one_stage_is_named_with_its_bit_reversed_block():
+    n = 64
+    case = Case("fft", "float64", n)
+    x = _input(n)
+    truth = _exact(x)
+    y = truth.copy()
+    y[3::16] *= 1.01  # every bin k = 3 (mod 16): a wrong twiddle j = 3 of stage 5
+    found = localise_error(case, truth, y)
+    assert found.kind == "bins" and found.stage == 5
+    assert "radix-2 stage 5" in found.words and "bit-reversed positions" in found.words
+
+
+def test_bluestein_padding_bug_is_localised_not_float16():
+    case = Case("fft", "float32", 101)
+    x = _input(101, np.complex64)
+    y = bugs.bluestein_padding(x)
+    truth = _exact(x)
+    err = float(np.linalg.norm(y - truth) / np.linalg.norm(truth))
+    assert _lower_precision_level(case, err, "float16")  # the size alone reads as float16's level
+    code, message = diag.diagnose(case, x, y)
+    assert code == "localised"
+    assert "(k = 0;" in message and "Bluestein" in message
+
+
+@pytest.mark.parametrize("d", [3, 0.5])
+def test_a_time_shift_is_found_with_its_size(d):
+    n = 100
+    case = Case("fft", "float64", n)
+    x = _input(n)
+    k = np.arange(n)
+    if d == 3:  # shift theorem, checked: the transform of x delayed by 3 is X[k] exp(-2j pi k 3 / N)
+        y = np.fft.fft(np.roll(x, 3))
+        assert np.allclose(y, _exact(x) * np.exp(-2j * np.pi * k * 3 / n), atol=1e-10)
+    else:
+        y = bugs.half_sample(x)
+    code, message = diag.diagnose(case, x, y)
+    assert code == "time-shifted"
+    assert f"estimated d = {d:.4g}" in message
+
+
+def test_rounding_noise_is_spread():
+    n = 256
+    case = Case("fft", "float64", n)
+    x = _input(n)
+    y = np.fft.fft(x.astype(np.complex64)).astype(np.complex128)  # computed in float32
+    found = localise_error(case, _exact(x), y)
+    assert found.kind == "spread"
+    assert diag.diagnose(case, x, y)[0] == "precision"
+
+
+def test_radix3_and_odd_real_bugs_fail_through_the_battery_with_their_codes():
+    b = load_backend(f"{DATA}:radix3_pass")
+    rows = check_case(b, Case("fft", "float64", 48), 1, ["accuracy"])
+    assert rows[0].status == "fail"
+    odd = load_backend(f"{DATA}:odd_real[kind=rfft]")
+    rows = check_case(odd, Case("rfft", "float64", 33), 1, ["accuracy"])
+    assert rows[0].status == "fail" and rows[0].diagnosis == "localised"
+    assert "(k = 16;" in rows[0].message
+    assert check_case(odd, Case("rfft", "float64", 32), 1, ["accuracy"])[0].status == "pass"
+
+
+# -- output aliasing ----------------------------------------------------------------------------------
+
+def test_an_aliased_output_is_not_thread_unsafe():
+    b = load_backend(f"{DATA}:aliased_output_slow")
+    rows = {r.check: r for r in check_case(b, Case("fft", "float64", 256), 1, ["repeatable", "concurrent"])}
+    assert rows["repeatable"].status == "fail" and rows["repeatable"].diagnosis == "output-aliased"
+    assert "internal output buffer" in rows["repeatable"].message
+    assert rows["concurrent"].diagnosis in (None, "output-aliased")  # never thread-unsafe
+    assert rows["concurrent"].status == "fail"  # 20 ms between writing and returning: threads overwrite
+
+
+@pytest.mark.parametrize("spec", ["numpy", "scipy", "pyfftw", "radix2-dit"])
+def test_library_backends_are_not_aliased_and_get_no_localisation(spec):
+    try:
+        b = load_backend(spec)
+    except Exception as exc:  # noqa: BLE001 - an optional library that is not installed
+        pytest.skip(f"{spec}: {exc}")
+    rows = check_case(b, Case("fft", "float64", 64), 1, ["accuracy", "repeatable"])
+    assert [r.status for r in rows] == ["pass", "pass"]
+    assert size_patterns([r.as_dict() for r in rows]) == []
