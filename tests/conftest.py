@@ -1,13 +1,53 @@
-"""Shared fixtures: where the helper modules live, and a writer of user modules."""
+"""Shared fixtures: where the helper modules live, a writer of user modules, and the C
+example built once per test session."""
 
 from __future__ import annotations
 
+import shutil
+import subprocess
 from pathlib import Path
 from typing import Callable
 
 import pytest
 
 DATA_DIR = Path(__file__).parent / "data"
+C_EXAMPLE = Path(__file__).resolve().parent.parent / "examples" / "c_radix2"
+#: What the example builds: the shared libraries and protocol servers, each also broken
+#: on purpose (-DMISSING_BITREVERSAL).
+C_TARGETS = {"libradix2.so": ("-fPIC", "-shared"), "libradix2_broken.so": ("-DMISSING_BITREVERSAL", "-fPIC", "-shared"),
+             "radix2_server": (), "radix2_server_broken": ("-DMISSING_BITREVERSAL",)}
+
+
+def c_compiler() -> str | None:
+    """Return the system C compiler's path (cc, gcc or clang), or None."""
+    for name in ("cc", "gcc", "clang"):
+        found = shutil.which(name)
+        if found:
+            return found
+    return None
+
+
+@pytest.fixture(scope="session")
+def c_example_build(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    """Build examples/c_radix2 once (make, or the compiler directly); return the build folder.
+
+    Skips the test when there is no C compiler.
+    """
+    cc = c_compiler()
+    if cc is None:
+        pytest.skip("no C compiler (cc, gcc or clang) on PATH: the C example cannot be built")
+    build = tmp_path_factory.mktemp("c_radix2_build")
+    if shutil.which("make"):
+        cmd = ["make", "-s", "-C", str(C_EXAMPLE), f"CC={cc}", f"BUILD={build}"] + [str(build / t) for t in C_TARGETS]
+        subprocess.run(cmd, check=True, capture_output=True, timeout=120)
+        return build
+    for target, flags in C_TARGETS.items():
+        sources = [str(C_EXAMPLE / "radix2.c")]
+        if target.startswith("radix2_server"):
+            sources.insert(0, str(C_EXAMPLE / "radix2_server.c"))
+        subprocess.run([cc, "-O2", "-std=c99", *flags, "-o", str(build / target), *sources, "-lm"],
+                       check=True, capture_output=True, timeout=120)
+    return build
 
 
 @pytest.fixture

@@ -49,31 +49,10 @@ SERVERS = Path(__file__).resolve().parent / "data" / "protocol_servers.py"
 TARGETS = ("radix2_server", "radix2_server_broken")
 
 
-def c_compiler() -> str | None:
-    """Return the system C compiler's path (cc, gcc or clang), or None."""
-    for name in ("cc", "gcc", "clang"):
-        found = shutil.which(name)
-        if found:
-            return found
-    return None
-
-
 @pytest.fixture(scope="session")
-def c_servers(tmp_path_factory: pytest.TempPathFactory) -> Path:
-    """Build the example's two protocol servers with make (or the compiler directly); return the folder."""
-    cc = c_compiler()
-    if cc is None:
-        pytest.skip("no C compiler (cc, gcc or clang) on PATH: the C example cannot be built")
-    build = tmp_path_factory.mktemp("c_radix2_servers")
-    if shutil.which("make"):
-        cmd = ["make", "-s", "-C", str(EXAMPLE), f"CC={cc}", f"BUILD={build}"] + [str(build / t) for t in TARGETS]
-        subprocess.run(cmd, check=True, capture_output=True, timeout=120)
-    else:
-        for target, extra in zip(TARGETS, ([], ["-DMISSING_BITREVERSAL"])):
-            subprocess.run([cc, "-O2", "-std=c99", *extra, "-o", str(build / target),
-                            str(EXAMPLE / "radix2_server.c"), str(EXAMPLE / "radix2.c"), "-lm"],
-                           check=True, capture_output=True, timeout=120)
-    return build
+def c_servers(c_example_build: Path) -> Path:
+    """The folder holding the C example's build (tests/conftest.py builds it once)."""
+    return c_example_build
 
 
 def our_leftovers() -> list[str]:

@@ -27,6 +27,7 @@ import numpy as np
 import pytest
 
 from fftgauge.harness.execution import jobs
+from conftest import c_compiler as conftest_c_compiler
 from fftgauge.backends.registry import load_backend
 from fftgauge.backends.shared_library import ForeignCallError, HandlePlan, SharedLibraryBackend
 from fftgauge.harness.cases import Case
@@ -36,30 +37,10 @@ EXAMPLE = Path(__file__).resolve().parent.parent / "examples" / "c_radix2"
 TARGETS = ("libradix2.so", "libradix2_broken.so")
 
 
-def c_compiler() -> str | None:
-    """Return the system C compiler's path (cc, gcc or clang), or None."""
-    for name in ("cc", "gcc", "clang"):
-        found = shutil.which(name)
-        if found:
-            return found
-    return None
-
-
 @pytest.fixture(scope="session")
-def c_libs(tmp_path_factory: pytest.TempPathFactory) -> Path:
-    """Build the example's two shared libraries with make (or the compiler directly); return the folder."""
-    cc = c_compiler()
-    if cc is None:
-        pytest.skip("no C compiler (cc, gcc or clang) on PATH: the C example cannot be built")
-    build = tmp_path_factory.mktemp("c_radix2_libs")
-    if shutil.which("make"):
-        cmd = ["make", "-s", "-C", str(EXAMPLE), f"CC={cc}", f"BUILD={build}"] + [str(build / t) for t in TARGETS]
-        subprocess.run(cmd, check=True, capture_output=True, timeout=120)
-    else:
-        for target, extra in zip(TARGETS, ([], ["-DMISSING_BITREVERSAL"])):
-            subprocess.run([cc, "-O2", "-std=c99", *extra, "-fPIC", "-shared", "-o", str(build / target),
-                            str(EXAMPLE / "radix2.c"), "-lm"], check=True, capture_output=True, timeout=120)
-    return build
+def c_libs(c_example_build: Path) -> Path:
+    """The folder holding the C example's build (tests/conftest.py builds it once)."""
+    return c_example_build
 
 
 def spec(c_libs: Path, symbol: str, options: str = "", lib: str = "libradix2.so") -> str:
@@ -280,7 +261,7 @@ def test_long_double_data_cross_the_call_intact(c_libs: Path, tmp_path: Path) ->
         pytest.skip("long double is not wider than double here")
     source = tmp_path / "ldft.c"
     source.write_text(LONG_DOUBLE_DFT)
-    subprocess.run([c_compiler(), "-O2", "-fPIC", "-shared", "-o", str(tmp_path / "libldft.so"), str(source), "-lm"],
+    subprocess.run([conftest_c_compiler(), "-O2", "-fPIC", "-shared", "-o", str(tmp_path / "libldft.so"), str(source), "-lm"],
                    check=True, capture_output=True, timeout=120)
     backend = load_backend(f"clib:{tmp_path / 'libldft.so'}:ldft[dtype=longdouble]")
     rows = checks.run_case_checks(backend, ("fft", "longdouble", 16, "backward"), 1234, ["accuracy"])
