@@ -148,7 +148,9 @@ class GateRow:
     stored mode), ``ratio_raw`` the ratio before the yardstick correction (stored mode, in the
     compared statistic) or of the two sides' medians (A/B), ``ab_ratio`` fields this run's
     new/old ratio (two-sided modes, what a later referenced run compares with); accuracy
-    fields with ``--accuracy`` (None otherwise).
+    fields with ``--accuracy`` (None otherwise): ``message`` then says in one line which checks
+    newly fail (with their diagnosis codes) or how far the error grew, ``accuracy_detail``
+    holds the failing checks' own messages.
     """
 
     backend: str
@@ -194,6 +196,7 @@ class GateRow:
     bound_eps_units: float | None = None
     battery_failures: tuple[str, ...] | None = None
     new_battery_failures: tuple[str, ...] | None = None
+    accuracy_detail: str | None = None
 
     def as_dict(self) -> dict[str, Any]:
         """Return the row as a JSON-able dict (contract fields first)."""

@@ -193,8 +193,8 @@ class FakeClock:
 
 class FakeSampler:
     """Stands in for WorkerSampler: each side's per-call seconds drawn from a seeded lognormal
-    (``times`` maps a worker key to its median seconds, ``spread`` the log-scale sigma, or a
-    dict of it per worker key), each
+    (``times`` maps a worker key, or a (key, n) pair, to its median seconds, ``spread`` the
+    log-scale sigma, or a dict of it by the same keys), each
     block pair advancing the fake clock by ``pair_seconds``; ``yardstick_seconds`` gives one
     yardstick block per sample() call."""
 
@@ -227,9 +227,10 @@ class FakeSampler:
     def prepare(self, item):
         return {item.new_key: {"plan_seconds": 0.0, "loops": 1}}
 
-    def _block(self, key):
-        sigma = self.spread[key] if isinstance(self.spread, dict) else self.spread
-        return list(self.times[key] * np.exp(self.rng.normal(0.0, sigma, self.samples_per_block)))
+    def _block(self, key, n):
+        sigma = self.spread.get((key, n), self.spread.get(key)) if isinstance(self.spread, dict) else self.spread
+        median = self.times.get((key, n), self.times.get(key))
+        return list(median * np.exp(self.rng.normal(0.0, sigma, self.samples_per_block)))
 
     def sample(self, item, pairs):
         from fftgauge.harness.gate.sampling import Draw
@@ -237,10 +238,10 @@ class FakeSampler:
         self.calls.append((item.case.n, pairs))
         draw = Draw()
         for _ in range(pairs):
-            draw.new.extend(self._block(item.new_key))
+            draw.new.extend(self._block(item.new_key, item.case.n))
             self.given.setdefault(item.case.n, []).extend(draw.new[-self.samples_per_block:])
             if item.old_key:
-                draw.old.extend(self._block(item.old_key))
+                draw.old.extend(self._block(item.old_key, item.case.n))
         draw.yardstick.extend(list(self.yardstick_seconds * np.exp(self.rng.normal(0.0, 0.001, 5))))
         self.clock.now += pairs * self.pair_seconds
         return draw
@@ -395,7 +396,7 @@ def _ab_request(sizes=(256, 1024), **settings):
     from fftgauge.harness.gate.request import GateRequest, GateSettings
 
     return GateRequest(mode="ab", old_spec="numpy", new_spec="mine.py:fft", kinds=("fft",), dtypes=("float64",),
-                       sizes=sizes, settings=GateSettings(budget_seconds=2.0, **settings))
+                       sizes=sizes, settings=GateSettings(**{"budget_seconds": 2.0, **settings}))
 
 
 def test_fake_ab_run_finds_a_50_percent_slowdown_and_its_outputs_say_so():
@@ -481,7 +482,7 @@ def test_referenced_mode_end_to_end_finds_a_50_percent_slowdown(tmp_path):
     the reference fails against it (the stored candidate's label named with --baseline-backend)."""
     history = tmp_path / "history"
     code, *_ = _ab(tmp_path, "numpy", extra=("--save", str(history)), budget="1")
-    assert code == 0
+    assert code in (0, 1) and len(list(history.glob("gate-*.json"))) == 1  # its verdict does not matter here
     code, md, xml_path, js = _ab(tmp_path, "slowed[percent=50]", budget="1",
                                  extra=("--baseline", str(history), "--baseline-backend", "numpy"))
     doc = json.loads(js.read_text())
@@ -489,3 +490,100 @@ def test_referenced_mode_end_to_end_finds_a_50_percent_slowdown(tmp_path):
     (row,) = doc["rows"]
     assert row["verdict"] == "slower" and row["ratio"] > 1.2 and row["baseline_runs"] == 1
     assert "stored A/B ratios" in md.read_text()
+
+
+# -- inconclusive runs, the stored mode on a quiet machine, short accuracy rows ----------------
+
+def test_an_inconclusive_case_makes_the_headline_inconclusive_and_the_policy_picks_the_exit_code():
+    """Case 128 sits on the threshold with 10% noise and a budget too small to decide it."""
+    from fftgauge.harness.gate.decision import exit_code
+    from fftgauge.harness.gate.outputs import headline, summary_text
+
+    clock = FakeClock()
+    spread = {"old": 0.001, "new": 0.001, ("old", 128): 0.1, ("new", 128): 0.1}
+    sampler = FakeSampler({"old": 1e-5, "new": 1e-5, ("new", 128): 1.05e-5}, clock, spread=spread,
+                          labels={"old": "numpy", "new": "mine"})
+    doc = _fake_run(_ab_request(sizes=(64, 128), inconclusive="fail", budget_seconds=0.01), sampler, clock)
+    rows = {r["n"]: r for r in doc["rows"]}
+    assert rows[64]["verdict"] == "same" and not rows[64]["inconclusive"]
+    assert rows[128]["verdict"] == "same" and rows[128]["inconclusive"] and rows[128]["ratio_high"] > 1.05
+    assert doc["outcome"] == "inconclusive" and doc["regressed"] is False
+    text = headline(doc)
+    assert text.startswith("INCONCLUSIVE: 1 of 2 case(s)") and "exit 1" in text, text
+    assert "same (inconclusive)" in summary_text(doc)
+    assert exit_code(doc["outcome"], "fail") == 1 and exit_code(doc["outcome"], "pass") == 0
+    assert exit_code("pass", "fail") == 0 and exit_code("regression") == 1 and exit_code("incomplete", "pass", 15) == 143
+
+
+def _quiet_history(seconds=1e-5, spread=0.01, runs=3, yardstick_seconds=1e-3, sizes=(64, 128)):
+    """Stored runs of a quiet machine, every figure computed by fftgauge's own summaries from
+    samples of the distribution the fake sampler draws from: the same code, the same machine."""
+    from fftgauge.harness.gate.history import StoredRun
+    from fftgauge.harness.gate.yardstick import summarise
+    from fftgauge.harness.stats import LOW_QUANTILE, median_ci, quantile_ci
+
+    rng = np.random.default_rng(77)
+    out = []
+    for i in range(runs):
+        rows = []
+        for n in sizes:
+            x = seconds * np.exp(rng.normal(0.0, spread, 100))
+            med, lo, hi = median_ci(x)
+            p10, p10_lo, p10_hi = quantile_ci(x, LOW_QUANTILE)
+            rows.append({"backend": "numpy", "kind": "fft", "dtype": "float64", "n": n, "norm": "backward",
+                         "seconds": med, "seconds_low": lo, "seconds_high": hi, "seconds_p10": p10,
+                         "seconds_p10_low": p10_lo, "seconds_p10_high": p10_hi})
+        yard = summarise(list(yardstick_seconds * np.exp(rng.normal(0.0, 0.001, 60))))
+        out.append(StoredRun(path=f"h/{i}.json", created=f"2026-12-0{i + 1}T00:00:00Z", schema="fftgauge-gate/1",
+                             machine={}, yardstick=yard, rows=tuple(rows), backends={"numpy": "numpy"}))
+    return tuple(out)
+
+
+def test_stored_mode_reads_the_same_code_on_the_same_machine_as_the_same():
+    """The same distribution stored and measured now (yardstick included): every ratio within
+    1.5% of 1 and every verdict ``same``; the printed yardstick figure is the 10th percentile
+    its percentage is computed from."""
+    from fftgauge.harness.gate.outputs import summary_text
+    from fftgauge.harness.gate.request import GateRequest, GateSettings
+
+    req = GateRequest(mode="stored", specs=("numpy",), stored_runs=_quiet_history(), baseline_path="h",
+                      settings=GateSettings(budget_seconds=1.0))
+    clock = FakeClock()
+    doc = _fake_run(req, FakeSampler({"numpy": 1e-5}, clock, spread=0.01), clock)
+    assert doc["outcome"] == "pass"
+    for row in doc["rows"]:
+        assert row["yardstick_corrected"] and row["compared_statistic"] == "p10"
+        assert abs(row["ratio"] - 1.0) < 0.015 and row["verdict"] == "same", row
+    y = doc["yardstick"]
+    assert y["ratio_statistic"] == "p10" and abs(y["ratio"] - 1.0) < 0.005
+    assert y["ratio"] == pytest.approx(y["seconds_p10"] / y["baseline_seconds"])
+    assert f"yardstick p10 {y['seconds_p10'] * 1e3:.3f} ms" in summary_text(doc)
+
+
+def test_an_incomplete_run_does_not_say_it_regressed():
+    from fftgauge.harness.gate.decision import outcome_of
+
+    rows = [{"status": "ok", "verdict": "same"}, {"status": "incomplete", "verdict": None}]
+    assert outcome_of(rows, complete=False) == ("incomplete", False)
+    assert outcome_of(rows + [{"status": "ok", "verdict": "slower"}], complete=False) == ("regression", True)
+
+
+def test_accuracy_rows_are_one_short_line_and_keep_the_timing_apart():
+    from fftgauge.harness.cases import Case
+    from fftgauge.harness.gate.decision import compare_accuracy
+    from fftgauge.harness.gate.outputs import summary_text
+
+    long = "x[k] differs from the reference " * 60  # about 2,000 characters
+    new_rows = [{"check": "accuracy", "status": "fail", "diagnosis": "sign", "eps_units": 900.0, "message": long},
+                {"check": "inverse", "status": "fail", "diagnosis": "sign", "message": long},
+                {"check": "parseval", "status": "pass", "eps_units": 0.5, "message": "ok"}]
+    old_rows = [{"check": "accuracy", "status": "pass", "eps_units": 0.8, "message": "ok"}]
+    acc = compare_accuracy(Case("fft", "float64", 64), new_rows, old_rows, None, 2.0)
+    assert acc["regressed"] and acc["new_battery_failures"] == ["accuracy", "inverse"]
+    assert acc["message"].startswith("new battery failure(s): accuracy (sign), inverse (sign)")
+    assert len(acc["message"]) < 200 and long.strip() in acc["detail"]
+    row = {"backend": "mine", "kind": "fft", "dtype": "float64", "n": 64, "status": "ok", "verdict": "accuracy",
+           "timing_verdict": "same", "conclusive": False, "inconclusive": True, "ratio": 1.01, "ratio_low": 0.9,
+           "ratio_high": 1.2, "p_holm": 0.5, "message": acc["message"]}
+    line = summary_text({"mode": "ab", "rows": [row]}).splitlines()[-1]
+    assert "accuracy; timing same" in line and "inconclusive" not in line and len(line) < 300, line

@@ -44,3 +44,4 @@ def test_bad_requests(tmp_path, capsys, time_file):
     _one_line_error(capsys, ["--old", "numpy", "--new", "numpy", "--threshold", "abc"], "threshold")
     _one_line_error(capsys, ["--old", "numpy", "--new", "numpy", "--sizes", "0"], "'0'")
     _one_line_error(capsys, ["--new", "numpy"], "--old")
+    _one_line_error(capsys, ["--old", "numpy", "--new", "numpy", "--inconclusive", "maybe"], "--inconclusive")

@@ -9,7 +9,10 @@ Three ways to run it (see docs/ci-gate.md for CI jobs that use them):
   ``--last K`` runs stored in a folder, and compare, corrected by the yardstick.
 - ``fftgauge gate --backend SPEC --save DIR``: measure and store only (seeds a history).
 
-Exit codes: see :func:`fftgauge.harness.gate.decision.exit_code`. This module only parses the
+Exit codes (:func:`fftgauge.harness.gate.decision.exit_code`): 0 pass (and INCONCLUSIVE with
+``--inconclusive pass``, the default); 1 a regression, an accuracy regression, a backend
+failure, or INCONCLUSIVE with ``--inconclusive fail``; 2 a bad request; 130/143/129 stopped
+by SIGINT/SIGTERM/SIGHUP (what finished is written, ``complete: false``). This module only parses the
 options, builds the request (:func:`fftgauge.harness.gate.request.build_request`), runs it
 (:func:`fftgauge.harness.gate.run.run_and_write`) and prints the summary.
 """
@@ -21,8 +24,8 @@ import sys
 
 from fftgauge.harness.cli import add_common_options, default_results_path
 from fftgauge.harness.gate.history import DEFAULT_LAST_RUNS
-from fftgauge.harness.gate.request import (DEFAULT_BUDGET_SECONDS, DEFAULT_THRESHOLD, DEFAULT_TIMEOUT_SECONDS,
-                                           GateRequest, build_request)
+from fftgauge.harness.gate.request import (DEFAULT_BUDGET_SECONDS, DEFAULT_INCONCLUSIVE, DEFAULT_THRESHOLD,
+                                           DEFAULT_TIMEOUT_SECONDS, INCONCLUSIVE_POLICIES, GateRequest, build_request)
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -49,6 +52,10 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     decide.add_argument("--budget", type=float, default=DEFAULT_BUDGET_SECONDS, metavar="SECONDS",
                         help=f"sampling time after the first round, for all cases together, spent on the "
                              f"inconclusive ones (default {DEFAULT_BUDGET_SECONDS:g})")
+    decide.add_argument("--inconclusive", choices=INCONCLUSIVE_POLICIES, default=DEFAULT_INCONCLUSIVE,
+                        help="exit code when no case is slower but some could not rule out a slowdown beyond "
+                             "--threshold (headline INCONCLUSIVE): pass exits 0, fail exits 1 "
+                             f"(default {DEFAULT_INCONCLUSIVE})")
     decide.add_argument("--accuracy", action="store_true",
                         help="also run the correctness battery on every case: a new failure, or an accuracy error "
                              "grown beyond --accuracy-growth times the baseline's, fails the gate")
@@ -83,7 +90,7 @@ def request_from_args(args: argparse.Namespace) -> GateRequest:
                          pin_cpu=args.pin_cpu, threshold=args.threshold, alpha=args.alpha, budget=args.budget,
                          accuracy=args.accuracy, accuracy_growth=args.accuracy_growth,
                          allow_other_machine=args.allow_other_machine, timeout=args.timeout,
-                         save=args.save, commit=args.commit)
+                         inconclusive=args.inconclusive, save=args.save, commit=args.commit)
 
 
 def run(args: argparse.Namespace) -> int:
@@ -94,6 +101,7 @@ def run(args: argparse.Namespace) -> int:
     UsageError
         For a bad request (exit 2).
     """
+    from fftgauge.harness.gate.decision import exit_code
     from fftgauge.harness.gate.outputs import summary_text
     from fftgauge.harness.gate.run import run_and_write
 
@@ -104,4 +112,4 @@ def run(args: argparse.Namespace) -> int:
                                  junit=args.junit, csv=args.csv, save=args.save, quiet=args.quiet)
     print(summary_text(doc))
     print(f"\nwritten to {', '.join(written)}")
-    return 1 if doc["regressed"] else 0
+    return exit_code(doc["outcome"], req.settings.inconclusive)

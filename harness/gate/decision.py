@@ -121,7 +121,9 @@ def compare_accuracy(case: Case, new_rows: Sequence[dict[str, Any]], old_rows: S
         ``bound_eps_units`` (the error bound, :func:`fftgauge.harness.battery.bounds.accuracy_limit`, in eps),
         ``battery_failures`` (checks with status fail or error), ``new_battery_failures``
         (those the baseline did not fail; every failure when the baseline has no battery
-        record), ``grew`` and ``regressed`` (a new failure, or ``grew``), ``message``.
+        record), ``grew`` and ``regressed`` (a new failure, or ``grew``), ``message`` (one
+        short line: the new failures by check name with their diagnosis codes, the growth),
+        ``detail`` (every new failure's own message, for the JSON row).
     """
     def failures(rows: Iterable[dict[str, Any]]) -> list[str]:
         return sorted({r["check"] for r in rows if r.get("status") in ("fail", "error")})
@@ -145,27 +147,61 @@ def compare_accuracy(case: Case, new_rows: Sequence[dict[str, Any]], old_rows: S
     grew = (eps is not None and base_eps is not None and eps > ACCURACY_FLOOR_EPS_UNITS
             and eps > growth * float(base_eps))
     parts = []
+    failing_rows = [r for r in new_rows if r["check"] in new_failures and r.get("status") in ("fail", "error")]
     if new_failures:
-        detail = "; ".join(f"{r['check']}: {r.get('message', '')}" for r in new_rows
-                           if r["check"] in new_failures and r.get("status") in ("fail", "error"))
-        parts.append(f"new battery failure(s): {detail}")
+        named = []
+        for check in new_failures:
+            codes = sorted({r.get("diagnosis") or r.get("status") for r in failing_rows if r["check"] == check})
+            named.append(f"{check} ({', '.join(codes)})")
+        parts.append(f"new battery failure(s): {', '.join(named)}")
     if grew:
         parts.append(f"accuracy error grew from {float(base_eps):.3g} to {eps:.3g} eps (more than {growth:g}x)")
     return {"eps_units": eps, "baseline_eps_units": None if base_eps is None else float(base_eps),
             "bound_eps_units": bound, "battery_failures": now_failing, "new_battery_failures": new_failures,
-            "grew": bool(grew), "regressed": bool(new_failures or grew), "message": "; ".join(parts)}
+            "grew": bool(grew), "regressed": bool(new_failures or grew), "message": "; ".join(parts),
+            "detail": "; ".join(f"{r['check']}: {r.get('message', '')}" for r in failing_rows) or None}
+
+
+#: A run's outcomes, most serious first (:func:`outcome_of`).
+OUTCOMES = ("regression", "error", "incomplete", "inconclusive", "pass")
 
 
 def outcome_of(rows: Sequence[dict[str, Any]], complete: bool) -> tuple[str, bool]:
-    """Return ``(outcome, regressed)``: outcome ``regression`` (a row slower or accuracy),
-    ``error`` (a case could not be measured or checked), ``incomplete`` (the run stopped
-    early) or ``pass``; ``regressed`` is true for anything but ``pass``."""
+    """Return ``(outcome, regressed)`` of a run's rows.
+
+    The outcome is the first that holds of: ``regression`` (a finished case is ``slower`` or
+    ``accuracy``), ``error`` (a case could not be measured or checked), ``incomplete`` (the
+    run stopped before every case was decided), ``inconclusive`` (a case is ``same`` but its
+    interval still reaches above 1 + threshold, :func:`undecided`), ``pass``. ``regressed`` is
+    true for ``regression`` and ``error`` only: an incomplete run never says it regressed
+    about cases it did not finish, and an inconclusive one found no regression.
+    """
     if any(r.get("verdict") in ("slower", "accuracy") for r in rows):
         outcome = "regression"
     elif any(r.get("status") == "error" for r in rows):
         outcome = "error"
     elif not complete:
         outcome = "incomplete"
+    elif any(r.get("inconclusive") for r in rows):
+        outcome = "inconclusive"
     else:
         outcome = "pass"
-    return outcome, outcome != "pass"
+    return outcome, outcome in ("regression", "error")
+
+
+def exit_code(outcome: str, inconclusive: str = "pass", signal_number: int | None = None) -> int:
+    """Return the exit code of a gate run.
+
+    ``0`` for ``pass``; ``1`` for ``regression`` and ``error``; for ``inconclusive``, ``0``
+    when ``inconclusive`` is ``pass`` (the default: nothing was found slower) and ``1`` when it
+    is ``fail`` (a slowdown could not be ruled out, so the build stops); for a run stopped by
+    a signal, ``128 + signal_number`` (130 SIGINT, 143 SIGTERM, 129 SIGHUP), whatever the
+    finished cases say (the outputs say it); ``1`` for a run that stopped for another reason.
+    """
+    if signal_number is not None:
+        return 128 + signal_number
+    if outcome in ("regression", "error"):
+        return 1
+    if outcome == "inconclusive":
+        return 1 if inconclusive == "fail" else 0
+    return 0 if outcome == "pass" else 1

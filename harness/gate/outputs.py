@@ -27,6 +27,16 @@ _MODE_WORDS = {"ab": "A/B run", "referenced": "A/B ratio against stored A/B rati
                "record": "record only"}
 
 
+#: Longest message a terminal line or a table cell quotes (the JSON keeps the whole of it).
+SHORT_MESSAGE_CHARS = 160
+
+
+def short(text: Any, limit: int = SHORT_MESSAGE_CHARS) -> str:
+    """Return ``text`` on one line, cut to ``limit`` characters with an ellipsis when longer."""
+    one = " ".join(str(text or "").split())
+    return one if len(one) <= limit else one[: limit - 1].rstrip() + "…"
+
+
 def _case_label(row: dict[str, Any]) -> str:
     norm = row.get("norm") or "backward"
     return f"{row['kind']} {row['dtype']} n={row['n']}" + ("" if norm == "backward" else f" norm={norm}")
@@ -51,37 +61,62 @@ def _percent(ratio: Any) -> str:
     return f"{change:+.1f}%"
 
 
+def is_inconclusive(row: dict[str, Any]) -> bool:
+    """Return True when a row is ``same`` but could not rule out a slowdown beyond the threshold
+    (its ``inconclusive`` field; rows of files older than that field: ``conclusive`` false)."""
+    if row.get("status") != "ok" or row.get("verdict") != "same":
+        return False
+    if "inconclusive" in row:
+        return bool(row["inconclusive"])
+    return row.get("conclusive") is False
+
+
 def counts(doc: dict[str, Any]) -> dict[str, int]:
-    """Return how many rows have each verdict, and how many were skipped, errored or left undecided."""
+    """Return how many rows have each verdict, and how many were skipped, errored or left
+    undecided; ``inconclusive`` counts the ``same`` rows that are inconclusive (:func:`is_inconclusive`)."""
     out = {"slower": 0, "faster": 0, "same": 0, "accuracy": 0, "skip": 0, "error": 0, "incomplete": 0,
-           "recorded": 0}
+           "recorded": 0, "inconclusive": 0}
     for row in doc.get("rows", []):
         status = row.get("status")
         if status in ("skip", "error", "incomplete"):
             out[status] += 1
         elif row.get("verdict") in out:
             out[row["verdict"]] += 1
+            out["inconclusive"] += is_inconclusive(row)
         else:
             out["recorded"] += 1
     return out
 
 
 def headline(doc: dict[str, Any]) -> str:
-    """Return the one-line verdict of a gate run, e.g. ``FAIL: 2 of 20 cases slower``."""
+    """Return the one-line verdict of a gate run, e.g. ``FAIL: 2 slower of 20 case(s)``.
+
+    It starts with ``FAIL``, ``INCOMPLETE``, ``INCONCLUSIVE``, ``RECORDED`` or ``PASS``
+    (:func:`fftgauge.harness.gate.decision.outcome_of`) and never leaves out inconclusive
+    cases: ``INCONCLUSIVE`` when one is and nothing regressed, and a count beside the others.
+    """
     c = counts(doc)
     compared = c["slower"] + c["faster"] + c["same"] + c["accuracy"]
     outcome = doc.get("outcome")
+    undecided = f", {c['inconclusive']} inconclusive" if c["inconclusive"] else ""
     if outcome == "regression":
         parts = [f"{c[k]} {k if k != 'accuracy' else 'accuracy regression(s)'}" for k in ("slower", "accuracy") if c[k]]
-        return f"FAIL: {' and '.join(parts)} of {compared} case(s)"
+        return f"FAIL: {' and '.join(parts)} of {compared} case(s){undecided}"
     if outcome == "error":
-        return f"FAIL: {c['error']} case(s) could not be measured or checked (backend failure)"
+        return f"FAIL: {c['error']} case(s) could not be measured or checked (backend failure){undecided}"
     if outcome == "incomplete":
         why = f": {doc['error']}" if doc.get("error") else ""
-        return f"INCOMPLETE: the run stopped before every case was decided{why}"
+        done = f" ({compared} of {len(doc.get('rows') or [])} case(s) decided{undecided})"
+        return f"INCOMPLETE: the run stopped before every case was decided{why}{done}"
     if doc.get("mode") == "record":
         return f"RECORDED: {c['recorded']} case(s) measured, nothing compared"
     faster = f", {c['faster']} faster" if c["faster"] else ""
+    if outcome == "inconclusive":
+        threshold = (doc.get("threshold") or 0.0) * 100
+        policy = doc.get("inconclusive_policy") or "pass"
+        return (f"INCONCLUSIVE: {c['inconclusive']} of {compared} case(s) could not rule out a slowdown beyond "
+                f"{threshold:g}%; none found slower{faster} (--inconclusive {policy}: exit "
+                f"{1 if policy == 'fail' else 0})")
     return f"PASS: no regression in {compared} case(s){faster}"
 
 
@@ -105,13 +140,35 @@ def _settings_line(doc: dict[str, Any]) -> str:
         parts.append(f"{doc['sampling_seconds']:.1f} s of sampling (budget {doc.get('budget_seconds', 0):g} s)")
     y = doc.get("yardstick")
     if y:
-        text = f"yardstick {y['seconds'] * 1e3:.3f} ms"
-        if y.get("ratio"):
-            text += f" ({_percent(y['ratio'])} against the baseline's: the machine's speed change, corrected for)"
-        parts.append(text)
+        parts.append(yardstick_text(y))
     if doc.get("commit"):
         parts.append(f"commit `{doc['commit']}`")
     return " · ".join(parts)
+
+
+def yardstick_text(y: dict[str, Any]) -> str:
+    """Return the yardstick's figure in the statistic its percentage is computed from, e.g.
+    ``yardstick p10 0.889 ms (-2.1% against the baseline's p10 0.908 ms: ...)``; the median when
+    nothing was compared."""
+    statistic = y.get("ratio_statistic") or "median"
+    key = "seconds_p10" if statistic == "p10" and y.get("seconds_p10") is not None else "seconds"
+    name = "p10" if key == "seconds_p10" else "median"
+    text = f"yardstick {name} {y[key] * 1e3:.3f} ms"
+    if y.get("ratio"):
+        base = f" {name} {y['baseline_seconds'] * 1e3:.3f} ms" if y.get("baseline_seconds") else ""
+        text += (f" ({_percent(y['ratio'])} against the baseline's{base}: the machine's speed change, "
+                 f"corrected for)")
+    return text
+
+
+def _verdict_word(row: dict[str, Any]) -> str:
+    """Return the row's verdict as shown: ``same (inconclusive)`` where :func:`is_inconclusive`;
+    an accuracy regression names its timing verdict apart (``accuracy; timing same``)."""
+    verdict = row.get("verdict")
+    if verdict == "accuracy":
+        timing = row.get("timing_verdict")
+        return "accuracy" + (f"; timing {timing}" if timing else "")
+    return str(verdict) + (" (inconclusive)" if is_inconclusive(row) else "")
 
 
 def _verdict_cell(row: dict[str, Any]) -> str:
@@ -123,7 +180,7 @@ def _verdict_cell(row: dict[str, Any]) -> str:
         return "recorded"
     if verdict in ("slower", "accuracy"):
         return f"**{verdict}**"
-    return verdict + ("" if row.get("conclusive") in (True, None) else " (inconclusive)")
+    return _verdict_word(row)
 
 
 def markdown_summary(doc: dict[str, Any]) -> str:
@@ -167,7 +224,7 @@ def markdown_summary(doc: dict[str, Any]) -> str:
     messages = [(r, r["message"]) for r in rows if r.get("message")]
     if messages:
         lines += ["", "Notes on cases:", ""]
-        lines += [f"- {r['backend']} {_case_label(r)} ({r.get('status')}): {m}" for r, m in messages]
+        lines += [f"- {r['backend']} {_case_label(r)} ({r.get('status')}): {short(m, 400)}" for r, m in messages]
     notes = doc.get("notes") or []
     if notes:
         lines += ["", "Run notes:", ""] + [f"- {n}" for n in notes]
@@ -240,16 +297,15 @@ def summary_text(doc: dict[str, Any]) -> str:
         lines.append(f"WARNING: {warning}")
     for r in doc.get("rows") or []:
         if r.get("status") != "ok":
-            lines.append(f"  {r['backend']:<22} {_case_label(r):<26} {r.get('status')}: {r.get('message', '')}")
+            lines.append(f"  {r['backend']:<22} {_case_label(r):<26} {r.get('status')}: {short(r.get('message', ''))}")
         elif r.get("verdict") is None:
             lines.append(f"  {r['backend']:<22} {_case_label(r):<26} median {_num(r.get('seconds'))} s "
                          f"({r.get('samples', 0)} samples)")
         else:
             lines.append(f"  {r['backend']:<22} {_case_label(r):<26} {_num(r.get('ratio')):>7} "
                          f"[{_num(r.get('ratio_low'))}, {_num(r.get('ratio_high'))}] {_percent(r.get('ratio')):>7} "
-                         f"p(Holm) {_p(r.get('p_holm')):>7}  {r.get('verdict')}"
-                         + ("" if r.get("conclusive") in (True, None) else " (inconclusive)")
-                         + (f"  [{r['message']}]" if r.get("message") else ""))
+                         f"p(Holm) {_p(r.get('p_holm')):>7}  {_verdict_word(r)}"
+                         + (f"  [{short(r['message'])}]" if r.get("message") else ""))
     return "\n".join(lines)
 
 

@@ -131,6 +131,7 @@ def new_doc(req: GateRequest) -> dict[str, Any]:
     s = req.settings
     extra = {
         "mode": req.mode, "regressed": False, "outcome": "incomplete", "complete": False,
+        "inconclusive_policy": s.inconclusive,
         "threshold": s.threshold, "alpha": s.alpha, "confidence": s.confidence, "budget_seconds": s.budget_seconds,
         "threads": req.threads, "pinned_cpus": list(req.cpus) if req.cpus else None,
         "request": {"old": req.old_spec, "new": req.new_spec, "backends": list(req.specs),
@@ -177,6 +178,7 @@ def gate_row(it: GateItem, settings: GateSettings) -> GateRow:
         fields.update(ab_ratio=ab.ratio, ab_ratio_low=ab.ratio_low, ab_ratio_high=ab.ratio_high)
     if it.accuracy is not None:
         fields.update({key: acc.get(key) for key in ("eps_units", "baseline_eps_units", "bound_eps_units")})
+        fields["accuracy_detail"] = acc.get("detail")
         for key in ("battery_failures", "new_battery_failures"):
             fields[key] = None if acc.get(key) is None else tuple(acc[key])
     verdict = it.verdict if ok else None

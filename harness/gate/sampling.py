@@ -16,7 +16,10 @@ Child side (job functions the worker runs; see :mod:`fftgauge.harness.execution.
 - :func:`prepare_case` plans the case once, prepares the input (the timing runner's seeded
   input, purpose ``"time"``), warms up, picks ``loops`` with the timer's autorange (samples
   of about 1 ms, :data:`fftgauge.harness.timing.clock.TARGET_SAMPLE_SECONDS`) and measures the loop's
-  own cost per call with the null plan (as the timer does). The plan is cached in a
+  own cost per call with the empty loop, exactly what the timer subtracts (until version
+  0.2.0 the gate subtracted a null plan's call as well, some 20 ns per call more than
+  ``fftgauge time``, so a gate run read a little faster than the ``time`` file it was
+  compared with). The plan is cached in a
   module-level dict of the child, keyed by case and seed, so every later block of the case
   reuses it; a fresh child (after a crash) plans again on its first block.
 - :func:`sample_block` runs one untimed call (the other side's process ran in between and
@@ -40,7 +43,7 @@ from fftgauge.harness.execution import jobs
 from fftgauge.harness.cases import Case
 from fftgauge.harness.errors import BackendFailure, UnsupportedCase, UsageError
 
-#: Null-plan samples taken at preparation to measure the loop's own cost per call.
+#: Empty-loop samples taken at preparation to measure the loop's own cost per call.
 OVERHEAD_SAMPLES = 9
 
 _PREPARED: dict[tuple, "_Prepared"] = {}
@@ -79,9 +82,8 @@ def _prepared(backend: Any, case_fields: tuple, seed: int, threads: int | None) 
     key = (tuple(case_fields), seed)
     if key in _PREPARED:
         return _PREPARED[key]
-    from fftgauge.backends.null import NullPlan
     from fftgauge.harness.battery.inputs import case_rng, random_input
-    from fftgauge.harness.timing.clock import autorange, gc_paused, time_loops, warm_up
+    from fftgauge.harness.timing.clock import autorange, gc_paused, time_empty_loop, warm_up
 
     case = Case(*case_fields)
     reason = backend.unsupported_reason(case)
@@ -94,15 +96,14 @@ def _prepared(backend: Any, case_fields: tuple, seed: int, threads: int | None) 
     plan_seconds = time.perf_counter() - start
     try:
         x_in = plan.prepare(np.array(x, copy=True))
-        null_execute = NullPlan(case).execute
         with gc_paused():
             warm_up(plan.execute, x_in)
             loops = autorange(plan.execute, x_in)
-            null_ns = [time_loops(null_execute, x_in, loops) for _ in range(OVERHEAD_SAMPLES)]
+            empty_ns = [time_empty_loop(loops) for _ in range(OVERHEAD_SAMPLES)]
     except BaseException:
         plan.close()
         raise
-    prepared = _Prepared(plan, x_in, loops, float(np.median(null_ns)) / loops * 1e-9, plan_seconds)
+    prepared = _Prepared(plan, x_in, loops, float(np.median(empty_ns)) / loops * 1e-9, plan_seconds)
     _PREPARED[key] = prepared
     return prepared
 
@@ -131,7 +132,7 @@ def sample_block(backend: Any, case_fields: tuple, loops: int | None, count: int
     """Worker job: take ``count`` samples of ``loops`` calls of the case's plan; return seconds per call.
 
     ``loops`` None uses the loops :func:`prepare_case` chose in this child. Each sample's time
-    has the loop's own cost per call (null plan, measured at preparation) subtracted.
+    has the loop's own cost per call (the empty loop, measured at preparation) subtracted.
 
     Raises
     ------
