@@ -349,3 +349,23 @@ def test_an_interruption_stops_dispatch_and_kills_the_lanes_workers_without_wait
     assert isinstance(stop, KeyboardInterrupt)
     assert queue.stopped and queue.next(None) is None
     assert all(lane.killed.is_set() for lane in lanes) and spare["s"].aborted
+
+
+# -- kinds a backend never claimed ---------------------------------------------------------------
+
+SAMPLE_ADAPTERS = __import__("pathlib").Path(__file__).parent / "data" / "sample_adapters.py"
+
+
+@pytest.mark.timeout(300)
+def test_a_kind_the_backend_never_claimed_makes_no_row_unless_asked_for():
+    """A plain callable computes fft only: a run that names no kinds has rows of fft alone;
+    one that asks for rfft gets that case's skip row saying why."""
+    spec = f"{SAMPLE_ADAPTERS}:numpy_forward"
+    plain = battery.run_battery(battery.BatteryRequest(specs=(spec,), kinds=None, dtypes=("float64",),
+                                                       sizes=(8,), seed=2), quiet=True)["rows"]
+    assert plain and {r["kind"] for r in plain} == {"fft"}
+    asked = battery.run_battery(battery.BatteryRequest(specs=(spec,), kinds=("fft", "rfft"), dtypes=("float64",),
+                                                       sizes=(8,), seed=2), quiet=True)["rows"]
+    rfft = [r for r in asked if r["kind"] == "rfft"]
+    assert [(r["status"], r["check"]) for r in rfft] == [("skip", battery.SKIPPED_CASE_CHECK)]
+    assert "does not compute rfft" in rfft[0]["message"]

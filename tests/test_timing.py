@@ -395,3 +395,19 @@ def test_runner_rounds_interleave_cases_and_write_each_row_once(tmp_path):
     assert doc["request"]["rounds"] == 3
     assert sorted((r["backend"], r["n"]) for r in rows) == sorted(
         (b, n) for b in ("busywait[seconds=0.0001]", "null") for n in (16, 32, 64))
+
+
+def test_runner_makes_no_row_for_a_kind_the_backend_never_claimed(tmp_path):
+    """A plain callable computes fft only: ``time`` without --kinds has fft rows alone; with
+    --kinds fft,rfft the rfft case is a skip row saying why."""
+    from pathlib import Path
+
+    from fftgauge.harness.timing.runner import TimingRequest, run_timing
+
+    spec = f"{Path(__file__).parent / 'data' / 'sample_adapters.py'}:numpy_forward"
+    base = dict(specs=(spec,), dtypes=("float64",), sizes=(16,), samples=3, measure_memory=False, rounds=1)
+    plain = run_timing(TimingRequest(kinds=None, **base))["rows"]
+    assert [(r["kind"], r["status"]) for r in plain] == [("fft", "ok")]
+    asked = run_timing(TimingRequest(kinds=("fft", "rfft"), **base))["rows"]
+    assert [(r["kind"], r["status"]) for r in asked] == [("fft", "ok"), ("rfft", "skip")]
+    assert "does not compute rfft" in asked[1]["message"]

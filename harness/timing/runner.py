@@ -142,7 +142,8 @@ def _run_timing_pinned(req: TimingRequest, json_path: str | None, quiet: bool,
                         "cold_cache": req.cold_cache, "rounds": req.rounds},
         }))
         writer = ResultsWriter(json_path, doc)
-        progress = Progress(total=len(cases) * len(req.specs), quiet=quiet, desc="timing")
+        progress = Progress(total=sum(not unclaimed_kind(req, claims[s], c) for s in req.specs for c in cases),
+                            quiet=quiet, desc="timing")
         order = random.Random(req.seed)
         finished = False
         try:
@@ -161,6 +162,12 @@ def _run_timing_pinned(req: TimingRequest, json_path: str | None, quiet: bool,
     return doc
 
 
+def unclaimed_kind(req: Any, claims: Any, case: Case) -> bool:
+    """Return True when ``case`` is of a kind the backend never claimed in a run that did not
+    name its kinds (``req.kinds`` None): such a case is no finding, it makes no row."""
+    return req.kinds is None and not claims.claims_kind(case.kind)
+
+
 def _time_window(window: list[int], cases: list[Case], claims: dict[str, Any], workers: dict[str, Any],
                  req: TimingRequest, order: random.Random, writer: Any, progress: Any) -> None:
     """Time the cases of ``window`` (indices into ``cases``) on every backend, round after round;
@@ -169,6 +176,8 @@ def _time_window(window: list[int], cases: list[Case], claims: dict[str, Any], w
     for index in window:
         for spec in req.specs:
             label, reason = claims[spec].label, claims[spec].reasons[index]
+            if unclaimed_kind(req, claims[spec], cases[index]):
+                continue
             if reason is not None:
                 writer.add([placeholder_row(label, cases[index], req.threads, "skip", reason)])
                 progress.advance(note=f"{label} {cases[index].label()}")
