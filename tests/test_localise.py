@@ -209,6 +209,15 @@ def test_an_aliased_output_is_not_thread_unsafe():
     assert rows["concurrent"].status == "fail"  # 20 ms between writing and returning: threads overwrite
 
 
+def test_a_shared_scratch_buffer_behind_fresh_outputs_stays_thread_unsafe():
+    """tests/data/broken_ffts.py:shared_scratch_fft returns a new array each call (its race is in
+    the input scratch): it keeps thread-unsafe, and its kept results do not change."""
+    b = load_backend(f"{DATA.parent / 'broken_ffts.py'}:shared_scratch_fft")
+    rows = {r.check: r for r in check_case(b, Case("fft", "float64", 256), 4, ["repeatable", "concurrent"])}
+    assert rows["repeatable"].status == "pass"
+    assert (rows["concurrent"].status, rows["concurrent"].diagnosis) == ("fail", "thread-unsafe")
+
+
 @pytest.mark.parametrize("spec", ["numpy", "scipy", "pyfftw", "radix2-dit"])
 def test_library_backends_are_not_aliased_and_get_no_localisation(spec):
     try:
@@ -218,3 +227,32 @@ def test_library_backends_are_not_aliased_and_get_no_localisation(spec):
     rows = check_case(b, Case("fft", "float64", 64), 1, ["accuracy", "repeatable"])
     assert [r.status for r in rows] == ["pass", "pass"]
     assert size_patterns([r.as_dict() for r in rows]) == []
+
+
+# -- through the battery: the JSON field, the terminal summary, the findings ------------------------
+
+def test_a_battery_run_carries_the_size_patterns_in_the_json_and_the_summary():
+    from fftgauge.harness.battery import run as battery
+    from fftgauge.harness.report.check_tables import format_summary, rows_frame
+    from fftgauge.harness.report.findings import findings
+
+    specs = tuple(f"{DATA}:{name}" for name in ("radix3_pass", "bluestein_padding", "large_path", "no_rule")) + \
+        ("numpy",)
+    sizes = tuple(range(2, 17)) + (22, 39, 56, 61, 67, 97, 101, 128, 4093, 4096, 5000)
+    req = battery.BatteryRequest(specs=specs, kinds=("fft",), dtypes=("float32",), sizes=sizes)
+    doc = battery.run_battery(req, quiet=True)
+    rules = {p["backend"].split(":")[-1]: p for p in doc["size_patterns"]}
+    assert set(rules) == {"radix3_pass", "bluestein_padding", "large_path", "no_rule"}  # numpy passes: none
+    assert rules["radix3_pass"]["rule"] == "divisible-by-3"
+    assert rules["bluestein_padding"]["rule"] == "prime-above"
+    assert rules["bluestein_padding"]["failing_sizes"] == [67, 97, 101, 4093]
+    assert rules["large_path"]["rule"] == "above" and rules["large_path"]["failing_sizes"] == [4096, 5000]
+    assert rules["no_rule"]["rule"] is None and rules["no_rule"]["failing_sizes"] == list(bugs.NO_RULE_SIZES)
+    text = format_summary(rows_frame(doc["rows"]))
+    assert "look at the radix-3 pass" in text and "no size rule fits" in text
+    assert "numpy · fft" not in text.split("size patterns")[1]
+    sentences = " ".join(f.sentence() for f in findings(doc["rows"]))
+    assert "Sizes: fft float32: the 4 failing sizes are exactly those with n prime and n > 61" in sentences
+    bluestein = [r for r in doc["rows"] if r["backend"].endswith("bluestein_padding") and r["check"] == "accuracy"
+                 and r["status"] == "fail"]
+    assert bluestein and all(r["diagnosis"] == "localised" for r in bluestein)

@@ -152,8 +152,8 @@ def infer_rule(failing: Iterable[int], passing: Iterable[int]) -> dict[str, Any]
     fits.sort(key=lambda r: r.cost)
     best = fits[0]
     also = [r.words for r in fits[1:] if r.cost <= best.cost + ALSO_SLACK][:ALSO_LISTED]
-    where = ("every" if len(failing) > 1 else "the one") + f" failing size ({len(failing)})"
-    sentence = (f"fails at {where}, {best.words}, and at none of the {len(passing)} passing sizes: "
+    count = f"the {len(failing)} failing sizes are" if len(failing) > 1 else "the one failing size is"
+    sentence = (f"{count} exactly those with {best.words} among the {len(failing) + len(passing)} that ran: "
                 f"look at {best.suggests}")
     if also:
         sentence += f" (also consistent: {'; '.join(also)})"

@@ -66,6 +66,8 @@ class Finding:
     sizes: tuple[int, ...]
     cases: int
     worst: Mapping[str, Any]
+    #: The size patterns of the panels it covers (harness/battery/size_patterns.py), one sentence each.
+    size_rules: tuple[str, ...] = ()
 
     @property
     def could_not_run(self) -> bool:
@@ -99,7 +101,7 @@ class Finding:
         return (f"{self.backend} ({', '.join(self.panels)}): {what}, seen by {checks} at "
                 f"n = {compress_sizes(self.sizes, limit=10**6)} ({self.cases} case{plural}). "
                 f"{worst.get('check')}, {worst.get('kind')} {worst.get('dtype')} n = {worst.get('n')}: "
-                f"{message or 'no message'}.")
+                f"{message or 'no message'}." + "".join(f" Sizes: {rule}." for rule in self.size_rules))
 
 
 def _error_kind(message: Any) -> str:
@@ -122,6 +124,9 @@ def findings(rows: Iterable[Mapping[str, Any]]) -> list[Finding]:
         else:
             continue
         groups.setdefault(key, []).append(row)
+    from fftgauge.harness.battery.size_patterns import size_patterns
+
+    patterns = {(p["backend"], p["kind"], p["dtype"], p["norm"]): p for p in size_patterns(rows)}
     out = []
     for (_, backend, cause, _), members in sorted(groups.items(), key=lambda kv: kv[0]):
         accuracy = [r for r in members if r.get("check") == "accuracy"]
@@ -130,8 +135,17 @@ def findings(rows: Iterable[Mapping[str, Any]]) -> list[Finding]:
             backend=backend, cause=cause, checks=tuple(dict.fromkeys(str(r.get("check")) for r in members)),
             panels=tuple(dict.fromkeys(f"{r['kind']} {r['dtype']}" for r in members)),
             sizes=tuple(sorted({int(r["n"]) for r in members})),
-            cases=len({(r["kind"], r["dtype"], r.get("norm") or "backward", r["n"]) for r in members}), worst=worst))
+            cases=len({(r["kind"], r["dtype"], r.get("norm") or "backward", r["n"]) for r in members}), worst=worst,
+            size_rules=_size_rules(patterns, backend, members) if cause != "error" else ()))
     return out
+
+
+def _size_rules(patterns: Mapping[tuple, Mapping[str, Any]], backend: str,
+                members: list[Mapping[str, Any]]) -> tuple[str, ...]:
+    """Return the size-pattern sentences (with their panel) of the panels ``members`` cover."""
+    panels = dict.fromkeys((r["kind"], r["dtype"], r.get("norm") or "backward") for r in members)
+    found = [patterns.get((backend, *panel)) for panel in panels]
+    return tuple(f"{p['kind']} {p['dtype']}: {p['sentence']}" for p in found if p is not None and p["rule"])
 
 
 def case_counts(rows: Iterable[Mapping[str, Any]]) -> dict[str, int]:
