@@ -369,3 +369,58 @@ def test_a_kind_the_backend_never_claimed_makes_no_row_unless_asked_for():
     rfft = [r for r in asked if r["kind"] == "rfft"]
     assert [(r["status"], r["check"]) for r in rfft] == [("skip", battery.SKIPPED_CASE_CHECK)]
     assert "does not compute rfft" in rfft[0]["message"]
+
+
+# -- processes a backend leaves running --------------------------------------------------------
+
+@pytest.mark.timeout(300)
+def test_a_case_whose_backend_left_processes_running_gets_an_error_row_saying_how_many():
+    """tests/data/misbehaving.py's sleeper starts ``sleep`` on every call and returns the right
+    transform: the case's checks pass, one ``error`` row of check ``all`` says how many
+    processes it left running, and none is running after the run (counted with psutil)."""
+    import re
+    import time
+
+    leftover_sleep = "987.654"  # tests/data/misbehaving.py: LEFTOVER_SLEEP
+
+    def sleepers() -> set[int]:
+        return {p.pid for p in psutil.process_iter(["cmdline", "status"])
+                if p.info["cmdline"] == ["sleep", leftover_sleep] and p.info["status"] != psutil.STATUS_ZOMBIE}
+
+    before = sleepers()
+    spec = f"{SAMPLE_ADAPTERS.parent / 'misbehaving.py'}:sleeper_fft"
+    req = battery.BatteryRequest(specs=(spec,), kinds=("fft",), dtypes=("float64",), sizes=(8,), seed=4)
+    rows = battery.run_battery(req, quiet=True)["rows"]
+    left = [r for r in rows if r["check"] == battery.SKIPPED_CASE_CHECK]
+    assert [r["status"] for r in left] == ["error"], rows
+    count = int(re.fullmatch(r"the case's checks ran, but it left (\d+) process(es)? running "
+                             r"\(ended with its worker\)", left[0]["message"]).group(1))
+    assert count >= 1
+    assert any(r["check"] == "accuracy" and r["status"] == "pass" for r in rows)
+    deadline = time.monotonic() + 5
+    while sleepers() - before and time.monotonic() < deadline:
+        time.sleep(0.05)
+    assert not sleepers() - before
+
+
+@pytest.mark.timeout(300)
+def test_the_battery_shares_the_default_memory_cap_between_its_lanes(monkeypatch):
+    """Every worker the battery starts is told how many run at once (one per core), so the
+    default cap (limits.default_memory_limit_bytes) is divided between them."""
+    import os
+
+    from fftgauge.harness.execution import worker as worker_module
+    from fftgauge.harness.execution.limits import default_memory_limit_bytes
+
+    caps = []
+
+    class Recording(worker_module.Worker):
+        def __init__(self, *args, **kwargs):
+            super().__init__(*args, **kwargs)
+            caps.append((kwargs.get("concurrency"), self.memory_limit_bytes))
+
+    monkeypatch.setattr(worker_module, "Worker", Recording)
+    req = battery.BatteryRequest(specs=("numpy", "radix2-dit"), kinds=("fft",), dtypes=("float64",), sizes=(8,), seed=1)
+    battery.run_battery(req, quiet=True)
+    parallel = max(1, os.cpu_count() or 1)
+    assert caps and all(c == parallel and cap == default_memory_limit_bytes(parallel) for c, cap in caps), caps

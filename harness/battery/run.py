@@ -131,8 +131,10 @@ class _Lane:
     process at a time. ``spare_workers`` (SPEC -> describing worker) is shared by the lanes,
     under ``lock``; the first lane to reach a backend takes its describing worker."""
 
-    def __init__(self, spare_workers: dict[str, Any], lock: threading.Lock, req: BatteryRequest):
+    def __init__(self, spare_workers: dict[str, Any], lock: threading.Lock, req: BatteryRequest, lanes: int = 1):
         self._spare, self._lock, self._req = spare_workers, lock, req
+        #: How many lanes run at once (their workers share the default memory cap).
+        self.lanes = lanes
         #: The SPEC of the backend the lane's worker runs (None before the first batch).
         self.spec: str | None = None
         self._worker: Any = None
@@ -145,7 +147,7 @@ class _Lane:
             self.close()
             with self._lock:
                 self._worker = self._spare.pop(spec, None)
-            self._worker = self._worker or Worker(spec, threads=self._req.threads)
+            self._worker = self._worker or Worker(spec, threads=self._req.threads, concurrency=self.lanes)
             self.spec = spec
         return self._worker
 
@@ -226,10 +228,23 @@ def _run_lane(lane: _Lane, batches: BatchQueue, cases: list[Case], req: BatteryR
                     if batches.stopped:  # killed because the run is stopping: the case did not finish
                         return
                     rows = [row.as_dict() for row in error_rows(batch.label, case, names, str(exc))]
-                sink.add(apply_limits(rows, req.limits, getattr(batch.capabilities, "conventions", None)))
+                sink.add(apply_limits(rows, req.limits, getattr(batch.capabilities, "conventions", None))
+                         + leftover_rows(batch.label, case, worker.left_running))
                 progress.advance(note=f"{batch.label} {case.label()}")
     finally:
         lane.close()
+
+
+def leftover_rows(label: str, case: Case, count: int) -> list[dict]:
+    """Return the row for a case whose job left ``count`` processes running (none when 0): an
+    ``error`` row of check :data:`SKIPPED_CASE_CHECK` beside the case's own rows, saying so
+    (:func:`~fftgauge.harness.execution.crash.leftover_text`; the worker ended them)."""
+    from fftgauge.harness.execution.crash import leftover_text
+
+    if count <= 0:
+        return []
+    message = f"the case's checks ran, but {leftover_text(count)}"
+    return [row.as_dict() for row in error_rows(label, case, [SKIPPED_CASE_CHECK], message)]
 
 
 def _describe_all(workers: dict[str, Any], req: BatteryRequest, cases: list[Case],
@@ -343,7 +358,7 @@ def run_battery(req: BatteryRequest, json_path: str | None = None, quiet: bool =
     kinds = req.kinds or ("fft", "ifft", "rfft", "irfft")
     cases = build_cases(req, kinds)
     parallel = max(1, os.cpu_count() or 1)
-    workers = {spec: Worker(spec, threads=req.threads) for spec in req.specs}
+    workers = {spec: Worker(spec, threads=req.threads, concurrency=parallel) for spec in req.specs}
     try:
         claims = _describe_all(workers, req, cases, parallel)
         require_unique_labels({spec: claims[spec].label for spec in req.specs})
@@ -359,7 +374,8 @@ def run_battery(req: BatteryRequest, json_path: str | None = None, quiet: bool =
         batches = BatchQueue(req, claims, cases)
         progress = Progress(total=batches.total_cases, quiet=quiet)
         spare_lock = threading.Lock()
-        lanes = [_Lane(workers, spare_lock, req) for _ in range(min(parallel, max(1, batches.total_batches)))]
+        lane_count = min(parallel, max(1, batches.total_batches))
+        lanes = [_Lane(workers, spare_lock, req, lane_count) for _ in range(lane_count)]
         sink = RowSink(writer)
         stop: KeyboardInterrupt | None = None
         try:
