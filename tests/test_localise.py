@@ -198,6 +198,17 @@ def test_radix3_and_odd_real_bugs_fail_through_the_battery_with_their_codes():
     assert check_case(odd, Case("rfft", "float64", 32), 1, ["accuracy"])[0].status == "pass"
 
 
+def test_a_real_input_fast_path_is_found_on_the_real_inputs():
+    """Right on random complex inputs, wrong on real ones: the checks with real inputs name
+    the wrong half of the spectrum and the real input."""
+    b = load_backend(f"{DATA}:real_fast_path")
+    rows = {r.check: r for r in check_case(b, Case("fft", "float64", 64), 1, ["accuracy", "symmetry"])}
+    assert rows["accuracy"].status == "pass"  # complex inputs
+    sym = rows["symmetry"]
+    assert (sym.status, sym.diagnosis) == ("fail", "localised")
+    assert "upper half of the spectrum" in sym.message and "real-input fast path" in sym.message
+
+
 # -- output aliasing ----------------------------------------------------------------------------------
 
 def test_an_aliased_output_is_not_thread_unsafe():

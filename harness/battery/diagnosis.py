@@ -39,8 +39,8 @@ shifted         output equals the exact transform circularly shifted by s bins
 real-only       output equals the transform of the real part of the input
 overflow        (tested before the candidates) only the outputs of largest magnitude are
                 wrong, some with the sign flipped: a fixed-point sum wrapped around
-localised       (after the candidates) the error sits in a few output bins, the rest are
-                right: one wrong twiddle or butterfly (:mod:`~fftgauge.harness.battery.localise`
+localised       (after the candidates) the error sits in a few output bins (or one half of
+                the spectrum), the rest are right: one wrong twiddle or butterfly (:mod:`~fftgauge.harness.battery.localise`
                 names the bins and, for a power of two, the radix-2 stage); never ``precision``
 time-shifted    every bin off by a phase growing linearly with k: the input delayed by d
                 samples, d possibly fractional (DFT shift theorem)
@@ -370,8 +370,10 @@ def diagnose(case: Case, x: np.ndarray, y: Any, reference_fn: ReferenceFn | None
         return "dtype", (f"output has dtype {y.dtype}, lower precision than the {case.output_dtype} asked for; "
                          f"relative rms error {units:.3g} eps")
     found = localise_error(case, truth, y128)
-    if found.kind == "bins":
-        return "localised", f"relative rms error {units:.3g} eps, not rounding: {found.words}"
+    if found.kind in ("bins", "half"):
+        real = (" (this input is real: if complex inputs are right, look at a real-input fast path)"
+                if case.kind in ("fft", "ifft") and x.dtype.kind == "c" and not np.any(x.imag) else "")
+        return "localised", f"relative rms error {units:.3g} eps, not rounding: {found.words}{real}"
     if found.kind == "phase-ramp":
         return "time-shifted", f"relative rms error {units:.3g} eps: {found.words}"
     level = _precision_level(case, err, limit)

@@ -20,6 +20,9 @@
     the output is the transform of the input delayed by d samples, which may be fractional
     (the DFT shift theorem: a delay of d multiplies X[k] by exp(-2j pi k d / N); Oppenheim &
     Schafer, 3rd ed., Table 8.2). The words give the estimated d.
+``half``
+    (fft, ifft) the error lives in one half of the spectrum, the other half right: the half a
+    real-input path derives by Hermitian symmetry.
 ``spread``
     the error is spread over the bins with no structure found: rounding (a lower precision)
     or nondeterminism, not one wrong line of code.
@@ -54,7 +57,7 @@ BINS_SHOWN = 8
 
 @dataclass(frozen=True)
 class Localisation:
-    """Where an error lives: ``kind`` (``bins``, ``phase-ramp``, ``spread``), the ``bins`` it
+    """Where an error lives: ``kind`` (``bins``, ``half``, ``phase-ramp``, ``spread``), the ``bins`` it
     is concentrated in (natural order; empty unless ``bins``), the estimated ``shift_samples``
     (``phase-ramp`` only), the radix-2 ``stage`` (1 = the first, log2 N = the last; None
     when not found) and the plain ``words``."""
@@ -194,6 +197,27 @@ def phase_ramp(case: Case, truth: np.ndarray, y: np.ndarray) -> float | None:
     return best[0]
 
 
+def upper_half(case: Case, err: np.ndarray) -> str | None:
+    """Return the account of an fft/ifft error that lives in one half of the spectrum only
+    (:data:`CONCENTRATED_SHARE` of its energy in k > N/2, or in 0 < k < N/2), else None: the
+    half a real-input path builds from the other by the symmetry X[N-k] = conj X[k]."""
+    n = case.n
+    if case.kind not in ("fft", "ifft") or n < 8:
+        return None
+    energy = np.abs(err) ** 2
+    total = float(np.sum(energy))
+    if not total > 0:
+        return None
+    k = np.arange(n)
+    for name, mask in (("upper", k > n // 2), ("lower", (k > 0) & (k < (n + 1) // 2))):
+        if float(np.sum(energy[mask])) >= CONCENTRATED_SHARE * total:
+            other = "0 < k < N/2" if name == "upper" else "k > N/2"
+            return (f"the error lives in the {name} half of the spectrum only ({name} bins wrong, {other} right): "
+                    f"the half a real-input path builds from the other by X[N-k] = conj X[k] (a missing "
+                    f"conjugate or an index off by one there)")
+    return None
+
+
 def localise_error(case: Case, truth: np.ndarray, y: np.ndarray) -> Localisation:
     """Return where the error ``y - truth`` lives (``truth`` the exact transform, both complex
     arrays of the output length; see the module docstring for the three kinds).
@@ -210,6 +234,9 @@ def localise_error(case: Case, truth: np.ndarray, y: np.ndarray) -> Localisation
     if bins is not None:
         words, stage = _bins_words(bins, case, length)
         return Localisation("bins", words, bins=bins, stage=stage)
+    half = upper_half(case, err)
+    if half is not None:
+        return Localisation("half", half)
     d = phase_ramp(case, truth, y)
     if d is not None:
         sign = "delayed" if d > 0 else "advanced"

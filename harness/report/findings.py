@@ -32,7 +32,8 @@ DIAGNOSIS_MEANINGS = {
     "thread-unsafe": "results differ when the backend is called from several threads at once",
     "overflow": "only the largest outputs are wrong, some with their sign flipped: a fixed-point sum wrapped around",
     "user-limit": "within the built-in bound but above the user's own limit (--limit, --limits)",
-    "localised": "wrong in a few output bins only, the rest right: one wrong twiddle factor or butterfly, not rounding",
+    "localised": "wrong in a few output bins (or one half of the spectrum) only, the rest right: one wrong twiddle, "
+                 "butterfly or symmetry step, not rounding",
     "time-shifted": "every bin off by a phase growing linearly with k: the input delayed by d samples (d may be fractional)",
     "output-aliased": "the array returned is the function's own buffer: the caller's previous result changes on the next call",
     "unknown": "wrong, and none of the known bugs explains it",

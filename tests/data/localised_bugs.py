@@ -150,3 +150,19 @@ def aliased_output_slow(x):
     out[:] = np.fft.fft(x)
     time.sleep(0.02)
     return out
+
+
+def real_fast_path(x):
+    """numpy.fft for complex inputs; for an input whose imaginary part is zero a "fast path"
+    that builds the upper half from the lower one without conjugating (X[N-k] = X[k])."""
+    x = np.asarray(x)
+    n = x.shape[0]
+    out_dtype = x.dtype if x.dtype.kind == "c" else np.complex128
+    if x.dtype.kind == "c" and np.any(x.imag != 0):
+        return np.fft.fft(x).astype(out_dtype)
+    half = np.fft.rfft(np.real(x))
+    out = np.empty(n, np.complex128)
+    out[: half.shape[0]] = half
+    k = np.arange(half.shape[0], n)
+    out[k] = half[n - k]  # the bug: conj(half[n - k])
+    return out.astype(out_dtype)
