@@ -149,6 +149,21 @@ def test_an_error_in_one_stage_is_named_with_its_bit_reversed_block():
     assert "radix-2 stage 5" in found.words and "bit-reversed positions" in found.words
 
 
+def test_a_wrong_twiddle_of_the_first_dif_stage_is_named_by_its_bit_reversed_block():
+    """Decimation in frequency: stage 1's twiddles feed the size-N/2 sub-transform of the odd
+    bins, whose outputs are the second half in bit-reversed order; checked bin by bin."""
+    n = 64
+    case = Case("fft", "float64", n)
+    x = _input(n)
+    y = bugs.radix2_dif_twiddle(x)
+    truth = _exact(x)
+    wrong = np.flatnonzero(np.abs(y - truth) > 1e-9 * np.abs(truth).max())
+    assert set(wrong) <= set(range(1, n, 2)) and len(wrong) > n // 4
+    code, message = diag.diagnose(case, x, y)
+    assert code == "localised"
+    assert "k = 1 (mod 2)" in message and "block 32..63" in message and "after stage 1" in message
+
+
 def test_bluestein_padding_bug_is_localised_not_float16():
     case = Case("fft", "float32", 101)
     x = _input(101, np.complex64)

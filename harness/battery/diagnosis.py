@@ -370,7 +370,7 @@ def diagnose(case: Case, x: np.ndarray, y: Any, reference_fn: ReferenceFn | None
         return "dtype", (f"output has dtype {y.dtype}, lower precision than the {case.output_dtype} asked for; "
                          f"relative rms error {units:.3g} eps")
     found = localise_error(case, truth, y128)
-    if found.kind in ("bins", "half"):
+    if found.kind in ("bins", "residue", "half"):
         real = (" (this input is real: if complex inputs are right, look at a real-input fast path)"
                 if case.kind in ("fft", "ifft") and x.dtype.kind == "c" and not np.any(x.imag) else "")
         return "localised", f"relative rms error {units:.3g} eps, not rounding: {found.words}{real}"

@@ -20,6 +20,9 @@
     the output is the transform of the input delayed by d samples, which may be fractional
     (the DFT shift theorem: a delay of d multiplies X[k] by exp(-2j pi k d / N); Oppenheim &
     Schafer, 3rd ed., Table 8.2). The words give the estimated d.
+``residue``
+    (fft, ifft, a power of two N) the error lives in one class of bins k = j (mod P) of many
+    bins: one sub-transform of a decimation-in-frequency network (see :func:`residue_class`).
 ``half``
     (fft, ifft) the error lives in one half of the spectrum, the other half right: the half a
     real-input path derives by Hermitian symmetry.
@@ -57,7 +60,7 @@ BINS_SHOWN = 8
 
 @dataclass(frozen=True)
 class Localisation:
-    """Where an error lives: ``kind`` (``bins``, ``half``, ``phase-ramp``, ``spread``), the ``bins`` it
+    """Where an error lives: ``kind`` (``bins``, ``residue``, ``half``, ``phase-ramp``, ``spread``), the ``bins`` it
     is concentrated in (natural order; empty unless ``bins``), the estimated ``shift_samples``
     (``phase-ramp`` only), the radix-2 ``stage`` (1 = the first, log2 N = the last; None
     when not found) and the plain ``words``."""
@@ -197,6 +200,45 @@ def phase_ramp(case: Case, truth: np.ndarray, y: np.ndarray) -> float | None:
     return best[0]
 
 
+def residue_class(case: Case, err: np.ndarray) -> tuple[str, int] | None:
+    """Return ``(words, stage)`` when an fft/ifft error of a power-of-two N lives in one class
+    of bins k = j (mod P), P = 2^s < N (:data:`CONCENTRATED_SHARE` of its energy; the largest
+    such P), else None.
+
+    In bit-reversed order the class is one aligned block of N/P positions: the outputs of one
+    sub-transform of size N/P of a decimation-in-frequency FFT, whose input the first s
+    stages computed (a wrong twiddle of stage s, the last one before that sub-transform); in
+    decimation in time it is butterfly j of the stage merging sub-transforms of size P.
+    """
+    n = case.n
+    if case.kind not in ("fft", "ifft") or not is_power_of_two(n) or n < 4:
+        return None
+    energy = np.abs(err) ** 2
+    total = float(np.sum(energy))
+    if not total > 0:
+        return None
+    k = np.arange(n)
+    best = None
+    p = 2
+    while p < n:
+        per_class = np.bincount(k % p, weights=energy, minlength=p)
+        j = int(np.argmax(per_class))
+        if per_class[j] >= CONCENTRATED_SHARE * total:
+            best = (p, j)
+        p *= 2
+    if best is None:
+        return None
+    p, j = best
+    s = int(p).bit_length() - 1
+    perm = bit_reversal_permutation(n)
+    first = int(np.argsort(perm)[j])  # the bit-reversed position of bin j starts the block
+    words = (f"the error lives in the {n // p} bins k = {j} (mod {p}) only, the others are right; in bit-reversed "
+             f"order that is the block {first}..{first + n // p - 1}: in decimation in frequency the sub-transform of "
+             f"size {n // p} after stage {s} (a wrong twiddle of stage {s}), in decimation in time butterfly j = {j} "
+             f"of the stage merging sub-transforms of size {p} (stage {s + 1})")
+    return words, s
+
+
 def upper_half(case: Case, err: np.ndarray) -> str | None:
     """Return the account of an fft/ifft error that lives in one half of the spectrum only
     (:data:`CONCENTRATED_SHARE` of its energy in k > N/2, or in 0 < k < N/2), else None: the
@@ -220,7 +262,7 @@ def upper_half(case: Case, err: np.ndarray) -> str | None:
 
 def localise_error(case: Case, truth: np.ndarray, y: np.ndarray) -> Localisation:
     """Return where the error ``y - truth`` lives (``truth`` the exact transform, both complex
-    arrays of the output length; see the module docstring for the three kinds).
+    arrays of the output length; see the module docstring for the kinds).
 
     Never raises for arrays of the right length; ``y`` with NaN/Inf gives ``spread``.
     """
@@ -234,6 +276,10 @@ def localise_error(case: Case, truth: np.ndarray, y: np.ndarray) -> Localisation
     if bins is not None:
         words, stage = _bins_words(bins, case, length)
         return Localisation("bins", words, bins=bins, stage=stage)
+    found = residue_class(case, err)
+    if found is not None:
+        words, stage = found
+        return Localisation("residue", words, stage=stage)
     half = upper_half(case, err)
     if half is not None:
         return Localisation("half", half)

@@ -166,3 +166,26 @@ def real_fast_path(x):
     k = np.arange(half.shape[0], n)
     out[k] = half[n - k]  # the bug: conj(half[n - k])
     return out.astype(out_dtype)
+
+
+def radix2_dif_twiddle(x):
+    """Radix-2 decimation-in-frequency FFT (powers of two) whose first stage multiplies the
+    difference x[3] - x[3 + N/2] by W_N^4 in place of W_N^3 (one wrong twiddle of stage 1)."""
+    x = np.asarray(x)
+    n = x.shape[0]
+    a = x.astype(np.complex128).copy()
+    size, first = n, True
+    while size >= 2:
+        half = size // 2
+        j = np.arange(half)
+        if first and n >= 8:
+            j = j.copy()
+            j[3] = 4  # the bug
+        a = a.reshape(-1, size)
+        top, bottom = a[:, :half].copy(), a[:, half:].copy()
+        a[:, :half], a[:, half:] = top + bottom, (top - bottom) * _twiddles(size, j)
+        a = a.reshape(-1)
+        size, first = half, False
+    bits = n.bit_length() - 1
+    rev = np.array([int(format(i, f"0{bits}b")[::-1], 2) if bits else 0 for i in range(n)])
+    return a[rev].astype(x.dtype if x.dtype.kind == "c" else np.complex128)
