@@ -587,3 +587,25 @@ def test_accuracy_rows_are_one_short_line_and_keep_the_timing_apart():
            "ratio_high": 1.2, "p_holm": 0.5, "message": acc["message"]}
     line = summary_text({"mode": "ab", "rows": [row]}).splitlines()[-1]
     assert "accuracy; timing same" in line and "inconclusive" not in line and len(line) < 300, line
+
+
+def test_markdown_and_junit_escape_what_they_quote():
+    """A backend label with a table pipe, inline HTML and an ampersand, a message with a
+    control character: the Markdown shows them (CommonMark backslash escapes and entities), the
+    JUnit XML parses and holds the label unchanged in an attribute."""
+    from fftgauge.harness.gate.outputs import junit_classname, junit_xml, markdown_summary
+
+    label = 'a|b <img src=x onerror="alert(1)"> & c'
+    doc = {"mode": "ab", "outcome": "error", "threshold": 0.05, "old": {"spec": "numpy"}, "new": {"spec": label},
+           "warnings": ["<script>x</script>"], "notes": [], "rows": [
+               {"backend": label, "kind": "fft", "dtype": "float64", "n": 64, "status": "error", "verdict": None,
+                "message": "crashed \x07 with <b>bold</b> | pipe", "sampling_seconds": 0.0}]}
+    md = markdown_summary(doc)
+    assert "<img" not in md and "<script>" not in md and "<b>" not in md
+    assert "a\\|b &lt;img src=x onerror=\"alert(1)\"&gt; &amp; c" in md
+    table_row = next(line for line in md.splitlines() if line.startswith("| a"))
+    assert table_row.count(" | ") == 6  # seven cells: no cell split by the label's pipe (unescaped ones)
+    root = ET.fromstring(junit_xml(doc))
+    (case,) = root.iter("testcase")
+    assert case.get("classname") == junit_classname(label) == "fftgauge.gate.a_b__img_src_x_onerror__alert_1______c"
+    assert case.find("error").get("message") == "crashed \ufffd with <b>bold</b> | pipe"

@@ -45,3 +45,63 @@ def test_bad_requests(tmp_path, capsys, time_file):
     _one_line_error(capsys, ["--old", "numpy", "--new", "numpy", "--sizes", "0"], "'0'")
     _one_line_error(capsys, ["--new", "numpy"], "--old")
     _one_line_error(capsys, ["--old", "numpy", "--new", "numpy", "--inconclusive", "maybe"], "--inconclusive")
+
+
+# -- a gate stopped by a signal: the real command line in a subprocess ------------------------
+
+def _wait_for_workers(proc, count, limit_seconds=120.0):
+    """Return once ``proc`` has ``count`` child processes (the gate's workers are up)."""
+    import time
+
+    import psutil
+
+    parent = psutil.Process(proc.pid)
+    deadline = time.monotonic() + limit_seconds
+    while time.monotonic() < deadline:
+        if proc.poll() is not None:
+            raise AssertionError(f"the gate ended before its workers started: {proc.communicate()}")
+        if len(parent.children()) >= count:
+            return
+        time.sleep(0.1)
+    raise AssertionError("the gate's workers did not start")
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("signal_name, code", [("SIGTERM", 143), ("SIGHUP", 129)])
+def test_a_signal_stops_the_gate_writes_what_finished_and_exits_with_its_code(tmp_path, signal_name, code):
+    """SIGTERM (what CI sends on cancel) and SIGHUP stop the gate within seconds (bounded
+    generously here; benchmarks/bench_gate.py signals measures it): every output is written,
+    marked incomplete, and no case it did not finish is called a regression."""
+    import signal
+    import subprocess
+    import sys
+    import time
+    import xml.etree.ElementTree as ET
+
+    out = {k: tmp_path / f"g.{k}" for k in ("json", "md", "xml", "csv")}
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "fftgauge", "gate", "--old", "busywait[seconds=0.01]", "--new",
+         "busywait[seconds=0.01]", "--kinds", "fft", "--sizes", "64,128,256,512", "--budget", "60", "--quiet",
+         "--json", str(out["json"]), "--markdown", str(out["md"]), "--junit", str(out["xml"]),
+         "--csv", str(out["csv"])], stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    try:
+        _wait_for_workers(proc, 7)  # three per side and the yardstick's
+        time.sleep(1.0)
+        sent = time.monotonic()
+        proc.send_signal(getattr(signal, signal_name))
+        stdout, stderr = proc.communicate(timeout=30)
+        seconds = time.monotonic() - sent
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+    assert proc.returncode == code, (stdout, stderr)
+    assert seconds < 10, seconds
+    doc = json.loads(out["json"].read_text())
+    assert doc["complete"] is False and doc["stopped_by"] == signal_name and doc["regressed"] is False
+    assert doc["outcome"] == "incomplete" and any(r["status"] == "incomplete" for r in doc["rows"])
+    assert all(r["verdict"] is None for r in doc["rows"] if r["status"] == "incomplete")
+    assert stdout.startswith("INCOMPLETE: the run stopped before every case was decided: stopped by " + signal_name)
+    assert out["md"].read_text().startswith("## fftgauge gate: INCOMPLETE")
+    suite = ET.parse(out["xml"]).getroot().find("testsuite")
+    assert len(list(suite.iter("testcase"))) == len(doc["rows"]) and int(suite.get("errors")) >= 1
+    assert out["csv"].read_text().splitlines()[0].startswith("backend,kind,dtype,n,ratio")

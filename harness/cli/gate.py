@@ -105,11 +105,15 @@ def run(args: argparse.Namespace) -> int:
     from fftgauge.harness.gate.outputs import summary_text
     from fftgauge.harness.gate.run import run_and_write
 
+    from fftgauge.harness.shutdown import stop_on_signals
+
     req = request_from_args(args)
     for warning in req.warnings:
         print(f"fftgauge: WARNING: {warning}", file=sys.stderr)
-    doc, written = run_and_write(req, json_path=args.json or default_results_path("gate"), markdown=args.markdown,
-                                 junit=args.junit, csv=args.csv, save=args.save, quiet=args.quiet)
-    print(summary_text(doc))
-    print(f"\nwritten to {', '.join(written)}")
-    return exit_code(doc["outcome"], req.settings.inconclusive)
+    with stop_on_signals():
+        doc, written, stopped = run_and_write(req, json_path=args.json or default_results_path("gate"),
+                                              markdown=args.markdown, junit=args.junit, csv=args.csv,
+                                              save=args.save, quiet=args.quiet)
+        print(summary_text(doc))
+        print(f"\nwritten to {', '.join(written)}")
+    return exit_code(doc["outcome"], req.settings.inconclusive, stopped)

@@ -9,15 +9,23 @@ or not, so a run stopped half-way still explains itself.
   Holm-adjusted p-value and the verdict; regressions in bold. Made for a CI job summary or a
   pull-request comment.
 - JUnit XML (:func:`junit_xml`): one ``testsuite`` with one ``testcase`` per case
-  (``classname`` ``fftgauge.gate.<backend>``, ``name`` the case's label); a regression is a
+  (``classname`` ``fftgauge.gate.<backend label>`` with dots and other marks made ``_``,
+  ``name`` the case's label); a regression is a
   ``failure`` (type ``slower`` or ``accuracy``), a backend failure an ``error``, a skipped
   case ``skipped``. CI systems that read test reports show each case on its own.
 - CSV (:func:`csv_text`): the rows, lists joined by ``;``.
+
+Every string quoted from a backend or a file (labels, SPECs, paths, messages, notes) is escaped
+for the format it goes into: Markdown by :func:`fftgauge.harness.report.markup.escape_markdown`
+(``<img onerror=...>`` is shown, not run; a ``|`` does not split a table cell), XML by
+ElementTree with the characters XML cannot hold replaced. Messages longer than
+:data:`SHORT_MESSAGE_CHARS` are cut in terminal lines (the JSON keeps them whole).
 """
 
 from __future__ import annotations
 
 import math
+import re
 import xml.etree.ElementTree as ET
 from typing import Any, Sequence
 
@@ -120,18 +128,30 @@ def headline(doc: dict[str, Any]) -> str:
     return f"PASS: no regression in {compared} case(s){faster}"
 
 
-def _settings_line(doc: dict[str, Any]) -> str:
+def _plain(text: Any) -> str:
+    return str(text)
+
+
+def _md(text: Any) -> str:
+    """Return a string from a backend or a file escaped for a Markdown line or table cell."""
+    from fftgauge.harness.report.markup import escape_markdown
+
+    return escape_markdown(text, block=False)
+
+
+def _settings_line(doc: dict[str, Any], quote: Any = _plain) -> str:
+    """Return the run's mode and settings on one line, every quoted string passed through ``quote``."""
     mode = doc.get("mode")
     parts = [_MODE_WORDS.get(mode, str(mode))]
     if mode in ("ab", "referenced"):
         old, new = doc.get("old") or {}, doc.get("new") or {}
-        parts[0] += f": new `{new.get('spec', '?')}` against old `{old.get('spec', '?')}`"
+        parts[0] += f": new {quote(new.get('spec', '?'))} against old {quote(old.get('spec', '?'))}"
     if mode == "referenced":
         base = doc.get("baseline") or {}
-        parts[0] += f", {len(base.get('runs') or [])} stored run(s) from `{base.get('path', '?')}`"
+        parts[0] += f", {len(base.get('runs') or [])} stored run(s) from {quote(base.get('path', '?'))}"
     elif mode == "stored":
         base = doc.get("baseline") or {}
-        parts[0] += f": {len(base.get('runs') or [])} stored run(s) from `{base.get('path', '?')}`"
+        parts[0] += f": {len(base.get('runs') or [])} stored run(s) from {quote(base.get('path', '?'))}"
     threshold = doc.get("threshold")
     if threshold is not None and mode != "record":
         parts.append(f"threshold {threshold * 100:g}%")
@@ -142,7 +162,7 @@ def _settings_line(doc: dict[str, Any]) -> str:
     if y:
         parts.append(yardstick_text(y))
     if doc.get("commit"):
-        parts.append(f"commit `{doc['commit']}`")
+        parts.append(f"commit {quote(doc['commit'])}")
     return " · ".join(parts)
 
 
@@ -185,13 +205,13 @@ def _verdict_cell(row: dict[str, Any]) -> str:
 
 def markdown_summary(doc: dict[str, Any]) -> str:
     """Return the Markdown summary of a gate document (see the module docstring)."""
-    lines = [f"## fftgauge gate: {headline(doc)}", "", _settings_line(doc), ""]
+    lines = [f"## fftgauge gate: {_md(headline(doc))}", "", _settings_line(doc, _md), ""]
     for warning in doc.get("warnings") or []:
-        lines += [f"> **Warning:** {warning}", ""]
+        lines += [f"> **Warning:** {_md(warning)}", ""]
     rows = doc.get("rows") or []
     failing = [r for r in rows if r.get("verdict") in ("slower", "accuracy")]
     if failing:
-        lines.append("Regressions: " + ", ".join(f"{r['backend']} {_case_label(r)} ({r['verdict']}"
+        lines.append("Regressions: " + ", ".join(f"{_md(r['backend'])} {_case_label(r)} ({r['verdict']}"
                                                  + (f", {_percent(r['ratio'])}" if r.get("verdict") == "slower" else "")
                                                  + ")" for r in failing))
         lines.append("")
@@ -199,7 +219,7 @@ def markdown_summary(doc: dict[str, Any]) -> str:
         header = "| backend | case | median time | 95% interval | samples |"
         lines += [header, "|---|---|---:|---|---:|"]
         for r in rows:
-            lines.append(f"| {r['backend']} | {_case_label(r)} | {_num(r.get('seconds'))} s | "
+            lines.append(f"| {_md(r['backend'])} | {_case_label(r)} | {_num(r.get('seconds'))} s | "
                          f"{_num(r.get('seconds_low'))} – {_num(r.get('seconds_high'))} | {r.get('samples', 0)} |")
     elif rows:
         ratio_name = {"ab": "new / old", "referenced": "(new / old) now / stored"}.get(doc.get("mode"),
@@ -212,7 +232,7 @@ def markdown_summary(doc: dict[str, Any]) -> str:
             rule += "---:|---:|"
         lines += [header, rule]
         for r in rows:
-            line = (f"| {r['backend']} | {_case_label(r)} | {_num(r.get('ratio'))} | {_percent(r.get('ratio'))} | "
+            line = (f"| {_md(r['backend'])} | {_case_label(r)} | {_num(r.get('ratio'))} | {_percent(r.get('ratio'))} | "
                     f"{_num(r.get('ratio_low'))} – {_num(r.get('ratio_high'))} | {_p(r.get('p_holm'))} | "
                     f"{_verdict_cell(r)} |")
             if with_acc:
@@ -224,10 +244,11 @@ def markdown_summary(doc: dict[str, Any]) -> str:
     messages = [(r, r["message"]) for r in rows if r.get("message")]
     if messages:
         lines += ["", "Notes on cases:", ""]
-        lines += [f"- {r['backend']} {_case_label(r)} ({r.get('status')}): {short(m, 400)}" for r, m in messages]
+        lines += [f"- {_md(r['backend'])} {_case_label(r)} ({_md(r.get('status'))}): {_md(short(m, 400))}"
+                  for r, m in messages]
     notes = doc.get("notes") or []
     if notes:
-        lines += ["", "Run notes:", ""] + [f"- {n}" for n in notes]
+        lines += ["", "Run notes:", ""] + [f"- {_md(n)}" for n in notes]
     lines += ["", f"<sub>fftgauge {doc.get('versions', {}).get('fftgauge', '?')} · schema {doc.get('schema')} · "
                   f"created {doc.get('created')} · seed {doc.get('seed')}</sub>", ""]
     return "\n".join(lines)
@@ -242,6 +263,23 @@ def _failure_text(row: dict[str, Any], doc: dict[str, Any]) -> tuple[str, str]:
                       f"{threshold * 100:g}% threshold")
 
 
+#: Characters XML 1.0 cannot hold (C0 controls other than tab, newline, carriage return; surrogates; U+FFFE/F).
+_XML_INVALID = re.compile("[\x00-\x08\x0b\x0c\x0e-\x1f\ud800-\udfff\ufffe\uffff]")
+
+
+def _xml(text: Any) -> str:
+    """Return a string from a backend or a file fit for an XML attribute or text (ElementTree
+    escapes ``& < > "``; characters XML cannot hold become U+FFFD)."""
+    return _XML_INVALID.sub("\ufffd", str(text))
+
+
+def junit_classname(backend: str) -> str:
+    """Return the JUnit ``classname`` of a backend's cases: ``fftgauge.gate.<label>`` with every
+    character of the label other than letters, digits, ``_`` and ``-`` made ``_`` (a ``.`` would
+    split it into packages in CI test views: ``mine.py:fft`` -> ``fftgauge.gate.mine_py_fft``)."""
+    return "fftgauge.gate." + re.sub(r"[^A-Za-z0-9_-]", "_", str(backend))
+
+
 def junit_xml(doc: dict[str, Any]) -> str:
     """Return the JUnit XML report of a gate document (see the module docstring)."""
     rows = doc.get("rows") or []
@@ -254,45 +292,57 @@ def junit_xml(doc: dict[str, Any]) -> str:
     root = ET.Element("testsuites", attrs)
     suite = ET.SubElement(root, "testsuite", {**attrs, "timestamp": str(doc.get("created", ""))})
     props = ET.SubElement(suite, "properties")
-    for key in ("mode", "outcome", "threshold", "alpha", "seed", "commit"):
+    for key in ("mode", "outcome", "complete", "stopped_by", "threshold", "alpha", "seed", "commit"):
         if doc.get(key) is not None:
-            ET.SubElement(props, "property", {"name": key, "value": str(doc[key])})
+            ET.SubElement(props, "property", {"name": key, "value": _xml(doc[key])})
     for row in rows:
-        case = ET.SubElement(suite, "testcase", {"classname": f"fftgauge.gate.{row['backend']}",
+        case = ET.SubElement(suite, "testcase", {"classname": junit_classname(row["backend"]),
                                                  "name": _case_label(row),
                                                  "time": f"{row.get('sampling_seconds') or 0.0:.3f}"})
         status = row.get("status")
         if row.get("verdict") in ("slower", "accuracy"):
             kind, text = _failure_text(row, doc)
-            ET.SubElement(case, "failure", {"type": kind, "message": text}).text = text
+            body = text + (f"\n{row['accuracy_detail']}" if row.get("accuracy_detail") else "")
+            ET.SubElement(case, "failure", {"type": kind, "message": _xml(text)}).text = _xml(body)
         elif status == "error" or status == "incomplete":
-            ET.SubElement(case, "error", {"type": status, "message": row.get("message") or status}).text = \
-                row.get("message") or status
+            text = _xml(row.get("message") or status)
+            ET.SubElement(case, "error", {"type": status, "message": text}).text = text
         elif status == "skip":
-            ET.SubElement(case, "skipped", {"message": row.get("message") or "skipped"})
+            ET.SubElement(case, "skipped", {"message": _xml(row.get("message") or "skipped")})
         elif row.get("ratio") is not None and not (isinstance(row["ratio"], float) and math.isnan(row["ratio"])):
             ET.SubElement(case, "system-out").text = (f"ratio {row['ratio']:.4g} (95% {row['ratio_low']:.4g}-"
-                                                      f"{row['ratio_high']:.4g}), verdict {row.get('verdict')}")
+                                                      f"{row['ratio_high']:.4g}), verdict {_verdict_word(row)}")
     ET.indent(root)
     return '<?xml version="1.0" encoding="utf-8"?>\n' + ET.tostring(root, encoding="unicode") + "\n"
 
 
-def csv_text(doc: dict[str, Any]) -> str:
-    """Return the rows of a gate document as CSV text (lists joined by ``;``)."""
-    import pandas as pd
+def _csv_cell(value: Any) -> Any:
+    if value is None or (isinstance(value, float) and math.isnan(value)):
+        return ""
+    return ";".join(map(str, value)) if isinstance(value, (list, tuple)) else value
 
-    rows = [{k: (";".join(map(str, v)) if isinstance(v, (list, tuple)) else v) for k, v in r.items()}
-            for r in doc.get("rows") or []]
+
+def csv_text(doc: dict[str, Any]) -> str:
+    """Return the rows of a gate document as CSV text: one column per field in the rows' order
+    (the contract's first), lists joined by ``;``, missing values empty."""
+    import csv
+    import io
+
     columns = ["backend", "kind", "dtype", "n", "ratio", "ratio_low", "ratio_high", "p_value", "verdict"]
-    frame = pd.DataFrame(rows)
-    if frame.empty:
-        frame = pd.DataFrame(columns=columns)
-    return frame.to_csv(index=False)
+    rows = doc.get("rows") or []
+    for r in rows:
+        columns += [k for k in r if k not in columns]
+    out = io.StringIO()
+    writer = csv.DictWriter(out, fieldnames=columns, lineterminator="\n")
+    writer.writeheader()
+    for r in rows:
+        writer.writerow({k: _csv_cell(v) for k, v in r.items()})
+    return out.getvalue()
 
 
 def summary_text(doc: dict[str, Any]) -> str:
     """Return the terminal summary: the headline, the settings and one line per case."""
-    lines = [headline(doc), _settings_line(doc).replace("`", "")]
+    lines = [headline(doc), _settings_line(doc)]
     for warning in doc.get("warnings") or []:
         lines.append(f"WARNING: {warning}")
     for r in doc.get("rows") or []:

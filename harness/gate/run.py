@@ -236,8 +236,9 @@ def run_gate(req: GateRequest, doc: dict[str, Any] | None = None, quiet: bool = 
     sampling budget. Tests pass a fake sampler and a fake clock.
 
     The rows, outcome and yardstick are written into ``doc`` in a ``finally``, so a run
-    stopped by a failure or Ctrl-C still leaves a document that says how far it got
-    (``complete`` false, undecided rows with status ``incomplete``).
+    stopped by a failure or a signal still leaves a document that says how far it got:
+    ``complete`` false, the cases whose sampling had finished decided among themselves (Holm
+    over those), the others with status ``incomplete`` and no verdict.
 
     Raises
     ------
@@ -249,6 +250,7 @@ def run_gate(req: GateRequest, doc: dict[str, Any] | None = None, quiet: bool = 
 
     doc = new_doc(req) if doc is None else doc
     items: list[GateItem] = []
+    finished: list[GateItem] = []
     yardstick: list[float] = []
     sampler = None
     started = time.monotonic()
@@ -263,7 +265,8 @@ def run_gate(req: GateRequest, doc: dict[str, Any] | None = None, quiet: bool = 
                 try:
                     doc["sampling_seconds"] = collect(
                         items, sampler, req.settings, yardstick, clock=clock,
-                        on_done=lambda it: (progress.advance(note=it.case.label()), sampler.release(it)))
+                        on_done=lambda it: (finished.append(it), progress.advance(note=it.case.label()),
+                                            sampler.release(it)))
                 finally:
                     progress.close()
                 finalise(items, req.settings, yardstick_summary(yardstick, req.settings.confidence))
@@ -272,6 +275,9 @@ def run_gate(req: GateRequest, doc: dict[str, Any] | None = None, quiet: bool = 
         doc["complete"] = True
     finally:
         if not doc["complete"]:
+            sampled = [it for it in finished if it.status == "ok" and it.estimate is None]
+            if sampled:
+                finalise(sampled, req.settings, yardstick_summary(yardstick, req.settings.confidence))
             for it in items:
                 if it.status == "ok" and it.estimate is None:
                     it.status, it.message = "incomplete", "the run stopped before this case was decided"
@@ -305,11 +311,15 @@ def _record_yardstick(doc: dict[str, Any], req: GateRequest, samples: list[float
 
 def run_and_write(req: GateRequest, json_path: str | None = None, markdown: str | None = None,
                   junit: str | None = None, csv: str | None = None, save: str | None = None,
-                  quiet: bool = True) -> tuple[dict[str, Any], list[str]]:
-    """Run the gate and write its outputs; return the document and the paths written.
+                  quiet: bool = True) -> tuple[dict[str, Any], list[str], int | None]:
+    """Run the gate and write its outputs; return the document, the paths written, and the
+    number of the signal that stopped the run (None when it ran to its end).
 
     The outputs (and, for a complete run, the copy saved into ``save``) are written in a
-    ``finally``, so a run stopped by a failure or an interrupt still leaves them.
+    ``finally``, so a run stopped by a failure or a signal still leaves them. Run it inside
+    :func:`fftgauge.harness.shutdown.stop_on_signals` so that SIGTERM and SIGHUP stop it as
+    Ctrl-C does: the workers are killed at once, the rows not decided are ``incomplete``, the
+    document says ``complete: false`` and ``stopped_by`` the signal.
 
     Raises
     ------
@@ -317,15 +327,23 @@ def run_and_write(req: GateRequest, json_path: str | None = None, markdown: str 
         When a SPEC cannot be loaded, a backend is not in the baseline, or an output cannot be
         written (after every output was tried).
     """
+    import signal
+
     from fftgauge.harness.gate.outputs import write_outputs
+    from fftgauge.harness.shutdown import StopRequested
 
     doc = new_doc(req)
     written: list[str] = []
+    stopped: int | None = None
     try:
         run_gate(req, doc, quiet=quiet)
     except UsageError as exc:
         doc["error"] = str(exc)
         raise
+    except KeyboardInterrupt as exc:  # StopRequested (SIGTERM, SIGHUP) is one; plain Ctrl-C too
+        stopped = exc.signal_number if isinstance(exc, StopRequested) else int(signal.SIGINT)
+        doc["stopped_by"] = signal.Signals(stopped).name
+        doc["error"] = f"stopped by {doc['stopped_by']}"
     finally:
         written = write_outputs(doc, markdown=markdown, junit=junit, json_path=json_path, csv=csv)
         if save:
@@ -333,4 +351,4 @@ def run_and_write(req: GateRequest, json_path: str | None = None, markdown: str 
                 written.append(save_run(doc, save))
             else:
                 print(f"fftgauge: the run did not complete; not saved to {save}", file=sys.stderr)
-    return doc, written
+    return doc, written, stopped

@@ -225,8 +225,19 @@ class WorkerSampler:
     def __enter__(self) -> "WorkerSampler":
         return self
 
-    def __exit__(self, *exc: Any) -> None:
+    def __exit__(self, exc_type: Any, *exc: Any) -> None:
+        if exc_type is not None and issubclass(exc_type, KeyboardInterrupt):
+            self.abort()  # interrupted (Ctrl-C, SIGTERM, SIGHUP): no worker is waited for
         self.close()
+
+    def _all_workers(self) -> list[Any]:
+        return [w for replicas in self.workers.values() for w in replicas] + (
+            [self.yardstick_worker] if self.yardstick_worker is not None else [])
+
+    def abort(self) -> None:
+        """Kill every worker and what its backend started, at once (a run being interrupted)."""
+        for worker in self._all_workers():
+            worker.abort()
 
     def close(self) -> None:
         """Stop every worker."""
