@@ -47,6 +47,8 @@ BUILTINS: dict[str, tuple[str, str, str]] = {
     "pyfftw": ("fftgauge.backends.pyfftw_plans", "PyfftwBackend", "pip install 'fftgauge[pyfftw]'"),
     "mkl_fft": ("fftgauge.backends.mkl_fft_dfti", "MklFftBackend", "pip install 'fftgauge[mkl]'"),
     "ducc0": ("fftgauge.backends.ducc0_fft", "Ducc0Backend", "pip install 'fftgauge[ducc0]'"),
+    "array-api": ("fftgauge.backends.array_api_fft", "ArrayApiBackend", "pip install the namespace's package"),
+    "scipy-backend": ("fftgauge.backends.scipy_backend_object", "ScipyBackendObject", "pip install scipy"),
     "radix2-dit": ("fftgauge.backends.radix2", "Radix2DitBackend", "reinstall fftgauge"),
     "radix2-dif": ("fftgauge.backends.radix2", "Radix2DifBackend", "reinstall fftgauge"),
     "direct": ("fftgauge.backends.direct", "DirectBackend", "reinstall fftgauge"),

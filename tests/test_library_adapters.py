@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import math
 import threading
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -141,3 +142,90 @@ def test_every_kind_and_norm_is_claimed_by_both_libraries():
             continue
         caps = load_backend(spec).capabilities()
         assert caps.kinds == KINDS and caps.norms == NORMS
+
+
+# -- array-api[namespace=...] ---------------------------------------------------------------
+
+DATA = Path(__file__).parent / "data"
+UA_FILE = DATA / "numpy_scipy_backend.py"
+
+
+@pytest.mark.parametrize("namespace", ["numpy", "array_api_strict"])
+def test_array_api_namespace_matches_mpmath(namespace):
+    pytest.importorskip(namespace)
+    assert_matches_mpmath(f"array-api[namespace={namespace}]")
+
+
+def test_array_api_claims_come_from_the_namespace():
+    """numpy 2's namespace has the four kinds in float32 and float64 (the standard's dtypes)."""
+    backend = load_backend("array-api[namespace=numpy]")
+    caps = backend.capabilities()
+    assert caps.kinds == KINDS and caps.dtypes == ("float32", "float64")
+    assert backend.label == "array-api[namespace=numpy]"
+    assert backend.describe().as_dict()["namespace"] == "numpy"
+
+
+def test_array_api_strict_outputs_are_numpy_arrays():
+    pytest.importorskip("array_api_strict")
+    backend = load_backend("array-api[namespace=array_api_strict]")
+    plan = backend.plan(Case("rfft", "float64", 8))
+    prepared = plan.prepare(np.arange(8.0))
+    assert type(prepared) is not np.ndarray          # the namespace's own array
+    y = plan.execute(prepared)
+    assert isinstance(y, np.ndarray)
+    np.testing.assert_allclose(y, np.fft.rfft(np.arange(8.0)), atol=1e-12)
+
+
+@pytest.mark.parametrize("namespace, match", [("nosuch_namespace_module", "no module named"),
+                                              ("math", "not an array API namespace")])
+def test_array_api_bad_namespace_is_a_usage_error(namespace, match):
+    with pytest.raises(UsageError, match=match):
+        load_backend(f"array-api[namespace={namespace}]")
+
+
+# -- scipy-backend[object=...] --------------------------------------------------------------
+
+def test_scipy_backend_object_matches_mpmath():
+    assert_matches_mpmath(f"scipy-backend[object={UA_FILE}:forwarding]")
+
+
+def test_scipy_backend_object_is_called_through_ua_function():
+    """The adapter calls the object's __ua_function__ itself (its call counter moves)."""
+    backend = load_backend(f"scipy-backend[object={UA_FILE}:forwarding]")
+    plan = backend.plan(Case("fft", "float64", 16))
+    before = backend.backend_object.calls
+    plan.execute(np.ones(16, dtype=np.complex128))
+    assert backend.backend_object.calls == before + 1
+
+
+def test_scipy_backend_object_claims_what_it_answers():
+    """A backend answering only fft and ifft claims only those; its rfft is a skip reason."""
+    backend = load_backend(f"scipy-backend[object={UA_FILE}:complex_only]")
+    assert backend.capabilities().kinds == ("fft", "ifft")
+    assert "does not compute rfft" in backend.unsupported_reason(Case("rfft", "float64", 8))
+
+
+def test_a_library_scipy_interface_module_is_a_backend_object():
+    pytest.importorskip("mkl_fft")
+    pytest.importorskip("mkl")
+    backend = load_backend("scipy-backend[object=mkl_fft.interfaces.scipy_fft]")
+    assert backend.capabilities().kinds == KINDS
+    assert_matches_mpmath("scipy-backend[object=mkl_fft.interfaces.scipy_fft]")
+
+
+@pytest.mark.parametrize("target, match", [
+    (f"{UA_FILE}:not_a_backend", "is not a scipy.fft backend"),
+    (f"{UA_FILE}:no_such_attr", "has no attribute"),
+    ("nosuch_backend_module", "no module named"),
+])
+def test_scipy_backend_bad_object_is_a_usage_error(target, match):
+    with pytest.raises(UsageError, match=match):
+        load_backend(f"scipy-backend[object={target}]")
+
+
+def test_scipy_backend_default_object_is_scipys_own_backend():
+    """``scipy-backend`` alone is scipy.fft's own backend through the protocol; it matches mpmath."""
+    backend = load_backend("scipy-backend")
+    assert backend.label == "scipy-backend[object=scipy]"
+    assert "longdouble" in backend.capabilities().dtypes
+    assert_matches_mpmath("scipy-backend")
