@@ -130,6 +130,14 @@ def test_last_stage_twiddle_is_localised_not_precision():
     assert "k = 2047, 4095" in message and "last stage" in message
 
 
+@pytest.mark.parametrize("n", [4, 8, 64])
+def test_the_last_stage_pair_is_named_at_small_sizes_too(n):
+    case = Case("fft", "float64", n)
+    x = _input(n)
+    code, message = diag.diagnose(case, x, bugs.radix2_last_twiddle(x))
+    assert code == "localised" and f"k = {n // 2 - 1}, {n - 1};" in message and "last stage" in message
+
+
 def test_stage_of_names_the_dit_stage_of_a_residue_class():
     # the 8 bins k = 3 (mod 8) of N = 64: stage log2(16) = 4, span 8, twiddle index 3
     assert stage_of(tuple(range(3, 64, 8)), 64) == (4, 8, 3)

@@ -77,9 +77,11 @@ class Localisation:
         return self.kind != "spread"
 
 
-def concentrated_bins(err: np.ndarray) -> tuple[int, ...] | None:
+def concentrated_bins(err: np.ndarray, n: int | None = None) -> tuple[int, ...] | None:
     """Return the bins (sorted) holding :data:`CONCENTRATED_SHARE` of the energy of ``err``
-    when they are few (see the module docstring), else None."""
+    when they are few (see the module docstring), else None. For the transform size ``n``
+    (even, given) the pair N/2 - 1, N - 1 of the last radix-2 butterfly counts as few at
+    every size (at n = 4 it is half the bins)."""
     energy = np.abs(err) ** 2
     total = float(np.sum(energy))
     length = err.shape[0]
@@ -88,9 +90,12 @@ def concentrated_bins(err: np.ndarray) -> tuple[int, ...] | None:
     order = np.argsort(-energy, kind="stable")
     cumulative = np.cumsum(energy[order]) / total
     count = int(np.searchsorted(cumulative, CONCENTRATED_SHARE) + 1)
+    top = tuple(sorted(int(k) for k in order[:count]))
+    if n is not None and n >= 4 and n % 2 == 0 and length == n and top == (n // 2 - 1, n - 1):
+        return top
     if count > FEW_BINS or count > FEW_BINS_FRACTION * length:
         return None
-    return tuple(sorted(int(k) for k in order[:count]))
+    return top
 
 
 def _shown(bins: tuple[int, ...] | list[int]) -> str:
@@ -272,7 +277,7 @@ def localise_error(case: Case, truth: np.ndarray, y: np.ndarray) -> Localisation
     if not np.all(np.isfinite(y)):
         return Localisation("spread", "the output is not finite")
     err = y - truth
-    bins = concentrated_bins(err)
+    bins = concentrated_bins(err, case.n if case.kind in ("fft", "ifft") else None)
     if bins is not None:
         words, stage = _bins_words(bins, case, length)
         return Localisation("bins", words, bins=bins, stage=stage)
