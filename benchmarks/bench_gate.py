@@ -24,7 +24,9 @@ which targets held, and writes everything (every run's ratios, the load average,
 machine) to ``results/bench-gate-<UTC time>.json``.
 
 Run: ``.venv/bin/python benchmarks/bench_gate.py`` (the full version takes about an hour on
-a 2-core machine), or shorter: ``--runs 3 --sizes 1024,16384``.
+a 2-core machine), or shorter: ``--runs 3 --sizes 1024,16384``. ``--signals TRIES`` measures
+instead the seconds from SIGINT, SIGTERM and SIGHUP to the exit of ``fftgauge gate`` on a slow
+backend (goal: under 2 s), the outputs written.
 """
 
 from __future__ import annotations
@@ -182,6 +184,53 @@ def report(configs: list[dict[str, Any]], runs: int) -> tuple[str, list[str]]:
     return "\n".join(lines), targets
 
 
+def signal_exit_seconds(signal_name: str, tries: int) -> list[float]:
+    """Return the seconds from ``signal_name`` to the exit of ``fftgauge gate`` on a slow
+    backend (``busywait``, 10 ms a call), sent once its seven workers are up, ``tries`` times.
+
+    Raises
+    ------
+    RuntimeError
+        When the gate does not start its workers, or exits with another code than 128 + the signal.
+    """
+    import signal
+
+    import psutil
+
+    number = getattr(signal, signal_name)
+    seconds = []
+    with tempfile.TemporaryDirectory() as folder:
+        for _ in range(tries):
+            outs = [f"--{k}={os.path.join(folder, 'g.' + e)}" for k, e in (("json", "json"), ("markdown", "md"),
+                                                                            ("junit", "xml"), ("csv", "csv"))]
+            proc = subprocess.Popen([sys.executable, "-m", "fftgauge", "gate", "--old", "busywait[seconds=0.01]",
+                                     "--new", "busywait[seconds=0.01]", "--sizes", "64,128,256,512", "--kinds", "fft",
+                                     "--budget", "60", "--quiet", *outs],
+                                    stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+            deadline = time.monotonic() + 120
+            while len(psutil.Process(proc.pid).children()) < 7:
+                if proc.poll() is not None or time.monotonic() > deadline:
+                    raise RuntimeError("the gate did not start its workers")
+                time.sleep(0.05)
+            time.sleep(1.0)
+            sent = time.monotonic()
+            proc.send_signal(number)
+            code = proc.wait(60)
+            seconds.append(time.monotonic() - sent)
+            if code != 128 + number:
+                raise RuntimeError(f"{signal_name}: exit {code}, expected {128 + number}")
+    return seconds
+
+
+def signals_table(tries: int) -> str:
+    """Return the table of seconds from each stop signal to the gate's exit (goal: under 2 s)."""
+    lines = ["| signal | exit code | seconds to exit (min / median / max) |", "|---|---:|---|"]
+    for name, code in (("SIGINT", 130), ("SIGTERM", 143), ("SIGHUP", 129)):
+        s = sorted(signal_exit_seconds(name, tries))
+        lines.append(f"| {name} | {code} | {s[0]:.2f} / {s[len(s) // 2]:.2f} / {s[-1]:.2f} |")
+    return "\n".join(lines)
+
+
 def main(argv: list[str] | None = None) -> int:
     """Run the benchmark; return 0."""
     from fftgauge.harness.results import dumps, machine_fingerprint, write_text_atomic
@@ -207,7 +256,13 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--seed", type=int, default=1234)
     parser.add_argument("--out", default=None, help="JSON output (default results/bench-gate-<UTC time>.json)")
     parser.add_argument("--quiet", action="store_true", help="print only the table")
+    parser.add_argument("--signals", type=int, metavar="TRIES", default=0,
+                        help="only measure the seconds from SIGINT, SIGTERM and SIGHUP to the gate's exit, TRIES "
+                             "times each, and print them")
     args = parser.parse_args(argv)
+    if args.signals:
+        print(signals_table(args.signals))
+        return 0
     plan = [("ab", float(p), False) for p in args.percents.split(",") if p.strip()]
     plan += [("stored", float(p), False) for p in args.stored_percents.split(",") if p.strip()]
     plan += [("referenced", float(p), False) for p in args.referenced_percents.split(",") if p.strip()]
