@@ -325,3 +325,60 @@ def test_adapter_declares_its_conventions_in_its_capabilities(norm):
     rows = [r for n in (1, 8, 30, 256) for r in check_case(PlusSignAdapter(), Case("fft", "float64", n, norm), 5)]
     assert not problems(rows), problems(rows)[:3]
     assert all("sign=+1, forward_scale=1/n" in r.message for r in rows if r.status == "pass")
+
+
+# -- declared conventions outside the battery: timing and the budget probe --------------------
+
+PACKED = ["halfcomplex_rfft+halfcomplex_irfft[kind=rfft,packing=halfcomplex]",
+          "dc_nyquist_rfft+dc_nyquist_irfft[kind=rfft,packing=dc-nyquist]"]
+
+
+@pytest.mark.parametrize("spec", PACKED)
+def test_time_gives_a_packed_irfft_its_half_spectrum_in_the_declared_packing(spec, tmp_path):
+    """``fftgauge time`` of a packed real pair times its irfft (given numpy's complex half
+    spectrum the routine raises: a broadcast error, so every irfft row would be an error)."""
+    out = tmp_path / "t.json"
+    done = subprocess.run([sys.executable, "-m", "fftgauge", "time", "--backend", f"{ROUTINES}:{spec}",
+                           "--sizes", "8,16", "--dtypes", "float64", "--samples", "5", "--json", str(out),
+                           "--quiet"], capture_output=True, text=True, timeout=300)
+    assert done.returncode == 0, done.stderr
+    rows = json.loads(out.read_text())["rows"]
+    assert sorted((r["kind"], r["n"], r["status"]) for r in rows) == [
+        (k, n, "ok") for k in ("irfft", "rfft") for n in (8, 16)], rows
+
+
+def test_the_timers_plan_prepares_the_declared_convention_of_numpys_input():
+    """The timer's plan turns the numpy-convention input into the declared one before any
+    timed call: a bit-reversed ifft spectrum is x[bitrev(k)] (dft.bit_reversal_permutation),
+    a halfcomplex irfft input n reals (Re X0..Re X[n/2], Im X[n/2-1]..Im X1); a backend that
+    declares nothing for the kind keeps its own plan."""
+    from fftgauge.harness.battery.inputs import case_rng, random_input
+    from fftgauge.harness.timing.clock import DEFAULT_CLOCK
+    from fftgauge.harness.timing.timer import planned
+
+    b = backend("bitreversed_dit+unscaled_ifft[order=bit-reversed,inverse_scale=1/n,sizes=pow2]")
+    case = Case("ifft", "float64", 16)
+    numpys = random_input(case, case_rng(7, case, "time"))
+    plan, _ = planned(b, case, DEFAULT_CLOCK)
+    np.testing.assert_array_equal(plan.prepare(numpys), numpys[bit_reversal_permutation(16)])
+    packed = backend(PACKED[0])
+    case = Case("irfft", "float64", 16)
+    half = random_input(case, case_rng(7, case, "time"))
+    plan, _ = planned(packed, case, DEFAULT_CLOCK)
+    x_in = plan.prepare(half)
+    assert x_in.dtype == np.float64 and x_in.shape == (16,)
+    np.testing.assert_array_equal(x_in, np.concatenate([half.real, half.imag[1:8][::-1]]))
+    np.testing.assert_allclose(plan.execute(x_in), np.fft.irfft(half, 16), atol=1e-15)  # reference: numpy.fft
+    own = backend("plus_sign_fft[sign=+1]").plan(Case("fft", "float64", 16))
+    plan, _ = planned(backend("plus_sign_fft[sign=+1]"), Case("fft", "float64", 16), DEFAULT_CLOCK)
+    assert type(plan) is type(own)
+
+
+@pytest.mark.parametrize("spec", PACKED)
+def test_the_budget_probe_times_a_packed_irfft(spec):
+    """measure_call_seconds gives the packed irfft its declared input, so the probe has a time
+    (None would mean the call raised)."""
+    from fftgauge.harness.battery.budget import measure_call_seconds
+
+    probes = measure_call_seconds(backend(spec), [("irfft", "float64", 16, "backward")], seed=3)
+    assert len(probes) == 1 and probes[0][0] == 16 and probes[0][1] is not None

@@ -65,6 +65,7 @@ def measure_call_seconds(backend: Any, case_fields: list[tuple], seed: int = 0,
     Stops after a call of :data:`PROBE_STOP_SECONDS` or more, or when the probe has run
     :data:`PROBE_TOTAL_SECONDS`. Runs in a worker (job ``jobs.call_seconds``).
     """
+    from fftgauge.harness.battery.conventions import declared_input_plan
     from fftgauge.harness.battery.inputs import case_rng, random_input
 
     out: list[tuple[int, float | None]] = []
@@ -72,7 +73,7 @@ def measure_call_seconds(backend: Any, case_fields: list[tuple], seed: int = 0,
     for fields in case_fields:
         case = Case(*fields)
         try:
-            plan = backend.plan(case)
+            plan = declared_input_plan(backend, backend.plan(case))
             try:
                 x = plan.prepare(random_input(case, case_rng(seed, case, "budget")))
                 seconds = float("inf")

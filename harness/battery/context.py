@@ -19,7 +19,7 @@ import numpy as np
 from fftgauge.backends.base import Backend, Capabilities, Conventions, Plan
 from fftgauge.harness.battery import bounds
 from fftgauge.harness.battery import inputs
-from fftgauge.harness.battery.conventions import ConventionMismatch, DeclaredConvention
+from fftgauge.harness.battery.conventions import ConventionMismatch, DeclaredConvention, backend_convention
 from fftgauge.harness.battery.diagnosis import diagnose
 from fftgauge.harness.battery.reference import reference_transform
 from fftgauge.harness.cases import Case
@@ -105,10 +105,7 @@ class CheckContext:
     def __post_init__(self) -> None:
         if self.limit is None:
             self.limit = bounds.accuracy_limit(self.case)
-        declared = getattr(self.backend, "conventions", None)
-        if not isinstance(declared, Conventions):  # a backend not built on Backend
-            declared = getattr(self.capabilities, "conventions", None)
-        self._convention = DeclaredConvention(declared if isinstance(declared, Conventions) else Conventions())
+        self._convention = backend_convention(self.backend)
 
     # -- what the case is --------------------------------------------------------------------
     @property

@@ -47,6 +47,45 @@ FIELDS = {
 }
 
 
+def backend_convention(backend: Any) -> "DeclaredConvention":
+    """Return the :class:`DeclaredConvention` of ``backend``: its ``conventions`` (SPEC over
+    adapter), else those of its capabilities, else numpy's (a backend that declares none)."""
+    declared = getattr(backend, "conventions", None)
+    if not isinstance(declared, Conventions):  # a backend not built on Backend
+        capabilities = getattr(backend, "capabilities", None)
+        declared = getattr(capabilities() if callable(capabilities) else capabilities, "conventions", None)
+    return DeclaredConvention(declared if isinstance(declared, Conventions) else Conventions())
+
+
+class DeclaredInputPlan:
+    """A plan whose :meth:`prepare` takes numpy's convention: the wrapped plan's own
+    ``prepare`` (dtype, layout), then the input turned into the declared convention
+    (:meth:`DeclaredConvention.to_backend`), all outside any timed region. ``execute`` is the
+    wrapped plan's own bound method (no call added to what is timed); every other attribute
+    is the wrapped plan's."""
+
+    def __init__(self, plan: Any, convention: "DeclaredConvention"):
+        self._plan, self._convention = plan, convention
+        self.case = plan.case
+        self.execute = plan.execute
+
+    def prepare(self, x: np.ndarray) -> np.ndarray:
+        """Return the wrapped plan's prepared ``x`` (numpy's convention) in the declared convention."""
+        return self._convention.to_backend(self._plan.prepare(x), self.case)
+
+    def __getattr__(self, name: str) -> Any:
+        return getattr(self._plan, name)
+
+
+def declared_input_plan(backend: Any, plan: Any) -> Any:
+    """Return ``plan`` as a :class:`DeclaredInputPlan` when ``backend`` declared a convention
+    that changes the input of ``plan.case`` (an ``ifft`` order, an ``irfft`` packing), else
+    ``plan`` itself."""
+    convention = backend_convention(backend)
+    changes = set(convention.declared(plan.case)) & {"order", "packing"}
+    return DeclaredInputPlan(plan, convention) if changes and plan.case.kind in ("ifft", "irfft") else plan
+
+
 class ConventionMismatch(ValueError):
     """A backend's output does not have the length its declared packing gives."""
 

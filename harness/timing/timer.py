@@ -57,6 +57,7 @@ from fftgauge.backends.base import Backend, Plan
 from fftgauge.backends.null import NullPlan
 from fftgauge.harness.cases import Case
 from fftgauge.harness.errors import UnsupportedCase
+from fftgauge.harness.battery.conventions import declared_input_plan
 from fftgauge.harness.battery.inputs import case_rng, random_input
 from fftgauge.harness.timing.caches import evict_caches
 from fftgauge.harness.timing.clock import (DEFAULT_CLOCK, DEFAULT_WARMUP_SECONDS, MAX_LOOPS, TARGET_SAMPLE_SECONDS, Clock,
@@ -371,17 +372,20 @@ class _OpenCase:
 _OPEN_CASES: dict[tuple, _OpenCase] = {}
 
 
-def _planned(backend: Backend, case: Case, clock: Clock) -> tuple[Plan, float]:
-    """Return ``backend.plan(case)`` and the seconds it took on ``clock``."""
+def planned(backend: Backend, case: Case, clock: Clock) -> tuple[Plan, float]:
+    """Return ``backend.plan(case)`` and the seconds it took on ``clock``; the plan prepares
+    numpy-convention inputs in the convention the backend declared (a packed irfft half
+    spectrum, a bit-reversed ifft spectrum; :func:`~fftgauge.harness.battery.conventions.declared_input_plan`)."""
     start = clock()
     plan = backend.plan(case)
-    return plan, (clock() - start) * 1e-9
+    plan_seconds = (clock() - start) * 1e-9
+    return declared_input_plan(backend, plan), plan_seconds
 
 
 def _open_case(backend: Backend, case: Case, settings: TimerSettings, seed: int, clock: Clock) -> _OpenCase:
     """Plan ``case``, prepare its input and start its timing session (planning timed)."""
     x = random_input(case, case_rng(seed, case, "time"))
-    plan, plan_seconds = _planned(backend, case, clock)
+    plan, plan_seconds = planned(backend, case, clock)
     try:
         session = Timer(settings, clock).start(plan, x)
     except BaseException:
@@ -481,7 +485,7 @@ def _memory(plan: Plan, x: np.ndarray, wanted: bool) -> tuple[Any, bool]:
 def _time_whole(backend: Backend, case: Case, settings: TimerSettings, rest: dict[str, Any], clock: Clock) -> dict:
     """Time a backend that reports its own times in one call (rounds do not apply); return the row."""
     x = random_input(case, case_rng(rest["seed"], case, "time"))
-    plan, plan_seconds = _planned(backend, case, clock)
+    plan, plan_seconds = planned(backend, case, clock)
     try:
         m = measure_self_reported(plan, x, settings, clock)
         source = "program" if m is not None else "harness"
