@@ -16,7 +16,7 @@ from typing import Any, Callable
 
 import numpy as np
 
-from fftgauge.backends.base import Backend, Capabilities, Conventions, Plan
+from fftgauge.backends.base import Backend, Capabilities, Plan
 from fftgauge.harness.battery import bounds
 from fftgauge.harness.battery import inputs
 from fftgauge.harness.battery.conventions import ConventionMismatch, DeclaredConvention, backend_convention
