@@ -105,3 +105,18 @@ def test_a_signal_stops_the_gate_writes_what_finished_and_exits_with_its_code(tm
     suite = ET.parse(out["xml"]).getroot().find("testsuite")
     assert len(list(suite.iter("testcase"))) == len(doc["rows"]) and int(suite.get("errors")) >= 1
     assert out["csv"].read_text().splitlines()[0].startswith("backend,kind,dtype,n,ratio")
+
+
+def test_a_stored_run_that_did_not_complete_is_named_in_the_notes(tmp_path, time_file):
+    from fftgauge.harness.gate.history import load_stored_runs
+
+    path, doc = time_file
+    folder = tmp_path / "history"
+    folder.mkdir()
+    (folder / "a.json").write_text(json.dumps(dict(doc, complete=False, created="2026-12-01T00:00:00Z")))
+    (folder / "b.json").write_text(json.dumps(dict(doc, complete=True, created="2026-12-02T00:00:00Z")))
+    runs, warnings, notes = load_stored_runs(str(folder), 5, False)
+    assert [r.complete for r in runs] == [False, True]
+    assert any("1 stored run(s) did not complete (a.json)" in n for n in notes), notes
+    runs, _, notes = load_stored_runs(str(path), 5, False)
+    assert runs[0].complete and not any("did not complete" in n for n in notes)

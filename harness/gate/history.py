@@ -36,7 +36,8 @@ class StoredRun:
     """A stored results document the gate can take a baseline from (validated at load).
 
     ``rows`` are the usable rows (a positive ``seconds``); ``backends`` maps a row's backend
-    label to the SPEC that produced it; ``yardstick`` is the run's record or None.
+    label to the SPEC that produced it; ``yardstick`` is the run's record or None;
+    ``complete`` is false for a run stopped before its end (its envelope says so).
     """
 
     path: str
@@ -46,6 +47,7 @@ class StoredRun:
     yardstick: dict[str, Any] | None
     rows: tuple[dict[str, Any], ...]
     backends: dict[str, str]
+    complete: bool = True
 
 
 def case_of(row: dict[str, Any]) -> Case:
@@ -189,7 +191,8 @@ def load_stored_run(path: str) -> StoredRun:
     yardstick = doc.get("yardstick") if isinstance(doc.get("yardstick"), dict) else None
     return StoredRun(path=path, created=str(doc.get("created") or ""), schema=doc["schema"],
                      machine=doc.get("machine") if isinstance(doc.get("machine"), dict) else {},
-                     yardstick=yardstick, rows=tuple(rows), backends=backends)
+                     yardstick=yardstick, rows=tuple(rows), backends=backends,
+                     complete=doc.get("complete") is not False)
 
 
 def load_stored_runs(path: str, last_k: int, allow_other_machine: bool) -> tuple[tuple[StoredRun, ...], list[str], list[str]]:
@@ -233,6 +236,7 @@ def load_stored_runs(path: str, last_k: int, allow_other_machine: bool) -> tuple
         elif len(same) < len(timed):
             notes.append(f"{len(timed) - len(same)} stored run(s) of other machines in {path!r} ignored")
         used = same[-last_k:]
+        _note_incomplete(used, notes)
         if len(used) < 3:
             notes.append(f"the baseline has {len(used)} stored run(s): with fewer than 3 the run-to-run variation "
                          f"cannot be estimated and only the yardstick guards against it")
@@ -250,9 +254,18 @@ def load_stored_runs(path: str, last_k: int, allow_other_machine: bool) -> tuple
                              f"measure a baseline here, or pass --allow-other-machine")
         warnings.append(f"the baseline was measured on ANOTHER MACHINE ({'; '.join(diff)}): timing differences "
                         f"may be the machine's, not the code's")
+    _note_incomplete((run,), notes)
     notes.append("a single baseline file cannot show run-to-run variation; a folder of stored runs "
                  "(--save DIR, --baseline DIR) makes the comparison sturdier")
     return (run,), warnings, notes
+
+
+def _note_incomplete(runs: Sequence[StoredRun], notes: list[str]) -> None:
+    """Append a note naming the stored runs that did not complete (their finished rows are used)."""
+    partial = [os.path.basename(r.path) for r in runs if not r.complete]
+    if partial:
+        notes.append(f"{len(partial)} stored run(s) did not complete ({', '.join(partial)}): only the cases "
+                     f"they finished are in the baseline")
 
 
 def default_specs_of(runs: tuple[StoredRun, ...]) -> tuple[str, ...]:

@@ -35,7 +35,7 @@ import gc
 import random
 import time
 from dataclasses import dataclass, field
-from typing import Any, Sequence
+from typing import Any
 
 import numpy as np
 
