@@ -27,7 +27,7 @@ from __future__ import annotations
 import math
 import re
 import xml.etree.ElementTree as ET
-from typing import Any, Sequence
+from typing import Any
 
 from fftgauge.harness.errors import UsageError
 
@@ -386,9 +386,3 @@ def write_outputs(doc: dict[str, Any], markdown: str | None = None, junit: str |
     if first_error is not None:
         raise first_error
     return written
-
-
-def failing_cases(doc: dict[str, Any]) -> Sequence[str]:
-    """Return ``backend case`` labels of the rows that fail the gate (slower or accuracy)."""
-    return [f"{r['backend']} {_case_label(r)}" for r in doc.get("rows") or []
-            if r.get("verdict") in ("slower", "accuracy")]
