@@ -53,3 +53,22 @@ def test_wrong_answers_come_before_could_not_run_within_a_backend():
     rows = [_row("b", "accuracy", "error", message="hung"), _row("b", "parseval", "fail", "unknown")]
     lines = finding_lines(rows)
     assert [line.split(":")[0] for line in lines] == ["  b · unknown (parseval)", "  b · error (accuracy)"]
+
+
+def test_one_line_per_backend_that_declared_a_convention():
+    """A backend whose SPEC declares conventions other than numpy's gets one line saying so
+    (numpy's own values, sign=-1 and order=natural, are not declarations); the others none."""
+    from fftgauge.backends.claims import Conventions
+
+    def record(**conventions):
+        return {"spec": "x", "capabilities": {"conventions": Conventions(**conventions).as_dict()}}
+
+    backends = {"dit": record(order="bit-reversed"), "plain": record(),
+                "mine": record(sign=1, forward_scale="1/n", inverse_scale="1", packing="halfcomplex"),
+                "same": record(sign=-1, order="natural")}
+    text = format_summary(rows_frame([_row(b, "accuracy", "pass") for b in backends]), backends)
+    lines = [line for line in text.splitlines() if "declared" in line]
+    assert lines == ["dit: declared order=bit-reversed (checked in numpy's convention)",
+                     "mine: declared sign=+1, forward_scale=1/n, inverse_scale=1, packing=halfcomplex "
+                     "(checked in numpy's convention)"]
+    assert "declared" not in format_summary(rows_frame([_row("dit", "accuracy", "pass")]))

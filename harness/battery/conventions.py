@@ -106,18 +106,31 @@ class DeclaredConvention:
         """Return the declared fields that apply to ``case.kind`` and differ from numpy's
         (``sign=-1``, a ``natural`` order and the ``complex`` packing are numpy's), in
         :data:`FIELDS` order."""
+        return self._differing(FIELDS[case.kind])
+
+    def _differing(self, names: Any) -> dict[str, Any]:
+        """Return the fields among ``names`` declared and not numpy's, in the order of ``names``."""
         found = {}
-        for name in FIELDS[case.kind]:
+        for name in names:
             value = getattr(self.conventions, name)
             if value is None or (name, value) in (("sign", -1), ("order", "natural"), ("packing", "complex")):
                 continue
             found[name] = value
         return found
 
+    @staticmethod
+    def _text(found: dict[str, Any]) -> str:
+        return ", ".join(f"{k}={'+1' if v == 1 and k == 'sign' else v}" for k, v in found.items())
+
     def describe(self, case: Case) -> str:
         """Return the declared fields of ``case`` as a row shows them (``"sign=+1, order=centred"``),
         or ``""`` when the backend follows numpy's convention for this kind."""
-        return ", ".join(f"{k}={'+1' if v == 1 and k == 'sign' else v}" for k, v in self.declared(case).items())
+        return self._text(self.declared(case))
+
+    def describe_all(self) -> str:
+        """Return every declared field that is not numpy's, whatever the kind, as
+        :meth:`describe` writes them (``"sign=+1, forward_scale=1/n"``), or ``""``."""
+        return self._text(self._differing(dict.fromkeys(n for names in FIELDS.values() for n in names)))
 
     def scale(self, case: Case) -> str | None:
         """Return the declared scale of ``case``'s kind (``"1/n"``), or None when none is declared."""

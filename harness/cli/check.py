@@ -90,7 +90,7 @@ def run(args: argparse.Namespace) -> int:
             print(f"written from what finished: {', '.join(written)}", file=out)
         return code
     df = rows_frame(doc["rows"])
-    print(format_summary(df), file=out)
+    print(format_summary(df, doc.get("backends")), file=out)
     not_run = not_run_lines(doc["rows"])
     if not_run:
         print("\nnot run (sizes not claimed, or skipped for time; one line per reason):", file=out)
@@ -114,7 +114,7 @@ def report_cut_short(doc: dict, stopped: Any, write_error: Any, out: Any, elapse
 
     df = rows_frame(doc["rows"])
     if not df.empty:
-        print(format_summary(df), file=out)
+        print(format_summary(df, doc.get("backends")), file=out)
     if stopped is not None:
         finished = len({(r["backend"], r["kind"], r["dtype"], r["norm"], r["n"]) for r in doc["rows"]
                         if r["check"] != "all"})

@@ -125,8 +125,29 @@ def finding_lines(rows: Iterable[dict[str, Any]], per_backend: int = FINDINGS_PE
     return out
 
 
-def format_summary(df: pd.DataFrame) -> str:
-    """Return the terminal summary of a battery run: a verdict line, the table, the findings."""
+def convention_lines(backends: dict[str, Any] | None) -> list[str]:
+    """Return one line per backend of a results file's ``backends`` map that declared a
+    convention other than numpy's (``"dit: declared order=bit-reversed (checked in numpy's
+    convention)"``): its outputs were turned into numpy's convention before the checks. An
+    entry without a readable ``capabilities.conventions`` gives no line."""
+    from fftgauge.backends.claims import Conventions
+    from fftgauge.harness.battery.conventions import DeclaredConvention
+
+    lines = []
+    for label, record in (backends or {}).items():
+        fields = ((record or {}).get("capabilities") or {}).get("conventions") or {}
+        try:
+            text = DeclaredConvention(Conventions(**fields)).describe_all()
+        except (TypeError, ValueError):
+            continue
+        if text:
+            lines.append(f"{label}: declared {text} (checked in numpy's convention)")
+    return lines
+
+
+def format_summary(df: pd.DataFrame, backends: dict[str, Any] | None = None) -> str:
+    """Return the terminal summary of a battery run: a verdict line, the table, one line per
+    backend of ``backends`` (a results file's map) that declared a convention, the findings."""
     if df.empty:
         return "no cases were run"
     summary = summary_frame(df)
@@ -146,6 +167,9 @@ def format_summary(df: pd.DataFrame) -> str:
                f"FAIL: {counts['wrong']} case(s) gave wrong answers, {counts['error']} could not run (raised, "
                f"crashed, timed out or returned something unusable), {counts['passed']} passed")
     lines = [verdict, "", text]
+    conventions = convention_lines(backends)
+    if conventions:
+        lines += [""] + conventions
     records = df.astype(object).where(df.notna(), None).to_dict("records")
     findings = finding_lines(records)
     if findings:
