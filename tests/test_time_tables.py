@@ -96,3 +96,21 @@ def test_rate_of_a_row_without_its_own_rate_uses_the_conventional_count():
     assert rate_gflops({"n": 1024, "kind": "rfft", "seconds": 1e-5}) == 2.56
     assert rate_gflops({"n": 1024, "kind": "fft", "seconds": 1e-5, "gflops": 3.0}) == 3.0
     assert rate_gflops({"n": 1, "kind": "fft", "seconds": 1e-5}) is None
+
+
+def test_the_report_prints_the_self_timed_legend_under_its_table():
+    """``fftgauge report`` (pages.build_blocks): the legend line follows the timing table whose
+    column is self-timed, and no table of host-timed columns gets one."""
+    from fftgauge.harness.report.inputs import ReportInputs
+    from fftgauge.harness.report.pages import build_blocks
+
+    doc = json.loads((ROOT / "tests" / "data" / "sample_time.json").read_text())
+    backends = sorted({r["backend"] for r in doc["rows"]})
+    plain = build_blocks(ReportInputs(time=[("t.json", doc)]), {})
+    assert ("p", SELF_TIMED_LEGEND) not in plain
+    for row in doc["rows"]:
+        row["timing_source"] = "program" if row["backend"] == backends[-1] else "harness"
+    blocks = build_blocks(ReportInputs(time=[("t.json", doc)]), {})
+    tables = [i for i, b in enumerate(blocks) if b[0] == "table" and f"{backends[-1]} {SELF_TIMED_MARK}" in b[1]]
+    assert tables and all(blocks[i + 1] == ("p", SELF_TIMED_LEGEND) for i in tables)
+    assert blocks.count(("p", SELF_TIMED_LEGEND)) == len(tables)

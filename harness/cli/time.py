@@ -44,7 +44,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--pure-python-max-n", type=int, default=None, metavar="N",
                         help=f"largest size given to the pure-Python references (default {DEFAULT_PURE_PYTHON_MAX_N} "
                              f"when --sizes is not given, else no limit; 0: no limit)")
-    parser.add_argument("--plot", metavar="PATH", help="also draw time against N (PNG or SVG by the extension)")
+    parser.add_argument("--plot", metavar="PATH",
+                        help="also draw the time per point (median time of one transform / N) against N, one "
+                             "panel per kind and precision (PNG or SVG by the extension)")
 
 
 def request_from_args(args: argparse.Namespace) -> TimingRequest:

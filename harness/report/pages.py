@@ -125,6 +125,8 @@ def _timing(inputs: ReportInputs, images: dict[str, list]) -> list[tuple]:
         blocks.append(("h", 3, f"{block['kind']} {block['dtype']}: median time per transform (fastest in bold)"))
         bold = {(i, j) for i, j in enumerate(block["fastest"]) if j is not None}
         blocks.append(("table", block["header"], block["rows"], bold))
+        if block.get("legend"):
+            blocks.append(("p", block["legend"]))
     blocks += [("img", p, c) for p, c in images.get("time", [])]
     blocks.append(("h", 3, "Scaling"))
     for path, doc in inputs.time:
