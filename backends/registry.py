@@ -49,6 +49,7 @@ BUILTINS: dict[str, tuple[str, str, str]] = {
     "ducc0": ("fftgauge.backends.ducc0_fft", "Ducc0Backend", "pip install 'fftgauge[ducc0]'"),
     "array-api": ("fftgauge.backends.array_api_fft", "ArrayApiBackend", "pip install the namespace's package"),
     "scipy-backend": ("fftgauge.backends.scipy_backend_object", "ScipyBackendObject", "pip install scipy"),
+    "jax": ("fftgauge.backends.jax_fft", "JaxBackend", "pip install 'fftgauge[jax]'"),
     "radix2-dit": ("fftgauge.backends.radix2", "Radix2DitBackend", "reinstall fftgauge"),
     "radix2-dif": ("fftgauge.backends.radix2", "Radix2DifBackend", "reinstall fftgauge"),
     "direct": ("fftgauge.backends.direct", "DirectBackend", "reinstall fftgauge"),

@@ -229,3 +229,25 @@ def test_scipy_backend_default_object_is_scipys_own_backend():
     assert backend.label == "scipy-backend[object=scipy]"
     assert "longdouble" in backend.capabilities().dtypes
     assert_matches_mpmath("scipy-backend")
+
+
+# -- jax (not in the test extra: skipped unless installed) ----------------------------------
+
+def test_jax_matches_mpmath_in_float32_and_float64():
+    pytest.importorskip("jax")
+    assert_matches_mpmath("jax")
+
+
+def test_jax_compiles_in_plan_once_per_case_and_says_x64():
+    """The compile (and warm-up) happens in plan(); a second plan of the case reuses it."""
+    pytest.importorskip("jax")
+    backend = load_backend("jax")
+    assert "x64 on" in backend.version and "float64" in backend.capabilities().dtypes
+    case = Case("rfft", "float64", 32)
+    first = backend.plan(case)
+    assert len(backend.compiled) == 1
+    second = backend.plan(case)
+    assert len(backend.compiled) == 1 and first._compiled is second._compiled
+    y = second.execute(second.prepare(np.arange(32.0)))
+    assert isinstance(y, np.ndarray) and y.dtype == np.complex128
+    assert load_backend("jax[x64=false]").capabilities().dtypes == ("float32",)
