@@ -120,3 +120,18 @@ def test_a_stored_run_that_did_not_complete_is_named_in_the_notes(tmp_path, time
     assert any("1 stored run(s) did not complete (a.json)" in n for n in notes), notes
     runs, _, notes = load_stored_runs(str(path), 5, False)
     assert runs[0].complete and not any("did not complete" in n for n in notes)
+
+
+def test_output_paths_are_checked_before_the_work(tmp_path, capsys):
+    _one_line_error(capsys, ["--old", "numpy", "--new", "numpy", "--sizes", "64", "--junit", str(tmp_path)],
+                    "--junit")
+    _one_line_error(capsys, ["--old", "numpy", "--new", "numpy", "--sizes", "64", "--json", str(tmp_path)], "--json")
+
+
+def test_json_dash_writes_the_document_alone_to_standard_output(capsys):
+    code = cli.main(["gate", "--old", "numpy", "--new", "tests/data/misbehaving.py:abort_fft", "--sizes", "64",
+                     "--kinds", "fft", "--budget", "1", "--quiet", "--json", "-"])
+    captured = capsys.readouterr()
+    doc = json.loads(captured.out)
+    assert code == 1 and doc["schema"] == "fftgauge-gate/1" and doc["outcome"] == "error"
+    assert "FAIL" in captured.err and "written to standard output" in captured.err

@@ -105,15 +105,20 @@ def run(args: argparse.Namespace) -> int:
     from fftgauge.harness.gate.outputs import summary_text
     from fftgauge.harness.gate.run import run_and_write
 
+    from fftgauge.harness.results import check_output_path, is_stdout
     from fftgauge.harness.shutdown import stop_on_signals
 
     req = request_from_args(args)
+    for path, option in ((args.json, "--json"), (args.markdown, "--markdown"), (args.junit, "--junit"),
+                         (args.csv, "--csv")):
+        check_output_path(path, option)
+    out = sys.stderr if is_stdout(args.json) else sys.stdout  # --json -: standard output holds the JSON alone
     for warning in req.warnings:
         print(f"fftgauge: WARNING: {warning}", file=sys.stderr)
     with stop_on_signals():
         doc, written, stopped = run_and_write(req, json_path=args.json or default_results_path("gate"),
                                               markdown=args.markdown, junit=args.junit, csv=args.csv,
                                               save=args.save, quiet=args.quiet)
-        print(summary_text(doc))
-        print(f"\nwritten to {', '.join(written)}")
+        print(summary_text(doc), file=out)
+        print(f"\nwritten to {', '.join(written)}", file=out)
     return exit_code(doc["outcome"], req.settings.inconclusive, stopped)

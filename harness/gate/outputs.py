@@ -361,7 +361,7 @@ def summary_text(doc: dict[str, Any]) -> str:
 
 def write_outputs(doc: dict[str, Any], markdown: str | None = None, junit: str | None = None,
                   json_path: str | None = None, csv: str | None = None) -> list[str]:
-    """Write each output asked for; return the paths written.
+    """Write each output asked for; return the paths written (``standard output`` for ``-``).
 
     Every output is attempted even when an earlier one cannot be written.
 
@@ -370,7 +370,7 @@ def write_outputs(doc: dict[str, Any], markdown: str | None = None, junit: str |
     UsageError
         After trying all of them, for the first path that could not be written.
     """
-    from fftgauge.harness.results import dumps, write_text_atomic
+    from fftgauge.harness.results import dumps, is_stdout, write_output
 
     jobs = [(markdown, markdown_summary), (junit, junit_xml), (json_path, dumps), (csv, csv_text)]
     written: list[str] = []
@@ -379,8 +379,8 @@ def write_outputs(doc: dict[str, Any], markdown: str | None = None, junit: str |
         if not path:
             continue
         try:
-            write_text_atomic(path, render(doc))
-            written.append(path)
+            write_output(path, render(doc))
+            written.append("standard output" if is_stdout(path) else path)
         except UsageError as exc:
             first_error = first_error or exc
     if first_error is not None:
