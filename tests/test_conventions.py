@@ -354,7 +354,7 @@ def test_the_timers_plan_prepares_the_declared_convention_of_numpys_input():
     declares nothing for the kind keeps its own plan."""
     from fftgauge.harness.battery.inputs import case_rng, random_input
     from fftgauge.harness.timing.clock import DEFAULT_CLOCK
-    from fftgauge.harness.timing.timer import planned
+    from fftgauge.harness.timing.case_job import planned
 
     b = backend("bitreversed_dit+unscaled_ifft[order=bit-reversed,inverse_scale=1/n,sizes=pow2]")
     case = Case("ifft", "float64", 16)

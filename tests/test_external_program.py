@@ -496,7 +496,7 @@ def test_program_is_never_run_through_a_shell(tmp_path: Path, no_leftovers) -> N
 
 def test_the_timer_uses_the_programs_own_time_when_it_reports_one():
     """A program that reports its own elapsed time is timed by that time, and the row says so."""
-    from fftgauge.harness.timing.timer import time_case
+    from fftgauge.harness.timing.case_job import time_case
 
     backend = load_backend(server_spec("ok"))
     try:

@@ -30,9 +30,10 @@ from fftgauge.harness.errors import UnsupportedCase, UsageError
 from fftgauge.harness.battery.inputs import case_rng, random_input
 from fftgauge.harness.rows import TimeRow
 from fftgauge.harness.timing.caches import FALLBACK_EVICTION_BYTES, last_level_cache_bytes
-from fftgauge.harness.timing.timer import TimerSettings, Timer, limit_threads, measure, time_case
+from fftgauge.harness.timing.case_job import time_case
+from fftgauge.harness.timing.timer import TimerSettings, Timer, limit_threads, measure
 import fftgauge.harness.timing.caches as caches
-import fftgauge.harness.timing.timer as timing
+import fftgauge.harness.timing.case_job as timing
 
 CASE = Case("fft", "float64", 1024)
 X = random_input(CASE, case_rng(0, CASE))

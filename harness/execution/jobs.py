@@ -159,8 +159,8 @@ def run_case_checks(backend: Any, case_fields: tuple, seed: int, check_names: li
 
 def time_case(backend: Any, case_fields: tuple, options: dict) -> dict | None:
     """One case, or one round of it, of the timing runner; see
-    :func:`fftgauge.harness.timing.timer.time_case` (returns its row dict, or None between rounds)."""
-    from fftgauge.harness.timing.timer import time_case as run
+    :func:`fftgauge.harness.timing.case_job.time_case` (returns its row dict, or None between rounds)."""
+    from fftgauge.harness.timing.case_job import time_case as run
 
     return run(backend, case_fields, options)
 

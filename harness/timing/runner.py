@@ -13,7 +13,7 @@ samples are split into :attr:`TimingRequest.rounds` rounds (default 10); the cas
 window of :data:`WINDOW_CASES` cases are timed round after round, every (case, backend) once
 per round in a new seeded random order, so each case's samples are spread over the
 window's whole duration and over every backend's turns. The worker keeps the case's plan
-between rounds (:func:`fftgauge.harness.timing.timer.time_case`); the row is written when its last round
+between rounds (:func:`fftgauge.harness.timing.case_job.time_case`); the row is written when its last round
 is done, so an interrupted run loses at most the window in progress.
 
 Defaults: 100 samples in 10 rounds, at most 1 s of sampling per case. Measured on the
@@ -68,7 +68,7 @@ class TimingRequest:
     rounds: int = DEFAULT_ROUNDS
 
     def timer_options(self, round_index: int = 0) -> dict[str, Any]:
-        """Return the options :func:`fftgauge.harness.timing.timer.time_case` takes for round ``round_index``."""
+        """Return the options :func:`fftgauge.harness.timing.case_job.time_case` takes for round ``round_index``."""
         return {"samples": self.samples, "budget_seconds": self.budget_seconds, "cold_cache": self.cold_cache,
                 "measure_memory": self.measure_memory, "threads": self.threads, "seed": self.seed,
                 "rounds": self.rounds, "round": round_index}
