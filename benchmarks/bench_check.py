@@ -1,5 +1,9 @@
 """Benchmark: wall time of `fftgauge check` with no options (numpy, scipy, pyfftw, direct and
-the radix-2 references on @default; the references limited to n <= 512). Target: <= 60 s.
+the radix-2 references on @default). Target: <= 60 s. With no --sizes, the pure-Python
+references are checked up to the sizes whose case is estimated at 0.1 s or less
+(harness/battery/budget.py, REFERENCE_CASE_BUDGET_SECONDS: their seconds per call measured on
+their smallest sizes, times the calls a case makes); their larger sizes are skip rows giving
+the estimate. Every other backend has the default per-case budget of 10 s.
 
 Besides the wall time it prints the processor time the run used (the command and its
 worker processes, user + system) and the machine's load average before and after: on a
