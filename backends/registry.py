@@ -50,6 +50,7 @@ BUILTINS: dict[str, tuple[str, str, str]] = {
     "array-api": ("fftgauge.backends.array_api_fft", "ArrayApiBackend", "pip install the namespace's package"),
     "scipy-backend": ("fftgauge.backends.scipy_backend_object", "ScipyBackendObject", "pip install scipy"),
     "jax": ("fftgauge.backends.jax_fft", "JaxBackend", "pip install 'fftgauge[jax]'"),
+    "torch": ("fftgauge.backends.torch_fft", "TorchBackend", "pip install 'fftgauge[torch]'"),
     "radix2-dit": ("fftgauge.backends.radix2", "Radix2DitBackend", "reinstall fftgauge"),
     "radix2-dif": ("fftgauge.backends.radix2", "Radix2DifBackend", "reinstall fftgauge"),
     "direct": ("fftgauge.backends.direct", "DirectBackend", "reinstall fftgauge"),

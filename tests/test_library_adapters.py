@@ -251,3 +251,19 @@ def test_jax_compiles_in_plan_once_per_case_and_says_x64():
     y = second.execute(second.prepare(np.arange(32.0)))
     assert isinstance(y, np.ndarray) and y.dtype == np.complex128
     assert load_backend("jax[x64=false]").capabilities().dtypes == ("float32",)
+
+
+# -- torch (not in the test extra: skipped unless installed) --------------------------------
+
+@pytest.mark.parametrize("spec", ["torch", "torch[threads=2]"])
+def test_torch_matches_mpmath(spec):
+    pytest.importorskip("torch")
+    assert_matches_mpmath(spec)
+
+
+def test_torch_threads_option_sets_torchs_thread_count():
+    torch = pytest.importorskip("torch")
+    load_backend("torch[threads=2]").plan(Case("fft", "float64", 8))
+    assert torch.get_num_threads() == 2
+    load_backend("torch").plan(Case("fft", "float64", 8))
+    assert torch.get_num_threads() == 1
