@@ -195,3 +195,15 @@ def test_user_radix2_passes_with_the_sizes_it_does_not_handle_named(tmp_path):
                   "--case-budget", "1e-9", "--json", str(tmp_path / "b.json"))
     assert done.returncode == 0, done.stdout + done.stderr
     assert "skipped for time" in done.stdout and "n = 16, 32: skipped for time" in done.stdout, done.stdout
+
+
+def test_a_size_class_extends_to_sizes_beyond_those_it_was_found_among():
+    """in_size_class, by each class's definition: 3000 is no power of two (2^11 = 2048 <
+    3000 < 4096 = 2^12), 4096 is one; 1025 is odd, 1 is not counted as odd; 13 > 12."""
+    pow2 = ("size that is not a power of two", "sizes=pow2")
+    assert unclaimed.in_size_class(pow2, 3000) and not unclaimed.in_size_class(pow2, 4096)
+    odd = ("odd size", None)
+    assert unclaimed.in_size_class(odd, 1025) and not unclaimed.in_size_class(odd, 1)
+    assert not unclaimed.in_size_class(odd, 1024)
+    above = ("size above 12", "max_n=12")
+    assert unclaimed.in_size_class(above, 13) and not unclaimed.in_size_class(above, 12)

@@ -33,3 +33,34 @@ def test_time(fftgauge_timer):
     result = pytester.runpytest_subprocess("-p", "no:cacheprovider", "--benchmark-disable")
     result.assert_outcomes(passed=6, failed=1)
     result.stdout.fnmatch_lines(["*accuracy: fail*[[]sign[]]*"])
+
+
+def test_sizes_a_users_fft_raises_on_are_skipped_with_the_option_that_claims_them(pytester):
+    """A power-of-two-only FFT with nothing declared: battery_params on 1..8,16 runs the
+    powers of two and marks the other sizes skip, saying why and naming [sizes=pow2]; with
+    [sizes=pow2] declared those sizes are not parametrised at all (its claims)."""
+    pytester.makepyfile(pow2_fft="""
+import numpy as np
+def fft(x):
+    n = len(x)
+    if n & (n - 1):
+        raise ValueError(f"size must be a power of two, got {n}")
+    return np.fft.fft(x)
+""")
+    pytester.makepyfile(test_user="""
+import pytest
+from fftgauge.harness.pytest_plugin import battery_params
+
+@pytest.mark.parametrize("case", battery_params("pow2_fft.py:fft", sizes="1..8,16", dtypes=["float64"]))
+def test_found(fftgauge_check, case):
+    fftgauge_check("pow2_fft.py:fft", case, checks=["accuracy"])
+
+@pytest.mark.parametrize("case", battery_params("pow2_fft.py:fft[sizes=pow2]", sizes="1..8,16", dtypes=["float64"]))
+def test_declared(fftgauge_check, case):
+    fftgauge_check("pow2_fft.py:fft[sizes=pow2]", case, checks=["accuracy"])
+""")
+    result = pytester.runpytest_subprocess("-p", "no:cacheprovider", "-rs")
+    # found: 1, 2, 4, 8, 16 pass, 3, 5, 6, 7 skip; declared: the five powers of two only
+    result.assert_outcomes(passed=10, skipped=4)
+    result.stdout.fnmatch_lines(["*raised the same error on every size that is not a power of two*"
+                                 "claim it with --backend 'pow2_fft.py:fft[[]sizes=pow2[]]'*"])

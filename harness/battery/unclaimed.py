@@ -46,6 +46,29 @@ def size_class(raising: set[int], ran: set[int]) -> tuple[str, str | None] | Non
     return None
 
 
+def in_size_class(found_class: tuple[str, str | None], n: int) -> bool:
+    """Return True when size ``n`` belongs to the class :func:`size_class` found (for sizes
+    beyond those it was found among): not a power of two, odd (n = 1 aside), above n."""
+    words, option = found_class
+    if option == "sizes=pow2":
+        return not is_power_of_two(n)
+    if option and option.startswith("max_n="):
+        return n > int(option.split("=", 1)[1])
+    return n % 2 == 1 and n > 1
+
+
+def unclaimed_reason(backend: str, words: str, example: str, spec: str, options: Mapping[str, Any] | None,
+                     option: str | None) -> str:
+    """Return the message of a size class found raising: which class, one example of the error
+    (``example``, a row's message) and, where the backend's ``options`` take ``option``, the
+    ``--backend`` SPEC that claims it."""
+    hint = ""
+    if option and option.split("=")[0] in (options or {}):
+        hint = f"; claim it with --backend '{spec_with_option(spec, option)}'"
+    return (f"{UNCLAIMED_PREFIX} {backend} raised the same error on every {words} "
+            f"({example}); these sizes are treated as outside its claims{hint}")
+
+
 def spec_with_option(spec: str, option: str) -> str:
     """Return ``spec`` with ``option`` (``key=value``) added to its options."""
     if spec.endswith("]") and "[" in spec:
@@ -95,11 +118,7 @@ def unclaim_size_classes(rows: list[dict], backends: Mapping[str, Mapping[str, A
             info = backends.get(backend, {})
             example = next(r["message"] for r in rows if r["backend"] == backend and r["status"] == "error"
                            and int(r["n"]) in raising and message_cause(r.get("message")) == cause)
-            hint = ""
-            if option and option.split("=")[0] in (info.get("options") or {}):
-                hint = f"; claim it with --backend '{spec_with_option(info.get('spec', backend), option)}'"
-            reason = (f"{UNCLAIMED_PREFIX} {backend} raised the same error on every {words} "
-                      f"({example}); these sizes are treated as outside its claims{hint}")
+            reason = unclaimed_reason(backend, words, example, info.get("spec", backend), info.get("options"), option)
             for case in cases:
                 if case[3] in raising:
                     replace[(backend,) + case] = reason
