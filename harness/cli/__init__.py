@@ -24,6 +24,7 @@ COMMANDS: list[tuple[str, str, str]] = [
     ("gate", "fftgauge.harness.cli.gate", "regression gate for CI: candidate against a baseline, exit 1 on a regression"),
     ("report", "fftgauge.harness.cli.report", "turn stored results into plots (PNG/SVG), a scaling analysis and Markdown/HTML tables"),
     ("count", "fftgauge.harness.cli.count", "operation-count tables: direct DFT and radix-2 models against instrumented counts"),
+    ("pick", "fftgauge.harness.cli.pick", "which backend to ship for a workload: battery and timer on it, ranked, in words"),
 ]
 
 EXIT_OK, EXIT_FAILED, EXIT_USAGE = 0, 1, 2
