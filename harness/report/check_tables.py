@@ -165,7 +165,8 @@ def format_summary(df: pd.DataFrame, backends: dict[str, Any] | None = None) -> 
     counts = case_counts(df.to_dict("records"))
     verdict = ("PASS: every case held" if counts["wrong"] + counts["error"] == 0 else
                f"FAIL: {counts['wrong']} case(s) gave wrong answers, {counts['error']} could not run (raised, "
-               f"crashed, timed out or returned something unusable), {counts['passed']} passed")
+               f"crashed, timed out, returned something unusable or left processes running), "
+               f"{counts['passed']} passed")
     lines = [verdict, "", text]
     conventions = convention_lines(backends)
     if conventions:
