@@ -19,6 +19,7 @@ from fftgauge.harness.cases import DTYPES, KINDS, NORMS, is_power_of_two
 # ORDERS, natural, bit-reversed and centred output; PACKINGS, the layouts of a half spectrum,
 # with pack_half_spectrum/unpack_half_spectrum), which also converts a reference to them.
 from fftgauge.harness.dft import ORDERS, PACKINGS, SCALES, SIGNS  # noqa: F401 - re-exported
+from fftgauge.harness.fixed.declared import FixedScaling
 
 #: Size forms a rule states: every size, or powers of two only.
 SIZE_FORMS = ("any", "pow2")
@@ -203,6 +204,9 @@ class Capabilities:
     pure_python: bool = False
     conventions: Conventions = field(default_factory=Conventions)
     bitwise_reproducible: bool = True
+    #: Fixed-point (q15/q31) cases: the declared output shift, scaling and rounding
+    #: (:class:`~fftgauge.harness.fixed.declared.FixedScaling`); None: none declared.
+    fixed: FixedScaling | None = None
 
     def __post_init__(self) -> None:
         set_ = object.__setattr__
@@ -258,6 +262,7 @@ class Capabilities:
                            for k, r in self.size_rules],
             "pure_python": self.pure_python, "conventions": self.conventions.as_dict(),
             "bitwise_reproducible": self.bitwise_reproducible,
+            **({"fixed": self.fixed.as_dict()} if self.fixed is not None else {}),
         }
 
 

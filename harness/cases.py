@@ -19,10 +19,14 @@ from fftgauge.harness.errors import UsageError
 __all__ = ["DTYPES", "KINDS", "NORMS", "Case", "is_power_of_two", "norm_factor", "parse_choice_list"]
 
 KINDS = ("fft", "ifft", "rfft", "irfft")
-DTYPES = ("float32", "float64", "longdouble")
+DTYPES = ("float32", "float64", "longdouble", "q15", "q31")
 
-_REAL = {"float32": np.float32, "float64": np.float64, "longdouble": np.longdouble}
-_COMPLEX = {"float32": np.complex64, "float64": np.complex128, "longdouble": np.clongdouble}
+#: The fixed-point precisions (integer data; complex as (n, 2) pairs: harness/fixed/formats.py).
+FIXED_DTYPES = ("q15", "q31")
+
+_REAL = {"float32": np.float32, "float64": np.float64, "longdouble": np.longdouble, "q15": np.int16, "q31": np.int32}
+_COMPLEX = {"float32": np.complex64, "float64": np.complex128, "longdouble": np.clongdouble,
+            "q15": np.int16, "q31": np.int32}
 
 
 @dataclass(frozen=True, order=True)

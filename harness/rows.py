@@ -16,7 +16,7 @@ STATUSES = ("pass", "fail", "error", "skip")
 DIAGNOSES = (
     "sign", "scale", "bit-reversed", "shifted", "precision", "truncated-size", "input-modified",
     "nondeterministic", "dtype", "shape", "nonfinite", "real-only", "thread-unsafe", "overflow", "user-limit",
-    "localised", "time-shifted", "output-aliased", "unknown",
+    "localised", "time-shifted", "output-aliased", "scaling-shift", "rounding", "twiddle-bits", "unknown",
 )
 
 

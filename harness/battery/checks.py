@@ -34,7 +34,7 @@ from fftgauge.harness.battery.value_checks import (
     check_accuracy, check_impulse, check_linearity, check_modulation, check_parseval, check_round_trip,
     check_symmetry, check_time_shift,
 )
-from fftgauge.harness.cases import Case
+from fftgauge.harness.cases import FIXED_DTYPES, Case
 from fftgauge.harness.errors import BackendFailure, UsageError
 from fftgauge.harness.execution.crash import exception_text
 from fftgauge.harness.rows import CheckRow, error_rows, skip_rows
@@ -129,6 +129,9 @@ def check_case(backend: Backend, case: Case, seed: int, check_names: list[str] |
     if unknown:
         raise UsageError(f"unknown check {unknown[0]!r}; checks: {', '.join(CHECKS)}")
 
+    if case.dtype in FIXED_DTYPES:  # q15/q31: the fixed-point checks (harness/fixed/checks.py)
+        from fftgauge.harness.fixed.checks import fixed_check_case
+        return fixed_check_case(backend, case, seed)
     reason = backend.unsupported_reason(case) or convention_reason(backend, case)
     if reason is not None:
         return skip_rows(backend.label, case, names, reason)

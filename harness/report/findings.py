@@ -36,6 +36,9 @@ DIAGNOSIS_MEANINGS = {
                  "butterfly or symmetry step, not rounding",
     "time-shifted": "every bin off by a phase growing linearly with k: the input delayed by d samples (d may be fractional)",
     "output-aliased": "the array returned is the function's own buffer: the caller's previous result changes on the next call",
+    "scaling-shift": "a fixed-point output is right but shifted by other bits than its declared output shift",
+    "rounding": "a fixed-point SQNR matching a radix-2 that truncates where rounding was declared (or the reverse)",
+    "twiddle-bits": "a fixed-point SQNR matching a radix-2 whose twiddle factors have too few bits",
     "unknown": "wrong, and none of the known bugs explains it",
 }
 

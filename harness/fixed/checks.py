@@ -1,0 +1,203 @@
+"""The fixed-point checks of one q15/q31 case, their verdicts and diagnoses.
+
+``sqnr``      on every signal and level where the exact answer fits the format, the
+              backend's SQNR is at most ``margin_db`` below the built-in radix-2's with the
+              same scaling and rounding; the row's ``value`` is the worst shortfall in dB,
+              ``limit`` the margin.
+``overflow``  over a sweep of a tone and noise from 0 to -12 dBFS, the backend never wraps
+              around where the reference does not, and reaches the rails at no level more
+              than 1 dB below the lowest level where the reference does; ``value`` is the
+              number of wrapped output parts over the sweep, ``limit`` the reference's.
+
+A failing row's diagnosis names the first hypothesis that explains the measured SQNRs
+(:func:`diagnose`): ``overflow`` (wrap-around), ``scaling-shift`` (the outputs match the exact
+DFT under another shift), ``rounding`` (they match the reference that truncates),
+``twiddle-bits`` (they match the reference with 8-, 10- or 12-bit twiddles), else ``precision``.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any, Callable
+
+import numpy as np
+
+from fftgauge.harness.battery.context import OutputProblem
+from fftgauge.harness.errors import BackendFailure
+from fftgauge.harness.fixed.declared import FixedScaling
+from fftgauge.harness.fixed.formats import QFormat, fixed_format
+from fftgauge.harness.fixed.measure import Point, exact_output, measure_points, read_output, reference_for
+from fftgauge.harness.fixed.metrics import sqnr_db
+from fftgauge.harness.fixed.signals import LEVELS_DBFS, test_signal
+from fftgauge.harness.rows import CheckRow, error_rows, skip_rows
+
+__all__ = ["DEFAULT_MARGIN_DB", "FIXED_CHECKS", "SWEEP_DBFS", "diagnose", "fixed_check_case", "overflow_row",
+           "sqnr_row"]
+
+#: The fixed-point checks, in the order they run.
+FIXED_CHECKS = ("sqnr", "overflow")
+
+#: dB the backend's SQNR may be below the reference's before ``sqnr`` fails.
+DEFAULT_MARGIN_DB = 1.0
+
+#: Levels of the overflow sweep (dBFS).
+SWEEP_DBFS = tuple(float(-k) for k in range(13))
+
+#: Distance (mean |dB|) within which a hypothesis's SQNRs explain the backend's.
+MATCH_DB = 1.0
+
+#: Twiddle widths the ``twiddle-bits`` hypothesis tries.
+TWIDDLE_HYPOTHESES = (8, 10, 12)
+
+
+def fixed_check_case(backend: Any, case: Any, seed: int, margin_db: float = DEFAULT_MARGIN_DB) -> list[CheckRow]:
+    """Plan the q15/q31 ``case`` on ``backend`` and return the rows of :data:`FIXED_CHECKS`.
+
+    A case outside the backend's claims, a kind other than ``fft``, or a backend without a
+    declared :class:`FixedScaling` (``Capabilities(fixed=...)``) gives ``skip`` or ``error``
+    rows; a plan or a run that raises gives ``error`` rows; an output of floats or of the
+    wrong shape gives ``fail`` rows (``dtype``/``shape``). Never raises for the backend's sake.
+    """
+    names = list(FIXED_CHECKS)
+    label = backend.label
+    reason = backend.unsupported_reason(case)
+    if reason is None and case.kind != "fft":
+        reason = f"the fixed-point checks cover fft only (not {case.kind})"
+    if reason is None and case.n & (case.n - 1):
+        reason = f"the fixed-point reference is a radix-2: powers of two only (n = {case.n})"
+    if reason is not None:
+        return skip_rows(label, case, names, reason)
+    declared = getattr(backend.capabilities(), "fixed", None)
+    if not isinstance(declared, FixedScaling):
+        return error_rows(label, case, names, f"{label} declares no fixed-point scaling: give its capabilities "
+                                              "fixed=FixedScaling(output_shift=...) (docs/fixed-point.md)")
+    fmt = fixed_format(case.dtype)
+    try:
+        plan = backend.plan(case)
+    except Exception as exc:  # noqa: BLE001 - a plan that raises is an error row
+        return error_rows(label, case, names, f"planning failed: {type(exc).__name__}: {exc}")
+    try:
+        return [sqnr_row(label, case, plan.execute, fmt, declared, seed, margin_db),
+                overflow_row(label, case, plan.execute, fmt, declared, seed)]
+    except OutputProblem as problem:
+        return [row_of(label, case, name, "fail", diagnosis=problem.code, message=problem.message) for name in names]
+    except Exception as exc:  # noqa: BLE001 - the backend raised or returned something unusable
+        return error_rows(label, case, names, f"{type(exc).__name__}: {exc}" if not isinstance(exc, BackendFailure)
+                          else str(exc))
+    finally:
+        try:
+            plan.close()
+        except Exception:  # noqa: BLE001
+            pass
+
+
+def row_of(label: str, case: Any, check: str, status: str, **fields: Any) -> CheckRow:
+    """Return a :class:`CheckRow` of ``check`` for ``case``."""
+    return CheckRow(backend=label, kind=case.kind, dtype=case.dtype, n=case.n, check=check, status=status,
+                    norm=case.norm, **fields)
+
+
+def sqnr_row(label: str, case: Any, run: Callable, fmt: QFormat, declared: FixedScaling, seed: int,
+             margin_db: float) -> CheckRow:
+    """Return the ``sqnr`` row: the worst shortfall against the reference over the grid."""
+    reference = reference_for(fmt, declared)
+    points = measure_points(run, fmt, case.n, declared, reference, seed)
+    judged = judged_points(points)
+    if not judged:
+        return row_of(label, case, "sqnr", "skip", message=f"no noise level of {', '.join(map(str, LEVELS_DBFS))} "
+                      f"dBFS gives an exact output that fits {fmt.name} with the declared shift")
+    worst = max(judged, key=lambda p: p.shortfall_db)
+    status = "pass" if worst.shortfall_db <= margin_db else "fail"
+    diagnosis = diagnose(points, run, fmt, case.n, declared, seed, margin_db) if status == "fail" else None
+    tone = next((p for p in points if p.signal == "tone" and p.level_dbfs == 0.0), None)
+    gap = worst.shortfall_db
+    words = f"{abs(gap):.1f} dB {'worse' if gap > 0 else 'better'} than" if abs(gap) >= 0.05 else "as good as"
+    message = (f"worst on {worst.signal} at {worst.level_dbfs:g} dBFS: SQNR {worst.backend.sqnr_db:.1f} dB, "
+               f"{words} a {reference.describe()} "
+               f"({worst.reference.sqnr_db:.1f} dB; margin {margin_db:g} dB); max error "
+               f"{worst.backend.max_error_lsb:.3g} LSB")
+    if tone is not None and math.isfinite(tone.backend.enob):
+        message += f"; ENOB {tone.backend.enob:.1f} bits at a full-scale tone (reference {tone.reference.enob:.1f})"
+    message += ("; SQNR dB (backend/reference) " +
+                ", ".join(f"{p.signal}@{p.level_dbfs:g}={p.backend.sqnr_db:.1f}/{p.reference.sqnr_db:.1f}"
+                          for p in points if p.representable))
+    return row_of(label, case, "sqnr", status, value=float(worst.shortfall_db), limit=float(margin_db),
+                  diagnosis=diagnosis, message=message, reference=reference.describe())
+
+
+def judged_points(points: list[Point]) -> list[Point]:
+    """Return the points the ``sqnr`` verdict judges: the noise at every level where the exact
+    output fits the format and the reference is not exact. A tone's and an impulse's SQNRs
+    depend on where each rounding error falls (two sound designs differ by several dB), so
+    they are reported, not judged; the noise's SQNR is stable to a few tenths of a dB."""
+    return [p for p in points if p.signal == "noise" and p.representable and math.isfinite(p.reference.sqnr_db)]
+
+
+def first_overflow_level(points: list[Point], which: str) -> float | None:
+    """Return the lowest level (dBFS) at which ``which`` (``backend``/``reference``) has an
+    output part at the rails or wrapped around, or None when it has none on the sweep."""
+    hit = [p.level_dbfs for p in points if getattr(p, which).at_rails or getattr(p, which).wrapped]
+    return min(hit) if hit else None
+
+
+def overflow_row(label: str, case: Any, run: Callable, fmt: QFormat, declared: FixedScaling, seed: int) -> CheckRow:
+    """Return the ``overflow`` row: wrap-around and the saturation onset against the reference."""
+    reference = reference_for(fmt, declared)
+    points = measure_points(run, fmt, case.n, declared, reference, seed, signals=("tone", "noise"), levels=SWEEP_DBFS)
+    wrapped = sum(p.backend.wrapped for p in points)
+    ref_wrapped = sum(p.reference.wrapped for p in points)
+    mine, theirs = first_overflow_level(points, "backend"), first_overflow_level(points, "reference")
+    said = f"outputs at the rails from {mine:g} dBFS" if mine is not None else "no outputs at the rails"
+    ref_said = f"from {theirs:g} dBFS" if theirs is not None else "at no level down to 0 dBFS"
+    message = f"{said} (a {reference.describe()}: {ref_said}); {wrapped} parts wrapped around over the sweep"
+    less_headroom = mine is not None and (theirs is None or mine < theirs - 1.0)
+    failed = wrapped > ref_wrapped or less_headroom
+    if wrapped > ref_wrapped:
+        first = max(p.level_dbfs for p in points if p.backend.wrapped)
+        message += f" (wraps around at {first:g} dBFS: missing saturation)"
+    return row_of(label, case, "overflow", "fail" if failed else "pass", value=float(wrapped),
+                  limit=float(ref_wrapped), diagnosis="overflow" if failed else None, message=message,
+                  reference=reference.describe())
+
+
+def diagnose(points: list[Point], run: Callable, fmt: QFormat, n: int, declared: FixedScaling, seed: int,
+             margin_db: float) -> str:
+    """Return the diagnosis code of a failing ``sqnr``: the first hypothesis that explains the
+    backend's SQNRs (see the module docstring), else ``precision``."""
+    judged = judged_points(points)
+    if any(p.backend.wrapped for p in judged):
+        return "overflow"
+    if shift_error(judged, run, fmt, n, declared, seed) is not None:
+        return "scaling-shift"
+    mine = np.array([p.backend.sqnr_db for p in judged])
+    other = "round-half-up" if declared.rounding == "truncate" else "truncate"
+    hypotheses = [("rounding", {"rounding": other})] + [("twiddle-bits", {"twiddle_bits": tb})
+                                                         for tb in TWIDDLE_HYPOTHESES if tb < fmt.bits - 1]
+    for code, changes in hypotheses:
+        variant = reference_for(fmt, declared, **changes)
+        keys = {(p.signal, p.level_dbfs) for p in judged}
+        theirs = [p for p in measure_points(run, fmt, n, declared, variant, seed) if (p.signal, p.level_dbfs) in keys]
+        sq = np.array([p.reference.sqnr_db for p in theirs])
+        if np.all(np.isfinite(sq)) and np.all(np.isfinite(mine)) and np.mean(np.abs(sq - mine)) <= MATCH_DB:
+            return code
+    return "precision"
+
+
+def shift_error(judged: list[Point], run: Callable, fmt: QFormat, n: int, declared: FixedScaling,
+                seed: int) -> int | None:
+    """Return k != 0 when the backend's outputs times 2**k match the exact DFT (its real
+    output shift is the declared one plus k) far better than as declared, else None.
+
+    Tried on each judged noise level: the best k must bring the SQNR within 6 dB of the
+    reference's and at least 10 dB above k = 0.
+    """
+    for point in judged:
+        x = test_signal("noise", n, point.level_dbfs, fmt, seed)
+        y, shift = read_output(run(x.copy()), fmt, n, declared.shift_at(n))
+        exact = exact_output(x, shift)
+        got = y[:, 0].astype(np.longdouble) + 1j * y[:, 1].astype(np.longdouble)
+        scores = {k: sqnr_db(exact, got * np.longdouble(2.0) ** k) for k in range(-fmt.bits, fmt.bits + 1)}
+        best = max(scores, key=lambda k: scores[k])
+        if best != 0 and scores[best] >= point.reference.sqnr_db - 6.0 and scores[best] >= scores[0] + 10.0:
+            return best
+    return None

@@ -1,0 +1,116 @@
+"""Running a fixed-point plan and its reference over the test signals and levels.
+
+:func:`measure_points` runs one backend plan and the built-in reference with the same
+scaling on every (signal, level) of a grid and returns a :class:`Point` for each: both
+outputs' :class:`~fftgauge.harness.fixed.metrics.FixedMetrics` against the exact DFT of the
+quantised input (extended precision, :func:`fftgauge.harness.battery.reference.reference_transform`)
+shifted by the declared output shift.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any, Callable, Iterable
+
+import numpy as np
+
+from fftgauge.harness.battery.context import OutputProblem
+from fftgauge.harness.battery.reference import reference_transform
+from fftgauge.harness.cases import Case
+from fftgauge.harness.errors import BackendFailure
+from fftgauge.harness.fixed.declared import FixedScaling
+from fftgauge.harness.fixed.formats import QFormat
+from fftgauge.harness.fixed.metrics import FixedMetrics, measure
+from fftgauge.harness.fixed.radix2 import FixedRadix2
+from fftgauge.harness.fixed.signals import LEVELS_DBFS, SIGNALS, test_signal
+
+__all__ = ["Point", "exact_output", "measure_points", "read_output", "reference_for"]
+
+
+@dataclass(frozen=True)
+class Point:
+    """One signal at one level: the backend's and the reference's metrics, and whether the
+    exact answer fits the format (``representable``: no exact part beyond the rails)."""
+
+    signal: str
+    level_dbfs: float
+    backend: FixedMetrics
+    reference: FixedMetrics
+    representable: bool
+
+    @property
+    def shortfall_db(self) -> float:
+        """Return how many dB the backend's SQNR is below the reference's (negative: better)."""
+        return self.reference.sqnr_db - self.backend.sqnr_db
+
+
+def reference_for(fmt: QFormat, declared: FixedScaling, **changes: Any) -> FixedRadix2:
+    """Return the built-in reference with the declared scaling and rounding (``changes``
+    override its fields: a hypothesis's other rounding or twiddle width)."""
+    fields = {"fmt": fmt, "scaling": declared.scaling, "rounding": declared.rounding, **changes}
+    return FixedRadix2(**fields)
+
+
+def exact_output(x: np.ndarray, shift: int) -> np.ndarray:
+    """Return the exact DFT of ``(n, 2)`` integer pairs ``x`` divided by 2**shift, in LSBs
+    (complex long double; :func:`reference_transform`, scipy on long double)."""
+    z = x[:, 0].astype(np.float64) + 1j * x[:, 1].astype(np.float64)
+    ref = reference_transform(z, Case("fft", "float64", int(x.shape[0])))
+    return (ref.hi.astype(np.clongdouble) + ref.lo.astype(np.clongdouble)) / np.longdouble(2.0) ** shift
+
+
+def read_output(out: Any, fmt: QFormat, n: int, declared_shift: int | None) -> tuple[np.ndarray, int]:
+    """Return a plan's output as int64 ``(n, 2)`` pairs and the output shift of that call.
+
+    A ``block`` backend returns ``(pairs, exponent)``; others return the pairs.
+
+    Raises
+    ------
+    OutputProblem
+        ``dtype`` for floats or booleans, ``shape`` for another shape (interleaved ``(2n,)``
+        is accepted).
+    BackendFailure
+        For integers outside the format's range, or a block backend that returns no exponent.
+    """
+    if declared_shift is None:
+        if not (isinstance(out, tuple) and len(out) == 2):
+            raise BackendFailure("a block-floating-point backend returns (pairs, exponent); got one array")
+        out, shift = out[0], int(out[1])
+    else:
+        shift = declared_shift
+    y = np.asarray(out)
+    if not np.issubdtype(y.dtype, np.integer):
+        raise OutputProblem("dtype", f"a {fmt.name} transform returns integers, got dtype {y.dtype}")
+    if y.shape == (2 * n,):
+        y = y.reshape(n, 2)
+    if y.shape != (n, 2):
+        raise OutputProblem("shape", f"a {fmt.name} transform returns ({n}, 2) pairs, got shape {y.shape}")
+    y = y.astype(np.int64)
+    if y.size and (y.min() < fmt.min_int or y.max() > fmt.max_int):
+        raise BackendFailure(f"output values outside the {fmt.name} range [{fmt.min_int}, {fmt.max_int}]: "
+                             f"{int(y.min())}..{int(y.max())}")
+    return y, shift
+
+
+def measure_points(run: Callable[[np.ndarray], Any], fmt: QFormat, n: int, declared: FixedScaling,
+                   reference: FixedRadix2, seed: int, signals: Iterable[str] = SIGNALS,
+                   levels: Iterable[float] = LEVELS_DBFS) -> list[Point]:
+    """Return one :class:`Point` per (signal, level): ``run`` (the plan's execute) and the
+    reference on the same quantised input, each judged against the exact DFT with its shift.
+
+    Raises
+    ------
+    OutputProblem, BackendFailure
+        As :func:`read_output`; whatever ``run`` raises.
+    """
+    points = []
+    for signal in signals:
+        for level in levels:
+            x = test_signal(signal, n, level, fmt, seed)
+            y, shift = read_output(run(x.copy()), fmt, n, declared.shift_at(n))
+            r = reference.transform(x)
+            exact = exact_output(x, shift)
+            fits = bool(np.all(np.abs(exact.real) <= fmt.max_int) and np.all(np.abs(exact.imag) <= fmt.max_int))
+            ref_metrics = measure(r.pairs, exact_output(x, r.exponent) if r.exponent != shift else exact, fmt)
+            points.append(Point(signal, float(level), measure(y, exact, fmt), ref_metrics, fits))
+    return points
