@@ -36,8 +36,9 @@ def seconds_text(seconds: float) -> str:
 
 
 def round_up_calls(calls: float) -> int:
-    """Return ``calls`` rounded up to two significant figures (1234 -> 1300), at least 1."""
-    whole = max(1, math.ceil(calls))
+    """Return ``calls`` rounded up to two significant figures (1234 -> 1300), at least 1
+    (a quotient a rounding error above a whole number, 1000.0000000000001, counts as it)."""
+    whole = max(1, math.ceil(calls * (1 - 1e-12)))
     step = 10 ** max(0, len(str(whole)) - 2)
     return int(math.ceil(whole / step) * step)
 
