@@ -382,3 +382,16 @@ def test_the_budget_probe_times_a_packed_irfft(spec):
 
     probes = measure_call_seconds(backend(spec), [("irfft", "float64", 16, "backward")], seed=3)
     assert len(probes) == 1 and probes[0][0] == 16 and probes[0][1] is not None
+
+
+def test_time_skips_a_size_its_declared_order_cannot_be_given_at():
+    """order=bit-reversed needs a power of two (dft.bit_reversal_permutation): ``time`` at
+    n = 12 is a skip row saying so, as ``check`` gives, not an error from the conversion."""
+    from fftgauge.harness.timing.runner import TimingRequest, run_timing
+
+    spec = f"{ROUTINES}:bitreversed_dit+unscaled_ifft[order=bit-reversed,inverse_scale=1/n]"
+    rows = run_timing(TimingRequest(specs=(spec,), kinds=("fft", "ifft"), dtypes=("float64",), sizes=(8, 12),
+                                    samples=5, measure_memory=False, rounds=1))["rows"]
+    assert sorted((r["kind"], r["n"], r["status"]) for r in rows) == [
+        ("fft", 8, "ok"), ("fft", 12, "skip"), ("ifft", 8, "ok"), ("ifft", 12, "skip")]
+    assert all("order=bit-reversed needs a power-of-two size (n = 12)" in r["message"] for r in rows if r["n"] == 12)

@@ -16,7 +16,7 @@ from typing import Any
 import numpy as np
 
 from fftgauge.backends.base import Backend, Plan
-from fftgauge.harness.battery.conventions import declared_input_plan
+from fftgauge.harness.battery.conventions import backend_convention, declared_input_plan
 from fftgauge.harness.battery.inputs import case_rng, random_input
 from fftgauge.harness.cases import Case
 from fftgauge.harness.errors import UnsupportedCase
@@ -117,7 +117,8 @@ def time_case(backend: Backend, case_fields: tuple, options: dict, clock: Clock 
     Raises
     ------
     UnsupportedCase
-        When the backend does not claim the case.
+        When the backend does not claim the case, or its declared convention cannot be
+        given at the case's size (``order=bit-reversed`` needs a power of two).
     ValueError
         For an unknown option key.
     Exception
@@ -125,7 +126,7 @@ def time_case(backend: Backend, case_fields: tuple, options: dict, clock: Clock 
     """
     case = Case(*case_fields)
     settings, rest = _split_options(options)
-    reason = backend.unsupported_reason(case)
+    reason = backend.unsupported_reason(case) or backend_convention(backend).unsupported_reason(case)
     if reason is not None:
         raise UnsupportedCase(reason)
     key = (tuple(case_fields), rest["seed"])
