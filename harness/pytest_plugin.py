@@ -45,7 +45,7 @@ PROBE_SECONDS = 0.5
 def battery_params(spec: str, sizes: str = "@default", kinds: Sequence[str] | None = None,
                    dtypes: Sequence[str] = ("float32", "float64"), norms: Sequence[str] = ("backward",)) -> list:
     """Return one ``pytest.param(Case)`` per case the backend claims (others, by its claims'
-    ``unsupported_reason``, are left out).
+    ``unsupported_reason`` or a size its declared convention cannot be given at, are left out).
 
     A backend that raises without having declared it (a user's radix-2 on a non-power of
     two) is called once per size at collection time (sizes up to :data:`PROBE_MAX_N`, smallest
@@ -61,12 +61,14 @@ def battery_params(spec: str, sizes: str = "@default", kinds: Sequence[str] | No
         For a malformed size list or a SPEC that does not load (at collection time).
     """
     from fftgauge.backends.registry import load_backend
+    from fftgauge.harness.battery.conventions import backend_convention
     from fftgauge.harness.sizes import parse_sizes
 
     backend = load_backend(spec)
     kinds = kinds or backend.capabilities().kinds
     cases = [Case(k, d, n, norm) for k in kinds for d in dtypes for norm in norms for n in parse_sizes(sizes)]
-    cases = [c for c in cases if backend.unsupported_reason(c) is None]
+    convention = backend_convention(backend)
+    cases = [c for c in cases if backend.unsupported_reason(c) is None and convention.unsupported_reason(c) is None]
     reasons = size_class_reasons(spec, backend, cases)
     return [pytest.param(c, id=f"{c.kind}-{c.dtype}-{c.n}" + ("" if c.norm == "backward" else f"-{c.norm}"),
                          marks=[pytest.mark.skip(reason=reasons[c])] if c in reasons else [])

@@ -64,3 +64,15 @@ def test_declared(fftgauge_check, case):
     result.assert_outcomes(passed=10, skipped=4)
     result.stdout.fnmatch_lines(["*raised the same error on every size that is not a power of two*"
                                  "claim it with --backend 'pow2_fft.py:fft[[]sizes=pow2[]]'*"])
+
+
+def test_sizes_a_declared_order_cannot_be_given_at_are_not_parametrised():
+    """order=bit-reversed needs a power of two: of 1..16 only 1, 2, 4, 8, 16 are cases."""
+    from pathlib import Path
+
+    from fftgauge.harness.pytest_plugin import battery_params
+
+    spec = f"{Path(__file__).parent / 'data' / 'convention_ffts.py'}:bitreversed_dit[order=bit-reversed]"
+    params = battery_params(spec, sizes="1..16", dtypes=["float64"])
+    assert [p.id for p in params] == [f"fft-float64-{n}" for n in (1, 2, 4, 8, 16)]
+    assert not any(p.marks for p in params)
