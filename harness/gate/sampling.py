@@ -82,6 +82,7 @@ def _prepared(backend: Any, case_fields: tuple, seed: int, threads: int | None) 
     key = (tuple(case_fields), seed)
     if key in _PREPARED:
         return _PREPARED[key]
+    from fftgauge.harness.battery.conventions import declared_input_plan
     from fftgauge.harness.battery.inputs import case_rng, random_input
     from fftgauge.harness.timing.clock import autorange, gc_paused, time_empty_loop, warm_up
 
@@ -94,6 +95,7 @@ def _prepared(backend: Any, case_fields: tuple, seed: int, threads: int | None) 
     start = time.perf_counter()
     plan = backend.plan(case)
     plan_seconds = time.perf_counter() - start
+    plan = declared_input_plan(backend, plan)  # inputs in the backend's declared convention
     try:
         x_in = plan.prepare(np.array(x, copy=True))
         with gc_paused():
