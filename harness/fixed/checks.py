@@ -4,10 +4,12 @@
               backend's SQNR is at most ``margin_db`` below the built-in radix-2's with the
               same scaling and rounding; the row's ``value`` is the worst shortfall in dB,
               ``limit`` the margin.
-``overflow``  over a sweep of a tone and noise from 0 to -12 dBFS, the backend never wraps
-              around where the reference does not, and reaches the rails at no level more
-              than 1 dB below the lowest level where the reference does; ``value`` is the
-              number of wrapped output parts over the sweep, ``limit`` the reference's.
+``overflow``  over a sweep of a tone and noise from 0 to -12 dBFS, the backend has no more
+              output parts far off (:attr:`FixedMetrics.wrapped`: more than half the range
+              from the exact answer clipped to the rails) than the saturating reference
+              with the same scaling, and reaches the rails at no level more than 1 dB below
+              the lowest level where the reference does; ``value`` is the backend's count of
+              far-off parts over the sweep, ``limit`` the reference's.
 
 A failing row's diagnosis names the first hypothesis that explains the measured SQNRs
 (:func:`diagnose`): ``overflow`` (wrap-around), ``scaling-shift`` (the outputs match the exact
@@ -149,12 +151,13 @@ def overflow_row(label: str, case: Any, run: Callable, fmt: QFormat, declared: F
     mine, theirs = first_overflow_level(points, "backend"), first_overflow_level(points, "reference")
     said = f"outputs at the rails from {mine:g} dBFS" if mine is not None else "no outputs at the rails"
     ref_said = f"from {theirs:g} dBFS" if theirs is not None else "at no level down to 0 dBFS"
-    message = f"{said} (a {reference.describe()}: {ref_said}); {wrapped} parts wrapped around over the sweep"
+    message = (f"{said} (a {reference.describe()}: {ref_said}); {wrapped} output parts more than half the range "
+               f"off over the sweep (the reference: {ref_wrapped})")
     less_headroom = mine is not None and (theirs is None or mine < theirs - 1.0)
     failed = wrapped > ref_wrapped or less_headroom
     if wrapped > ref_wrapped:
-        first = max(p.level_dbfs for p in points if p.backend.wrapped)
-        message += f" (wraps around at {first:g} dBFS: missing saturation)"
+        first = min(p.level_dbfs for p in points if p.backend.wrapped > p.reference.wrapped)
+        message += f"; wraps around from {first:g} dBFS where the reference saturates: missing saturation"
     return row_of(label, case, "overflow", "fail" if failed else "pass", value=float(wrapped),
                   limit=float(ref_wrapped), diagnosis="overflow" if failed else None, message=message,
                   reference=reference.describe())

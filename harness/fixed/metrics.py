@@ -69,9 +69,11 @@ def measure(output: np.ndarray, exact: np.ndarray, fmt: QFormat) -> FixedMetrics
     """Return the :class:`FixedMetrics` of ``output`` pairs against ``exact`` (complex, LSBs).
 
     A part is *at the rails* when it equals the format's lowest or highest integer. A part
-    *wrapped around* when it lies more than half the format's range (2**(bits-1) LSBs) from
-    the exact value clipped to the rails: saturation cannot move a part that far from where
-    clipping puts it, a two's-complement wrap moves it by the whole range.
+    is counted as *wrapped* when it lies more than half the format's range (2**(bits-1) LSBs)
+    from the exact value clipped to the rails: a two's-complement wrap moves a part by the
+    whole range; saturation of the output alone moves none that far, but saturation inside
+    an early stage of a heavily overflowing transform (no scaling) can garble later parts as
+    much, so the checks compare this count with the saturating reference's, never with 0.
     """
     y = np.asarray(output)
     got = pairs_to_complex(y)

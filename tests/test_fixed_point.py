@@ -1,0 +1,221 @@
+"""Fixed-point (q15/q31): formats, metrics, the radix-2 reference, the checks and verdicts.
+
+Sources, beside each test: IEEE Std 1241 for ENOB; common practice for the ideal
+quantiser's SQNR; Oppenheim & Schafer, Discrete-Time Signal Processing, 3rd ed., section 9.7
+for the growth of the scaled radix-2's noise with N; an exact rational implementation
+written for the tests (tests/data/fixed_point_ffts.py, Fractions and mpmath) for the
+reference's arithmetic bit for bit.
+"""
+
+from __future__ import annotations
+
+import math
+import sys
+from fractions import Fraction
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from fftgauge.harness.cases import Case
+from fftgauge.harness.fixed.checks import fixed_check_case
+from fftgauge.harness.fixed.declared import FixedScaling
+from fftgauge.harness.fixed.formats import FORMATS, handle_overflow, quantise, shift_right
+from fftgauge.harness.fixed.measure import exact_output
+from fftgauge.harness.fixed.metrics import enob_from_sinad, ideal_sqnr_db, measure, sqnr_db
+from fftgauge.harness.fixed.radix2 import SCALINGS, FixedRadix2
+
+sys.path.insert(0, str(Path(__file__).parent / "data"))
+import fixed_point_ffts as twins  # noqa: E402
+
+Q15, Q31 = FORMATS["q15"], FORMATS["q31"]
+
+
+# -- formats -------------------------------------------------------------------------------
+
+@pytest.mark.parametrize("rounding", ["truncate", "round-half-up", "convergent"])
+def test_shift_right_matches_exact_rationals(rounding):
+    """Each rounding rule against its definition on exact rationals (floor; floor(q + 1/2);
+    Python's round of a Fraction, half to even), ties included."""
+    rng = np.random.default_rng(3)
+    values = list(rng.integers(-(1 << 62), 1 << 62, 300)) + list(range(-40, 41))
+    for shift in (1, 2, 5, 15, 31):
+        got = shift_right(np.array(values, dtype=np.int64), shift, rounding)
+        want = [twins.rshift(int(v), shift, rounding) for v in values]
+        assert got.tolist() == want
+
+
+def test_wrap_and_saturate_match_twos_complement():
+    """Wrap-around is arithmetic modulo 2**16 into [-32768, 32767]; saturation clips
+    (two's complement, common practice)."""
+    values = np.array([-70000, -32769, -32768, 0, 32767, 32768, 65535, 100000], dtype=np.int64)
+    assert handle_overflow(values, Q15, "wrap").tolist() == [twins.fit(int(v), 16, "wrap") for v in values]
+    assert handle_overflow(values, Q15, "wrap").tolist()[4:6] == [32767, -32768]
+    assert handle_overflow(values, Q15, "saturate").tolist() == [-32768, -32768, -32768, 0, 32767, 32767, 32767, 32767]
+
+
+def test_quantise_layout_and_rails():
+    """Complex data is (n, 2) pairs (re, im), interleaved in C order; 1.0 saturates to 32767."""
+    q = quantise(np.array([0.5 - 0.25j, 1.0 + 1j, -1.0]), Q15)
+    assert q.dtype == np.int16 and q.shape == (3, 2)
+    assert q.tolist() == [[16384, -8192], [32767, 32767], [-32768, 0]]
+    assert q.reshape(-1).tolist()[:2] == [16384, -8192]
+
+
+# -- metrics -------------------------------------------------------------------------------
+
+def test_enob_constants_and_inverse():
+    """IEEE Std 1241: ENOB = (SINAD - 1.76)/6.02 (from memory): 1.76 dB is 10 log10(3/2) and
+    6.02 dB is 20 log10 2 to two decimals; the ideal quantiser's 6.02 b + 1.76 gives b back."""
+    assert round(10 * math.log10(1.5), 2) == 1.76
+    assert round(20 * math.log10(2), 2) == 6.02
+    for b in (8, 12, 16, 32):
+        assert enob_from_sinad(ideal_sqnr_db(b)) == pytest.approx(b)
+
+
+def test_ideal_quantiser_of_a_full_scale_sine():
+    """Common practice: an ideal b-bit quantiser gives SQNR 6.02 b + 1.76 dB on a full-scale
+    sine; Q15 (16 bits) by simulation, within 0.1 dB."""
+    n = 1 << 16
+    t = np.arange(n)
+    x = (1 - 2.0 ** -15) * np.sin(2 * np.pi * 0.1234567 * t)
+    q = quantise(x, Q15)[:, 0] / 2.0 ** 15
+    assert sqnr_db(x, q) == pytest.approx(ideal_sqnr_db(16), abs=0.1)
+
+
+def test_measure_counts_rails_and_wraps():
+    """A saturated part sits at a rail; a wrapped part lies a whole range away from where
+    clipping puts it (definitions of docs/fixed-point.md)."""
+    exact = np.array([40000 + 0j, 100 + 0j, -50000 + 0j])
+    saturated = np.array([[32767, 0], [100, 0], [-32768, 0]])
+    wrapped = np.array([[40000 - 65536, 0], [100, 0], [-32768, 0]])
+    assert (measure(saturated, exact, Q15).at_rails, measure(saturated, exact, Q15).wrapped) == (2, 0)
+    assert (measure(wrapped, exact, Q15).at_rails, measure(wrapped, exact, Q15).wrapped) == (1, 1)
+
+
+# -- the reference --------------------------------------------------------------------------
+
+@pytest.mark.parametrize("fmt", [Q15, Q31], ids=["q15", "q31"])
+@pytest.mark.parametrize("scaling", SCALINGS)
+def test_reference_matches_exact_rational_radix2(fmt, scaling):
+    """Bit for bit against tests/data/fixed_point_ffts.py (exact rationals, mpmath twiddles)
+    at N = 1..16, every rounding and overflow rule, full-scale random inputs (so the
+    unscaled one overflows), and 8-bit twiddles."""
+    rng = np.random.default_rng(11)
+    for n in (1, 2, 4, 8, 16):
+        z = rng.uniform(-1, 1, n) + 1j * rng.uniform(-1, 1, n)
+        x = quantise(z / max(1.0, np.max(np.abs(z))) * 0.999, fmt)
+        for rounding in ("truncate", "round-half-up", "convergent"):
+            for overflow, tb in (("saturate", None), ("wrap", None), ("saturate", 8)):
+                ref = FixedRadix2(fmt, scaling, rounding, overflow, tb).transform(x)
+                want, exp = twins.scalar_fft([(int(a), int(b)) for a, b in x], fmt.bits, scaling, rounding,
+                                             overflow, tb)
+                assert ref.pairs.tolist() == [list(p) for p in want], (n, rounding, overflow, tb)
+                assert ref.exponent == exp
+
+
+def uniform_input(n: int, fmt, seed: int) -> np.ndarray:
+    """White input with real and imaginary parts uniform on (-1/sqrt 2, 1/sqrt 2), |x| < 1."""
+    rng = np.random.default_rng(seed)
+    a = 1 / math.sqrt(2)
+    return quantise(rng.uniform(-a, a, n) + 1j * rng.uniform(-a, a, n), fmt)
+
+
+@pytest.mark.parametrize("fmt", [Q15, Q31], ids=["q15", "q31"])
+@pytest.mark.parametrize("scaling,slope", [("stage", -10 * math.log10(2)), ("input", -20 * math.log10(2))])
+def test_sqnr_slope_against_n_follows_oppenheim_schafer(fmt, scaling, slope):
+    """Oppenheim & Schafer, 3rd ed., section 9.7 (from memory): with 1/2 per stage the
+    output noise-to-signal ratio grows like N (about 3.01 dB lost per doubling); with all
+    the scaling at the input, like N^2 (6.02 dB). Simulated: white input with |x| < 1,
+    N = 16..16384, three seeds each, least-squares slope of SQNR against log2 N; tolerance
+    0.25 dB per doubling (the simulation gives -3.01..-3.07 and -5.99..-6.04)."""
+    logs, means = [], []
+    for t in range(4, 15):
+        n = 1 << t
+        values = []
+        for seed in range(3):
+            x = uniform_input(n, fmt, seed)
+            r = FixedRadix2(fmt, scaling, "round-half-up").transform(x)
+            values.append(sqnr_db(exact_output(x, r.exponent), r.pairs[:, 0] + 1j * r.pairs[:, 1].astype(float)))
+        logs.append(t)
+        means.append(np.mean(values))
+    assert np.polyfit(logs, means, 1)[0] == pytest.approx(slope, abs=0.25)
+
+
+def test_stage_scaling_is_safe_below_full_magnitude():
+    """With 1/2 per stage, |a + W b| / 2 <= max(|a|, |b|): an input with |x| < 1 never reaches
+    the rails (Oppenheim & Schafer, 3rd ed., section 9.7, from memory); checked at N = 1024."""
+    x = uniform_input(1024, Q15, 5)
+    out = FixedRadix2(Q15, "stage").transform(x).pairs
+    assert measure(out, exact_output(x, 10), Q15).at_rails == 0
+
+
+# -- the checks: broken twins caught and diagnosed -------------------------------------------
+
+CASE = Case("fft", "q15", 64)
+
+
+def rows_of(backend_cls, case=CASE, margin_db=1.0):
+    return {r.check: r for r in fixed_check_case(backend_cls(), case, 1234, margin_db)}
+
+
+@pytest.mark.parametrize("cls", [twins.ScalarQ15, twins.ScalarQ15Convergent])
+def test_correct_scalar_routines_pass(cls):
+    """Independent correct routines (exact-rational rounding) pass both checks."""
+    rows = rows_of(cls)
+    assert [rows[c].status for c in ("sqnr", "overflow")] == ["pass", "pass"], [r.message for r in rows.values()]
+    assert rows["sqnr"].value <= 1.0 and rows["sqnr"].limit == 1.0
+
+
+@pytest.mark.parametrize("cls,check,code", [
+    (twins.WrongShift, "sqnr", "scaling-shift"),
+    (twins.NoSaturation, "overflow", "overflow"),
+    (twins.Truncating, "sqnr", "rounding"),
+    (twins.EightBitTwiddles, "sqnr", "twiddle-bits"),
+])
+def test_broken_twins_are_caught_and_diagnosed(cls, check, code):
+    """Each bug of tests/data/fixed_point_ffts.py fails its check with its own diagnosis."""
+    row = rows_of(cls)[check]
+    assert (row.status, row.diagnosis) == ("fail", code), row.message
+
+
+def test_margin_decides_the_truncating_twin():
+    """Truncation costs about 2.5 dB on noise (measured here): a 4 dB margin accepts it, and
+    the message says by how much it is worse than the reference."""
+    strict, loose = rows_of(twins.Truncating)["sqnr"], rows_of(twins.Truncating, margin_db=4.0)["sqnr"]
+    assert 1.0 < strict.value < 4.0 and loose.status == "pass"
+    assert "dB worse than a radix-2 q15, 1/2 per stage, round-half-up" in strict.message
+
+
+def test_no_saturation_message_names_the_level():
+    row = rows_of(twins.NoSaturation)["overflow"]
+    assert "wraps around from" in row.message and row.value > row.limit
+
+
+@pytest.mark.parametrize("cls,status", [(twins.ReturnsFloats, "fail"), (twins.OutOfRange, "error"),
+                                        (twins.Undeclared, "error")])
+def test_bad_outputs_and_declarations(cls, status):
+    """Floats: fail (dtype); values beyond the rails or no declared scaling: error rows."""
+    rows = list(rows_of(cls).values())
+    assert {r.status for r in rows} == {status}, [r.message for r in rows]
+    if cls is twins.ReturnsFloats:
+        assert rows[0].diagnosis == "dtype"
+    assert rows[0].message
+
+
+def test_battery_skips_q15_on_a_float_backend():
+    """A float-only backend asked for q15 gives skip rows with the reason (the battery's
+    check_case branches to the fixed-point checks)."""
+    from fftgauge.backends.registry import load_backend
+    from fftgauge.harness.battery.checks import check_case
+
+    rows = check_case(load_backend("numpy"), Case("fft", "q15", 16), 1)
+    assert rows and {r.status for r in rows} == {"skip"} and "q15" in rows[0].message
+
+
+def test_fixed_scaling_validation():
+    assert FixedScaling("log2n").scaling == "stage" and FixedScaling(0).scaling == "none"
+    assert FixedScaling("block").shift_at(64) is None and FixedScaling("log2n").shift_at(64) == 6
+    for bad in ({"output_shift": -1}, {"output_shift": "half"}, {"output_shift": 1, "rounding": "up"}):
+        with pytest.raises(ValueError):
+            FixedScaling(**bad)
