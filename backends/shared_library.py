@@ -248,7 +248,7 @@ class SharedLibraryBackend(Backend):
         "shape": OptionSpec(str, "oneshot", "calling shape: oneshot or plan", choices=("oneshot", "plan")),
         "kind": OptionSpec(str, "fft", "the transform: fft, ifft, rfft, irfft (plan: fft+ifft, rfft+irfft)"),
         "dtype": OptionSpec(str, "float64", "precision of T: float32 (float), float64 (double), "
-                                            "longdouble (long double)", choices=DTYPES),
+                                            "longdouble (long double)", choices=tuple(_CTYPE_OF)),
         "norm": OptionSpec(str, "backward", "the normalisation the function applies", choices=NORMS),
         "sizes": OptionSpec(str, "any", "sizes it handles: any or pow2", choices=("any", "pow2")),
         "max_n": OptionSpec(int, 0, "largest size worth trying (0: no limit)", minimum=0),

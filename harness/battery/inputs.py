@@ -17,7 +17,7 @@ import math
 
 import numpy as np
 
-from fftgauge.harness.cases import Case
+from fftgauge.harness.cases import FIXED_DTYPES, Case
 from fftgauge.harness.dft import LONGDOUBLE_IS_WIDER
 from fftgauge.harness.errors import UsageError
 
@@ -97,6 +97,9 @@ def random_input(case: Case, rng: np.random.Generator, distribution: str = "gaus
         raise UsageError(f"unknown input distribution {distribution!r}; expected one of {', '.join(DISTRIBUTIONS)}")
     length = case.input_length
     real = case.real_dtype
+    if case.dtype in FIXED_DTYPES:  # q15/q31: (n, 2) integer pairs (harness/fixed/formats.py)
+        from fftgauge.harness.fixed.signals import random_pairs
+        return random_pairs(rng, length, case.dtype)
     if case.kind == "rfft":
         return _draw_real(rng, length, distribution, real)
     x = np.empty(length, dtype=case.complex_dtype)

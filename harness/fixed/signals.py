@@ -15,7 +15,7 @@ import numpy as np
 
 from fftgauge.harness.fixed.formats import QFormat, quantise
 
-__all__ = ["LEVELS_DBFS", "SIGNALS", "level_amplitude", "test_signal"]
+__all__ = ["LEVELS_DBFS", "SIGNALS", "level_amplitude", "random_pairs", "test_signal"]
 
 #: The signals of the checks.
 SIGNALS = ("tone", "noise", "impulse")
@@ -52,3 +52,13 @@ def test_signal(name: str, n: int, level_dbfs: float, fmt: QFormat, seed: int) -
     else:
         raise ValueError(f"unknown test signal {name!r}; expected one of {', '.join(SIGNALS)}")
     return quantise(z, fmt, "convergent")
+
+
+def random_pairs(rng: np.random.Generator, n: int, dtype: str) -> np.ndarray:
+    """Return complex Gaussian noise of length ``n`` at -6 dBFS peak in precision ``dtype``
+    (``q15``/``q31``) as ``(n, 2)`` pairs: the input of timing runs of fixed-point cases."""
+    from fftgauge.harness.fixed.formats import fixed_format
+
+    z = rng.standard_normal(n) + 1j * rng.standard_normal(n)
+    peak = np.max(np.abs(z), initial=0.0) or 1.0
+    return quantise(z * (level_amplitude(-6.0) / peak), fixed_format(dtype), "convergent")
