@@ -29,13 +29,16 @@ import scipy.fft
 
 from fftgauge.backends.base import Backend, Capabilities, FunctionPlan, OptionSpec, Plan
 from fftgauge.backends.user_code import attribute_of, import_module, load_file
-from fftgauge.harness.cases import DTYPES, KINDS, Case
+from fftgauge.harness.cases import KINDS, Case
 from fftgauge.harness.errors import UsageError
 
 #: The uarray domain of scipy.fft's backends.
 SCIPY_FFT_DOMAIN = "numpy.scipy.fft"
 #: The size every claim probe transforms.
 PROBE_N = 8
+#: The precisions probed: scipy.fft's floating-point ones (a fixed-point input would be
+#: converted to floating point by most backends, which is no claim of a fixed-point FFT).
+PROBED_DTYPES = ("float32", "float64", "longdouble")
 
 
 def load_object(spec: str, target: str) -> Any:
@@ -114,7 +117,9 @@ class ScipyBackendObject(Backend):
         module = getattr(self.backend_object, "__module__", None) or getattr(self.backend_object, "__name__", "")
         top = sys.modules.get(str(module).split(".")[0])
         version = getattr(top, "__version__", None)
-        return f"{version} (scipy {scipy.__version__})" if version else f"scipy {scipy.__version__}"
+        if top is scipy or not version:
+            return f"scipy {scipy.__version__}"
+        return f"{version} (scipy {scipy.__version__})"
 
     def call(self, case: Case, x: np.ndarray) -> Any:
         """Return the backend's answer to scipy.fft.<kind>(x, n, axis=-1, norm, workers).
@@ -144,9 +149,9 @@ class ScipyBackendObject(Backend):
     @cached_property
     def claimed(self) -> tuple[tuple[str, ...], tuple[str, ...]]:
         """Return (kinds, precisions) the probes found."""
-        works = {(k, d) for k in KINDS for d in DTYPES if self.probe(k, d)}
-        return (tuple(k for k in KINDS if any((k, d) in works for d in DTYPES)),
-                tuple(d for d in DTYPES if any((k, d) in works for k in KINDS)))
+        works = {(k, d) for k in KINDS for d in PROBED_DTYPES if self.probe(k, d)}
+        return (tuple(k for k in KINDS if any((k, d) in works for d in PROBED_DTYPES)),
+                tuple(d for d in PROBED_DTYPES if any((k, d) in works for k in KINDS)))
 
     def capabilities(self) -> Capabilities:
         """The kinds and precisions the probes found (at load time), every norm, any size,

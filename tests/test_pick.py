@@ -224,8 +224,9 @@ def test_pick_on_numpy_scipy_and_wrong_backends(tmp_path, capsys):
     doc = json.loads(out.read_text())
     assert doc["schema"] == "fftgauge-pick/1" and doc["workload"]["sizes"] == [16, 64]
     rows = {r["backend"]: r for r in doc["rows"]}
-    assert doc["recommended"] in ("numpy", "scipy")
-    assert {rows["numpy"]["rank"], rows["scipy"]["rank"]} == {1, 2}
+    why = {b: r["reasons"] for b, r in rows.items()}
+    assert doc["recommended"] in ("numpy", "scipy"), why
+    assert {rows["numpy"]["rank"], rows["scipy"]["rank"]} == {1, 2}, why
     sign, single = rows["broken_ffts:opposite_sign_fft"], rows["broken_ffts:float32_fft"]
     assert sign["rank"] is None and not sign["recommended"] and "(sign)" in sign["failed_checks"][0]
     assert single["rank"] is None and "(precision)" in single["failed_checks"][0]

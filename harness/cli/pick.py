@@ -22,8 +22,14 @@ DEFAULT_SAMPLES, DEFAULT_ROUNDS, DEFAULT_BUDGET_SECONDS = 50, 5, 0.5
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     """Add pick's options: the workload, the backends, how hard to time, the outputs."""
-    add_common_options(parser, "backend", "sizes", "kinds", "dtypes", "threads", "seed", "json", "quiet", "pin",
-                       defaults={"kinds": "fft", "dtypes": "float64", "threads": "1"})
+    parser.add_argument("--backend", action="append", metavar="SPEC",
+                        help="backend to weigh, repeatable (default: every available built-in library; not the "
+                             "pure-Python references, the synthetic backends or the generic adapters)")
+    parser.add_argument("--sizes", metavar="SIZES", help="the workload's sizes (required): N, A..B, 2^A..2^B, "
+                                                         "@pow2, ... as for check")
+    parser.add_argument("--kinds", metavar="LIST", help="comma list of fft, ifft, rfft, irfft (default fft)")
+    add_common_options(parser, "dtypes", "threads", "seed", "json", "quiet", "pin",
+                       defaults={"dtypes": "float64", "threads": "1"})
     parser.add_argument("--norm", metavar="NORM", help="backward, ortho or forward (default backward)")
     parser.add_argument("--calls-per-plan", type=int, default=None, metavar="N",
                         help=f"calls each plan will serve: planning is amortised over them (default {DEFAULT_CALLS_PER_PLAN})")
