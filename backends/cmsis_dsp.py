@@ -1,0 +1,89 @@
+"""Arm's CMSIS-DSP library through its Python wrapper ``cmsisdsp`` (``pip install 'fftgauge[cmsis]'``).
+
+Complex FFTs (``arm_cfft_*``), sizes the library documents for them: powers of two from 16
+to 4096 (``arm_cfft_init_*`` refuses 8 and 8192; checked in tests/test_fixed_point.py):
+
+* ``q15``, ``q31``: forward ``arm_cfft_q15``/``arm_cfft_q31`` on interleaved ``re, im``
+  integers (our ``(n, 2)`` pairs in C order). CMSIS-DSP documents the output format per size
+  ("Input and Output formats for CFFT Q15/Q31": a 1.15 input gives 5.11 at N = 16, 7.9 at
+  64, 9.7 at 256, 11.5 at 1024; "number of bits to upscale" log2 N), so the declared output
+  shift is ``log2n``: 1/2 per stage. Its rounding is not documented; option ``rounding``
+  chooses the reference the battery compares it with (default round-half-up).
+* ``float32``: ``arm_cfft_f32`` forward and inverse; the inverse divides by N, numpy's
+  backward convention. (``arm_cfft_f64`` is in the wrapper but ``arm_cfft_instance_f64``,
+  which it needs, is not, in cmsisdsp 1.10.3: no float64.)
+"""
+
+from __future__ import annotations
+
+from importlib.metadata import version as dist_version
+
+import cmsisdsp as dsp
+import numpy as np
+
+from fftgauge.backends.base import Backend, Capabilities, FunctionPlan, OptionSpec, SizeRule
+from fftgauge.harness.fixed.declared import FixedScaling
+from fftgauge.harness.fixed.formats import ROUNDINGS
+
+__all__ = ["CmsisDspBackend"]
+
+#: Sizes of the complex FFTs (CMSIS-DSP documentation of arm_cfft_init_*).
+CFFT_SIZES = SizeRule("pow2", 16, 4096)
+
+_FIXED = {"q15": (dsp.arm_cfft_instance_q15, dsp.arm_cfft_init_q15, dsp.arm_cfft_q15, np.int16),
+          "q31": (dsp.arm_cfft_instance_q31, dsp.arm_cfft_init_q31, dsp.arm_cfft_q31, np.int32)}
+_FLOAT = {"float32": (dsp.arm_cfft_instance_f32, dsp.arm_cfft_init_f32, dsp.arm_cfft_f32, np.float32)}
+
+
+class CmsisDspBackend(Backend):
+    """CMSIS-DSP's complex FFTs: Q15/Q31 (1/2 per stage) and float32."""
+
+    name = "cmsis-dsp"
+    description = "Arm CMSIS-DSP complex FFTs (arm_cfft_*) through the cmsisdsp wrapper"
+    options = {"rounding": OptionSpec(str, "round-half-up", "rounding of the fixed-point reference it is judged "
+                                      "against", choices=ROUNDINGS)}
+
+    @property
+    def version(self) -> str:
+        """The installed ``cmsisdsp`` distribution's version."""
+        return dist_version("cmsisdsp")
+
+    def capabilities(self) -> Capabilities:
+        """Return fft and ifft in float32, fft in q15/q31, powers of two 16..4096."""
+        return Capabilities(kinds=("fft", "ifft"), dtypes=("float32", "q15", "q31"), sizes=CFFT_SIZES,
+                            norms=("backward",),
+                            fixed=FixedScaling("log2n", "stage", self.opts["rounding"]))
+
+    def unsupported_reason(self, case):
+        """Return why ``case`` is not taken (the inverse fixed-point FFTs are not adapted)."""
+        if case.kind == "ifft" and case.dtype in _FIXED:
+            return f"{self.label}: the fixed-point inverse (ifftFlag=1) is not adapted; fft only in {case.dtype}"
+        return super().unsupported_reason(case)
+
+    def plan(self, case):
+        """Return a plan holding an initialised ``arm_cfft_instance_*`` of size ``case.n``.
+
+        Raises
+        ------
+        RuntimeError
+            When ``arm_cfft_init_*`` refuses the size (status != 0).
+        """
+        table = _FIXED if case.dtype in _FIXED else _FLOAT
+        make, init, run, dtype = table[case.dtype]
+        instance = make()
+        status = init(instance, case.n)
+        if status != 0:
+            raise RuntimeError(f"arm_cfft_init for {case.dtype} refused n = {case.n} (status {status})")
+        inverse = 1 if case.is_inverse else 0
+        if table is _FIXED:
+            def execute(x):
+                flat = np.ascontiguousarray(np.asarray(x), dtype=dtype).reshape(-1).copy()
+                return np.asarray(run(instance, flat, 0, 1)).reshape(-1, 2)
+        else:
+            def execute(x):
+                z = np.asarray(x)
+                flat = np.empty(2 * case.n, dtype=dtype)
+                flat[0::2], flat[1::2] = z.real, z.imag
+                out = np.asarray(run(instance, flat, inverse, 1))
+                return (out[0::2] + 1j * out[1::2]).astype(np.result_type(dtype, np.complex64))
+        return FunctionPlan(case, execute)
