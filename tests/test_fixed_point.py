@@ -219,3 +219,56 @@ def test_fixed_scaling_validation():
     for bad in ({"output_shift": -1}, {"output_shift": "half"}, {"output_shift": 1, "rounding": "up"}):
         with pytest.raises(ValueError):
             FixedScaling(**bad)
+
+
+def test_apply_fixed_margin_rejudges_in_the_parent():
+    """A margin applied to the rows (the parent's side) flips the truncating twin's verdict
+    both ways and names the cause the worker found for its shortfall."""
+    from fftgauge.harness.fixed.checks import apply_fixed_margin
+
+    row = rows_of(twins.Truncating, margin_db=10.0)["sqnr"].as_dict()
+    assert row["status"] == "pass" and row["diagnosis"] is None and row["bound_diagnosis"] == "rounding"
+    strict = apply_fixed_margin([row], 0.5)[0]
+    assert (strict["status"], strict["diagnosis"], strict["limit"]) == ("fail", "rounding", 0.5)
+    assert "margin 0.5 dB" in strict["message"]
+    assert apply_fixed_margin([strict], 10.0)[0]["status"] == "pass"
+
+
+# -- CMSIS-DSP (optional: pip install 'fftgauge[cmsis]') -------------------------------------
+
+def test_cmsis_sizes_and_documented_output_shift():
+    """CMSIS-DSP documents its CFFT sizes (16..4096) and, per size, the Q15/Q31 output format
+    (a 1.15 input gives (log2 N + 1).(15 - log2 N): 'number of bits to upscale' log2 N).
+    An impulse of 0.5 must then come out as 0.5 / N in every bin, within 2 LSB (measured:
+    exact in bin 0, 1 LSB low (Q15) and 1-2 LSB low (Q31) elsewhere: multiplications by the
+    largest twiddle, just below 1.0, rounded down)."""
+    dsp = pytest.importorskip("cmsisdsp")
+    from fftgauge.backends.cmsis_dsp import CmsisDspBackend
+
+    assert dsp.arm_cfft_init_q15(dsp.arm_cfft_instance_q15(), 8) != 0
+    assert dsp.arm_cfft_init_q15(dsp.arm_cfft_instance_q15(), 8192) != 0
+    for dtype, fmt in (("q15", Q15), ("q31", Q31)):
+        for n in (16, 64, 1024):
+            x = np.zeros((n, 2), dtype=fmt.dtype)
+            x[0, 0] = fmt.one // 2
+            y = CmsisDspBackend().plan(Case("fft", dtype, n)).execute(x).astype(np.int64)
+            assert np.max(np.abs(y[:, 0] - fmt.one // 2 // n)) <= 2 and np.max(np.abs(y[:, 1])) <= 2
+
+
+def test_cmsis_q31_wraps_around_on_a_full_scale_tone():
+    """Found by the overflow check and verified here: arm_cfft_q31 at N = 256 on a complex
+    tone at 0 dBFS (bin 65) returns a large negative real part in bin 65 where the exact
+    output is +1.0 (just above the largest Q31 value): a wrap-around, not a saturation. At
+    -1 dBFS it is right."""
+    pytest.importorskip("cmsisdsp")
+    from fftgauge.backends.cmsis_dsp import CmsisDspBackend
+    from fftgauge.harness.fixed.signals import test_signal
+
+    plan = CmsisDspBackend().plan(Case("fft", "q31", 256))
+    for level, wrapped in ((0.0, True), (-1.0, False)):
+        x = test_signal("tone", 256, level, Q31, 1234)
+        y = plan.execute(x).astype(np.int64)
+        exact = exact_output(x, 8)
+        assert (y[65, 0] < 0) == wrapped and float(exact[65].real) > 0
+    row = {r.check: r for r in fixed_check_case(CmsisDspBackend(), Case("fft", "q31", 256), 1234)}["overflow"]
+    assert (row.status, row.diagnosis) == ("fail", "overflow")

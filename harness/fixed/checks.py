@@ -20,11 +20,13 @@ DFT under another shift), ``rounding`` (they match the reference that truncates)
 from __future__ import annotations
 
 import math
+import re
 from typing import Any, Callable
 
 import numpy as np
 
 from fftgauge.harness.battery.context import OutputProblem
+from fftgauge.harness.cases import FIXED_DTYPES
 from fftgauge.harness.errors import BackendFailure
 from fftgauge.harness.fixed.declared import FixedScaling
 from fftgauge.harness.fixed.formats import QFormat, fixed_format
@@ -33,7 +35,7 @@ from fftgauge.harness.fixed.metrics import sqnr_db
 from fftgauge.harness.fixed.signals import LEVELS_DBFS, test_signal
 from fftgauge.harness.rows import CheckRow, error_rows, skip_rows
 
-__all__ = ["DEFAULT_MARGIN_DB", "FIXED_CHECKS", "SWEEP_DBFS", "diagnose", "fixed_check_case", "overflow_row",
+__all__ = ["DEFAULT_MARGIN_DB", "FIXED_CHECKS", "SWEEP_DBFS", "apply_fixed_margin", "diagnose", "fixed_check_case", "overflow_row",
            "sqnr_row"]
 
 #: The fixed-point checks, in the order they run.
@@ -110,7 +112,8 @@ def sqnr_row(label: str, case: Any, run: Callable, fmt: QFormat, declared: Fixed
                       f"dBFS gives an exact output that fits {fmt.name} with the declared shift")
     worst = max(judged, key=lambda p: p.shortfall_db)
     status = "pass" if worst.shortfall_db <= margin_db else "fail"
-    diagnosis = diagnose(points, run, fmt, case.n, declared, seed, margin_db) if status == "fail" else None
+    cause = diagnose(points, run, fmt, case.n, declared, seed, margin_db) if worst.shortfall_db > 0 else None
+    diagnosis = cause if status == "fail" else None
     tone = next((p for p in points if p.signal == "tone" and p.level_dbfs == 0.0), None)
     gap = worst.shortfall_db
     words = f"{abs(gap):.1f} dB {'worse' if gap > 0 else 'better'} than" if abs(gap) >= 0.05 else "as good as"
@@ -124,7 +127,25 @@ def sqnr_row(label: str, case: Any, run: Callable, fmt: QFormat, declared: Fixed
                 ", ".join(f"{p.signal}@{p.level_dbfs:g}={p.backend.sqnr_db:.1f}/{p.reference.sqnr_db:.1f}"
                           for p in points if p.representable))
     return row_of(label, case, "sqnr", status, value=float(worst.shortfall_db), limit=float(margin_db),
-                  diagnosis=diagnosis, message=message, reference=reference.describe())
+                  diagnosis=diagnosis, message=message, reference=reference.describe(), bound_diagnosis=cause)
+
+
+def apply_fixed_margin(rows: list[dict], margin_db: float) -> list[dict]:
+    """Return ``rows`` (dicts) with every ``sqnr`` row of a q15/q31 case judged against
+    ``margin_db`` instead of the margin the worker used: ``limit`` becomes the margin, the
+    status follows ``value <= limit`` and a failing row takes as diagnosis the cause the
+    worker found for any shortfall (``bound_diagnosis``); other rows are returned as they are.
+    The parent applies it, so one run's margin needs no change to the worker job."""
+    out = []
+    for row in rows:
+        if row.get("check") == "sqnr" and row.get("dtype") in FIXED_DTYPES and row.get("status") in ("pass", "fail") \
+                and row.get("value") is not None:
+            failed = row["value"] > margin_db
+            row = {**row, "limit": float(margin_db), "status": "fail" if failed else "pass",
+                   "diagnosis": (row.get("bound_diagnosis") or "precision") if failed else None,
+                   "message": re.sub(r"margin [^ ;)]+ dB", f"margin {margin_db:g} dB", str(row.get("message", "")))}
+        out.append(row)
+    return out
 
 
 def judged_points(points: list[Point]) -> list[Point]:
