@@ -21,7 +21,7 @@ import re
 from dataclasses import dataclass
 from typing import Sequence
 
-from fftgauge.harness.cases import DTYPES, KINDS, NORMS, parse_choice_list
+from fftgauge.harness.cases import KINDS, NORMS, parse_choice_list
 from fftgauge.harness.dft import machine_epsilon
 from fftgauge.harness.errors import UsageError
 
@@ -29,6 +29,9 @@ from fftgauge.harness.errors import UsageError
 DEFAULT_CALLS_PER_PLAN = 1000
 #: The precision a workload that names none is in.
 DEFAULT_DTYPES = ("float64",)
+#: The precisions a workload may name: the floating-point ones, whose accuracy the battery
+#: states in eps (fixed-point cases are judged by SQNR, which a pick does not weigh yet).
+PICK_DTYPES = ("float32", "float64", "longdouble")
 
 _ACCURACY = re.compile(r"^\s*(?P<value>[-+]?(\d+(\.\d*)?|\.\d+)([eE][-+]?\d+)?)\s*(?P<unit>eps|db)?\s*$", re.I)
 
@@ -137,7 +140,7 @@ def build_workload(sizes: str | None, kinds: str | None = None, dtypes: str | No
     return Workload(
         sizes=tuple(parse_sizes(sizes)),
         kinds=parse_choice_list(kinds, KINDS, "kind") or ("fft",),
-        dtypes=parse_choice_list(dtypes, DTYPES, "dtype") or DEFAULT_DTYPES,
+        dtypes=parse_choice_list(dtypes, PICK_DTYPES, "dtype") or DEFAULT_DTYPES,
         norm=norms[0], threads=threads or 1,
         calls_per_plan=calls_per_plan or DEFAULT_CALLS_PER_PLAN,
         accuracy=None if accuracy is None else parse_accuracy(accuracy),
