@@ -221,17 +221,22 @@ def test_fixed_scaling_validation():
             FixedScaling(**bad)
 
 
-def test_apply_fixed_margin_rejudges_in_the_parent():
-    """A margin applied to the rows (the parent's side) flips the truncating twin's verdict
-    both ways and names the cause the worker found for its shortfall."""
-    from fftgauge.harness.fixed.checks import apply_fixed_margin
+def test_limit_option_sets_the_margin():
+    """``--limit sqnr=4dB`` is the margin: criteria.apply_limits judges the truncating twin's
+    sqnr row (about 2.5 dB short) in the parent; a strict 0.5 dB fails a pass made at 10 dB."""
+    from fftgauge.harness.battery.criteria import apply_limits, parse_limit_option
+    from fftgauge.harness.errors import UsageError
 
-    row = rows_of(twins.Truncating, margin_db=10.0)["sqnr"].as_dict()
-    assert row["status"] == "pass" and row["diagnosis"] is None and row["bound_diagnosis"] == "rounding"
-    strict = apply_fixed_margin([row], 0.5)[0]
-    assert (strict["status"], strict["diagnosis"], strict["limit"]) == ("fail", "rounding", 0.5)
-    assert "margin 0.5 dB" in strict["message"]
-    assert apply_fixed_margin([strict], 10.0)[0]["status"] == "pass"
+    failing = rows_of(twins.Truncating)["sqnr"].as_dict()
+    assert "the shortfall points to rounding" in failing["message"]
+    loose = apply_limits([failing], [parse_limit_option("sqnr=4dB")])[0]
+    assert (loose["status"], loose["limit"], loose["limit_source"]) == ("pass", 4.0, "user")
+    passing = rows_of(twins.Truncating, margin_db=10.0)["sqnr"].as_dict()
+    strict = apply_limits([passing], [parse_limit_option("sqnr=0.5dB")])[0]
+    assert (strict["status"], strict["diagnosis"]) == ("fail", "user-limit")
+    for bad in ("sqnr=3eps", "sqnr=-1dB"):
+        with pytest.raises(UsageError):
+            parse_limit_option(bad)
 
 
 # -- CMSIS-DSP (optional: pip install 'fftgauge[cmsis]') -------------------------------------

@@ -1,9 +1,10 @@
 """The fixed-point checks of one q15/q31 case, their verdicts and diagnoses.
 
-``sqnr``      on every signal and level where the exact answer fits the format, the
+``sqnr``      on noise at every level where the exact answer fits the format, the
               backend's SQNR is at most ``margin_db`` below the built-in radix-2's with the
               same scaling and rounding; the row's ``value`` is the worst shortfall in dB,
-              ``limit`` the margin.
+              ``limit`` the margin (1 dB; the user sets another with ``--limit sqnr=2dB``,
+              judged in the parent by :mod:`fftgauge.harness.battery.criteria`).
 ``overflow``  over a sweep of a tone and noise from 0 to -12 dBFS, the backend has no more
               output parts far off (:attr:`FixedMetrics.wrapped`: more than half the range
               from the exact answer clipped to the rails) than the saturating reference
@@ -20,13 +21,11 @@ DFT under another shift), ``rounding`` (they match the reference that truncates)
 from __future__ import annotations
 
 import math
-import re
 from typing import Any, Callable
 
 import numpy as np
 
 from fftgauge.harness.battery.context import OutputProblem
-from fftgauge.harness.cases import FIXED_DTYPES
 from fftgauge.harness.errors import BackendFailure
 from fftgauge.harness.fixed.declared import FixedScaling
 from fftgauge.harness.fixed.formats import QFormat, fixed_format
@@ -35,7 +34,7 @@ from fftgauge.harness.fixed.metrics import sqnr_db
 from fftgauge.harness.fixed.signals import LEVELS_DBFS, test_signal
 from fftgauge.harness.rows import CheckRow, error_rows, skip_rows
 
-__all__ = ["DEFAULT_MARGIN_DB", "FIXED_CHECKS", "SWEEP_DBFS", "apply_fixed_margin", "diagnose", "fixed_check_case", "overflow_row",
+__all__ = ["DEFAULT_MARGIN_DB", "FIXED_CHECKS", "SWEEP_DBFS", "diagnose", "fixed_check_case", "overflow_row",
            "sqnr_row"]
 
 #: The fixed-point checks, in the order they run.
@@ -121,31 +120,15 @@ def sqnr_row(label: str, case: Any, run: Callable, fmt: QFormat, declared: Fixed
                f"{words} a {reference.describe()} "
                f"({worst.reference.sqnr_db:.1f} dB; margin {margin_db:g} dB); max error "
                f"{worst.backend.max_error_lsb:.3g} LSB")
+    if cause is not None:
+        message += f"; the shortfall points to {cause}"
     if tone is not None and math.isfinite(tone.backend.enob):
         message += f"; ENOB {tone.backend.enob:.1f} bits at a full-scale tone (reference {tone.reference.enob:.1f})"
     message += ("; SQNR dB (backend/reference) " +
                 ", ".join(f"{p.signal}@{p.level_dbfs:g}={p.backend.sqnr_db:.1f}/{p.reference.sqnr_db:.1f}"
                           for p in points if p.representable))
     return row_of(label, case, "sqnr", status, value=float(worst.shortfall_db), limit=float(margin_db),
-                  diagnosis=diagnosis, message=message, reference=reference.describe(), bound_diagnosis=cause)
-
-
-def apply_fixed_margin(rows: list[dict], margin_db: float) -> list[dict]:
-    """Return ``rows`` (dicts) with every ``sqnr`` row of a q15/q31 case judged against
-    ``margin_db`` instead of the margin the worker used: ``limit`` becomes the margin, the
-    status follows ``value <= limit`` and a failing row takes as diagnosis the cause the
-    worker found for any shortfall (``bound_diagnosis``); other rows are returned as they are.
-    The parent applies it, so one run's margin needs no change to the worker job."""
-    out = []
-    for row in rows:
-        if row.get("check") == "sqnr" and row.get("dtype") in FIXED_DTYPES and row.get("status") in ("pass", "fail") \
-                and row.get("value") is not None:
-            failed = row["value"] > margin_db
-            row = {**row, "limit": float(margin_db), "status": "fail" if failed else "pass",
-                   "diagnosis": (row.get("bound_diagnosis") or "precision") if failed else None,
-                   "message": re.sub(r"margin [^ ;)]+ dB", f"margin {margin_db:g} dB", str(row.get("message", "")))}
-        out.append(row)
-    return out
+                  diagnosis=diagnosis, message=message, reference=reference.describe())
 
 
 def judged_points(points: list[Point]) -> list[Point]:
