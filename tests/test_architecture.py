@@ -81,3 +81,14 @@ def test_no_private_name_crosses_a_module(path):
 def test_modules_stay_small(path):
     lines = len(path.read_text().splitlines())
     assert lines <= MAX_LINES, f"{path.relative_to(ROOT)} has {lines} lines; split it by concern"
+
+
+def test_every_package_is_installed():
+    """Each folder of harness/ and backends/ with an __init__.py is listed in pyproject.toml's
+    packages (setuptools installs only what is listed; a missing one breaks the wheel)."""
+    import tomllib
+
+    listed = set(tomllib.loads((ROOT / "pyproject.toml").read_text())["tool"]["setuptools"]["packages"])
+    on_disk = {"fftgauge." + ".".join(p.parent.relative_to(ROOT).parts)
+               for folder in ("harness", "backends") for p in (ROOT / folder).rglob("__init__.py")}
+    assert on_disk <= listed, sorted(on_disk - listed)
