@@ -163,7 +163,8 @@ def rows_of(backend_cls, case=CASE, margin_db=1.0):
 def test_correct_scalar_routines_pass(cls):
     """Independent correct routines (exact-rational rounding) pass both checks."""
     rows = rows_of(cls)
-    assert [rows[c].status for c in ("sqnr", "overflow")] == ["pass", "pass"], [r.message for r in rows.values()]
+    assert [rows[c].status for c in ("sqnr", "overflow", "input-intact", "repeatable")] == ["pass"] * 4, \
+        [r.message for r in rows.values()]
     assert rows["sqnr"].value <= 1.0 and rows["sqnr"].limit == 1.0
 
 
@@ -185,6 +186,15 @@ def test_margin_decides_the_truncating_twin():
     strict, loose = rows_of(twins.Truncating)["sqnr"], rows_of(twins.Truncating, margin_db=4.0)["sqnr"]
     assert 1.0 < strict.value < 4.0 and loose.status == "pass"
     assert "dB worse than a radix-2 q15, 1/2 per stage, round-half-up" in strict.message
+
+
+@pytest.mark.parametrize("cls,check,code", [(twins.ModifiesInput, "input-intact", "input-modified"),
+                                            (twins.Nondeterministic, "repeatable", "nondeterministic")])
+def test_behaviour_checks_of_fixed_cases(cls, check, code):
+    """input-intact and repeatable hold for q15 cases as for float ones (contract codes)."""
+    rows = rows_of(cls)
+    assert (rows[check].status, rows[check].diagnosis) == ("fail", code), rows[check].message
+    assert all(r.status == "pass" for name, r in rows_of(twins.ScalarQ15).items())
 
 
 def test_no_saturation_message_names_the_level():

@@ -37,8 +37,9 @@ from fftgauge.harness.rows import CheckRow, error_rows, skip_rows
 __all__ = ["DEFAULT_MARGIN_DB", "FIXED_CHECKS", "SWEEP_DBFS", "diagnose", "fixed_check_case", "overflow_row",
            "sqnr_row"]
 
-#: The fixed-point checks, in the order they run.
-FIXED_CHECKS = ("sqnr", "overflow")
+#: The fixed-point checks, in the order they run (``input-intact`` and ``repeatable`` as in the
+#: float battery: the caller's pairs unchanged, the same input giving the same output bit for bit).
+FIXED_CHECKS = ("sqnr", "overflow", "input-intact", "repeatable")
 
 #: dB the backend's SQNR may be below the reference's before ``sqnr`` fails.
 DEFAULT_MARGIN_DB = 1.0
@@ -81,7 +82,8 @@ def fixed_check_case(backend: Any, case: Any, seed: int, margin_db: float = DEFA
         return error_rows(label, case, names, f"planning failed: {type(exc).__name__}: {exc}")
     try:
         return [sqnr_row(label, case, plan.execute, fmt, declared, seed, margin_db),
-                overflow_row(label, case, plan.execute, fmt, declared, seed)]
+                overflow_row(label, case, plan.execute, fmt, declared, seed),
+                *behaviour_rows(label, case, plan.execute, fmt, declared, seed, backend.capabilities())]
     except OutputProblem as problem:
         return [row_of(label, case, name, "fail", diagnosis=problem.code, message=problem.message) for name in names]
     except Exception as exc:  # noqa: BLE001 - the backend raised or returned something unusable
@@ -129,6 +131,31 @@ def sqnr_row(label: str, case: Any, run: Callable, fmt: QFormat, declared: Fixed
                           for p in points if p.representable))
     return row_of(label, case, "sqnr", status, value=float(worst.shortfall_db), limit=float(margin_db),
                   diagnosis=diagnosis, message=message, reference=reference.describe())
+
+
+def behaviour_rows(label: str, case: Any, run: Callable, fmt: QFormat, declared: FixedScaling, seed: int,
+                   capabilities: Any) -> list[CheckRow]:
+    """Return the ``input-intact`` and ``repeatable`` rows: noise at -6 dBFS given three times;
+    the caller's pairs must be unchanged (unless the backend declares ``in_place``) and the
+    three outputs equal bit for bit."""
+    x = test_signal("noise", case.n, -6.0, fmt, seed)
+    given = x.copy()
+    outputs = [read_output(run(x if k == 0 else given.copy()), fmt, case.n, declared.shift_at(case.n))[0]
+               for k in range(3)]
+    changed = int(np.count_nonzero(np.any(x != given, axis=-1)))
+    if changed and not getattr(capabilities, "in_place", False):
+        intact = row_of(label, case, "input-intact", "fail", value=float(changed), limit=0.0,
+                        diagnosis="input-modified", message=f"the plan changed {changed} of the caller's {case.n} pairs")
+    else:
+        intact = row_of(label, case, "input-intact", "pass", value=float(changed), limit=0.0,
+                        message="the caller's pairs are unchanged" if not changed else
+                        f"{changed} pairs changed (the backend declares in_place)")
+    differ = max(int(np.count_nonzero(np.any(o != outputs[0], axis=-1))) for o in outputs[1:])
+    repeat = row_of(label, case, "repeatable", "fail" if differ else "pass", value=float(differ), limit=0.0,
+                    diagnosis="nondeterministic" if differ else None,
+                    message=f"{differ} of {case.n} outputs differ between runs of the same input" if differ else
+                    "three runs of the same input gave the same output bit for bit")
+    return [intact, repeat]
 
 
 def judged_points(points: list[Point]) -> list[Point]:

@@ -166,3 +166,36 @@ class Undeclared(ScalarQ15):
 
     name = "undeclared"
     declared = None
+
+
+class ModifiesInput(ScalarQ15):
+    """Correct output, but it works in the caller's buffer."""
+
+    name = "modifies-input"
+
+    def plan(self, case):
+        inner = super().plan(case)
+
+        def run(x):
+            out = inner.execute(x)
+            x[...] = out
+            return out.copy()
+        return FunctionPlan(case, run)
+
+
+class Nondeterministic(ScalarQ15):
+    """Adds 1 LSB to bin 0 on every other call."""
+
+    name = "nondeterministic"
+
+    def plan(self, case):
+        inner = super().plan(case)
+        calls = [0]
+
+        def run(x):
+            out = inner.execute(x)
+            calls[0] += 1
+            if calls[0] % 2 == 0:
+                out[0, 0] += 1
+            return out
+        return FunctionPlan(case, run)
