@@ -150,7 +150,11 @@ class GateRow:
     new/old ratio (two-sided modes, what a later referenced run compares with); accuracy
     fields with ``--accuracy`` (None otherwise): ``message`` then says in one line which checks
     newly fail (with their diagnosis codes) or how far the error grew, ``accuracy_detail``
-    holds the failing checks' own messages.
+    holds the failing checks' own messages. ``metric`` says what decided (``time``, or
+    ``instructions``: then ``ratio`` compares instructions per transform, given in
+    ``instructions``/``baseline_instructions`` with their repeats' relative spread, the seconds
+    fields are None, and ``ll_misses`` fields hold simulated last-level misses per transform
+    with ``--cache-sim``).
     """
 
     backend: str
@@ -197,6 +201,15 @@ class GateRow:
     battery_failures: tuple[str, ...] | None = None
     new_battery_failures: tuple[str, ...] | None = None
     accuracy_detail: str | None = None
+    metric: str = "time"
+    instructions: float | None = None
+    instructions_spread: float | None = None
+    baseline_instructions: float | None = None
+    baseline_instructions_spread: float | None = None
+    ll_misses: float | None = None
+    baseline_ll_misses: float | None = None
+    count_transforms: int | None = None
+    count_repeats: int | None = None
 
     def as_dict(self) -> dict[str, Any]:
         """Return the row as a JSON-able dict (contract fields first)."""

@@ -24,8 +24,10 @@ import sys
 
 from fftgauge.harness.cli import add_common_options, default_results_path
 from fftgauge.harness.gate.history import DEFAULT_LAST_RUNS
-from fftgauge.harness.gate.request import (DEFAULT_BUDGET_SECONDS, DEFAULT_INCONCLUSIVE, DEFAULT_THRESHOLD,
-                                           DEFAULT_TIMEOUT_SECONDS, INCONCLUSIVE_POLICIES, GateRequest, build_request)
+from fftgauge.harness.gate.request import (DEFAULT_BUDGET_SECONDS, DEFAULT_COUNT_REPEATS, DEFAULT_COUNT_THRESHOLD,
+                                           DEFAULT_INCONCLUSIVE, DEFAULT_METRIC, DEFAULT_THRESHOLD,
+                                           DEFAULT_TIMEOUT_SECONDS, INCONCLUSIVE_POLICIES, METRICS, GateRequest,
+                                           build_request)
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -45,8 +47,22 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     add_common_options(parser, "backend", "kinds", "dtypes", "sizes", "seed", "json", "csv", "quiet", "threads",
                        "pin")
     decide = parser.add_argument_group("how to decide")
-    decide.add_argument("--threshold", default=DEFAULT_THRESHOLD, metavar="PERCENT",
-                        help="smallest slowdown that fails the gate, as 5%% or 0.05 (default " + DEFAULT_THRESHOLD.replace("%", "%%") + ")")
+    decide.add_argument("--metric", choices=METRICS, default=DEFAULT_METRIC,
+                        help="what a case's ratio compares: time per call, or instructions per transform counted "
+                             "under valgrind's cachegrind (machine load does not move them; needs valgrind) "
+                             f"(default {DEFAULT_METRIC})")
+    decide.add_argument("--threshold", default=None, metavar="PERCENT",
+                        help="smallest slowdown that fails the gate, as 5%% or 0.05 (default "
+                             + DEFAULT_THRESHOLD.replace("%", "%%") + " for time, "
+                             + DEFAULT_COUNT_THRESHOLD.replace("%", "%%") + " for instructions)")
+    decide.add_argument("--count-repeats", type=int, default=DEFAULT_COUNT_REPEATS, metavar="R",
+                        help="with --metric instructions: counts per side per case, each from a run of K and one "
+                             f"of 2K transforms, so the count's own spread is measured (default {DEFAULT_COUNT_REPEATS})")
+    decide.add_argument("--count-transforms", type=int, default=None, metavar="K",
+                        help="with --metric instructions: K (default: by size, from 1000 at small n down to 4)")
+    decide.add_argument("--cache-sim", action="store_true",
+                        help="with --metric instructions: also simulate the caches and report last-level misses "
+                             "per transform (slower; the verdict stays on instructions)")
     decide.add_argument("--alpha", type=float, default=0.05, metavar="P",
                         help="family-wise significance level across the cases, Holm-corrected (default 0.05)")
     decide.add_argument("--budget", type=float, default=DEFAULT_BUDGET_SECONDS, metavar="SECONDS",
@@ -90,7 +106,9 @@ def request_from_args(args: argparse.Namespace) -> GateRequest:
                          pin_cpu=args.pin_cpu, threshold=args.threshold, alpha=args.alpha, budget=args.budget,
                          accuracy=args.accuracy, accuracy_growth=args.accuracy_growth,
                          allow_other_machine=args.allow_other_machine, timeout=args.timeout,
-                         inconclusive=args.inconclusive, save=args.save, commit=args.commit)
+                         inconclusive=args.inconclusive, save=args.save, commit=args.commit,
+                         metric=args.metric, count_repeats=args.count_repeats,
+                         count_transforms=args.count_transforms, cache_sim=args.cache_sim)
 
 
 def run(args: argparse.Namespace) -> int:

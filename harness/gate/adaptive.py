@@ -54,6 +54,7 @@ class GateItem:
     accuracy: dict[str, Any] | None = None
     plan_seconds: float | None = None
     ab_estimate: Estimate | None = None
+    counts: dict[str, Any] | None = None
 
     def fail(self, message: str) -> None:
         """Mark the item as failed (an ``error`` row) with ``message``."""

@@ -156,7 +156,13 @@ def _settings_line(doc: dict[str, Any], quote: Any = _plain) -> str:
     if threshold is not None and mode != "record":
         parts.append(f"threshold {threshold * 100:g}%")
         parts.append(f"Holm-corrected at alpha {doc.get('alpha', 0.05):g}")
-    if doc.get("sampling_seconds") is not None:
+    counting = doc.get("counting") if doc.get("metric") == "instructions" else None
+    if counting:
+        parts.append(f"metric instructions per transform (cachegrind, {counting.get('repeats')} repeat(s) of K and "
+                     f"2K transforms per side)")
+        if doc.get("sampling_seconds") is not None:
+            parts.append(f"{doc['sampling_seconds']:.1f} s of counting")
+    elif doc.get("sampling_seconds") is not None:
         parts.append(f"{doc['sampling_seconds']:.1f} s of sampling (budget {doc.get('budget_seconds', 0):g} s)")
     y = doc.get("yardstick")
     if y:
@@ -215,7 +221,12 @@ def markdown_summary(doc: dict[str, Any]) -> str:
                                                  + (f", {_percent(r['ratio'])}" if r.get("verdict") == "slower" else "")
                                                  + ")" for r in failing))
         lines.append("")
-    if doc.get("mode") == "record":
+    if doc.get("mode") == "record" and doc.get("metric") == "instructions":
+        lines += ["| backend | case | instructions per transform | spread | repeats |", "|---|---|---:|---:|---:|"]
+        for r in rows:
+            lines.append(f"| {_md(r['backend'])} | {_case_label(r)} | {_count(r.get('instructions'))} | {_spread(r)} | "
+                         f"{r.get('count_repeats') or 0} |")
+    elif doc.get("mode") == "record":
         header = "| backend | case | median time | 95% interval | samples |"
         lines += [header, "|---|---|---:|---|---:|"]
         for r in rows:
@@ -227,6 +238,10 @@ def markdown_summary(doc: dict[str, Any]) -> str:
         with_acc = any(r.get("eps_units") is not None or r.get("battery_failures") is not None for r in rows)
         header = f"| backend | case | {ratio_name} | change | 95% interval | p (Holm) | verdict |"
         rule = "|---|---|---:|---:|---|---:|---|"
+        counted = any(r.get("metric", "time") != "time" for r in rows)
+        if counted:
+            header += " metric | instructions new / old | spread |"
+            rule += "---|---:|---:|"
         if with_acc:
             header += " error (eps) | bound (eps) |"
             rule += "---:|---:|"
@@ -235,6 +250,9 @@ def markdown_summary(doc: dict[str, Any]) -> str:
             line = (f"| {_md(r['backend'])} | {_case_label(r)} | {_num(r.get('ratio'))} | {_percent(r.get('ratio'))} | "
                     f"{_num(r.get('ratio_low'))} – {_num(r.get('ratio_high'))} | {_p(r.get('p_holm'))} | "
                     f"{_verdict_cell(r)} |")
+            if counted:
+                line += (f" {r.get('metric', 'time')} | {_count(r.get('instructions'))} / "
+                         f"{_count(r.get('baseline_instructions'))} | {_spread(r)} |")
             if with_acc:
                 eps = _num(r.get("eps_units"), 3)
                 if r.get("baseline_eps_units") is not None:
@@ -254,11 +272,25 @@ def markdown_summary(doc: dict[str, Any]) -> str:
     return "\n".join(lines)
 
 
+def _count(value: Any) -> str:
+    """Return an instruction count per transform with thousands separators, e.g. ``42,358``, or ``–``."""
+    if value is None or (isinstance(value, float) and math.isnan(value)):
+        return "–"
+    return f"{value:,.0f}"
+
+
+def _spread(row: dict[str, Any]) -> str:
+    """Return the larger of the two sides' relative count spreads, e.g. ``0.002%``, or ``–``."""
+    values = [v for v in (row.get("instructions_spread"), row.get("baseline_instructions_spread")) if v is not None]
+    return f"{max(values) * 100:.2g}%" if values else "–"
+
+
 def _failure_text(row: dict[str, Any], doc: dict[str, Any]) -> tuple[str, str]:
     if row.get("verdict") == "accuracy":
         return "accuracy", row.get("message") or "accuracy regression"
     threshold = doc.get("threshold") or 0.0
-    return "slower", (f"{_percent(row['ratio'])} ({row['ratio']:.4g}x, 95% interval {row['ratio_low']:.4g}-"
+    what = " in instructions per transform" if row.get("metric") == "instructions" else ""
+    return "slower", (f"{_percent(row['ratio'])}{what} ({row['ratio']:.4g}x, 95% interval {row['ratio_low']:.4g}-"
                       f"{row['ratio_high']:.4g}, Holm p {_p(row.get('p_holm'))}), above the "
                       f"{threshold * 100:g}% threshold")
 
@@ -292,7 +324,7 @@ def junit_xml(doc: dict[str, Any]) -> str:
     root = ET.Element("testsuites", attrs)
     suite = ET.SubElement(root, "testsuite", {**attrs, "timestamp": str(doc.get("created", ""))})
     props = ET.SubElement(suite, "properties")
-    for key in ("mode", "outcome", "complete", "stopped_by", "threshold", "alpha", "seed", "commit"):
+    for key in ("mode", "metric", "outcome", "complete", "stopped_by", "threshold", "alpha", "seed", "commit"):
         if doc.get(key) is not None:
             ET.SubElement(props, "property", {"name": key, "value": _xml(doc[key])})
     for row in rows:
@@ -348,6 +380,9 @@ def summary_text(doc: dict[str, Any]) -> str:
     for r in doc.get("rows") or []:
         if r.get("status") != "ok":
             lines.append(f"  {r['backend']:<22} {_case_label(r):<26} {r.get('status')}: {short(r.get('message', ''))}")
+        elif r.get("verdict") is None and r.get("instructions") is not None:
+            lines.append(f"  {r['backend']:<22} {_case_label(r):<26} {_count(r.get('instructions'))} instructions "
+                         f"per transform (spread {_spread(r)})")
         elif r.get("verdict") is None:
             lines.append(f"  {r['backend']:<22} {_case_label(r):<26} median {_num(r.get('seconds'))} s "
                          f"({r.get('samples', 0)} samples)")
@@ -355,6 +390,8 @@ def summary_text(doc: dict[str, Any]) -> str:
             lines.append(f"  {r['backend']:<22} {_case_label(r):<26} {_num(r.get('ratio')):>7} "
                          f"[{_num(r.get('ratio_low'))}, {_num(r.get('ratio_high'))}] {_percent(r.get('ratio')):>7} "
                          f"p(Holm) {_p(r.get('p_holm')):>7}  {_verdict_word(r)}"
+                         + (f"  ({_count(r.get('instructions'))} vs {_count(r.get('baseline_instructions'))} "
+                            f"instructions, spread {_spread(r)})" if r.get("instructions") is not None else "")
                          + (f"  [{short(r['message'])}]" if r.get("message") else ""))
     return "\n".join(lines)
 

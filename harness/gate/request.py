@@ -28,6 +28,14 @@ MODES = ("ab", "referenced", "stored", "record")
 #: Sizes of the A/B, referenced and record modes when none are given: a handful, about 10-20 s.
 DEFAULT_SIZES = "256,1000,1024,4096,65536"
 DEFAULT_THRESHOLD = "5%"
+#: What a case's ratio compares: per-call time, or instructions per transform counted under
+#: cachegrind (:mod:`fftgauge.harness.gate.counted`).
+METRICS = ("time", "instructions")
+DEFAULT_METRIC = "time"
+#: The threshold of ``--metric instructions`` when none is given: counts wander by about 1e-4.
+DEFAULT_COUNT_THRESHOLD = "1%"
+#: Repeats of each side's count (each a run of K and one of 2K transforms).
+DEFAULT_COUNT_REPEATS = 3
 DEFAULT_BUDGET_SECONDS = 30.0
 DEFAULT_TIMEOUT_SECONDS = 120.0
 #: What an inconclusive run does to the exit code: ``pass`` (0) or ``fail`` (1).
@@ -57,6 +65,11 @@ class GateSettings:
         (:class:`fftgauge.harness.gate.sampling.WorkerSampler` says why).
     inconclusive : exit code of a run whose outcome is ``inconclusive``
         (:func:`fftgauge.harness.gate.decision.exit_code`): ``pass`` (0) or ``fail`` (1).
+    metric : what the ratio compares (:data:`METRICS`).
+    count_repeats : with ``instructions``, repeats of each side's count.
+    count_transforms : with ``instructions``, K (None: by size,
+        :func:`fftgauge.harness.counts.cachegrind.default_calls`).
+    cache_sim : with ``instructions``, also simulate the caches and report last-level misses.
     """
 
     threshold: float = 0.05
@@ -72,6 +85,10 @@ class GateSettings:
     analysis: str = "paired"
     processes: int = 3
     inconclusive: str = DEFAULT_INCONCLUSIVE
+    metric: str = DEFAULT_METRIC
+    count_repeats: int = DEFAULT_COUNT_REPEATS
+    count_transforms: int | None = None
+    cache_sim: bool = False
 
 
 @dataclass(frozen=True)
@@ -148,6 +165,35 @@ def check_numbers(budget: float, timeout: float, alpha: float, last: int, accura
         raise UsageError(f"--inconclusive {inconclusive!r}: expected pass or fail")
 
 
+def check_metric(metric: str, mode: str, accuracy: bool, repeats: int, transforms: int | None,
+                 cache_sim: bool) -> None:
+    """Check the metric and the options that go with it; for ``instructions``, that valgrind is here.
+
+    Raises
+    ------
+    UsageError
+        For an unknown metric, counting options without ``--metric instructions``, a mode or
+        option counts do not support yet, or valgrind missing (with the install line).
+    """
+    if metric not in METRICS:
+        raise UsageError(f"--metric {metric!r}: expected one of {', '.join(METRICS)}")
+    if metric == "time":
+        if cache_sim or transforms is not None or repeats != DEFAULT_COUNT_REPEATS:
+            raise UsageError("--count-repeats, --count-transforms and --cache-sim go with --metric instructions")
+        return
+    if mode not in ("ab", "record"):
+        raise UsageError("--metric instructions compares two sides counted in this run (--old SPEC --new SPEC) "
+                         "or records counts (--backend SPEC --save DIR); stored baselines are compared by time only")
+    if accuracy:
+        raise UsageError("--accuracy goes with --metric time (run the battery in a gate of its own)")
+    if repeats < 2:
+        raise UsageError(f"--count-repeats must be at least 2 (the count's own spread is measured), got {repeats}")
+    if transforms is not None and transforms < 1:
+        raise UsageError(f"--count-transforms must be a positive integer, got {transforms}")
+    from fftgauge.harness.counts.cachegrind import require_valgrind
+    require_valgrind()
+
+
 def mode_of(old: str | None, new: str | None, backends: Sequence[str], baseline: str | None,
             baseline_backend: str | None, save: str | None) -> str:
     """Return the mode (:data:`MODES`) the options ask for, after parsing every SPEC.
@@ -185,15 +231,18 @@ def build_request(*, old: str | None = None, new: str | None = None, backends: S
                   baseline: str | None = None, baseline_backend: str | None = None,
                   last: int = DEFAULT_LAST_RUNS, kinds: str | None = None, dtypes: str | None = None,
                   sizes: str | None = None, seed: int = 1234, threads: int | None = None,
-                  pin_cpu: str | None = None, threshold: str | float = DEFAULT_THRESHOLD, alpha: float = 0.05,
+                  pin_cpu: str | None = None, threshold: str | float | None = None, alpha: float = 0.05,
                   budget: float = DEFAULT_BUDGET_SECONDS, accuracy: bool = False, accuracy_growth: float = 2.0,
                   allow_other_machine: bool = False, timeout: float = DEFAULT_TIMEOUT_SECONDS,
                   inconclusive: str = DEFAULT_INCONCLUSIVE, save: str | None = None,
-                  commit: str | None = None) -> GateRequest:
+                  commit: str | None = None, metric: str = DEFAULT_METRIC,
+                  count_repeats: int = DEFAULT_COUNT_REPEATS, count_transforms: int | None = None,
+                  cache_sim: bool = False) -> GateRequest:
     """Return the validated :class:`GateRequest` the options describe, stored runs loaded.
 
     The keywords are the command line's options (``kinds``, ``dtypes`` and ``sizes`` in their
-    text form, ``threshold`` as ``5%`` or ``0.05``); ``save`` is only checked here.
+    text form, ``threshold`` as ``5%`` or ``0.05``, by default :data:`DEFAULT_THRESHOLD` for time and
+    :data:`DEFAULT_COUNT_THRESHOLD` for instructions); ``save`` is only checked here.
 
     Raises
     ------
@@ -209,6 +258,9 @@ def build_request(*, old: str | None = None, new: str | None = None, backends: S
     backends = tuple(backends or ())
     check_numbers(budget, timeout, alpha, last, accuracy_growth, threads, save, inconclusive)
     mode = mode_of(old, new, backends, baseline, baseline_backend, save)
+    check_metric(metric, mode, accuracy, count_repeats, count_transforms, cache_sim)
+    if threshold is None:
+        threshold = DEFAULT_COUNT_THRESHOLD if metric == "instructions" else DEFAULT_THRESHOLD
     fraction = parse_threshold(threshold)
     kind_list = parse_choice_list(kinds, KINDS, "kind")
     dtype_list = parse_choice_list(dtypes, DTYPES, "dtype")
@@ -232,7 +284,8 @@ def build_request(*, old: str | None = None, new: str | None = None, backends: S
         dtype_list = dtype_list or ("float64",)
     cpus = choose_cpus(parse_pin(pin_cpu), threads or 1)
     settings = GateSettings(threshold=fraction, alpha=alpha, budget_seconds=budget, seed=seed,
-                            inconclusive=inconclusive)
+                            inconclusive=inconclusive, metric=metric, count_repeats=count_repeats,
+                            count_transforms=count_transforms, cache_sim=cache_sim)
     return GateRequest(mode=mode, old_spec=old, new_spec=new, specs=specs, kinds=kind_list, dtypes=dtype_list,
                        sizes=size_list, seed=seed, threads=threads or 1, settings=settings, accuracy=accuracy,
                        accuracy_growth=accuracy_growth, timeout_seconds=timeout, stored_runs=runs,

@@ -146,7 +146,15 @@ def new_doc(req: GateRequest) -> dict[str, Any]:
             "path": req.baseline_path, "backend": req.baseline_label, "runs": [run.path for run in req.stored_runs],
             "created": [run.created for run in req.stored_runs]},
         "warnings": list(req.warnings), "notes": list(req.notes),
+        "metric": s.metric,
     }
+    if s.metric == "instructions":
+        from fftgauge.harness.counts.cachegrind import find_valgrind, setarch_prefix, valgrind_version
+
+        path = find_valgrind()
+        extra["counting"] = {"tool": "cachegrind", "valgrind": valgrind_version(path) if path else None,
+                             "repeats": s.count_repeats, "transforms": s.count_transforms,
+                             "cache_sim": s.cache_sim, "no_aslr": bool(setarch_prefix())}
     if req.commit:
         extra["commit"] = req.commit
     return envelope(GATE_SCHEMA, req.seed, extra=extra)
@@ -181,6 +189,10 @@ def gate_row(it: GateItem, settings: GateSettings) -> GateRow:
         fields["accuracy_detail"] = acc.get("detail")
         for key in ("battery_failures", "new_battery_failures"):
             fields[key] = None if acc.get(key) is None else tuple(acc[key])
+    if it.counts:
+        from fftgauge.harness.gate.counted import count_fields
+        fields.update(count_fields(it))
+    fields.setdefault("sampling_seconds", it.pair_seconds * it.pairs_taken)
     verdict = it.verdict if ok else None
     return GateRow(backend=it.backend, kind=it.case.kind, dtype=it.case.dtype, n=it.case.n, verdict=verdict,
                    norm=it.case.norm, status=it.status, message=it.message or acc.get("message") or "",
@@ -188,7 +200,7 @@ def gate_row(it: GateItem, settings: GateSettings) -> GateRow:
                    inconclusive=None if e is None or not ok else undecided(verdict, e, settings.threshold),
                    timing_verdict=it.timing_verdict, baseline_backend=it.baseline_backend,
                    samples=len(it.new_samples), baseline_samples=len(it.old_samples) if it.old_key else None,
-                   sampling_seconds=it.pair_seconds * it.pairs_taken, plan_seconds=it.plan_seconds, **fields)
+                   plan_seconds=it.plan_seconds, metric=settings.metric, **fields)
 
 
 def _worker_sampler(req: GateRequest) -> Any:
@@ -249,6 +261,8 @@ def run_gate(req: GateRequest, doc: dict[str, Any] | None = None, quiet: bool = 
     from fftgauge.harness.execution.dispatch import Progress
 
     doc = new_doc(req) if doc is None else doc
+    if req.settings.metric == "instructions" and sampler_factory is None:
+        return _count_gate(req, doc, quiet)
     items: list[GateItem] = []
     finished: list[GateItem] = []
     yardstick: list[float] = []
@@ -284,6 +298,28 @@ def run_gate(req: GateRequest, doc: dict[str, Any] | None = None, quiet: bool = 
         doc["rows"] = [gate_row(it, req.settings).as_dict() for it in items]
         doc["elapsed_seconds"] = time.monotonic() - started
         _record_yardstick(doc, req, yardstick, getattr(sampler, "yardstick_failure", None))
+        doc["outcome"], doc["regressed"] = outcome_of(doc["rows"], doc["complete"])
+    return doc
+
+
+def _count_gate(req: GateRequest, doc: dict[str, Any], quiet: bool) -> dict[str, Any]:
+    """Run the gate on instruction counts (:mod:`fftgauge.harness.gate.counted`); fill ``doc`` as :func:`run_gate`."""
+    from fftgauge.harness.gate.counted import CountSampler, count_items
+
+    items: list[GateItem] = []
+    started = time.monotonic()
+    try:
+        sampler = CountSampler(req)
+        items.extend(build_items(req, sampler, doc))
+        count_items(items, sampler, req, quiet=quiet)
+        doc["complete"] = True
+    finally:
+        for it in items:
+            if it.status == "ok" and it.counts is None:
+                it.status, it.message = "incomplete", "the run stopped before this case was counted"
+        doc["rows"] = [gate_row(it, req.settings).as_dict() for it in items]
+        doc["elapsed_seconds"] = doc["sampling_seconds"] = time.monotonic() - started
+        doc["yardstick"] = None
         doc["outcome"], doc["regressed"] = outcome_of(doc["rows"], doc["complete"])
     return doc
 

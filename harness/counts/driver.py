@@ -1,0 +1,63 @@
+"""The program run under cachegrind to count one case: load the backend from its SPEC, plan the
+case, make its seeded input, call the transform :data:`WARMUP_CALLS` times, then ``K`` times.
+
+Run as ``python -s driver.py SPEC KIND DTYPE N NORM SEED K THREADS``
+(:func:`fftgauge.harness.counts.cachegrind.driver_argv`). Two runs, of ``K`` and ``2K``
+calls, differ by ``K`` transforms alone: the start-up (interpreter, imports, planning, input,
+warm-up) is the same in both and cancels. Exit status 0 when the calls ran; 3 with one line on
+standard error when the backend could not be loaded, refused the case or failed.
+"""
+
+from __future__ import annotations
+
+import sys
+
+#: Untimed calls before the counted ones (first-call costs: lazy tables, caches, buffers).
+WARMUP_CALLS = 3
+
+
+def run_calls(spec: str, kind: str, dtype: str, n: int, norm: str, seed: int, calls: int, threads: int) -> None:
+    """Plan the case and run the warm-up and ``calls`` transforms; return nothing.
+
+    Raises
+    ------
+    Exception
+        Whatever loading, planning or the backend raises.
+    """
+    import numpy as np
+
+    from fftgauge.backends.registry import load_backend
+    from fftgauge.harness.battery.conventions import declared_input_plan
+    from fftgauge.harness.battery.inputs import case_rng, random_input
+    from fftgauge.harness.cases import Case
+
+    backend = load_backend(spec, threads)
+    case = Case(kind, dtype, n, norm)
+    reason = backend.unsupported_reason(case)
+    if reason is not None:
+        raise ValueError(f"the backend does not support {case.label()}: {reason}")
+    plan = declared_input_plan(backend, backend.plan(case))
+    try:
+        x_in = plan.prepare(np.array(random_input(case, case_rng(seed, case, "time")), copy=True))
+        for _ in range(WARMUP_CALLS):
+            plan.execute(x_in)
+        for _ in range(calls):
+            plan.execute(x_in)
+    finally:
+        plan.close()
+
+
+def main(argv: list[str]) -> int:
+    """Run the driver on the command line ``argv`` (without the program name); return the exit status."""
+    try:
+        spec, kind, dtype, n, norm, seed, calls, threads = argv
+        run_calls(spec, kind, dtype, int(n), norm, int(seed), int(calls), int(threads))
+    except BaseException as exc:  # one line for the parent, whatever went wrong
+        text = " ".join(str(exc).split()) or type(exc).__name__
+        print(f"fftgauge-count-driver: {type(exc).__name__}: {text}", file=sys.stderr)
+        return 3
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main(sys.argv[1:]))

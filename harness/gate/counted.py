@@ -1,0 +1,132 @@
+"""The gate's ``instructions`` metric: every case's instructions per transform counted under
+valgrind's cachegrind (:mod:`fftgauge.harness.counts`), the ratio new/old with its interval,
+and the verdicts by the timing modes' rule (:func:`fftgauge.harness.gate.decision.decide`:
+Holm across the cases, the threshold on the ratio).
+
+A/B mode counts both sides of every case, record mode the candidates alone. Backends are
+loaded in this process only to read their label and claims (:class:`CountSampler`); every
+count is made in fresh processes under valgrind.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any, Sequence
+
+from fftgauge.harness.cases import Case
+from fftgauge.harness.errors import BackendFailure, UsageError
+from fftgauge.harness.gate.adaptive import GateItem
+from fftgauge.harness.gate.decision import decide, is_conclusive
+from fftgauge.harness.gate.estimates import Estimate
+from fftgauge.harness.gate.request import GateRequest
+
+#: The ``method`` of a count estimate (a row's ``method`` field).
+COUNT_METHOD = "instructions: Welch t on log counts"
+
+
+class CountSampler:
+    """What :func:`fftgauge.harness.gate.run.build_items` needs of a sampler, for counting:
+    the sides' SPECs by key and their claims, read in this process."""
+
+    def __init__(self, req: GateRequest):
+        self.specs = ({"old": req.old_spec, "new": req.new_spec} if req.mode in ("ab", "referenced")
+                      else {s: s for s in req.specs})
+        self.threads = req.threads
+
+    def __enter__(self) -> "CountSampler":
+        return self
+
+    def __exit__(self, *exc: Any) -> None:
+        return None
+
+    def claims(self, key: str, cases: list[Case]) -> Any:
+        """Return the backend's :class:`~fftgauge.backends.claims.BackendClaims` for ``cases``.
+
+        Raises
+        ------
+        UsageError
+            When the SPEC cannot be loaded or the backend fails while describing itself.
+        """
+        from fftgauge.backends.registry import load_backend
+        from fftgauge.harness.execution import jobs
+
+        backend = load_backend(self.specs[key], self.threads)
+        try:
+            return jobs.backend_claims(backend, [(c.kind, c.dtype, c.n, c.norm) for c in cases], None)
+        except Exception as exc:  # a backend's own failure while describing itself
+            raise UsageError(f"backend {self.specs[key]!r} failed while describing itself: {exc}") from None
+
+    def release(self, item: Any) -> None:
+        """Nothing to release: every count is made in processes of its own."""
+
+
+def count_estimate(new: Any, old: Any, confidence: float) -> Estimate:
+    """Return the :class:`~fftgauge.harness.gate.estimates.Estimate` of two sides' counts
+    (:func:`fftgauge.harness.counts.measure.count_ratio`); the seconds fields are None."""
+    from fftgauge.harness.counts.measure import count_ratio
+
+    r = count_ratio(new, old, confidence)
+    return Estimate(ratio=r.ratio, ratio_low=r.ratio_low, ratio_high=r.ratio_high, p_value=r.p_value,
+                    seconds=None, seconds_low=None, seconds_high=None, baseline_seconds=None, ratio_raw=r.ratio,
+                    corrected=False, method=COUNT_METHOD)
+
+
+def count_items(items: Sequence[GateItem], sampler: CountSampler, req: GateRequest, quiet: bool = True) -> None:
+    """Count every ``ok`` item (both sides in A/B mode), then decide the compared ones, in place.
+
+    A side that fails under valgrind, or a case too slow to count within ``--timeout``, makes
+    the item an ``error`` row with the one line that says why.
+    """
+    from fftgauge.harness.counts.cachegrind import default_calls, require_valgrind
+    from fftgauge.harness.counts.measure import count_sides
+    from fftgauge.harness.execution.dispatch import Progress
+
+    s = req.settings
+    valgrind = require_valgrind()
+    progress = Progress(total=sum(it.status == "ok" for it in items), quiet=quiet, desc="gate (counting)")
+    try:
+        for it in items:
+            if it.status != "ok":
+                continue
+            keys = [it.new_key] + ([it.old_key] if it.old_key else [])
+            calls = s.count_transforms or default_calls(it.case.n)
+            try:
+                got = count_sides(valgrind, {k: sampler.specs[k] for k in keys}, it.case, seed=req.seed,
+                                  calls=calls, repeats=s.count_repeats, threads=req.threads,
+                                  cache_sim=s.cache_sim, timeout=req.timeout_seconds)
+            except BackendFailure as exc:
+                it.fail(f"failed while counting: {exc}")
+                progress.advance(note=it.case.label())
+                continue
+            it.counts = {"new": got[it.new_key], "old": got.get(it.old_key) if it.old_key else None}
+            if it.old_key:
+                it.estimate = count_estimate(it.counts["new"], it.counts["old"], s.confidence)
+                it.conclusive = is_conclusive(it.estimate, s.threshold)
+            else:
+                it.conclusive = True
+            progress.advance(note=it.case.label())
+    finally:
+        progress.close()
+    compared = [it for it in items if it.status == "ok" and it.estimate is not None
+                and not math.isnan(it.estimate.ratio)]
+    for it, (verdict, significant, p_holm) in zip(compared, decide([it.estimate for it in compared],
+                                                                   s.threshold, s.alpha)):
+        it.timing_verdict, it.significant, it.p_holm = verdict, significant, p_holm
+
+
+def count_fields(it: GateItem) -> dict[str, Any]:
+    """Return a counted item's row fields: ``instructions`` (the candidate's median per
+    transform), ``instructions_spread`` (its repeats' (largest - smallest) / median),
+    ``baseline_instructions`` and ``baseline_instructions_spread`` (the old side, A/B mode),
+    ``ll_misses``/``baseline_ll_misses`` (simulated last-level misses per transform, with
+    ``--cache-sim``), ``count_transforms`` (K) and ``count_repeats``."""
+    if not it.counts:
+        return {}
+    new, old = it.counts["new"], it.counts.get("old")
+    out = {"instructions": new.median, "instructions_spread": new.spread, "ll_misses": new.ll_median,
+           "count_transforms": new.calls, "count_repeats": len(new.instructions),
+           "sampling_seconds": new.seconds + (old.seconds if old else 0.0)}
+    if old is not None:
+        out.update(baseline_instructions=old.median, baseline_instructions_spread=old.spread,
+                   baseline_ll_misses=old.ll_median)
+    return out
