@@ -16,7 +16,10 @@ import numpy as np
 import pytest
 
 from fftgauge.backends.registry import BUILTINS, SYNTHETIC_BACKENDS, load_backend
-from fftgauge.harness.cases import DTYPES, KINDS, NORMS, Case
+from fftgauge.harness.cases import DTYPES, FIXED_DTYPES, KINDS, NORMS, Case
+
+#: The floating-point precisions (fixed-point ones are judged by SQNR, tests/test_fixed_point.py).
+FLOAT_DTYPES = tuple(d for d in DTYPES if d not in FIXED_DTYPES)
 
 MP_DIGITS = 50
 SIZES = range(1, 33)
@@ -160,7 +163,7 @@ def load_builtin(name: str):
 CALIBRATION_BACKENDS = tuple(SYNTHETIC_BACKENDS) + ("slowed",)
 
 
-@pytest.mark.parametrize("dtype", DTYPES)
+@pytest.mark.parametrize("dtype", FLOAT_DTYPES)
 @pytest.mark.parametrize("kind", KINDS)
 @pytest.mark.parametrize("name", [b for b in BUILTINS if b not in CALIBRATION_BACKENDS])
 def test_builtin_matches_mpmath_direct_dft(name, kind, dtype):
