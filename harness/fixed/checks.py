@@ -122,7 +122,9 @@ def sqnr_row(label: str, case: Any, run: Callable, fmt: QFormat, declared: Fixed
                f"{words} a {reference.describe()} "
                f"({worst.reference.sqnr_db:.1f} dB; margin {margin_db:g} dB); max error "
                f"{worst.backend.max_error_lsb:.3g} LSB")
-    if cause is not None:
+    if cause == "precision":
+        message += "; no shift, rounding or twiddle-width hypothesis explains the shortfall"
+    elif cause is not None:
         message += f"; the shortfall points to {cause}"
     if tone is not None and math.isfinite(tone.backend.enob):
         message += f"; ENOB {tone.backend.enob:.1f} bits at a full-scale tone (reference {tone.reference.enob:.1f})"
