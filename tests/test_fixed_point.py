@@ -287,3 +287,47 @@ def test_cmsis_q31_wraps_around_on_a_full_scale_tone():
         assert (y[65, 0] < 0) == wrapped and float(exact[65].real) > 0
     row = {r.check: r for r in fixed_check_case(CmsisDspBackend(), Case("fft", "q31", 256), 1234)}["overflow"]
     assert (row.status, row.diagnosis) == ("fail", "overflow")
+
+
+# -- the reference as a backend, and the command line ---------------------------------------
+
+def test_radix2_fixed_backend_declares_its_shift_and_bfp_passes():
+    """The adapter declares the shift its scaling implies; block floating point returns
+    (pairs, exponent) and passes against its own reference; a block backend that returns one
+    array gives error rows."""
+    from fftgauge.backends.fixed_radix2 import FixedRadix2Backend
+
+    assert FixedRadix2Backend().capabilities().fixed.shift_at(1024) == 10
+    assert FixedRadix2Backend(scaling="none").capabilities().fixed.shift_at(1024) == 0
+    bfp = FixedRadix2Backend(scaling="bfp")
+    assert {r.status for r in fixed_check_case(bfp, Case("fft", "q31", 256), 7)} == {"pass"}
+
+    class OneArray(FixedRadix2Backend):
+        def plan(self, case):
+            fft = self.transform_of(case.dtype)
+            return twins.FunctionPlan(case, lambda x: fft.transform(x).pairs)
+
+    rows = fixed_check_case(OneArray(scaling="bfp"), Case("fft", "q15", 64), 7)
+    assert {r.status for r in rows} == {"error"} and "exponent" in rows[0].message
+
+
+@pytest.mark.slow
+def test_command_line_on_q15(tmp_path):
+    """End to end: the reference passes (exit 0); the truncating twin, loaded from its file,
+    fails sqnr with diagnosis rounding (exit 1); --limit sqnr=4dB lets it pass (exit 0)."""
+    import json
+    import subprocess
+
+    root = Path(__file__).resolve().parent.parent
+    exe = [sys.executable, "-m", "fftgauge", "check", "--dtypes", "q15", "--kinds", "fft", "--sizes", "64", "--quiet"]
+    good = subprocess.run(exe + ["--backend", "fftgauge.backends.fixed_radix2:FixedRadix2Backend",
+                                 "--json", str(tmp_path / "a.json")], cwd=root, capture_output=True, text=True)
+    assert good.returncode == 0, good.stdout + good.stderr
+    twin = f"{root / 'tests' / 'data' / 'fixed_point_ffts.py'}:Truncating"
+    bad = subprocess.run(exe + ["--backend", twin, "--json", str(tmp_path / "b.json")], cwd=root,
+                         capture_output=True, text=True)
+    assert bad.returncode == 1, bad.stdout + bad.stderr
+    rows = {r["check"]: r for r in json.loads((tmp_path / "b.json").read_text())["rows"]}
+    assert (rows["sqnr"]["status"], rows["sqnr"]["diagnosis"]) == ("fail", "rounding")
+    loose = subprocess.run(exe + ["--backend", twin, "--limit", "sqnr=4dB"], cwd=root, capture_output=True, text=True)
+    assert loose.returncode == 0, loose.stdout + loose.stderr
