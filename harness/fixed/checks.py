@@ -13,8 +13,8 @@
               far-off parts over the sweep, ``limit`` the reference's.
 
 A failing row's diagnosis names the first hypothesis that explains the measured SQNRs
-(:func:`diagnose`): ``overflow`` (wrap-around), ``scaling-shift`` (the outputs match the exact
-DFT under another shift), ``rounding`` (they match the reference that truncates),
+(:func:`diagnose`): ``scaling-shift`` (the outputs match the exact DFT under another shift),
+``overflow`` (parts far off, as a wrap-around leaves them), ``rounding`` (they match the reference that truncates),
 ``twiddle-bits`` (they match the reference with 8-, 10- or 12-bit twiddles), else ``precision``.
 """
 
@@ -201,10 +201,10 @@ def diagnose(points: list[Point], run: Callable, fmt: QFormat, n: int, declared:
     """Return the diagnosis code of a failing ``sqnr``: the first hypothesis that explains the
     backend's SQNRs (see the module docstring), else ``precision``."""
     judged = judged_points(points)
+    if shift_error(judged, run, fmt, n, declared, seed) is not None:
+        return "scaling-shift"  # first: a wrong shift also puts outputs at the rails or far off
     if any(p.backend.wrapped for p in judged):
         return "overflow"
-    if shift_error(judged, run, fmt, n, declared, seed) is not None:
-        return "scaling-shift"
     mine = np.array([p.backend.sqnr_db for p in judged])
     other = "round-half-up" if declared.rounding == "truncate" else "truncate"
     hypotheses = [("rounding", {"rounding": other})] + [("twiddle-bits", {"twiddle_bits": tb})
