@@ -331,3 +331,37 @@ def test_command_line_on_q15(tmp_path):
     assert (rows["sqnr"]["status"], rows["sqnr"]["diagnosis"]) == ("fail", "rounding")
     loose = subprocess.run(exe + ["--backend", twin, "--limit", "sqnr=4dB"], cwd=root, capture_output=True, text=True)
     assert loose.returncode == 0, loose.stdout + loose.stderr
+
+
+def declaring(declared, **computes):
+    """Return the radix2-fixed backend computing with ``computes`` but declaring ``declared``."""
+    import dataclasses
+
+    from fftgauge.backends.fixed_radix2 import FixedRadix2Backend
+
+    class Declaring(FixedRadix2Backend):
+        def capabilities(self):
+            return dataclasses.replace(super().capabilities(), fixed=declared)
+    return Declaring(**computes)
+
+
+ROUND = FixedScaling("log2n", "stage", "round-half-up")
+
+
+@pytest.mark.parametrize("dtype", ["q15", "q31"])
+@pytest.mark.parametrize("n", [16, 1024])
+@pytest.mark.parametrize("computes,declared,check,code", [
+    ({"rounding": "truncate"}, ROUND, "sqnr", "rounding"),
+    ({"twiddle_bits": 8}, ROUND, "sqnr", "twiddle-bits"),
+    ({"scaling": "none"}, ROUND, "sqnr", "scaling-shift"),
+    ({"scaling": "none", "overflow": "wrap"}, FixedScaling(0, "none"), "overflow", "overflow"),
+    ({"rounding": "convergent"}, FixedScaling("log2n", "stage", "convergent"), None, None),
+], ids=["truncates", "8-bit-twiddles", "no-scaling", "wraps", "correct"])
+def test_diagnoses_hold_across_sizes_and_formats(dtype, n, computes, declared, check, code):
+    """The same bugs in the vectorised radix-2 at N = 16 and 1024, in Q15 and Q31: caught with
+    their codes; a correct convergent routine passes every check."""
+    rows = {r.check: r for r in fixed_check_case(declaring(declared, **computes), Case("fft", dtype, n), 99)}
+    if check is None:
+        assert all(r.status == "pass" for r in rows.values()), [r.message for r in rows.values()]
+    else:
+        assert (rows[check].status, rows[check].diagnosis) == ("fail", code), rows[check].message
