@@ -1,4 +1,6 @@
-"""``fftgauge backends``: every backend found, available or not, with capabilities."""
+"""``fftgauge backends``: every backend found, available or not, with capabilities, and a last
+line saying whether valgrind (the ``instructions`` metric) is here (JSON: ``valgrind``, its
+path or null)."""
 
 from __future__ import annotations
 
@@ -42,9 +44,12 @@ def _line(info) -> str:
 
 def run(args: argparse.Namespace) -> int:
     """Print the listing (and write JSON when asked); return 0."""
+    from fftgauge.harness.counts.cachegrind import find_valgrind
+
     infos = list_backends()
     if args.json:
-        text = json.dumps({"schema": "fftgauge-backends/1", "backends": [i.as_dict() for i in infos]}, indent=2)
+        text = json.dumps({"schema": "fftgauge-backends/1", "backends": [i.as_dict() for i in infos],
+                           "valgrind": find_valgrind()}, indent=2)
         if args.json == "-":
             print(text)
             return 0
@@ -53,4 +58,6 @@ def run(args: argparse.Namespace) -> int:
     print("backends found (name, version, what it claims):")
     for info in infos:
         print(_line(info))
+    from fftgauge.harness.counts.cachegrind import availability_line
+    print(availability_line())
     return 0

@@ -38,6 +38,10 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--cold-cache", action="store_true",
                         help="evict the caches before every sample (one call per sample): first-call cost")
     parser.add_argument("--no-memory", action="store_true", help="do not measure peak extra memory")
+    parser.add_argument("--metric", choices=("time", "instructions"), default="time",
+                        help="instructions: after the timing, also count every case's instructions per transform "
+                             "under valgrind's cachegrind and show them against the N log2 N model (needs valgrind; "
+                             "about 10-30 s per case)")
     parser.add_argument("--timeout", type=float, default=DEFAULT_CASE_TIMEOUT_SECONDS, metavar="SECONDS",
                         help=f"seconds one case may take before the backend is killed "
                              f"(default {DEFAULT_CASE_TIMEOUT_SECONDS:g})")
@@ -97,6 +101,9 @@ def summary_text(doc: dict) -> str:
         parts.append(f"planning: {len(planned)} case(s) took over 0.1 ms to plan; the longest, "
                      f"{worst['backend']} {worst['kind']} n={worst['n']}, took {format_seconds(worst['plan_seconds'])}")
     parts.append(scaling_report(rows, doc.get("machine")))
+    if doc.get("counting"):
+        from fftgauge.harness.counts.table import counts_table
+        parts.append(counts_table(rows))
     errors = [r for r in rows if r.get("status") == "error"]
     if errors:
         parts.append("errors:\n" + "\n".join(f"  {r['backend']} {r['kind']} {r['dtype']} n={r['n']}: {r['message']}"
@@ -128,6 +135,10 @@ def run(args: argparse.Namespace) -> int:
     the exit code is 128 + the signal's number (130, 143, 129).
     """
     req = request_from_args(args)
+    counting = getattr(args, "metric", "time") == "instructions"
+    if counting:
+        from fftgauge.harness.counts.cachegrind import require_valgrind
+        require_valgrind()
     if args.plot:
         from fftgauge.harness.report.plots import check_plot_path, require_matplotlib
         check_plot_path(args.plot)
@@ -142,7 +153,9 @@ def run(args: argparse.Namespace) -> int:
     doc: dict = {}
     try:
         with stop_on_signals():
-            run_timing(req, json_path=path, quiet=args.quiet, doc=doc)
+            run_timing(req, json_path=None if to_stdout and counting else path, quiet=args.quiet, doc=doc)
+            if counting:
+                _count(doc, req, path, args.quiet)
     except KeyboardInterrupt as exc:  # StopRequested (SIGTERM, SIGHUP, SIGINT) is one
         return _stopped(doc, args, path, out, exc)
     except ResultsWriteError as exc:
@@ -172,6 +185,21 @@ def preload_summary_modules() -> threading.Thread:
     thread = threading.Thread(target=load, name="fftgauge-preload", daemon=True)
     thread.start()
     return thread
+
+
+def _count(doc: dict, req: TimingRequest, path: str, quiet: bool) -> None:
+    """Add the instruction counts to the timed rows (:func:`fftgauge.harness.counts.table.add_counts`)
+    and write the JSON again with them."""
+    from fftgauge.harness.counts.table import add_counts
+    from fftgauge.harness.results import dumps, write_output
+
+    def said(label: str) -> None:
+        if not quiet:
+            print(f"counted {label}", file=sys.stderr)
+
+    add_counts(doc, threads=req.threads, timeout=max(req.timeout_seconds, DEFAULT_CASE_TIMEOUT_SECONDS),
+               seed=req.seed, on_case=said)
+    write_output(path, dumps(doc))
 
 
 def _write_outputs(doc: dict, args: argparse.Namespace, path: str) -> list[str]:

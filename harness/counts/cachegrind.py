@@ -7,7 +7,8 @@ count wander between identical runs is pinned down (:func:`run_environment`): th
 (``PYTHONHASHSEED=0``), no bytecode written (a first run writing ``.pyc`` files would count
 more), single-threaded BLAS/OpenMP pools (idle worker threads spin), the driver's own folder as the
 first import path, not the working directory (whose listing changes between runs: the
-interpreter would read it), no user site (``-s``), and address-space randomisation switched off
+interpreter would read it), no user site (``-s``), every module compiled before the counted runs
+(:func:`prime`), and address-space randomisation switched off
 with ``setarch -R`` where the machine allows it. Measured on this project's CI image
 (Python 3.11, numpy 2): identical runs differ by at most a few thousand instructions, against
 about 1.6e5 per numpy transform of n = 1024.
@@ -156,6 +157,40 @@ def driver_argv(valgrind: str, out_file: str, spec: str, case: Case, seed: int, 
             str(case.n), case.norm, str(seed), str(calls), str(threads)]
 
 
+def failure_line(stderr: str, returncode: int) -> str:
+    """Return the one line that says why a driver run failed: the driver's own line when it
+    wrote one, else the last line of standard error with the exit status."""
+    lines = [ln for ln in stderr.splitlines() if ln.strip()]
+    said = next((ln for ln in reversed(lines) if ln.startswith("fftgauge-count-driver:")), None)
+    if said is not None:
+        return said.partition(":")[2].strip()
+    last = lines[-1].strip() if lines else "no message"
+    return f"crashed under valgrind (exit status {returncode}): {last}"
+
+
+def prime(spec: str, case: Case, seed: int, threads: int = 1, timeout: float = 120.0) -> None:
+    """Run the driver once without valgrind, bytecode writing allowed: every module the counted
+    runs import is then compiled already (a module compiled in one counted run and read from
+    its cache in the next would count differently), and a backend that fails is found in
+    seconds, not minutes.
+
+    Raises
+    ------
+    BackendFailure
+        When the run fails (its one line) or runs past ``timeout`` seconds.
+    """
+    env = run_environment()
+    env.pop("PYTHONDONTWRITEBYTECODE")
+    argv = [sys.executable, "-s", DRIVER, spec, case.kind, case.dtype, str(case.n), case.norm, str(seed), "1",
+            str(threads)]
+    try:
+        done = subprocess.run(argv, env=env, capture_output=True, text=True, timeout=timeout)
+    except subprocess.TimeoutExpired:
+        raise BackendFailure(f"one transform took more than {timeout:g} s without valgrind (--timeout)") from None
+    if done.returncode != 0:
+        raise BackendFailure(failure_line(done.stderr, done.returncode).replace("under valgrind", "without valgrind"))
+
+
 @dataclass(frozen=True)
 class RunCount:
     """One counted run: its ``calls`` transforms, cachegrind's totals and its wall seconds."""
@@ -187,12 +222,7 @@ def count_run(valgrind: str, spec: str, case: Case, seed: int, calls: int, threa
                                  f"valgrind (--timeout)") from None
         seconds = time.monotonic() - started
         if done.returncode != 0:
-            lines = [ln for ln in done.stderr.splitlines() if ln.strip()]
-            said = next((ln for ln in reversed(lines) if ln.startswith("fftgauge-count-driver:")), None)
-            if said is not None:
-                raise BackendFailure(said.partition(":")[2].strip())
-            last = lines[-1].strip() if lines else "no message"
-            raise BackendFailure(f"crashed under valgrind (exit status {done.returncode}): {last}")
+            raise BackendFailure(failure_line(done.stderr, done.returncode))
         try:
             with open(out_file, encoding="utf-8", errors="replace") as fh:
                 counts = parse_counts(fh.read())

@@ -19,7 +19,7 @@ from typing import Mapping
 import numpy as np
 
 from fftgauge.harness.cases import Case
-from fftgauge.harness.counts.cachegrind import RunCount, count_run, ll_misses, per_transform
+from fftgauge.harness.counts.cachegrind import RunCount, count_run, ll_misses, per_transform, prime
 from fftgauge.harness.errors import BackendFailure
 
 #: Smallest relative spread (standard deviation of log counts) the interval assumes: identical
@@ -83,6 +83,11 @@ def count_sides(valgrind: str, specs: Mapping[str, str], case: Case, *, seed: in
         except BackendFailure as exc:
             raise BackendFailure(f"{specs[key]}: {exc}") from None
 
+    for key in keys:
+        try:
+            prime(specs[key], case, seed, threads, timeout)
+        except BackendFailure as exc:
+            raise BackendFailure(f"{specs[key]}: {exc}") from None
     first = one(keys[0], calls)
     estimate = 2.0 * first.seconds
     if estimate > timeout:

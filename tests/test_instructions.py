@@ -1,0 +1,205 @@
+"""The instruction-count metric: cachegrind output parsing, the K/2K difference, the count ratio
+and its interval, the request's checks, the outputs' metric column; end to end under valgrind
+(marked slow, skipped where valgrind is missing): a fixed extra 1% / 5% of work is seen, 0% is
+``same``, a crashing backend is an ``error`` row."""
+
+import json
+import math
+import os
+import shutil
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+from scipy import stats
+
+from fftgauge.harness import cli
+from fftgauge.harness.cases import Case
+from fftgauge.harness.counts import cachegrind
+from fftgauge.harness.counts.cachegrind import RunCount, default_calls, parse_counts, per_transform
+from fftgauge.harness.counts.measure import SPREAD_FLOOR, CaseCount, count_ratio, count_sides
+from fftgauge.harness.errors import BackendFailure, UsageError
+from fftgauge.harness.gate.decision import decide
+from fftgauge.harness.gate.outputs import csv_text, junit_xml, markdown_summary, summary_text
+from fftgauge.harness.gate.request import build_request
+
+HERE = os.path.dirname(os.path.abspath(__file__))
+FIXED = os.path.join(HERE, "data", "fixed_work_fft.py")
+MISBEHAVING = os.path.join(HERE, "data", "misbehaving.py")
+needs_valgrind = pytest.mark.skipif(shutil.which("valgrind") is None, reason="valgrind is not installed")
+
+# The layout of a cachegrind output file as valgrind 3.19 writes it (valgrind's manual, "Cachegrind
+# output file format": desc/cmd/events lines, fl=/fn= lines, cost lines "line count...", summary).
+SAMPLE = """desc: I1 cache:         65536 B, 64 B, 16-way associative
+cmd: python driver.py
+events: Ir I1mr ILmr Dr D1mr DLmr Dw D1mw DLmw
+fl=/src/a.c
+fn=main
+3 10 1 1 4 1 0 2 0 0
+4 5
+summary: 15 1 1 4 1 0 2
+"""
+
+
+def test_parse_counts_reads_events_and_summary_and_zero_fills():
+    counts = parse_counts(SAMPLE)
+    assert counts["Ir"] == 15 and counts["I1mr"] == 1 and counts["Dw"] == 2
+    assert counts["D1mw"] == 0 and counts["DLmw"] == 0  # left off at the end: 0 by the format
+    assert cachegrind.ll_misses(counts) == 1 + 0 + 0
+    assert cachegrind.ll_misses({"Ir": 5}) is None
+    assert parse_counts("events: Ir\ntotals: 7\n") == {"Ir": 7}
+    for bad in ("", "events: Ir\n", "summary: 3\n", "events: Ir\nsummary: 1 2\n"):
+        with pytest.raises(ValueError):
+            parse_counts(bad)
+
+
+def test_per_transform_is_the_difference_over_k():
+    short = RunCount(10, {"Ir": 1_000_000}, 1.0)
+    long = RunCount(20, {"Ir": 1_500_000}, 1.5)
+    assert per_transform(short, long) == 50_000.0
+    with pytest.raises(BackendFailure, match="no more"):
+        per_transform(short, RunCount(20, {"Ir": 1_000_000}, 1.0))
+
+
+def test_default_calls_bounds():
+    assert default_calls(1) == 1000 and default_calls(64) == 1000
+    assert default_calls(1 << 20) == 4
+    assert default_calls(1024) == math.ceil(2 ** 21 / (1024 * 10))  # 205
+
+
+def _count(values, calls=10):
+    return CaseCount(calls, tuple(float(v) for v in values), None, 1.0)
+
+
+def test_count_ratio_matches_welch_on_logs():
+    new, old = _count([1010.0, 1012.0, 1009.0]), _count([1000.0, 1001.5, 999.0])
+    r = count_ratio(new, old)
+    # Welch's t test from scipy on the same log counts (ratio is of medians, the test of means)
+    ref = stats.ttest_ind(np.log(new.instructions), np.log(old.instructions), equal_var=False)
+    assert r.ratio == pytest.approx(1010.0 / 1000.0)
+    mean_diff = np.mean(np.log(new.instructions)) - np.mean(np.log(old.instructions))
+    se = mean_diff / ref.statistic
+    dof = ref.df
+    assert r.p_value == pytest.approx(2 * stats.t.sf(abs(math.log(r.ratio)) / se, dof), rel=1e-9)
+    assert r.ratio_low < r.ratio < r.ratio_high
+
+
+def test_count_ratio_with_zero_spread_is_floored_not_degenerate():
+    same = count_ratio(_count([5000.0, 5000.0, 5000.0]), _count([5000.0, 5000.0, 5000.0]))
+    assert same.ratio == 1.0 and same.p_value == 1.0
+    assert same.ratio_low < 1.0 < same.ratio_high
+    # the width comes from the floor: t(0.975, 4 dof) * sqrt(2 * floor^2 / 3) on the log scale
+    half = stats.t.ppf(0.975, 4) * math.sqrt(2 * SPREAD_FLOOR ** 2 / 3)
+    assert math.log(same.ratio_high) == pytest.approx(half, rel=1e-9)
+    up = count_ratio(_count([5050.0] * 3), _count([5000.0] * 3))
+    assert up.ratio == pytest.approx(1.01) and up.ratio_low > 1.0 and up.p_value < 1e-6
+    verdicts = decide([_estimate(up), _estimate(same)], 0.005, 0.05)
+    assert [v[0] for v in verdicts] == ["slower", "same"]
+
+
+def _estimate(r):
+    from fftgauge.harness.gate.estimates import Estimate
+    return Estimate(r.ratio, r.ratio_low, r.ratio_high, r.p_value, None, None, None, None, r.ratio, False, "x")
+
+
+def test_missing_valgrind_is_a_usage_error_with_the_install_line(monkeypatch):
+    monkeypatch.setattr(cachegrind, "find_valgrind", lambda: None)
+    with pytest.raises(UsageError, match="apt-get install valgrind"):
+        build_request(old="numpy", new="numpy", metric="instructions")
+    assert "not found" in cachegrind.availability_line()
+
+
+def test_cli_without_valgrind_exits_2_with_one_line(tmp_path):
+    env = dict(os.environ, PATH=str(tmp_path))  # no valgrind on this PATH
+    done = subprocess.run([sys.executable, "-m", "fftgauge", "gate", "--old", "numpy", "--new", "numpy",
+                           "--metric", "instructions"], env=env, capture_output=True, text=True, timeout=120)
+    assert done.returncode == 2
+    assert done.stderr.count("\n") == 1 and "apt-get install valgrind" in done.stderr, done.stderr
+    assert "Traceback" not in done.stderr
+
+
+def test_request_checks_and_default_threshold(monkeypatch):
+    monkeypatch.setattr(cachegrind, "find_valgrind", lambda: "/usr/bin/valgrind")
+    assert build_request(old="numpy", new="numpy", metric="instructions").settings.threshold == 0.01
+    assert build_request(old="numpy", new="numpy").settings.threshold == 0.05
+    assert build_request(old="numpy", new="numpy", metric="instructions", threshold="3%").settings.threshold == 0.03
+    with pytest.raises(UsageError, match="go with --metric instructions"):
+        build_request(old="numpy", new="numpy", cache_sim=True)
+    with pytest.raises(UsageError, match="at least 2"):
+        build_request(old="numpy", new="numpy", metric="instructions", count_repeats=1)
+    with pytest.raises(UsageError, match="--accuracy"):
+        build_request(old="numpy", new="numpy", metric="instructions", accuracy=True)
+    with pytest.raises(UsageError, match="--metric"):
+        build_request(old="numpy", new="numpy", metric="cycles")
+
+
+def _counted_doc():
+    from fftgauge.harness.gate.request import GateSettings, GateRequest
+    from fftgauge.harness.gate.run import new_doc
+    req = GateRequest(mode="ab", old_spec="old.py:fft", new_spec="new.py:fft",
+                      settings=GateSettings(threshold=0.01, metric="instructions", count_repeats=3))
+    doc = new_doc(req)
+    row = {"backend": "new", "kind": "fft", "dtype": "float64", "n": 1024, "ratio": 1.05, "ratio_low": 1.049,
+           "ratio_high": 1.051, "p_value": 1e-8, "verdict": "slower", "status": "ok", "p_holm": 1e-8,
+           "metric": "instructions", "instructions": 165000.0, "baseline_instructions": 157000.0,
+           "instructions_spread": 1e-5, "baseline_instructions_spread": 0.0, "count_repeats": 3}
+    doc.update(rows=[row], outcome="regression", regressed=True, complete=True)
+    return doc
+
+
+def test_outputs_name_the_metric():
+    doc = _counted_doc()
+    md = markdown_summary(doc)
+    assert "| metric | instructions new / old | spread |" in md and "165,000 / 157,000" in md
+    assert "metric instructions per transform" in summary_text(doc)
+    xml = junit_xml(doc)
+    assert '<property name="metric" value="instructions"' in xml and "in instructions per transform" in xml
+    header = csv_text(doc).splitlines()[0].split(",")
+    assert "metric" in header and "instructions" in header
+    assert doc["metric"] == "instructions" and doc["counting"]["repeats"] == 3
+
+
+@pytest.mark.slow
+@needs_valgrind
+def test_counts_see_one_and_five_percent_of_extra_work():
+    specs = {"base": f"{FIXED}:fft", "again": f"{FIXED}:fft", "plus1": f"{FIXED}:fft_plus1",
+             "plus5": f"{FIXED}:fft_plus5"}
+    got = count_sides(cachegrind.require_valgrind(), specs, Case("fft", "float64", 64), seed=1234, calls=10,
+                      repeats=2)
+    same, plus1, plus5 = (count_ratio(got[k], got["base"]) for k in ("again", "plus1", "plus5"))
+    assert abs(same.ratio - 1.0) < 2e-4
+    # extra passes are 1% and 5% of the passes; the call's fixed overhead makes the ratios a little less
+    assert 1.008 < plus1.ratio < 1.0101 and plus1.ratio_low > 1.0
+    assert 1.045 < plus5.ratio < 1.0501 and plus5.ratio_low > 1.0
+    verdicts = [v[0] for v in decide([_estimate(r) for r in (same, plus1, plus5)], 0.005, 0.05)]
+    assert verdicts == ["same", "slower", "slower"]
+    assert [v[0] for v in decide([_estimate(r) for r in (same, plus5)], 0.01, 0.05)] == ["same", "slower"]
+    assert max(c.spread for c in got.values()) < 1e-3  # the count's own spread, measured
+
+
+@pytest.mark.slow
+@needs_valgrind
+def test_gate_cli_fails_on_five_percent_more_instructions(tmp_path, capsys):
+    out = tmp_path / "gate.json"
+    code = cli.main(["gate", "--old", f"{FIXED}:fft", "--new", f"{FIXED}:fft_plus5", "--metric", "instructions",
+                     "--kinds", "fft", "--sizes", "64", "--count-repeats", "2", "--count-transforms", "10",
+                     "--json", str(out), "--junit", str(tmp_path / "g.xml"), "--quiet"])
+    doc = json.loads(out.read_text())
+    assert code == 1 and doc["outcome"] == "regression" and doc["metric"] == "instructions"
+    (row,) = doc["rows"]
+    assert row["metric"] == "instructions" and row["verdict"] == "slower" and row["seconds"] is None
+    assert row["instructions"] > row["baseline_instructions"] and row["count_repeats"] == 2
+    assert "in instructions per transform" in (tmp_path / "g.xml").read_text()
+
+
+@pytest.mark.slow
+@needs_valgrind
+def test_a_backend_crashing_under_valgrind_is_one_line():
+    with pytest.raises(BackendFailure, match="crashed under valgrind") as info:
+        cachegrind.count_run(cachegrind.require_valgrind(), f"{MISBEHAVING}:segfault_fft",
+                             Case("fft", "float64", 16), 1234, 1)
+    assert "\n" not in str(info.value)
+    with pytest.raises(BackendFailure, match="refuses every input"):  # found by the run without valgrind
+        count_sides(cachegrind.require_valgrind(), {"x": f"{MISBEHAVING}:raise_fft"}, Case("fft", "float64", 16),
+                    seed=1234, calls=1, repeats=2)
