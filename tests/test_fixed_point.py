@@ -355,8 +355,9 @@ ROUND = FixedScaling("log2n", "stage", "round-half-up")
     ({"twiddle_bits": 8}, ROUND, "sqnr", "twiddle-bits"),
     ({"scaling": "none"}, ROUND, "sqnr", "scaling-shift"),
     ({"scaling": "none", "overflow": "wrap"}, FixedScaling(0, "none"), "overflow", "overflow"),
+    ({"overflow": "wrap"}, ROUND, "overflow", "overflow"),
     ({"rounding": "convergent"}, FixedScaling("log2n", "stage", "convergent"), None, None),
-], ids=["truncates", "8-bit-twiddles", "no-scaling", "wraps", "correct"])
+], ids=["truncates", "8-bit-twiddles", "no-scaling", "wraps", "stage-wraps", "correct"])
 def test_diagnoses_hold_across_sizes_and_formats(dtype, n, computes, declared, check, code):
     """The same bugs in the vectorised radix-2 at N = 16 and 1024, in Q15 and Q31: caught with
     their codes; a correct convergent routine passes every check."""
@@ -365,3 +366,24 @@ def test_diagnoses_hold_across_sizes_and_formats(dtype, n, computes, declared, c
         assert all(r.status == "pass" for r in rows.values()), [r.message for r in rows.values()]
     else:
         assert (rows[check].status, rows[check].diagnosis) == ("fail", code), rows[check].message
+
+
+def test_cmsis_q31_wraps_on_the_overload_input_and_q15_saturates():
+    """Found by the overflow check's overload input (corners at 0 dBFS: the exact bin N/8 is
+    (1 + sqrt 2)/2 = 1.207 of full scale, beyond Q31) and verified here: arm_cfft_q31 returns
+    that part minus 2**32 (a two's-complement wrap) at N = 16 and 1024, and the check fails
+    it with overflow; arm_cfft_q15 passes the check (it saturates)."""
+    pytest.importorskip("cmsisdsp")
+    from fftgauge.backends.cmsis_dsp import CmsisDspBackend
+    from fftgauge.harness.fixed.signals import test_signal
+
+    for n in (16, 1024):
+        x = test_signal("corners", n, 0.0, Q31, 0)
+        y = CmsisDspBackend().plan(Case("fft", "q31", n)).execute(x).astype(np.int64)
+        exact = float(exact_output(x, n.bit_length() - 1)[n // 8].real)
+        assert exact == pytest.approx((1 + math.sqrt(2)) / 2 * 2 ** 31, rel=1e-6)
+        assert abs(y[n // 8, 0] - (exact - 2 ** 32)) <= 64  # its usual error: 17 LSB here
+        rows = {r.check: r for r in fixed_check_case(CmsisDspBackend(), Case("fft", "q31", n), 1234)}
+        assert (rows["overflow"].status, rows["overflow"].diagnosis) == ("fail", "overflow")
+        q15 = {r.check: r for r in fixed_check_case(CmsisDspBackend(), Case("fft", "q15", n), 1234)}
+        assert q15["overflow"].status == "pass", q15["overflow"].message

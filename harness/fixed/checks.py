@@ -9,8 +9,10 @@
               output parts far off (:attr:`FixedMetrics.wrapped`: more than half the range
               from the exact answer clipped to the rails) than the saturating reference
               with the same scaling, and reaches the rails at no level more than 1 dB below
-              the lowest level where the reference does; ``value`` is the backend's count of
-              far-off parts over the sweep, ``limit`` the reference's.
+              the lowest level where the reference does, and on the overload input
+              (``corners``: every part at full scale) its SQNR is at most
+              :data:`OVERLOAD_GAP_DB` below the saturating reference's; ``value`` is the
+              backend's count of far-off parts over the sweep, ``limit`` the reference's.
 
 A failing row's diagnosis names the first hypothesis that explains the measured SQNRs
 (:func:`diagnose`): ``scaling-shift`` (the outputs match the exact DFT under another shift),
@@ -46,6 +48,12 @@ DEFAULT_MARGIN_DB = 1.0
 
 #: Levels of the overflow sweep (dBFS).
 SWEEP_DBFS = tuple(float(-k) for k in range(13))
+
+#: dB below the saturating reference's SQNR on the overload input (``corners`` at 0 dBFS) taken
+#: for wrap-around inside the transform: saturation degrades it gracefully, a wrap does not
+#: (measured at N = 8..4096, Q15 and Q31: a 1/2-per-stage radix-2 that saturates gets 16.7 dB,
+#: its twin that wraps -3.0 dB).
+OVERLOAD_GAP_DB = 10.0
 
 #: Distance (mean |dB|) within which a hypothesis's SQNRs explain the backend's.
 MATCH_DB = 1.0
@@ -187,7 +195,13 @@ def overflow_row(label: str, case: Any, run: Callable, fmt: QFormat, declared: F
     message = (f"{said} (a {reference.describe()}: {ref_said}); {wrapped} output parts more than half the range "
                f"off over the sweep (the reference: {ref_wrapped})")
     less_headroom = mine is not None and (theirs is None or mine < theirs - 1.0)
-    failed = wrapped > ref_wrapped or less_headroom
+    overload = measure_points(run, fmt, case.n, declared, reference, seed, signals=("corners",), levels=(0.0,))[0]
+    collapsed = overload.shortfall_db > OVERLOAD_GAP_DB
+    message += (f"; overload (every part at full scale, corners): SQNR {overload.backend.sqnr_db:.1f} dB, the saturating "
+                f"reference {overload.reference.sqnr_db:.1f} dB")
+    failed = wrapped > ref_wrapped or less_headroom or collapsed
+    if collapsed:
+        message += f" ({overload.shortfall_db:.1f} dB worse: sums wrap around inside)"
     if wrapped > ref_wrapped:
         first = min(p.level_dbfs for p in points if p.backend.wrapped > p.reference.wrapped)
         message += f"; wraps around from {first:g} dBFS where the reference saturates: missing saturation"

@@ -24,11 +24,14 @@ from fftgauge.harness.fixed.metrics import FixedMetrics, measure
 from fftgauge.harness.fixed.radix2 import FixedRadix2
 from fftgauge.harness.fixed.signals import LEVELS_DBFS, SIGNALS, test_signal
 
-__all__ = ["NOISE_DRAWS", "Point", "exact_output", "measure_points", "read_output", "reference_for"]
+__all__ = ["DRAWS", "NOISE_DRAWS", "Point", "exact_output", "measure_points", "read_output", "reference_for"]
 
 #: Noise inputs per point (seeds ``seed .. seed + NOISE_DRAWS - 1``), their errors pooled: the
 #: SQNR of one draw of a short transform (N = 16: 32 real outputs) varies by about a dB.
 NOISE_DRAWS = 4
+
+#: Draws per point of each random signal (the others: one).
+DRAWS = {"noise": NOISE_DRAWS}
 
 
 @dataclass(frozen=True)
@@ -101,7 +104,7 @@ def measure_points(run: Callable[[np.ndarray], Any], fmt: QFormat, n: int, decla
                    levels: Iterable[float] = LEVELS_DBFS) -> list[Point]:
     """Return one :class:`Point` per (signal, level): ``run`` (the plan's execute) and the
     reference on the same quantised input, each judged against the exact DFT with its shift
-    (noise: :data:`NOISE_DRAWS` draws, pooled: one SQNR over all their outputs).
+    (the random signals: :data:`DRAWS` draws, pooled: one SQNR over all their outputs).
 
     Raises
     ------
@@ -112,7 +115,7 @@ def measure_points(run: Callable[[np.ndarray], Any], fmt: QFormat, n: int, decla
     for signal in signals:
         for level in levels:
             got, want, ref_got, ref_want, fits = [], [], [], [], True
-            for draw in range(NOISE_DRAWS if signal == "noise" else 1):
+            for draw in range(DRAWS.get(signal, 1)):
                 x = test_signal(signal, n, level, fmt, seed + draw)
                 y, shift = read_output(run(x.copy()), fmt, n, declared.shift_at(n))
                 r = reference.transform(x)

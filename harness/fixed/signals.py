@@ -7,6 +7,11 @@ scale (1.0, the format's ``2**frac_bits``). The signals:
              magnitude, all the energy in one bin.
 ``noise``    complex Gaussian noise (seeded), scaled so its largest magnitude is ``A``.
 ``impulse``  ``A`` at n = 0 (real), zero elsewhere: a flat spectrum.
+``corners``  ``A (1 + j) j**floor(n/2)``: every part at +-A (magnitude sqrt 2 A), the even
+             and the odd samples each a tone at bin N/8 of their half, so a radix-2's last
+             stage adds a corner to a corner rotated by 45 degrees: with 1/2 per stage the
+             sum is (1 + sqrt 2)/2 = 1.207 A, an overload at 0 dBFS a transform must
+             saturate (not in :data:`SIGNALS`; the overflow check's).
 """
 
 from __future__ import annotations
@@ -46,6 +51,8 @@ def test_signal(name: str, n: int, level_dbfs: float, fmt: QFormat, seed: int) -
         rng = np.random.default_rng(seed)
         z = rng.standard_normal(n) + 1j * rng.standard_normal(n)
         z *= amp / np.max(np.abs(z))
+    elif name == "corners":
+        z = amp * (1 + 1j) * (1j ** (k // 2))
     elif name == "impulse":
         z = np.zeros(n, dtype=complex)
         z[0] = amp
