@@ -45,8 +45,10 @@ from typing import Any
 import numpy as np
 
 from fftgauge.backends.base import Backend, Capabilities, OptionSpec, Plan
-from fftgauge.harness.cases import DTYPES, KINDS, NORMS, Case
+from fftgauge.harness.cases import FIXED_DTYPES, KINDS, NORMS, Case
 from fftgauge.harness.errors import BackendFailure, UsageError
+from fftgauge.harness.fixed.declared import FixedScaling
+from fftgauge.harness.fixed.formats import ROUNDINGS
 
 SCHEME = "clib"
 
@@ -57,7 +59,8 @@ PLAN_FAMILIES = (("fft", "ifft"), ("rfft", "irfft"))
 OVERHEAD_BATCHES = 7
 OVERHEAD_CALLS_PER_BATCH = 200
 
-_CTYPE_OF = {"float32": ctypes.c_float, "float64": ctypes.c_double, "longdouble": ctypes.c_longdouble}
+_CTYPE_OF = {"float32": ctypes.c_float, "float64": ctypes.c_double, "longdouble": ctypes.c_longdouble,
+             "q15": ctypes.c_int16, "q31": ctypes.c_int32}  # fixed point: interleaved (re, im) integers
 
 
 class ForeignCallError(BackendFailure):
@@ -152,7 +155,8 @@ class _ForeignPlan(Plan):
         self.symbol = symbol
         self._n = case.n
         self._in_dtype = case.input_dtype
-        self._in_length = case.input_length
+        # q15/q31: (n, 2) integer pairs, 2n values (harness/fixed/formats.py)
+        self._in_length = case.input_length * (2 if case.dtype in FIXED_DTYPES else 1)
         self._out_dtype = case.output_dtype
         reals = case.output_length * (1 if case.kind == "irfft" else 2)
         self._out_type = _CTYPE_OF[case.dtype] * reals
@@ -248,7 +252,11 @@ class SharedLibraryBackend(Backend):
         "shape": OptionSpec(str, "oneshot", "calling shape: oneshot or plan", choices=("oneshot", "plan")),
         "kind": OptionSpec(str, "fft", "the transform: fft, ifft, rfft, irfft (plan: fft+ifft, rfft+irfft)"),
         "dtype": OptionSpec(str, "float64", "precision of T: float32 (float), float64 (double), "
-                                            "longdouble (long double)", choices=tuple(_CTYPE_OF)),
+                                            "longdouble (long double), q15 (int16_t), q31 (int32_t)",
+                            choices=tuple(_CTYPE_OF)),
+        "output_shift": OptionSpec(str, "", "q15/q31: bits the output is shifted right of the plain DFT "
+                                            "(a number, log2n or block; docs/fixed-point.md)"),
+        "rounding": OptionSpec(str, "round-half-up", "q15/q31: the rounding it promises", choices=ROUNDINGS),
         "norm": OptionSpec(str, "backward", "the normalisation the function applies", choices=NORMS),
         "sizes": OptionSpec(str, "any", "sizes it handles: any or pow2", choices=("any", "pow2")),
         "max_n": OptionSpec(int, 0, "largest size worth trying (0: no limit)", minimum=0),
@@ -273,6 +281,12 @@ class SharedLibraryBackend(Backend):
         if ctypes.sizeof(_CTYPE_OF[o["dtype"]]) != np.dtype(Case("fft", o["dtype"], 1).real_dtype).itemsize:
             raise UsageError(f"backend {spec!r}: dtype={o['dtype']} has a different size in C and in numpy "
                              f"on this machine; use float32 or float64")
+        self.fixed = None
+        if o["output_shift"]:
+            try:
+                self.fixed = FixedScaling(o["output_shift"], rounding=o["rounding"])
+            except ValueError as exc:
+                raise UsageError(f"backend {spec!r}: {exc}") from None
         self._lib, self._full_path = load_library(spec, path)
         self._version: str | None = None
         self._overhead: tuple[float | None, str] | None = None
@@ -325,7 +339,8 @@ class SharedLibraryBackend(Backend):
     def capabilities(self) -> Capabilities:
         o = self.opts
         return Capabilities(kinds=self.kinds, dtypes=(o["dtype"],), sizes=o["sizes"], norms=(o["norm"],),
-                            min_n=o["min_n"], max_n=o["max_n"] or None, separate_planning=self.shape == "plan")
+                            min_n=o["min_n"], max_n=o["max_n"] or None, separate_planning=self.shape == "plan",
+                            fixed=self.fixed)
 
     def plan(self, case: Case) -> Plan:
         """Return a plan for ``case``; with ``shape=plan`` this calls the C plan function.
@@ -382,7 +397,8 @@ class SharedLibraryBackend(Backend):
             except ForeignCallError:
                 return None, self.call_overhead_method
         try:
-            x = plan.prepare(np.ones(case.input_length, dtype=case.input_dtype))
+            x = plan.prepare(np.ones(case.input_length * (2 if case.dtype in FIXED_DTYPES else 1),
+                                     dtype=case.input_dtype))
             try:
                 plan.execute(x)
             except ForeignCallError:

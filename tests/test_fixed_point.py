@@ -387,3 +387,61 @@ def test_cmsis_q31_wraps_on_the_overload_input_and_q15_saturates():
         assert (rows["overflow"].status, rows["overflow"].diagnosis) == ("fail", "overflow")
         q15 = {r.check: r for r in fixed_check_case(CmsisDspBackend(), Case("fft", "q15", n), 1234)}
         assert q15["overflow"].status == "pass", q15["overflow"].message
+
+
+# -- a C routine through clib: (examples/c_radix2/radix2_q15.c) -----------------------------
+
+@pytest.fixture(scope="module")
+def q15_libraries(tmp_path_factory):
+    """Build examples/c_radix2/radix2_q15.c and its -DMISSING_SATURATION twin."""
+    import shutil
+    import subprocess
+
+    cc = next((shutil.which(c) for c in ("cc", "gcc", "clang") if shutil.which(c)), None)
+    if cc is None:
+        pytest.skip("no C compiler")
+    src = Path(__file__).resolve().parent.parent / "examples" / "c_radix2" / "radix2_q15.c"
+    out = tmp_path_factory.mktemp("q15")
+    built = {}
+    for name, flags in (("good", []), ("broken", ["-DMISSING_SATURATION"])):
+        lib = out / f"libradix2_q15_{name}.so"
+        subprocess.run([cc, "-O2", "-std=c99", "-Wall", "-Wextra", "-pedantic", *flags, "-fPIC", "-shared",
+                        "-o", str(lib), str(src), "-lm"], check=True)
+        built[name] = lib
+    return built
+
+
+def clib_q15(lib, extra=",output_shift=log2n"):
+    from fftgauge.backends.registry import load_backend
+    return load_backend(f"clib:{lib}:radix2_q15[dtype=q15,sizes=pow2{extra}]")
+
+
+def test_c_q15_routine_matches_the_reference_bit_for_bit(q15_libraries):
+    """The C routine (1/2 per stage, round half up, saturation) and harness/fixed/radix2.py
+    are the same arithmetic: equal outputs for random full-scale inputs at N = 1..4096."""
+    backend = clib_q15(q15_libraries["good"])
+    rng = np.random.default_rng(2)
+    for t in range(13):
+        n = 1 << t
+        x = quantise((rng.uniform(-1, 1, n) + 1j * rng.uniform(-1, 1, n)) * 0.7, Q15)
+        got = np.asarray(backend.plan(Case("fft", "q15", n)).execute(x)).reshape(n, 2)
+        assert np.array_equal(got, FixedRadix2(Q15, "stage", "round-half-up").transform(x).pairs), n
+
+
+def test_c_q15_routine_passes_and_its_twin_without_saturation_fails(q15_libraries):
+    for n in (16, 1024):
+        good = {r.check: r for r in fixed_check_case(clib_q15(q15_libraries["good"]), Case("fft", "q15", n), 5)}
+        assert {r.status for r in good.values()} == {"pass"}, [r.message for r in good.values()]
+        bad = {r.check: r for r in fixed_check_case(clib_q15(q15_libraries["broken"]), Case("fft", "q15", n), 5)}
+        assert (bad["overflow"].status, bad["overflow"].diagnosis) == ("fail", "overflow")
+        assert "sums wrap around inside" in bad["overflow"].message
+
+
+def test_clib_q15_without_or_with_a_bad_shift(q15_libraries):
+    """No output_shift: error rows naming the missing declaration; a malformed one: exit-2 error."""
+    from fftgauge.harness.errors import UsageError
+
+    rows = fixed_check_case(clib_q15(q15_libraries["good"], extra=""), Case("fft", "q15", 16), 5)
+    assert {r.status for r in rows} == {"error"} and "declares no fixed-point scaling" in rows[0].message
+    with pytest.raises(UsageError, match="output_shift"):
+        clib_q15(q15_libraries["good"], extra=",output_shift=half")
