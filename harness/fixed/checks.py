@@ -16,8 +16,9 @@
 
 A failing row's diagnosis names the first hypothesis that explains the measured SQNRs
 (:func:`diagnose`): ``scaling-shift`` (the outputs match the exact DFT under another shift),
-``overflow`` (parts far off, as a wrap-around leaves them), ``rounding`` (they match the reference that truncates),
-``twiddle-bits`` (they match the reference with 8-, 10- or 12-bit twiddles), else ``precision``.
+``overflow`` (parts far off, as a wrap-around leaves them), ``rounding`` (they match the
+reference that truncates), ``twiddle-bits`` (they match the reference with 8-, 10- or 12-bit
+twiddles), else ``precision``.
 """
 
 from __future__ import annotations
@@ -45,6 +46,9 @@ FIXED_CHECKS = ("sqnr", "overflow", "input-intact", "repeatable")
 
 #: dB the backend's SQNR may be below the reference's before ``sqnr`` fails.
 DEFAULT_MARGIN_DB = 1.0
+
+#: Shortfall (dB) from which the sqnr row's message names a cause (:func:`diagnose`).
+CAUSE_FROM_DB = 0.25
 
 #: Levels of the overflow sweep (dBFS).
 SWEEP_DBFS = tuple(float(-k) for k in range(13))
@@ -121,7 +125,10 @@ def sqnr_row(label: str, case: Any, run: Callable, fmt: QFormat, declared: Fixed
                       f"dBFS gives an exact output that fits {fmt.name} with the declared shift")
     worst = max(judged, key=lambda p: p.shortfall_db)
     status = "pass" if worst.shortfall_db <= margin_db else "fail"
-    cause = diagnose(points, run, fmt, case.n, declared, seed, margin_db) if worst.shortfall_db > 0 else None
+    # the cause is looked for past CAUSE_FROM_DB even on a pass: a stricter --limit may fail the row
+    cause = None
+    if worst.shortfall_db > CAUSE_FROM_DB:
+        cause = diagnose(points, run, fmt, case.n, declared, seed, margin_db)
     diagnosis = cause if status == "fail" else None
     tone = next((p for p in points if p.signal == "tone" and p.level_dbfs == 0.0), None)
     gap = worst.shortfall_db
