@@ -15,7 +15,7 @@ import os
 import tempfile
 import threading
 import time
-from typing import Any, Iterable
+from typing import Any, Callable, Iterable
 
 from fftgauge.harness.errors import UsageError
 from fftgauge.harness.machine import library_versions, machine_fingerprint  # noqa: F401 - re-exported
@@ -105,6 +105,32 @@ def write_output(path: str, text: str) -> None:
         sys.stdout.flush()
     else:
         write_text_atomic(path, text)
+
+
+def write_rendered(doc: Any, outputs: Iterable[tuple[str | None, Callable[[Any], str]]]) -> list[str]:
+    """Write ``render(doc)`` to each ``path`` of ``outputs`` that is set (``-``: standard
+    output); return what was written (``standard output`` for ``-``).
+
+    Every output is attempted even when an earlier one cannot be written.
+
+    Raises
+    ------
+    UsageError
+        After trying all of them, for the first path that could not be written.
+    """
+    written: list[str] = []
+    first_error: UsageError | None = None
+    for path, render in outputs:
+        if not path:
+            continue
+        try:
+            write_output(path, render(doc))
+            written.append("standard output" if is_stdout(path) else path)
+        except UsageError as exc:
+            first_error = first_error or exc
+    if first_error is not None:
+        raise first_error
+    return written
 
 
 def envelope(schema: str, seed: int | None, extra: dict[str, Any] | None = None) -> dict[str, Any]:

@@ -407,19 +407,6 @@ def write_outputs(doc: dict[str, Any], markdown: str | None = None, junit: str |
     UsageError
         After trying all of them, for the first path that could not be written.
     """
-    from fftgauge.harness.results import dumps, is_stdout, write_output
+    from fftgauge.harness.results import dumps, write_rendered
 
-    jobs = [(markdown, markdown_summary), (junit, junit_xml), (json_path, dumps), (csv, csv_text)]
-    written: list[str] = []
-    first_error: UsageError | None = None
-    for path, render in jobs:
-        if not path:
-            continue
-        try:
-            write_output(path, render(doc))
-            written.append("standard output" if is_stdout(path) else path)
-        except UsageError as exc:
-            first_error = first_error or exc
-    if first_error is not None:
-        raise first_error
-    return written
+    return write_rendered(doc, [(markdown, markdown_summary), (junit, junit_xml), (json_path, dumps), (csv, csv_text)])

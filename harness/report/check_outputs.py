@@ -313,22 +313,9 @@ def write_check_outputs(doc: Mapping[str, Any], junit: str | None = None, markdo
     UsageError
         After trying all of them, for the first path that could not be written.
     """
-    from fftgauge.harness.errors import UsageError
-    from fftgauge.harness.results import is_stdout, write_output
+    from fftgauge.harness.results import write_rendered
 
-    written: list[str] = []
-    first_error: UsageError | None = None
-    for path, render in ((junit, junit_xml), (markdown, markdown_summary), (csv, csv_text)):
-        if not path:
-            continue
-        try:
-            write_output(path, render(doc))
-            written.append("standard output" if is_stdout(path) else path)
-        except UsageError as exc:
-            first_error = first_error or exc
-    if first_error is not None:
-        raise first_error
-    return written
+    return write_rendered(doc, ((junit, junit_xml), (markdown, markdown_summary), (csv, csv_text)))
 
 
 def validate_outputs(paths: Mapping[str, str | None]) -> str | None:
