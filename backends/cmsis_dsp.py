@@ -10,7 +10,10 @@ to 4096 (``arm_cfft_init_*`` refuses 8 and 8192; checked in tests/test_fixed_poi
   shift is ``log2n``: 1/2 per stage. Its rounding is not documented; option ``rounding``
   chooses the reference the battery compares it with (default round-half-up).
 * ``float32``: ``arm_cfft_f32`` forward and inverse; the inverse divides by N, numpy's
-  backward convention. (``arm_cfft_f64`` is in the wrapper but ``arm_cfft_instance_f64``,
+  backward convention. Real transforms through ``arm_rfft_fast_f32`` (sizes 32..4096: its
+  init refuses 16 and 8192, and a transform with a refused instance crashes the process, so
+  the plan checks the status first): the half spectrum packed as ``X0.re, X(N/2).re, X1.re,
+  X1.im, ...``, declared as ``packing=dc-nyquist``; the inverse divides by N. (``arm_cfft_f64`` is in the wrapper but ``arm_cfft_instance_f64``,
   which it needs, is not, in cmsisdsp 1.10.3: no float64.)
 """
 
@@ -21,7 +24,7 @@ from importlib.metadata import version as dist_version
 import cmsisdsp as dsp
 import numpy as np
 
-from fftgauge.backends.base import Backend, Capabilities, FunctionPlan, OptionSpec, SizeRule
+from fftgauge.backends.base import Backend, Capabilities, Conventions, FunctionPlan, OptionSpec, SizeRule
 from fftgauge.harness.fixed.declared import FixedScaling
 from fftgauge.harness.fixed.formats import ROUNDINGS
 
@@ -29,6 +32,9 @@ __all__ = ["CmsisDspBackend"]
 
 #: Sizes of the complex FFTs (CMSIS-DSP documentation of arm_cfft_init_*).
 CFFT_SIZES = SizeRule("pow2", 16, 4096)
+
+#: Sizes of arm_rfft_fast_f32 (its init refuses 16 and 8192).
+RFFT_SIZES = SizeRule("pow2", 32, 4096)
 
 _FIXED = {"q15": (dsp.arm_cfft_instance_q15, dsp.arm_cfft_init_q15, dsp.arm_cfft_q15, np.int16),
           "q31": (dsp.arm_cfft_instance_q31, dsp.arm_cfft_init_q31, dsp.arm_cfft_q31, np.int32)}
@@ -49,15 +55,18 @@ class CmsisDspBackend(Backend):
         return dist_version("cmsisdsp")
 
     def capabilities(self) -> Capabilities:
-        """Return fft and ifft in float32, fft in q15/q31, powers of two 16..4096."""
-        return Capabilities(kinds=("fft", "ifft"), dtypes=("float32", "q15", "q31"), sizes=CFFT_SIZES,
-                            norms=("backward",),
+        """Return fft and ifft in float32, fft in q15/q31, powers of two 16..4096; rfft and
+        irfft in float32, 32..4096, packed dc-nyquist."""
+        return Capabilities(kinds=("fft", "ifft", "rfft", "irfft"), dtypes=("float32", "q15", "q31"),
+                            sizes=CFFT_SIZES, norms=("backward",),
+                            size_rules={"rfft": RFFT_SIZES, "irfft": RFFT_SIZES},
+                            conventions=Conventions(packing="dc-nyquist"),
                             fixed=FixedScaling("log2n", "stage", self.opts["rounding"]))
 
     def unsupported_reason(self, case):
         """Return why ``case`` is not taken (the inverse fixed-point FFTs are not adapted)."""
-        if case.kind == "ifft" and case.dtype in _FIXED:
-            return f"{self.label}: the fixed-point inverse (ifftFlag=1) is not adapted; fft only in {case.dtype}"
+        if case.kind != "fft" and case.dtype in _FIXED:
+            return f"{self.label}: only the forward complex fixed-point FFT is adapted; fft only in {case.dtype}"
         return super().unsupported_reason(case)
 
     def plan(self, case):
@@ -68,6 +77,8 @@ class CmsisDspBackend(Backend):
         RuntimeError
             When ``arm_cfft_init_*`` refuses the size (status != 0).
         """
+        if case.is_real:
+            return self.real_plan(case)
         table = _FIXED if case.dtype in _FIXED else _FLOAT
         make, init, run, dtype = table[case.dtype]
         instance = make()
@@ -86,4 +97,24 @@ class CmsisDspBackend(Backend):
                 flat[0::2], flat[1::2] = z.real, z.imag
                 out = np.asarray(run(instance, flat, inverse, 1))
                 return (out[0::2] + 1j * out[1::2]).astype(np.result_type(dtype, np.complex64))
+        return FunctionPlan(case, execute)
+
+    def real_plan(self, case):
+        """Return a plan of ``arm_rfft_fast_f32`` (rfft: n reals in, n packed reals out;
+        irfft: the reverse).
+
+        Raises
+        ------
+        RuntimeError
+            When ``arm_rfft_fast_init_f32`` refuses the size (status != 0).
+        """
+        instance = dsp.arm_rfft_fast_instance_f32()
+        status = dsp.arm_rfft_fast_init_f32(instance, case.n)
+        if status != 0:
+            raise RuntimeError(f"arm_rfft_fast_init_f32 refused n = {case.n} (status {status})")
+        inverse = 1 if case.is_inverse else 0
+
+        def execute(x):
+            flat = np.array(np.real(x) if np.iscomplexobj(x) else x, dtype=np.float32).reshape(-1)
+            return np.asarray(dsp.arm_rfft_fast_f32(instance, flat, inverse), dtype=np.float32)
         return FunctionPlan(case, execute)

@@ -445,3 +445,22 @@ def test_clib_q15_without_or_with_a_bad_shift(q15_libraries):
     assert {r.status for r in rows} == {"error"} and "declares no fixed-point scaling" in rows[0].message
     with pytest.raises(UsageError, match="output_shift"):
         clib_q15(q15_libraries["good"], extra=",output_shift=half")
+
+
+def test_cmsis_real_fft_packing_and_sizes():
+    """arm_rfft_fast_f32 packs X0.re, X(N/2).re, X1.re, X1.im, ... (dc-nyquist, as declared),
+    against scipy on long double (harness reference); its init refuses 16 and 8192."""
+    dsp = pytest.importorskip("cmsisdsp")
+    from fftgauge.backends.cmsis_dsp import CmsisDspBackend
+    from fftgauge.harness.battery.reference import reference_transform
+
+    assert dsp.arm_rfft_fast_init_f32(dsp.arm_rfft_fast_instance_f32(), 16) != 0
+    assert dsp.arm_rfft_fast_init_f32(dsp.arm_rfft_fast_instance_f32(), 8192) != 0
+    n = 64
+    x = np.random.default_rng(4).standard_normal(n).astype(np.float32)
+    got = CmsisDspBackend().plan(Case("rfft", "float32", n)).execute(x.copy())
+    ref = reference_transform(x.astype(np.float64), Case("rfft", "float64", n)).hi
+    want = np.concatenate([[ref[0].real, ref[n // 2].real], np.stack([ref[1:n // 2].real, ref[1:n // 2].imag], -1).ravel()])
+    assert np.max(np.abs(got - want)) < 1e-4 * np.max(np.abs(want))
+    back = CmsisDspBackend().plan(Case("irfft", "float32", n)).execute(got)
+    assert np.max(np.abs(back - x)) < 1e-5
