@@ -203,3 +203,25 @@ def test_a_backend_crashing_under_valgrind_is_one_line():
     with pytest.raises(BackendFailure, match="refuses every input"):  # found by the run without valgrind
         count_sides(cachegrind.require_valgrind(), {"x": f"{MISBEHAVING}:raise_fft"}, Case("fft", "float64", 16),
                     seed=1234, calls=1, repeats=2)
+
+
+@pytest.mark.slow
+@needs_valgrind
+def test_time_with_instructions_adds_counts_beside_times(tmp_path, capsys):
+    out = tmp_path / "time.json"
+    code = cli.main(["time", "--backend", "numpy", "--kinds", "fft", "--sizes", "64", "--samples", "5",
+                     "--budget", "0.5", "--metric", "instructions", "--json", str(out), "--quiet"])
+    assert code == 0
+    (row,) = json.loads(out.read_text())["rows"]
+    assert row["instructions"] > 0 and row["seconds"] > 0
+    assert row["instructions_per_point"] == pytest.approx(row["instructions"] / 64)
+    assert row["instructions_per_nlogn"] == pytest.approx(row["instructions"] / (64 * 6))  # 64 log2 64
+    assert row["ns_per_instruction"] == pytest.approx(row["seconds"] * 1e9 / row["instructions"])
+    assert "instructions per transform (cachegrind)" in capsys.readouterr().out
+
+
+def test_host_instruction_set_reads_the_flags_line(tmp_path):
+    info = tmp_path / "cpuinfo"
+    info.write_text("processor\t: 0\nflags\t\t: fpu sse sse2 avx2 fma avx512f lm\n\nprocessor\t: 1\n")
+    assert cachegrind.host_instruction_set(str(info)) == ["avx2", "avx512f", "fma", "sse", "sse2"]
+    assert cachegrind.host_instruction_set(str(tmp_path / "missing")) == []

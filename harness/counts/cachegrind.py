@@ -86,6 +86,28 @@ def require_valgrind() -> str:
     return path
 
 
+#: CPU flags (``/proc/cpuinfo``) that decide which code paths numerical libraries take.
+ISA_FLAG_PREFIXES = ("sse", "ssse", "avx", "fma", "bmi", "asimd", "sve", "neon")
+
+
+def host_instruction_set(cpuinfo: str = "/proc/cpuinfo") -> list[str]:
+    """Return this CPU's flags of :data:`ISA_FLAG_PREFIXES`, sorted (empty where unreadable).
+
+    Under valgrind a program sees valgrind's own CPU, not this one: valgrind 3.19 on a CPU
+    with AVX-512 offers AVX, AVX2 and FMA3 only (numpy's ``__cpu_features__`` read so here),
+    so libraries that choose their kernels at run time count their AVX2 paths.
+    """
+    try:
+        with open(cpuinfo, encoding="utf-8", errors="replace") as fh:
+            for line in fh:
+                key, _, rest = line.partition(":")
+                if key.strip() in ("flags", "Features"):
+                    return sorted({f for f in rest.split() if f.startswith(ISA_FLAG_PREFIXES)})
+    except OSError:
+        pass
+    return []
+
+
 @lru_cache(maxsize=None)
 def setarch_prefix() -> tuple[str, ...]:
     """Return ``("setarch", "-R")`` when that switches address-space randomisation off here

@@ -149,12 +149,14 @@ def new_doc(req: GateRequest) -> dict[str, Any]:
         "metric": s.metric,
     }
     if s.metric == "instructions":
-        from fftgauge.harness.counts.cachegrind import find_valgrind, setarch_prefix, valgrind_version
+        from fftgauge.harness.counts.cachegrind import (find_valgrind, host_instruction_set, setarch_prefix,
+                                                       valgrind_version)
 
         path = find_valgrind()
         extra["counting"] = {"tool": "cachegrind", "valgrind": valgrind_version(path) if path else None,
                              "repeats": s.count_repeats, "transforms": s.count_transforms,
-                             "cache_sim": s.cache_sim, "no_aslr": bool(setarch_prefix())}
+                             "cache_sim": s.cache_sim, "no_aslr": bool(setarch_prefix()),
+                             "host_instruction_set": host_instruction_set()}
     if req.commit:
         extra["commit"] = req.commit
     return envelope(GATE_SCHEMA, req.seed, extra=extra)
