@@ -54,6 +54,8 @@ BUILTINS: dict[str, tuple[str, str, str]] = {
     "radix2-dit": ("fftgauge.backends.radix2", "Radix2DitBackend", "reinstall fftgauge"),
     "radix2-dif": ("fftgauge.backends.radix2", "Radix2DifBackend", "reinstall fftgauge"),
     "direct": ("fftgauge.backends.direct", "DirectBackend", "reinstall fftgauge"),
+    "radix2-fixed": ("fftgauge.backends.fixed_radix2", "FixedRadix2Backend", "reinstall fftgauge"),
+    "cmsis-dsp": ("fftgauge.backends.cmsis_dsp", "CmsisDspBackend", "pip install 'fftgauge[cmsis]'"),
     # Synthetic backends for the engine's own measurements (not FFTs; never in the defaults):
     "null": ("fftgauge.backends.null", "NullBackend", "reinstall fftgauge"),
     "busywait": ("fftgauge.backends.busywait", "BusyWaitBackend", "reinstall fftgauge"),
