@@ -7,8 +7,9 @@ count wander between identical runs is pinned down (:func:`run_environment`): th
 (``PYTHONHASHSEED=0``), no bytecode written (a first run writing ``.pyc`` files would count
 more), single-threaded BLAS/OpenMP pools (idle worker threads spin), the driver's own folder as the
 first import path, not the working directory (whose listing changes between runs: the
-interpreter would read it), no user site (``-s``), every module compiled before the counted runs
-(:func:`prime`), and address-space randomisation switched off
+interpreter would read it), no user site (``-s``), every module compiled before the counted runs into a
+bytecode cache of the count's own (:func:`prime`; a source file edited while a case is
+counted is still compiled in the runs after the edit, and the repeats' spread shows it), and address-space randomisation switched off
 with ``setarch -R`` where the machine allows it. Measured on this project's CI image
 (Python 3.11, numpy 2): identical runs differ by at most a few thousand instructions, against
 about 1.6e5 per numpy transform of n = 1024.
@@ -160,13 +161,16 @@ def ll_misses(counts: dict[str, int]) -> int | None:
     return sum(counts[e] for e in LL_MISS_EVENTS)
 
 
-def run_environment(base: dict[str, str] | None = None) -> dict[str, str]:
+def run_environment(base: dict[str, str] | None = None, pycache: str | None = None) -> dict[str, str]:
     """Return the environment of a counted run: ``base`` (default: this process's) without
     ``PYTHON*`` variables other than ``PYTHONPATH``, plus ``PYTHONHASHSEED=0``,
-    ``PYTHONDONTWRITEBYTECODE=1`` and every :data:`THREAD_POOL_VARIABLES` set to 1."""
+    ``PYTHONDONTWRITEBYTECODE=1``, ``PYTHONPYCACHEPREFIX=pycache`` when given (a bytecode cache
+    of the count's own, filled by :func:`prime`) and every :data:`THREAD_POOL_VARIABLES` set to 1."""
     env = {k: v for k, v in (os.environ if base is None else base).items()
            if not k.startswith("PYTHON") or k == "PYTHONPATH"}
     env.update(PYTHONHASHSEED="0", PYTHONDONTWRITEBYTECODE="1")
+    if pycache is not None:
+        env["PYTHONPYCACHEPREFIX"] = pycache
     env.update({name: "1" for name in THREAD_POOL_VARIABLES})
     return env
 
@@ -190,7 +194,8 @@ def failure_line(stderr: str, returncode: int) -> str:
     return f"crashed under valgrind (exit status {returncode}): {last}"
 
 
-def prime(spec: str, case: Case, seed: int, threads: int = 1, timeout: float = 120.0) -> None:
+def prime(spec: str, case: Case, seed: int, threads: int = 1, timeout: float = 120.0,
+          pycache: str | None = None) -> None:
     """Run the driver once without valgrind, bytecode writing allowed: every module the counted
     runs import is then compiled already (a module compiled in one counted run and read from
     its cache in the next would count differently), and a backend that fails is found in
@@ -201,7 +206,7 @@ def prime(spec: str, case: Case, seed: int, threads: int = 1, timeout: float = 1
     BackendFailure
         When the run fails (its one line) or runs past ``timeout`` seconds.
     """
-    env = run_environment()
+    env = run_environment(pycache=pycache)
     env.pop("PYTHONDONTWRITEBYTECODE")
     argv = [sys.executable, "-s", DRIVER, spec, case.kind, case.dtype, str(case.n), case.norm, str(seed), "1",
             str(threads)]
@@ -223,7 +228,7 @@ class RunCount:
 
 
 def count_run(valgrind: str, spec: str, case: Case, seed: int, calls: int, threads: int = 1,
-              cache_sim: bool = False, timeout: float = 120.0) -> RunCount:
+              cache_sim: bool = False, timeout: float = 120.0, pycache: str | None = None) -> RunCount:
     """Run the driver once under cachegrind and return its :class:`RunCount`.
 
     Raises
@@ -237,7 +242,7 @@ def count_run(valgrind: str, spec: str, case: Case, seed: int, calls: int, threa
         argv = driver_argv(valgrind, out_file, spec, case, seed, calls, threads, cache_sim)
         started = time.monotonic()
         try:
-            done = subprocess.run(argv, env=run_environment(), capture_output=True, text=True,
+            done = subprocess.run(argv, env=run_environment(pycache=pycache), capture_output=True, text=True,
                                   timeout=timeout)
         except subprocess.TimeoutExpired:
             raise BackendFailure(f"a counted run of {calls} transform(s) took more than {timeout:g} s under "

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import math
 import os
+import tempfile
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from typing import Mapping
@@ -75,17 +76,25 @@ def count_sides(valgrind: str, specs: Mapping[str, str], case: Case, *, seed: in
         When a run fails (the message names the SPEC), or when the first run says that a run
         of ``2 * calls`` transforms would take longer than ``timeout`` (with the estimate).
     """
+    with tempfile.TemporaryDirectory(prefix="fftgauge-pycache-") as pycache:
+        return _count_sides(valgrind, specs, case, seed, calls, repeats, threads, cache_sim, timeout, workers,
+                            pycache)
+
+
+def _count_sides(valgrind: str, specs: Mapping[str, str], case: Case, seed: int, calls: int, repeats: int,
+                 threads: int, cache_sim: bool, timeout: float, workers: int | None,
+                 pycache: str) -> dict[str, CaseCount]:
     keys = list(specs)
 
     def one(key: str, n_calls: int) -> RunCount:
         try:
-            return count_run(valgrind, specs[key], case, seed, n_calls, threads, cache_sim, timeout)
+            return count_run(valgrind, specs[key], case, seed, n_calls, threads, cache_sim, timeout, pycache)
         except BackendFailure as exc:
             raise BackendFailure(f"{specs[key]}: {exc}") from None
 
     for key in keys:
         try:
-            prime(specs[key], case, seed, threads, timeout)
+            prime(specs[key], case, seed, threads, timeout, pycache)
         except BackendFailure as exc:
             raise BackendFailure(f"{specs[key]}: {exc}") from None
     first = one(keys[0], calls)
