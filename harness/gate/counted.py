@@ -99,6 +99,11 @@ def count_items(items: Sequence[GateItem], sampler: CountSampler, req: GateReque
                 progress.advance(note=it.case.label())
                 continue
             it.counts = {"new": got[it.new_key], "old": got.get(it.old_key) if it.old_key else None}
+            wander = max(c.spread for c in got.values())
+            if wander > s.threshold / 4:
+                it.message = (f"the counts wandered by {wander * 100:.2g}% between repeats (more than a quarter "
+                              f"of the threshold): something changed between runs (a source file edited, a "
+                              f"backend that reads the clock or spawns threads)")
             if it.old_key:
                 it.estimate = count_estimate(it.counts["new"], it.counts["old"], s.confidence)
                 it.conclusive = is_conclusive(it.estimate, s.threshold)
