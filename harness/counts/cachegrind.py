@@ -5,9 +5,9 @@ One *run* is a fresh process, ``valgrind --tool=cachegrind python -s driver.py .
 same start-up; per transform, ``(I(2K) - I(K)) / K`` (:func:`per_transform`). What makes a
 count wander between identical runs is pinned down (:func:`run_environment`): the hash seed
 (``PYTHONHASHSEED=0``), no bytecode written (a first run writing ``.pyc`` files would count
-more), single-threaded BLAS/OpenMP pools (idle worker threads spin), the driver's own folder as the
-first import path, not the working directory (whose listing changes between runs: the
-interpreter would read it), no user site (``-s``), every module compiled before the counted runs into a
+more), single-threaded BLAS/OpenMP pools (idle worker threads spin), no working directory on the import
+path (its listing changes between runs, and the interpreter would read it; the driver drops
+its own folder too), no user site (``-s``), every module compiled before the counted runs into a
 bytecode cache of the count's own (:func:`prime`; a source file edited while a case is
 counted is still compiled in the runs after the edit, and the repeats' spread shows it), and address-space randomisation switched off
 with ``setarch -R`` where the machine allows it. Measured on this project's CI image

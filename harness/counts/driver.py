@@ -10,6 +10,7 @@ standard error when the backend could not be loaded, refused the case or failed.
 
 from __future__ import annotations
 
+import os
 import sys
 
 #: Untimed calls before the counted ones (first-call costs: lazy tables, caches, buffers).
@@ -60,4 +61,8 @@ def main(argv: list[str]) -> int:
 
 
 if __name__ == "__main__":
+    # this folder is the first import path of a script; its modules (measure, table, ...) must
+    # not stand in for others of the same name
+    if sys.path and sys.path[0] == os.path.dirname(os.path.abspath(__file__)):
+        sys.path.pop(0)
     sys.exit(main(sys.argv[1:]))
