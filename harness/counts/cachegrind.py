@@ -9,10 +9,10 @@ more), single-threaded BLAS/OpenMP pools (idle worker threads spin), no working 
 path (its listing changes between runs, and the interpreter would read it; the driver drops
 its own folder too), no user site (``-s``), every module compiled before the counted runs into a
 bytecode cache of the count's own (:func:`prime`; a source file edited while a case is
-counted is still compiled in the runs after the edit, and the repeats' spread shows it), and address-space randomisation switched off
-with ``setarch -R`` where the machine allows it. Measured on this project's CI image
-(Python 3.11, numpy 2): identical runs differ by at most a few thousand instructions, against
-about 1.6e5 per numpy transform of n = 1024.
+counted is still compiled in the runs after the edit, and the repeats' spread shows it),
+and address-space randomisation switched off with ``setarch -R`` where the machine allows it.
+Measured on the development machine (Python 3.11, numpy 2, valgrind 3.19): identical runs
+differ by a few thousand instructions, against about 1.57e5 per numpy transform of n = 1024.
 
 Cachegrind's output file holds an ``events:`` line naming the counted events and a
 ``summary:`` line with their totals (:func:`parse_counts`); with ``--cache-sim=yes`` the
