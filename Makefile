@@ -21,7 +21,7 @@ demo: $(STAMP)
 	$(BIN)/fftgauge check
 
 test: $(STAMP)
-	$(BIN)/python -m pytest -q
+	$(BIN)/python -m pytest -q -n auto
 
 bench: $(STAMP)
 	for f in benchmarks/bench_*.py; do $(BIN)/python $$f || exit 1; done

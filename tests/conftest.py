@@ -3,6 +3,7 @@ example built once per test session."""
 
 from __future__ import annotations
 
+import os
 import shutil
 import subprocess
 from pathlib import Path
@@ -11,6 +12,10 @@ from typing import Callable
 import pytest
 
 DATA_DIR = Path(__file__).parent / "data"
+#: How long the leftover ``sleep`` of tests/data/misbehaving.py sleeps: a value of this test
+#: process's own, so tests that count those sleepers machine-wide (psutil) see only their own
+#: when two test processes run at once (pytest -n 2).
+os.environ.setdefault("FFTGAUGE_TEST_SLEEP_SECONDS", f"987.{os.getpid() % 1000:03d}")
 C_EXAMPLE = Path(__file__).resolve().parent.parent / "examples" / "c_radix2"
 #: What the example builds: the shared libraries and protocol servers, each also broken
 #: on purpose (-DMISSING_BITREVERSAL).

@@ -8,6 +8,7 @@ processes must report; threadpoolctl's own report for the BLAS thread cap.
 
 from __future__ import annotations
 
+import os
 import textwrap
 import threading
 
@@ -381,7 +382,7 @@ def test_a_case_whose_backend_left_processes_running_gets_an_error_row_saying_ho
     import re
     import time
 
-    leftover_sleep = "987.654"  # tests/data/misbehaving.py: LEFTOVER_SLEEP
+    leftover_sleep = os.environ["FFTGAUGE_TEST_SLEEP_SECONDS"]  # tests/conftest.py; misbehaving.py sleeps it
 
     def sleepers() -> set[int]:
         return {p.pid for p in psutil.process_iter(["cmdline", "status"])

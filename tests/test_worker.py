@@ -388,7 +388,7 @@ def test_killed_parent_does_not_leave_a_hanging_child(tmp_path):
 
 
 # -- processes a backend starts ------------------------------------------------------------
-LEFTOVER_SLEEP = "987.654"  # tests/data/misbehaving.py: LEFTOVER_SLEEP
+LEFTOVER_SLEEP = os.environ["FFTGAUGE_TEST_SLEEP_SECONDS"]  # tests/conftest.py; misbehaving.py sleeps it
 
 
 def sleepers() -> set[int]:

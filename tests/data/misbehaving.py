@@ -122,7 +122,7 @@ def chatty_fft(x):
 
 #: How long the processes the leaving backends start sleep, in seconds: a value no other
 #: process on a test machine uses, so the tests can count them by their command line.
-LEFTOVER_SLEEP = "987.654"
+LEFTOVER_SLEEP = os.environ.get("FFTGAUGE_TEST_SLEEP_SECONDS", "987.654")  # tests/conftest.py sets it
 
 
 def sleeper_fft(x):
