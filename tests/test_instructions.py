@@ -168,7 +168,9 @@ def test_counts_see_one_and_five_percent_of_extra_work():
     got = count_sides(cachegrind.require_valgrind(), specs, Case("fft", "float64", 64), seed=1234, calls=10,
                       repeats=2)
     same, plus1, plus5 = (count_ratio(got[k], got["base"]) for k in ("again", "plus1", "plus5"))
-    assert abs(same.ratio - 1.0) < 2e-4
+    # the same code on both sides: 1e-3 leaves room for the count's wander seen in a fresh
+    # clone with the suite on two cores (5.4e-4 once), still a tenth of the 1% to be seen
+    assert abs(same.ratio - 1.0) < 1e-3
     # extra passes are 1% and 5% of the passes (the call's fixed overhead makes the ratios a little
     # less); the bounds leave 2e-3 for the counts' own wander in a tree other processes edit
     assert 1.008 < plus1.ratio < 1.012 and plus1.ratio_low > 1.0
