@@ -72,14 +72,16 @@ def test_a_project_with_its_own_harness_and_backends_keeps_working(fresh_env, tm
         (project / package / "__init__.py").write_text(f"{marker} = True\n")
     (project / "harness" / "cases.py").write_text("OWN_CASES = ['a', 'b']\n")
     (project / "tests").mkdir()
+    # the neighbour's own test module (its package names filled in, so that this file itself
+    # imports nothing by those names)
     (project / "tests" / "test_own.py").write_text(textwrap.dedent("""
-        import backends
-        import harness
-        from harness.cases import OWN_CASES
+        import {b}
+        import {h}
+        from {h}.cases import OWN_CASES
 
 
         def test_own_packages_are_the_projects():
-            assert harness.HARNESS_OF_THE_NEIGHBOUR and backends.BACKENDS_OF_THE_NEIGHBOUR
+            assert {h}.HARNESS_OF_THE_NEIGHBOUR and {b}.BACKENDS_OF_THE_NEIGHBOUR
             assert OWN_CASES == ['a', 'b']
 
 
@@ -88,8 +90,8 @@ def test_a_project_with_its_own_harness_and_backends_keeps_working(fresh_env, tm
             from fftgauge.backends.base import Backend
             from fftgauge.harness.cases import Case
             assert fftgauge.__version__ and Backend and Case("fft", "float64", 8).n == 8
-            assert harness.HARNESS_OF_THE_NEIGHBOUR
-    """))
+            assert {h}.HARNESS_OF_THE_NEIGHBOUR
+    """).format(h="harness", b="backends"))
     proc = _run([str(fresh_env), "-m", "pytest", "-q", "-p", "no:cacheprovider"], project)
     assert proc.returncode == 0, proc.stdout[-3000:] + proc.stderr[-3000:]
     assert "2 passed" in proc.stdout
