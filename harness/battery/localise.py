@@ -77,16 +77,24 @@ class Localisation:
         return self.kind != "spread"
 
 
+def error_energy(err: np.ndarray) -> tuple[np.ndarray, float] | None:
+    """Return the per-bin energy |err|^2 and its finite, positive total, or None when there is
+    no error to localise (zero, NaN or Inf)."""
+    energy = np.abs(err) ** 2
+    total = float(np.sum(energy))
+    return (energy, total) if total > 0 and np.isfinite(total) else None
+
+
 def concentrated_bins(err: np.ndarray, n: int | None = None) -> tuple[int, ...] | None:
     """Return the bins (sorted) holding :data:`CONCENTRATED_SHARE` of the energy of ``err``
     when they are few (see the module docstring), else None. For the transform size ``n``
     (even, given) the pair N/2 - 1, N - 1 of the last radix-2 butterfly counts as few at
     every size (at n = 4 it is half the bins)."""
-    energy = np.abs(err) ** 2
-    total = float(np.sum(energy))
-    length = err.shape[0]
-    if not total > 0 or not np.isfinite(total):
+    found = error_energy(err)
+    if found is None:
         return None
+    energy, total = found
+    length = err.shape[0]
     order = np.argsort(-energy, kind="stable")
     cumulative = np.cumsum(energy[order]) / total
     count = int(np.searchsorted(cumulative, CONCENTRATED_SHARE) + 1)
@@ -218,10 +226,10 @@ def residue_class(case: Case, err: np.ndarray) -> tuple[str, int] | None:
     n = case.n
     if case.kind not in ("fft", "ifft") or not is_power_of_two(n) or n < 4:
         return None
-    energy = np.abs(err) ** 2
-    total = float(np.sum(energy))
-    if not total > 0:
+    found = error_energy(err)
+    if found is None:
         return None
+    energy, total = found
     k = np.arange(n)
     best = None
     p = 2
@@ -251,10 +259,10 @@ def upper_half(case: Case, err: np.ndarray) -> str | None:
     n = case.n
     if case.kind not in ("fft", "ifft") or n < 8:
         return None
-    energy = np.abs(err) ** 2
-    total = float(np.sum(energy))
-    if not total > 0:
+    found = error_energy(err)
+    if found is None:
         return None
+    energy, total = found
     k = np.arange(n)
     for name, mask in (("upper", k > n // 2), ("lower", (k > 0) & (k < (n + 1) // 2))):
         if float(np.sum(energy[mask])) >= CONCENTRATED_SHARE * total:
