@@ -38,6 +38,7 @@ import numpy as np
 from fftgauge.backends.claims import (BackendClaims, BackendDescription, Capabilities, Conventions,  # noqa: F401
                                       SizeRule)
 from fftgauge.harness.cases import Case
+from fftgauge.harness.shapes.case import ShapeCase
 
 
 @dataclass(frozen=True)
@@ -88,6 +89,26 @@ class Plan(ABC):
 
     def close(self) -> None:
         """Release what the plan holds (buffers, foreign plans). Default: nothing."""
+
+
+class ShapedFunctionPlan(Plan):
+    """A plan of a shaped case that is just a function of the input: ``execute(x) = fn(x)``.
+
+    Its :meth:`prepare` keeps the input's memory layout (C, Fortran, strided, negative
+    strides), casting only when the dtype differs, so that the layout a case names is the
+    layout the library sees.
+    """
+
+    def __init__(self, case: ShapeCase, fn: Callable[[np.ndarray], np.ndarray]):
+        super().__init__(case)  # type: ignore[arg-type]
+        self._fn = fn
+
+    def prepare(self, x: np.ndarray) -> np.ndarray:
+        """Return ``x`` itself when it has the case's input dtype, else a cast keeping its layout."""
+        return x if x.dtype == self.case.input_dtype else x.astype(self.case.input_dtype, order="K")
+
+    def execute(self, x: np.ndarray) -> np.ndarray:
+        return self._fn(x)
 
 
 class FunctionPlan(Plan):
@@ -203,6 +224,43 @@ class Backend(ABC):
         The engine calls this only for cases :meth:`unsupported_reason` accepts. Raises
         whatever the wrapped library raises; the engine records it as an ``error`` row.
         """
+
+    def shaped_unsupported_reason(self, case: ShapeCase) -> str | None:
+        """Return why the shaped ``case`` is outside this backend's claims, or ``None``.
+
+        Checks the capabilities' ``shaped_kinds``, precision, norm, ``max_shaped_points`` and,
+        for each transformed axis, the size rule of the 1-D transform along it.
+        """
+        caps = self.capabilities()
+        if not caps.shaped_kinds:
+            return f"{self.label} transforms one 1-D array only (it claims no batched or N-D kinds)"
+        if case.kind not in caps.shaped_kinds:
+            return f"{self.label} does not compute {case.kind} on arrays (it claims {', '.join(caps.shaped_kinds)})"
+        if case.dtype not in caps.dtypes:
+            return f"{self.label} does not compute in {case.dtype} (it claims {', '.join(caps.dtypes)})"
+        if case.norm not in caps.norms:
+            return f"{self.label} does not take norm={case.norm} (it claims {', '.join(caps.norms)})"
+        total = int(np.prod(case.shape))
+        if caps.max_shaped_points is not None and total > caps.max_shaped_points:
+            return f"{self.label} takes arrays of at most {caps.max_shaped_points} points ({total} here)"
+        for position in range(len(case.axes)):
+            line = case.line_case(position)
+            why = caps.size_rule(line.kind, line.dtype).reason(line.n)
+            if why is not None:
+                return f"{self.label} handles {why} (length {line.n} along axis {case.axes[position]})"
+        return None
+
+    def plan_shaped(self, case: ShapeCase) -> Plan:
+        """Return a :class:`Plan` for the shaped ``case`` (its ``execute`` takes the whole array).
+
+        The engine calls this only for cases :meth:`shaped_unsupported_reason` accepts.
+
+        Raises
+        ------
+        NotImplementedError
+            For backends that claim no shaped kinds.
+        """
+        raise NotImplementedError(f"{self.name} does not compute batched or N-D transforms")
 
     def count_operations(self, case: Case, count_trivial: bool = True) -> OpCount:
         """Run the transform once in counting mode and return the arithmetic it performed.

@@ -20,6 +20,7 @@ from fftgauge.harness.cases import DTYPES, KINDS, NORMS, is_power_of_two
 # with pack_half_spectrum/unpack_half_spectrum), which also converts a reference to them.
 from fftgauge.harness.dft import ORDERS, PACKINGS, SCALES, SIGNS  # noqa: F401 - re-exported
 from fftgauge.harness.fixed.declared import FixedScaling
+from fftgauge.harness.shapes.case import SHAPE_KINDS
 
 #: Size forms a rule states: every size, or powers of two only.
 SIZE_FORMS = ("any", "pow2")
@@ -207,6 +208,12 @@ class Capabilities:
     #: Fixed-point (q15/q31) cases: the declared output shift, scaling and rounding
     #: (:class:`~fftgauge.harness.fixed.declared.FixedScaling`); None: none declared.
     fixed: FixedScaling | None = None
+    #: Shaped cases (:mod:`fftgauge.harness.shapes.case`): the kinds it computes on whole
+    #: arrays (batched 1-D along one axis: ``fft``...; over several axes: ``fftn``...); empty:
+    #: it transforms one 1-D array only, and shaped cases are skipped with that reason.
+    shaped_kinds: tuple[str, ...] = ()
+    #: The largest shaped case it takes, as the total number of points of the array; None: no limit.
+    max_shaped_points: int | None = None
 
     def __post_init__(self) -> None:
         set_ = object.__setattr__
@@ -232,6 +239,11 @@ class Capabilities:
                 raise ValueError(f"size_rules maps a kind, a precision or a (kind, precision) pair to a "
                                  f"SizeRule; got {key!r}: {rule!r}")
         set_(self, "size_rules", pairs)
+        shaped = tuple(self.shaped_kinds)
+        bad = [k for k in shaped if k not in SHAPE_KINDS]
+        if bad:
+            raise ValueError(f"shaped_kinds must be from {', '.join(SHAPE_KINDS)}, got {bad[0]!r}")
+        set_(self, "shaped_kinds", shaped)
 
     def default_size_rule(self) -> SizeRule:
         """Return the rule for cases no entry of :attr:`size_rules` names."""
@@ -257,6 +269,7 @@ class Capabilities:
             "norms": list(self.norms), "max_n": self.max_n, "in_place": self.in_place,
             "thread_option": self.thread_option, "separate_planning": self.separate_planning,
             "counts_operations": self.counts_operations, "min_n": self.min_n,
+            "shaped_kinds": list(self.shaped_kinds), "max_shaped_points": self.max_shaped_points,
             "size_set": list(self.size_set) if self.size_set is not None else None,
             "size_rules": [{"key": list(k) if isinstance(k, tuple) else k, **r.as_dict()}
                            for k, r in self.size_rules],
