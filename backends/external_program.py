@@ -40,8 +40,10 @@ from fftgauge.backends.pipe_protocol import (PRECISION_BYTES, PROTOCOL_VERSION, 
                                              ProgramStatus, ProgramTimeout, ProtocolError, encode_hello,
                                              encode_transform, one_line, payload_reals)
 from fftgauge.backends.program_connection import ProgramConnection
-from fftgauge.harness.cases import Case
+from fftgauge.harness.cases import FIXED_DTYPES, Case
 from fftgauge.harness.errors import UsageError
+from fftgauge.harness.fixed.declared import FixedScaling
+from fftgauge.harness.fixed.formats import ROUNDINGS
 
 SCHEME = "exec"
 
@@ -71,6 +73,9 @@ class ProgramPlan(Plan):
         self._wire_in = case.input_dtype.newbyteorder(little)
         self._wire_out = case.output_dtype.newbyteorder(little)
         self._in_reals, self._out_reals = payload_reals(case)
+        # q15/q31: (n, 2) integer pairs, sent as 2n integers a row (docs/fixed-point.md)
+        self._pairs = case.dtype in FIXED_DTYPES
+        self._row_values = self._in_reals if self._pairs else case.input_length
         self._real_bytes = PRECISION_BYTES[case.dtype]
         self.last_self_seconds: float | None = None
         self.last_round_trip_seconds: float | None = None
@@ -99,9 +104,11 @@ class ProgramPlan(Plan):
         if self.timed_out is not None:
             raise ProgramTimeout(f"not sent: this plan's program already timed out ({self.timed_out})")
         xs = np.ascontiguousarray(xs, dtype=self._wire_in)
+        if self._pairs and xs.ndim == 3:  # rows of (n, 2) pairs
+            xs = xs.reshape(xs.shape[0], -1)
         count = xs.shape[0]
-        if xs.ndim != 2 or xs.shape[1] != self.case.input_length:
-            raise ValueError(f"{self.case.label()} takes rows of {self.case.input_length} values, got "
+        if xs.ndim != 2 or xs.shape[1] != self._row_values:
+            raise ValueError(f"{self.case.label()} takes rows of {self._row_values} values, got "
                              f"shape {xs.shape}")
         case = self.case
         header = encode_transform(case, count, xs.nbytes)
@@ -115,7 +122,8 @@ class ProgramPlan(Plan):
             raise
         self.last_round_trip_seconds = (time.perf_counter_ns() - start) * 1e-9
         self.last_self_seconds = None if response.elapsed_ns is None else response.elapsed_ns * 1e-9
-        out = np.frombuffer(response.payload, dtype=self._wire_out).reshape(count, case.output_length)
+        out = np.frombuffer(response.payload, dtype=self._wire_out).reshape(count, case.output_length,
+                                                                             *((2,) if self._pairs else ()))
         if not self._wire_out.isnative:
             out = out.astype(case.output_dtype)
         return out
@@ -144,6 +152,26 @@ def resolve_program(spec: str, argv0: str) -> str:
     return full
 
 
+def fixed_scaling_option(spec: str, output_shift: str, rounding: str) -> FixedScaling | None:
+    """Return the q15/q31 scaling the SPEC's ``output_shift=``/``rounding=`` declare (None
+    without ``output_shift``: the fixed-point checks then give ``error`` rows saying so).
+
+    Raises
+    ------
+    UsageError
+        For a malformed shift, or ``block`` (the protocol carries no per-call exponent).
+    """
+    if not output_shift:
+        return None
+    if output_shift == "block":
+        raise UsageError(f"backend {spec!r}: output_shift=block needs a per-call exponent, which the pipe "
+                         f"protocol does not carry; give a number of bits or log2n")
+    try:
+        return FixedScaling(output_shift, rounding=rounding)
+    except ValueError as exc:
+        raise UsageError(f"backend {spec!r}: {exc}") from None
+
+
 class ExternalProgramBackend(Backend):
     """An FFT served by a long-lived child program over the pipe protocol.
 
@@ -160,6 +188,9 @@ class ExternalProgramBackend(Backend):
                               minimum=0, exclusive_minimum=True),
         "start_timeout": OptionSpec(float, 10.0, "seconds for the program to start and answer the hello",
                                     minimum=0, exclusive_minimum=True),
+        "output_shift": OptionSpec(str, "", "q15/q31: bits the output is shifted right of the plain DFT "
+                                            "(a number or log2n; docs/fixed-point.md)"),
+        "rounding": OptionSpec(str, "round-half-up", "q15/q31: the rounding it promises", choices=ROUNDINGS),
     }
 
     def __init__(self, spec: str, argv: list[str], **opts: Any):
@@ -167,6 +198,7 @@ class ExternalProgramBackend(Backend):
         self._spec = spec
         self.name = f"{SCHEME}:{os.path.basename(argv[0])}"
         self.argv = argv
+        self.fixed = fixed_scaling_option(spec, self.opts["output_shift"], self.opts["rounding"])
         self.connection = ProgramConnection(argv, self.opts["timeout"], self.opts["start_timeout"])
         self._round_trip: float | None = None
         try:
@@ -219,7 +251,7 @@ class ExternalProgramBackend(Backend):
     def capabilities(self) -> Capabilities:
         h = self.hello
         return Capabilities(kinds=h.kinds, dtypes=h.dtypes, sizes="pow2" if h.pow2_only else "any",
-                            norms=h.norms, max_n=h.max_n)
+                            norms=h.norms, max_n=h.max_n, fixed=self.fixed)
 
     def plan(self, case: Case) -> Plan:
         """Return a :class:`ProgramPlan`; restarts the program first if it is not running

@@ -31,8 +31,12 @@ OP_HELLO = 1
 OP_TRANSFORM = 2
 KIND_CODES = {kind: i for i, kind in enumerate(KINDS)}            # fft 0, ifft 1, rfft 2, irfft 3
 NORM_CODES = {norm: i for i, norm in enumerate(NORMS)}            # backward 0, ortho 1, forward 2
-PRECISION_BYTES = {"float32": 4, "float64": 8}
-PRECISION_BITS = {"float32": 1, "float64": 2}
+PRECISION_BYTES = {"float32": 4, "float64": 8, "q15": 2, "q31": 4}   # bytes per real (per part: q15/q31)
+PRECISION_BITS = {"float32": 1, "float64": 2, "q15": 4, "q31": 8}
+#: The request's precision byte: bytes per real for floats; fixed point (q15/q31: (re, im)
+#: integer pairs, docs/fixed-point.md) sets bit 7 above its bytes per part, so a program
+#: that knows floats alone never takes it for one (it sees no q15 bit in its own hello either).
+PRECISION_CODES = {"float32": 4, "float64": 8, "q15": 0x82, "q31": 0x84}
 STATUS_NAMES = {0: "ok", 1: "unsupported", 2: "bad request", 3: "transform failed", 4: "unsupported version"}
 STATUS_VERSION = 4
 RESPONSE_FLAG_ELAPSED = 1
@@ -96,7 +100,7 @@ def encode_hello() -> bytes:
 def encode_transform(case: Case, count: int, payload_bytes: int) -> bytes:
     """Return the 32-byte request header (little-endian) for ``count`` transforms of ``case``."""
     return REQUEST_HEADER.pack(REQUEST_MAGIC, PROTOCOL_VERSION, OP_TRANSFORM, KIND_CODES[case.kind],
-                               PRECISION_BYTES[case.dtype], NORM_CODES[case.norm], 0, count, case.n,
+                               PRECISION_CODES[case.dtype], NORM_CODES[case.norm], 0, count, case.n,
                                payload_bytes)
 
 

@@ -20,7 +20,10 @@ C_EXAMPLE = Path(__file__).resolve().parent.parent / "examples" / "c_radix2"
 #: What the example builds: the shared libraries and protocol servers, each also broken
 #: on purpose (-DMISSING_BITREVERSAL).
 C_TARGETS = {"libradix2.so": ("-fPIC", "-shared"), "libradix2_broken.so": ("-DMISSING_BITREVERSAL", "-fPIC", "-shared"),
-             "radix2_server": (), "radix2_server_broken": ("-DMISSING_BITREVERSAL",)}
+             "radix2_server": (), "radix2_server_broken": ("-DMISSING_BITREVERSAL",),
+             # Q15 (radix2_q15.c), broken with -DMISSING_SATURATION
+             "libradix2_q15.so": ("-fPIC", "-shared"), "libradix2_q15_broken.so": ("-DMISSING_SATURATION", "-fPIC", "-shared"),
+             "radix2_q15_server": (), "radix2_q15_server_broken": ("-DMISSING_SATURATION",)}
 
 
 def c_compiler() -> str | None:
@@ -47,9 +50,9 @@ def c_example_build(tmp_path_factory: pytest.TempPathFactory) -> Path:
         subprocess.run(cmd, check=True, capture_output=True, timeout=120)
         return build
     for target, flags in C_TARGETS.items():
-        sources = [str(C_EXAMPLE / "radix2.c")]
-        if target.startswith("radix2_server"):
-            sources.insert(0, str(C_EXAMPLE / "radix2_server.c"))
+        sources = [str(C_EXAMPLE / ("radix2_q15.c" if "q15" in target else "radix2.c"))]
+        if "server" in target:
+            sources.insert(0, str(C_EXAMPLE / ("radix2_q15_server.c" if "q15" in target else "radix2_server.c")))
         subprocess.run([cc, "-O2", "-std=c99", *flags, "-o", str(build / target), *sources, "-lm"],
                        check=True, capture_output=True, timeout=120)
     return build
