@@ -246,8 +246,16 @@ def _dd_norm_factor(n: int, norm: str, inverse: bool) -> tuple[float, float]:
 
 def double_double_transform(x: np.ndarray, case: Case) -> tuple[np.ndarray, np.ndarray]:
     """Return (hi, lo) of the transform computed in double-double arithmetic."""
+    return double_double_pair_transform(DDArray.from_array(x), case)
+
+
+def double_double_pair_transform(z: DDArray, case: Case) -> tuple[np.ndarray, np.ndarray]:
+    """Return (hi, lo) of the transform of the double-double input ``z`` (1-D, ``case.input_length``).
+
+    The entry point for inputs that are themselves double-double values (the shaped ground
+    truth's later axes: :mod:`fftgauge.harness.shapes.reference`).
+    """
     n = case.n
-    z = DDArray.from_array(x)
     if case.kind == "irfft":
         z = _dd_hermitian_full(z, n)
     if case.is_inverse:
