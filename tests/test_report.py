@@ -406,7 +406,7 @@ def test_page_opens_with_the_verdict(tmp_path, time_doc, check_doc):
     first = md.split("\n\n")[1]
     assert first.startswith("## FAIL: correctness, 89 cases passed, 8 gave a wrong answer")
     assert '<p class="verdict FAIL">FAIL: correctness, 89 cases passed' in page
-    assert page.index('class="verdict') < page.index("<h2>")
+    assert page.index('class="verdict') < page.index("<h2 ")
     passing = {**check_doc, "rows": [r for r in check_doc["rows"] if r["backend"] != "demo-recurrence"]}
     md, page = report_pages(tmp_path, write(tmp_path, "ok.json", json.dumps(passing)))
     assert md.split("\n\n")[1].startswith("## PASS: correctness, 65 cases passed")

@@ -67,11 +67,9 @@ def settings_from_args(args: argparse.Namespace):
 
 def report_text(doc: dict) -> str:
     """Return the terminal answer: the sentences, then the ranking table."""
-    from fftgauge.harness.selection.ranking import Candidate, CaseCost
-    from fftgauge.harness.selection.table import ranking_table
+    from fftgauge.harness.selection.table import candidates_of, ranking_table
 
-    ranked = [Candidate(**{**r, "reasons": tuple(r["reasons"]), "failed_checks": tuple(r["failed_checks"]),
-                           "cases": tuple(CaseCost(**c) for c in r["cases"])}) for r in doc["rows"]]
+    ranked = candidates_of(doc["rows"])
     sentences = "\n".join(f"- {s}." for s in doc["summary"])
     note = (f"(per call: one call of each case of the workload, planning amortised over "
             f"{doc['workload']['calls_per_plan']:,} calls; interval: 95%)")

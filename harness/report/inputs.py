@@ -10,7 +10,9 @@ from typing import Any
 
 from fftgauge.harness.cases import Case
 from fftgauge.harness.errors import UsageError
-from fftgauge.harness.results import CHECK_SCHEMA, GATE_SCHEMA, TIME_SCHEMA, incomplete_note, load_results
+from fftgauge.harness.results import (CHECK_SCHEMA, GATE_SCHEMA, TIME_SCHEMA, incomplete_note, load_results,
+                                      validate_results)
+from fftgauge.harness.selection.run import PICK_SCHEMA
 
 #: Most history plots drawn per folder when no case is chosen.
 MAX_HISTORY_PLOTS = 6
@@ -19,11 +21,17 @@ MAX_HISTORY_PLOTS = 6
 @dataclass
 class ReportInputs:
     """What the command was given, loaded and checked: (path, document) pairs per schema,
-    (folder, documents) histories, and a note per file from a run that did not complete."""
+    (folder, documents) histories, and a note per file from a run that did not complete.
+
+    A pick file (``fftgauge-pick/1``) is kept in ``pick``, and the battery and timing
+    documents it holds as evidence join ``check`` and ``time`` (named ``PATH (pick's
+    battery)`` and ``PATH (pick's timing)``).
+    """
 
     time: list[tuple[str, dict[str, Any]]] = field(default_factory=list)
     check: list[tuple[str, dict[str, Any]]] = field(default_factory=list)
     histories: list[tuple[str, list[dict[str, Any]]]] = field(default_factory=list)
+    pick: list[tuple[str, dict[str, Any]]] = field(default_factory=list)
     incomplete: list[str] = field(default_factory=list)
 
 
@@ -52,7 +60,10 @@ def load_inputs(paths: list[str]) -> ReportInputs:
                     inputs.incomplete.append(note)
             inputs.histories.append((path, docs))
             continue
-        doc = load_results(path, (TIME_SCHEMA, CHECK_SCHEMA, GATE_SCHEMA))
+        doc = load_results(path, (TIME_SCHEMA, CHECK_SCHEMA, GATE_SCHEMA, PICK_SCHEMA))
+        if doc["schema"] == PICK_SCHEMA:
+            add_pick(inputs, path, doc)
+            continue
         note = incomplete_note(path, doc)
         if note:
             inputs.incomplete.append(note)
@@ -61,6 +72,34 @@ def load_inputs(paths: list[str]) -> ReportInputs:
                              f"folder that holds them")
         (inputs.time if doc["schema"] == TIME_SCHEMA else inputs.check).append((path, doc))
     return inputs
+
+
+def add_pick(inputs: ReportInputs, path: str, doc: dict[str, Any]) -> None:
+    """Add a pick document and its evidence (battery and timing documents) to ``inputs``.
+
+    Raises
+    ------
+    UsageError
+        When a ranking row or an evidence document is not what ``fftgauge pick`` writes.
+    """
+    from fftgauge.harness.selection.table import candidates_of
+
+    try:
+        candidates_of(doc["rows"])
+        summary = [str(s) for s in doc.get("summary") or []]
+    except (TypeError, KeyError, AttributeError) as exc:
+        raise UsageError(f"results file {path!r}: a ranking row is not what fftgauge pick writes ({exc}); the "
+                         f"file is corrupt or was edited") from None
+    inputs.pick.append((path, {**doc, "summary": summary}))
+    evidence = doc.get("evidence") if isinstance(doc.get("evidence"), dict) else {}
+    for key, schema, target, words in (("check", CHECK_SCHEMA, inputs.check, "pick's battery"),
+                                       ("time", TIME_SCHEMA, inputs.time, "pick's timing")):
+        part = evidence.get(key)
+        if not isinstance(part, dict) or not part.get("rows"):
+            continue  # a pick that timed nothing keeps an empty timing document without an envelope
+        name = f"{path} ({words})"
+        validate_results(name, part, (schema,))
+        target.append((name, part))
 
 
 def parse_case(text: str) -> Case:

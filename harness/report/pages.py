@@ -3,9 +3,10 @@ tables, images with captions, the verdict headline; :mod:`fftgauge.harness.repor
 writes them as Markdown or HTML).
 
 The page reads top-down: the verdict (``PASS``, ``FAIL`` or ``INCOMPLETE``) and why, the
-inputs and their machines, correctness (summary, one sentence per finding, the accuracy
-plot), timing (the median times with the fastest in bold, planning time, peak memory and
-rate per backend, the speed plots, the scaling analysis in full), then histories.
+inputs, the pick's ranking (from a ``fftgauge pick`` file), correctness (summary, one
+sentence per finding, the accuracy plot), timing (the median times with the fastest in bold, planning time, peak memory and
+rate per backend, the speed plots, the scaling analysis in full), histories, and last the
+machine fingerprint and library versions of every input.
 """
 
 from __future__ import annotations
@@ -33,10 +34,11 @@ def verdict(inputs: ReportInputs) -> tuple[str, str]:
     """Return the headline: (``PASS`` | ``FAIL`` | ``INCOMPLETE``, one sentence saying why).
 
     FAIL when a checked case gave a wrong answer or could not run, a timed case could not
-    run, or the newest gate run of a history found a regression; else INCOMPLETE when an
+    run, a pick recommended no backend, or the newest gate run of a history found a regression; else INCOMPLETE when an
     input is from a run that did not complete; else PASS.
     """
     from fftgauge.harness.report.findings import case_counts
+    from fftgauge.harness.report.pick_section import pick_verdict
 
     parts, failed = [], False
     if inputs.check:
@@ -56,6 +58,10 @@ def verdict(inputs: ReportInputs) -> tuple[str, str]:
         timed = sum(1 for r in rows if r.get("status", "ok") == "ok" and r.get("seconds"))
         failed |= bool(errors)
         parts.append(f"timing, {_count(timed, 'case')} timed" + (f", {errors} could not run" if errors else ""))
+    for path, doc in inputs.pick:
+        none, words = pick_verdict(doc)
+        failed |= none
+        parts.insert(0, words)
     for folder, docs in inputs.histories:
         gates = sorted((d for d in docs if d.get("schema") == "fftgauge-gate/1"), key=lambda d: str(d.get("created")))
         if gates and gates[-1].get("regressed") and gates[-1].get("complete") is not False:
@@ -134,16 +140,57 @@ def _timing(inputs: ReportInputs, images: dict[str, list]) -> list[tuple]:
     return blocks
 
 
+#: The machine fingerprint's fields in the order shown (others follow, sorted).
+MACHINE_FIELDS = ("cpu", "cores", "caches", "machine", "os", "platform", "python")
+
+
+def machine_blocks(inputs: ReportInputs) -> list[tuple]:
+    """Return the section that says where each input was measured: one table of the machine
+    fingerprint (CPU, cores, caches, OS, Python, ...) and the library versions per distinct
+    machine and versions, with the inputs measured there (a folder by its newest run)."""
+    import json
+
+    docs = [(p, d) for p, d in inputs.pick + inputs.time + inputs.check if "(pick's " not in p]
+    docs += [(f"{folder} (newest run)", max(ds, key=lambda d: str(d.get("created") or "")))
+             for folder, ds in inputs.histories if ds]
+    groups: dict[str, list[tuple[str, dict[str, Any]]]] = {}
+    for path, doc in docs:
+        key = json.dumps([doc.get("machine") or {}, doc.get("versions") or {}], sort_keys=True, default=str)
+        groups.setdefault(key, []).append((path, doc))
+    blocks: list[tuple] = [("h", 2, "Machine")]
+    for members in groups.values():
+        doc = members[0][1]
+        machine = doc.get("machine") or {}
+        blocks.append(("p", "Measured on this machine: " + ", ".join(p for p, _ in members) + "."))
+        names = [f for f in MACHINE_FIELDS if f in machine] + sorted(set(machine) - set(MACHINE_FIELDS))
+        lines = [[name, ", ".join(f"{k} {v}" for k, v in machine[name].items()) if isinstance(machine[name], dict)
+                  else str(machine[name])] for name in names]
+        blocks.append(("table", ["machine", "value"], lines or [["(not recorded)", ""]], set()))
+        versions = doc.get("versions") or {}
+        if versions:
+            blocks.append(("table", ["library", "version"],
+                           [[k, "not installed" if v is None else str(v)] for k, v in versions.items()], set()))
+    return blocks
+
+
 def build_blocks(inputs: ReportInputs, images: dict[str, list]) -> list[tuple]:
     """Return the report as a list of blocks (:mod:`fftgauge.harness.report.markup`):
     ("verdict", word, sentence), ("h", level, text), ("p", text), ("pre", text),
-    ("table", header, rows, bold cells as (row, col) set), ("img", path, caption)."""
+    ("table", header, rows, bold cells as (row, col) set), ("img", path, caption), ("ul", items).
+
+    The order: the verdict, the pick (when a pick file is given), correctness, timing,
+    histories, then the machine fingerprint of every input."""
     word, sentence = verdict(inputs)
-    sources = [p for p, _ in inputs.time + inputs.check] + [f"{p} (stored runs)" for p, _ in inputs.histories]
+    sources = ([p for p, _ in inputs.pick] + [p for p, _ in inputs.time + inputs.check if "(pick's " not in p]
+               + [f"{p} (stored runs)" for p, _ in inputs.histories])
     blocks: list[tuple] = [("h", 1, "fftgauge report"), ("verdict", word, sentence),
                            ("p", "Generated " + dt.datetime.now(dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
                             + " from " + ", ".join(sources) + ".")]
     blocks += [("p", f"Note: {note}.") for note in inputs.incomplete]
+    if inputs.pick:
+        from fftgauge.harness.report.pick_section import pick_blocks
+
+        blocks += pick_blocks(inputs.pick)
     if inputs.check:
         blocks += _correctness(inputs, images)
     if inputs.time:
@@ -153,4 +200,4 @@ def build_blocks(inputs: ReportInputs, images: dict[str, list]) -> list[tuple]:
         for folder, docs in inputs.histories:
             blocks.append(("p", f"{folder}: {len(docs)} stored runs"))
         blocks += [("img", p, c) for p, c in images.get("history", [])]
-    return blocks
+    return blocks + machine_blocks(inputs)

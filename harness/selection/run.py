@@ -131,6 +131,14 @@ def run_pick(workload: Workload, specs: Sequence[str] | None = None, settings: P
     labels = labels_of(check, specs)
     passing = [s for s in specs if not battery_reasons(rows_of(check, labels[s]), workload)]
     timing = timing_doc(workload, passing, settings, quiet)
+    return pick_document(workload, specs, settings, check, timing)
+
+
+def pick_document(workload: Workload, specs: Sequence[str], settings: PickSettings, check: dict[str, Any],
+                  timing: dict[str, Any]) -> dict[str, Any]:
+    """Return the ``fftgauge-pick/1`` document of a battery and a timing document of ``specs``
+    on the workload: the envelope, the workload, the settings, the recommended backend (or
+    None), the answer in words (``summary``), the ranked rows and both documents (``evidence``)."""
     ranked = rank_from_docs(workload, specs, check, timing)
     doc = envelope(PICK_SCHEMA, settings.seed, extra={
         "workload": workload.as_dict(),

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from fftgauge.harness.selection.ranking import Candidate
+from fftgauge.harness.selection.ranking import Candidate, CaseCost
 from fftgauge.harness.selection.verdict import seconds_text
 
 #: Column headings, in order.
@@ -37,6 +37,12 @@ def cells(c: Candidate) -> tuple[str, ...]:
     return (str(c.rank) if c.rank is not None else "-", c.backend, t(c.amortised_seconds),
             f"{t(c.amortised_low)} - {t(c.amortised_high)}" if timed else "-", t(c.seconds), t(c.plan_seconds),
             accuracy, bytes_text(c.peak_bytes), verdict)
+
+
+def candidates_of(rows: list[dict]) -> list[Candidate]:
+    """Return the candidates of a ``fftgauge-pick/1`` document's ``rows`` (as :meth:`Candidate.as_dict` wrote them)."""
+    return [Candidate(**{**r, "reasons": tuple(r["reasons"]), "failed_checks": tuple(r["failed_checks"]),
+                         "cases": tuple(CaseCost(**c) for c in r["cases"])}) for r in rows]
 
 
 def ranking_table(ranked: list[Candidate]) -> str:
