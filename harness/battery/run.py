@@ -311,7 +311,7 @@ def with_time_reasons(worker: Any, claims: Any, req: BatteryRequest, cases: list
     return dataclasses.replace(claims, reasons=reasons)
 
 
-def _skip_rows(req: BatteryRequest, claims: dict[str, dict[str, Any]], cases: list[Case]) -> list[dict]:
+def unclaimed_case_rows(req: BatteryRequest, claims: dict[str, dict[str, Any]], cases: list[Case]) -> list[dict]:
     """Return one ``skip`` row per case a backend does not claim (the reason as its message);
     in a run that does not name its kinds, none for a kind the backend never computes (the
     contract's default is every kind the backend supports)."""
@@ -320,13 +320,29 @@ def _skip_rows(req: BatteryRequest, claims: dict[str, dict[str, Any]], cases: li
             for row in skip_rows(claims[spec].label, case, [SKIPPED_CASE_CHECK], reason)]
 
 
-def _sort_rows(rows: list[dict], req: BatteryRequest, claims: dict[str, dict[str, Any]], order: list[str]) -> None:
+def sort_battery_rows(rows: list[dict], req: BatteryRequest, claims: dict[str, dict[str, Any]], order: list[str]) -> None:
     """Sort rows in place: backend (as asked), kind, dtype, norm, n, check (battery order)."""
     backend_pos = {claims[spec].label: i for i, spec in enumerate(req.specs)}
     check_pos = {name: i for i, name in enumerate([SKIPPED_CASE_CHECK] + order)}
     kinds = ("fft", "ifft", "rfft", "irfft")
     rows.sort(key=lambda r: (backend_pos.get(r["backend"], 0), kinds.index(r["kind"]), r["dtype"], r["norm"],
                              r["n"], check_pos.get(r["check"], len(check_pos))))
+
+
+def battery_envelope(req: BatteryRequest, claims: dict[str, Any], kinds: Sequence[str],
+                     check_names: list[str] | None) -> dict[str, Any]:
+    """Return the ``fftgauge-check/1`` envelope of a run (rows empty): reference methods, the
+    backends' records and the request (the local run's and the cluster's)."""
+    from fftgauge.harness.battery.checks import CHECKS
+    from fftgauge.harness.battery.reference import reference_method
+
+    return envelope(CHECK_SCHEMA, req.seed, extra={
+        "reference": {dtype: reference_method(dtype) for dtype in req.dtypes},
+        "backends": {claims[s].label: claims[s].record(s) for s in req.specs},
+        "request": {"kinds": list(kinds), "dtypes": list(req.dtypes), "norms": list(req.norms),
+                    "sizes": list(req.sizes), "checks": check_names or list(CHECKS),
+                    **({"limits": {lim.check: lim.as_dict() for lim in req.limits}} if req.limits else {})},
+    })
 
 
 def run_battery(req: BatteryRequest, json_path: str | None = None, quiet: bool = True) -> dict[str, Any]:
@@ -347,7 +363,6 @@ def run_battery(req: BatteryRequest, json_path: str | None = None, quiet: bool =
         names the fallback file).
     """
     from fftgauge.harness.battery.checks import CHECKS
-    from fftgauge.harness.battery.reference import reference_method
     from fftgauge.harness.execution.worker import Worker
 
     if req.checks:
@@ -362,15 +377,9 @@ def run_battery(req: BatteryRequest, json_path: str | None = None, quiet: bool =
     try:
         claims = _describe_all(workers, req, cases, parallel)
         require_unique_labels({spec: claims[spec].label for spec in req.specs})
-        doc = envelope(CHECK_SCHEMA, req.seed, extra={
-            "reference": {dtype: reference_method(dtype) for dtype in req.dtypes},
-            "backends": {claims[s].label: claims[s].record(s) for s in req.specs},
-            "request": {"kinds": list(kinds), "dtypes": list(req.dtypes), "norms": list(req.norms),
-                        "sizes": list(req.sizes), "checks": check_names or list(CHECKS),
-                        **({"limits": {lim.check: lim.as_dict() for lim in req.limits}} if req.limits else {})},
-        })
+        doc = battery_envelope(req, claims, kinds, check_names)
         writer = ResultsWriter(json_path, doc)
-        writer.add(_skip_rows(req, claims, cases))
+        writer.add(unclaimed_case_rows(req, claims, cases))
         batches = BatchQueue(req, claims, cases)
         progress = Progress(total=batches.total_cases, quiet=quiet)
         spare_lock = threading.Lock()
@@ -387,7 +396,7 @@ def run_battery(req: BatteryRequest, json_path: str | None = None, quiet: bool =
                 sink.close()
             finally:
                 doc["rows"][:] = unclaim_size_classes(doc["rows"], doc["backends"])
-                _sort_rows(doc["rows"], req, claims, list(CHECKS))
+                sort_battery_rows(doc["rows"], req, claims, list(CHECKS))
                 doc["size_patterns"] = size_patterns(doc["rows"])  # optional field (docs/reference.md)
                 writer.close(complete=stop is None)
     except KeyboardInterrupt:  # while describing: end the workers at once, not after their start-up

@@ -15,6 +15,7 @@ from fftgauge.harness.battery.budget import DEFAULT_CASE_BUDGET_SECONDS, REFEREN
 from fftgauge.harness.battery.request import (DEFAULT_CASE_TIMEOUT_SECONDS, DEFAULT_DTYPES, DEFAULT_SIZES, BatteryRequest,
                                               build_request)
 from fftgauge.harness.cli import add_common_options, default_results_path
+from fftgauge.harness.cluster.target import add_cluster_option, cluster_from_args
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -25,6 +26,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                        defaults={"sizes": DEFAULT_SIZES, "dtypes": ",".join(DEFAULT_DTYPES),
                                  "json": "results/check-YYYYmmdd-HHMMSS.json, UTC; - for standard output"})
     add_criteria_and_outputs(parser)
+    add_cluster_option(parser, "the battery's cases")
     parser.add_argument("--norms", metavar="LIST", help="comma list of backward, ortho, forward (default backward)")
     parser.add_argument("--checks", metavar="LIST", help=f"comma list of checks to run (default: all): {', '.join(CHECKS)}")
     parser.add_argument("--timeout", type=float, default=DEFAULT_CASE_TIMEOUT_SECONDS, metavar="SECONDS",
@@ -67,13 +69,18 @@ def run(args: argparse.Namespace) -> int:
     from fftgauge.harness.report.check_outputs import validate_outputs, write_check_outputs
 
     req = request_from_args(args)
+    cluster = cluster_from_args(args)
     out = sys.stderr if validate_outputs(output_paths(args)) else sys.stdout
     path = args.json or default_results_path("check")
     started = time.perf_counter()
     stopped = write_error = None
     try:
         with stop_on_signals():
-            doc = run_battery(req, json_path=path, quiet=args.quiet)
+            if cluster is not None:
+                from fftgauge.harness.cluster.battery import run_battery_on_cluster
+                doc = run_battery_on_cluster(req, cluster, json_path=path, quiet=args.quiet)
+            else:
+                doc = run_battery(req, json_path=path, quiet=args.quiet)
     except RunStopped as exc:
         stopped, doc = exc, exc.doc
     except ResultsWriteError as exc:
