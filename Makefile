@@ -6,7 +6,7 @@ VENV   ?= .venv
 BIN     = $(VENV)/bin
 STAMP   = $(VENV)/.installed
 
-.PHONY: demo test install bench clean
+.PHONY: demo test install bench clean browser
 
 $(STAMP): pyproject.toml
 	$(PYTHON) -m venv $(VENV)
@@ -20,7 +20,14 @@ demo: $(STAMP)
 	$(BIN)/fftgauge backends
 	$(BIN)/fftgauge check
 
-test: $(STAMP)
+# The report page's browser tests need Chromium, a Debian package (pip cannot install it):
+# installed here when running as root with apt-get, else the tests skip and say how to get it.
+browser:
+	@command -v chromium >/dev/null 2>&1 || { [ "$$(id -u)" = 0 ] && command -v apt-get >/dev/null 2>&1 && \
+	  apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq chromium >/dev/null; } || \
+	  echo "note: chromium is not installed (apt-get install chromium): the report page's browser tests will skip"
+
+test: $(STAMP) browser
 	$(BIN)/python -m pytest -q -n auto
 
 bench: $(STAMP)
