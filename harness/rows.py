@@ -50,10 +50,22 @@ class CheckRow:
     #: With a user limit: the built-in bound it replaced, and the bound's diagnosis of a row it fails.
     bound_limit: float | None = None
     bound_diagnosis: str | None = None
+    #: Shaped cases (:mod:`fftgauge.harness.shapes.fields`): shape, axes, layout, transforms per
+    #: call, N (= ``n``). Optional: a 1-D row's dict leaves them out.
+    shape: list[int] | None = None
+    axes: list[int] | None = None
+    layout: str | None = None
+    batch: int | None = None
+    points: int | None = None
 
     def as_dict(self) -> dict[str, Any]:
-        """Return the row as a JSON-able dict (contract field order first)."""
-        return asdict(self)
+        """Return the row as a JSON-able dict (contract field order first; the shaped fields
+        only in rows of shaped cases)."""
+        out = asdict(self)
+        if self.shape is None:
+            for name in ("shape", "axes", "layout", "batch", "points"):
+                out.pop(name)
+        return out
 
 
 def message_cause(message: Any) -> str:
