@@ -16,6 +16,7 @@ from typing import Any
 
 from fftgauge.harness import dft
 from fftgauge.harness.cli import add_common_options
+from fftgauge.harness.cluster.target import add_cluster_option, cluster_from_args
 from fftgauge.harness.timing.opcount import DEFAULT_COUNTING_SPECS, DIRECT_COUNT_MAX_N, count_table
 from fftgauge.harness.results import dumps, envelope, is_stdout, write_output, write_text_atomic
 from fftgauge.harness.sizes import parse_sizes
@@ -47,6 +48,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--trivial-twiddles", action=argparse.BooleanOptionalAction, default=True,
                         help="count the multiplications by the twiddle W^0 = 1 in the instrumented "
                              "counts (default: yes; --no-trivial-twiddles skips them)")
+    add_cluster_option(parser, "the counts of the sizes")
 
 
 def size_label(n: int) -> str:
@@ -111,9 +113,16 @@ def run(args: argparse.Namespace) -> int:
     """
     sizes = parse_sizes(args.sizes)
     count_trivial = args.trivial_twiddles
-    rows = count_table(sizes, count_trivial=count_trivial)
+    cluster = cluster_from_args(args)
+    cluster_record = None
+    if cluster is not None:
+        from fftgauge.harness.cluster.opcounts import count_on_cluster
+        rows, cluster_record = count_on_cluster(sizes, count_trivial, cluster, quiet=args.quiet)
+    else:
+        rows = count_table(sizes, count_trivial=count_trivial)
     if args.json:
         doc = envelope(SCHEMA, seed=None, extra={
+            **({"cluster": cluster_record} if cluster_record else {}),
             "trivial_twiddles_counted": count_trivial,
             "counting_backends": dict(DEFAULT_COUNTING_SPECS),
             "direct_count_max_n": DIRECT_COUNT_MAX_N,

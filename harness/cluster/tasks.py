@@ -132,9 +132,9 @@ class StopFlag:
             return False
 
 
-def describe_spec(spec: str, req: Any, case_fields: list[tuple]) -> Any:
-    """Return the backend's claims for the run's cases, with the cases over the time budget
-    marked (measured here, where the cases will run): the local run's
+def describe_spec(spec: str, req: Any, case_fields: list[tuple], with_budget: bool = True) -> Any:
+    """Return the backend's claims for the run's cases, with (``with_budget``: the battery)
+    the cases over the time budget marked (measured here, where the cases will run): the local run's
     :func:`~fftgauge.harness.execution.dispatch.describe_cases` and
     :func:`~fftgauge.harness.battery.run.with_time_reasons`.
 
@@ -150,7 +150,7 @@ def describe_spec(spec: str, req: Any, case_fields: list[tuple]) -> Any:
     lock, worker = kept_worker(spec, req.threads)
     with lock:
         claims = describe_cases(worker, spec, cases, req.max_n_pure_python, req.timeout_seconds)
-        return with_time_reasons(worker, claims, req, cases)
+        return with_time_reasons(worker, claims, req, cases) if with_budget else claims
 
 
 def run_chunk(spec: str, label: str, conventions: Any, case_fields: list[tuple], req: Any,
