@@ -9,6 +9,7 @@ import time
 
 from fftgauge.harness.cases import DTYPES, KINDS, NORMS
 from fftgauge.harness.cli import EXIT_USAGE, add_common_options, default_results_path, parse_choice_list
+from fftgauge.harness.cluster.target import add_cluster_option, cluster_from_args
 from fftgauge.harness.errors import UsageError
 from fftgauge.harness.results import ResultsWriteError, check_output_path, is_stdout
 from fftgauge.harness.shutdown import stop_on_signals, stop_reason
@@ -38,6 +39,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--cold-cache", action="store_true",
                         help="evict the caches before every sample (one call per sample): first-call cost")
     parser.add_argument("--no-memory", action="store_true", help="do not measure peak extra memory")
+    add_cluster_option(parser, "the timing on every host that offers a timing slot (one table, a host column)")
     parser.add_argument("--metric", choices=("time", "instructions"), default="time",
                         help="instructions: after the timing, also count every case's instructions per transform "
                              "under valgrind's cachegrind and show them against the N log2 N model (needs valgrind; "
@@ -136,6 +138,9 @@ def run(args: argparse.Namespace) -> int:
     """
     req = request_from_args(args)
     counting = getattr(args, "metric", "time") == "instructions"
+    cluster = cluster_from_args(args)
+    if cluster is not None and counting:
+        raise UsageError("--metric instructions counts on this machine only; leave out --cluster")
     if counting:
         from fftgauge.harness.counts.cachegrind import require_valgrind
         require_valgrind()
@@ -153,7 +158,11 @@ def run(args: argparse.Namespace) -> int:
     doc: dict = {}
     try:
         with stop_on_signals():
-            run_timing(req, json_path=None if to_stdout and counting else path, quiet=args.quiet, doc=doc)
+            if cluster is not None:
+                from fftgauge.harness.cluster.timing import run_timing_on_cluster
+                run_timing_on_cluster(req, cluster, pin=args.pin_cpu, json_path=path, quiet=args.quiet, doc=doc)
+            else:
+                run_timing(req, json_path=None if to_stdout and counting else path, quiet=args.quiet, doc=doc)
             if counting:
                 _count(doc, req, path, args.quiet)
     except KeyboardInterrupt as exc:  # StopRequested (SIGTERM, SIGHUP, SIGINT) is one
@@ -164,11 +173,16 @@ def run(args: argparse.Namespace) -> int:
         print(f"fftgauge: error: {exc}", file=sys.stderr)
         return EXIT_USAGE
     elapsed = time.perf_counter() - started
-    print(summary_text(doc), file=out)
+    if cluster is not None:
+        from fftgauge.harness.cluster.timing import per_host_summary
+        print(per_host_summary(doc, summary_text), file=out)
+    else:
+        print(summary_text(doc), file=out)
     written = _write_outputs(doc, args, path)
     if args.plot:
         from fftgauge.harness.report.plots import plot_time
-        written.append(plot_time(doc["rows"], args.plot))
+        from fftgauge.harness.cluster.timing import rows_for_plot
+        written.append(plot_time(rows_for_plot(doc["rows"]), args.plot))
     print(f"\nthreads {req.threads}; seed {req.seed}; {len(doc['rows'])} rows in {elapsed:.1f} s; "
           f"written to {', '.join(written)}", file=out)
     return 1 if any(r.get("status") == "error" for r in doc["rows"]) else 0
