@@ -23,7 +23,9 @@ import numpy as np
 import pyfftw
 
 from fftgauge.backends.base import Backend, Capabilities, OptionSpec, Plan
+from fftgauge.backends.pyfftw_shaped import PyfftwShapedPlan, plan_shaped_fftw
 from fftgauge.harness.cases import Case, norm_factor
+from fftgauge.harness.shapes.case import SHAPE_KINDS, ShapeCase
 
 #: The ``effort`` option's values and the FFTW planner flag each one stands for.
 EFFORT_FLAGS = {"estimate": "FFTW_ESTIMATE", "measure": "FFTW_MEASURE", "patient": "FFTW_PATIENT"}
@@ -192,7 +194,7 @@ class PyfftwBackend(Backend):
     def capabilities(self) -> Capabilities:
         """Every kind and norm, any size, the precisions this pyFFTW build carries, real planning."""
         return Capabilities(dtypes=available_dtypes(), thread_option="threads", separate_planning=True,
-                            in_place=False)
+                            in_place=False, shaped_kinds=SHAPE_KINDS)
 
     def plan(self, case: Case) -> PyfftwPlan:
         """Allocate the buffers and plan FFTW on them (the timed planning step).
@@ -210,3 +212,14 @@ class PyfftwBackend(Backend):
                            direction="FFTW_BACKWARD" if case.is_inverse else "FFTW_FORWARD",
                            flags=flags, threads=self.opts["threads"])
         return PyfftwPlan(case, fftw, input_buffer, output_buffer)
+
+    def plan_shaped(self, case: ShapeCase) -> PyfftwShapedPlan:
+        """Allocate buffers of the case's shape and layout and plan FFTW over its axes (timed
+        as planning): :func:`fftgauge.backends.pyfftw_shaped.plan_shaped_fftw`.
+
+        Raises
+        ------
+        ValueError
+            Whatever pyFFTW raises for a plan it cannot build.
+        """
+        return plan_shaped_fftw(case, EFFORT_FLAGS[self.opts["effort"]], self.opts["threads"], self.opts["aligned"])

@@ -5,8 +5,9 @@ from __future__ import annotations
 import scipy
 import scipy.fft
 
-from fftgauge.backends.base import Backend, Capabilities, FunctionPlan, OptionSpec, Plan
+from fftgauge.backends.base import Backend, Capabilities, FunctionPlan, OptionSpec, Plan, ShapedFunctionPlan
 from fftgauge.harness.cases import Case
+from fftgauge.harness.shapes.case import ONE_AXIS_KINDS, SHAPE_KINDS, ShapeCase
 
 
 class ScipyBackend(Backend):
@@ -33,11 +34,24 @@ class ScipyBackend(Backend):
         return scipy.__version__
 
     def capabilities(self) -> Capabilities:
-        """Every kind and norm, any size, float32/float64/longdouble, threads via ``workers``."""
-        return Capabilities(dtypes=("float32", "float64", "longdouble"), thread_option="workers")
+        """Every kind and norm, any size, float32/float64/longdouble, threads via ``workers``;
+        batched and N-D transforms of every kind."""
+        return Capabilities(dtypes=("float32", "float64", "longdouble"), thread_option="workers",
+                            shaped_kinds=SHAPE_KINDS)
 
     def plan(self, case: Case) -> Plan:
         """Return a :class:`~fftgauge.backends.base.FunctionPlan` calling ``scipy.fft.<kind>``; no planning."""
         fn = getattr(scipy.fft, case.kind)
         n, norm, workers = case.n, case.norm, self.opts["workers"]
         return FunctionPlan(case, lambda x: fn(x, n=n, norm=norm, workers=workers))
+
+    def plan_shaped(self, case: ShapeCase) -> Plan:
+        """Return ``scipy.fft.<kind>`` over ``case.axes`` (``n``/``axis`` for one axis, ``s``/``axes``
+        for several, so the real inverse knows its lengths), with ``workers``; no planning."""
+        fn = getattr(scipy.fft, case.kind)
+        norm, workers = case.norm, self.opts["workers"]
+        if case.kind in ONE_AXIS_KINDS:
+            n, axis = case.lengths[0], case.axes[0]
+            return ShapedFunctionPlan(case, lambda x: fn(x, n=n, axis=axis, norm=norm, workers=workers))
+        s, axes = case.lengths, case.axes
+        return ShapedFunctionPlan(case, lambda x: fn(x, s=s, axes=axes, norm=norm, workers=workers))

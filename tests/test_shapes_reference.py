@@ -27,17 +27,9 @@ import pytest
 from fftgauge.harness.battery.reference import LONGDOUBLE_IS_EXTENDED
 from fftgauge.harness.shapes.case import SHAPE_KINDS, ShapeCase
 from fftgauge.harness.shapes.reference import shaped_reference, shaped_reference_method
+from shaped_signals import shaped_signal
 
 DPS = 50
-
-
-def shaped_signal(case: ShapeCase, seed: int = 0) -> np.ndarray:
-    """Return a seeded random input of the case's input shape and dtype (non-zero imaginary parts)."""
-    rng = np.random.default_rng([seed, SHAPE_KINDS.index(case.kind), *case.shape, len(case.axes)])
-    re = rng.standard_normal(case.input_shape)
-    if case.base_kind == "rfft":
-        return re.astype(case.input_dtype)
-    return (re + 1j * rng.standard_normal(case.input_shape)).astype(case.input_dtype)
 
 
 def mp_array(x: np.ndarray) -> np.ndarray:

@@ -1,0 +1,90 @@
+"""Every backend's shaped transforms against the shaped ground truth, in every layout.
+
+Ground truth: fftgauge.harness.shapes.reference (scipy.fft on clongdouble / double-double
+axis by axis), itself checked against a direct N-D DFT in mpmath (tests/test_shapes_reference.py).
+Limit: fftgauge.harness.shapes.bounds.shaped_limit (Higham 2002, section 24.1, per axis).
+Shapes: small, with negative axes (-1, -3), a permuted order (2, 0: the real kinds halve axis
+0), batches along the first, a middle and the last axis, lengths 1, odd and prime.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from fftgauge.backends.registry import load_backend
+from fftgauge.harness.shapes.bounds import shaped_limit
+from fftgauge.harness.shapes.case import LAYOUTS, MANY_AXIS_KINDS, ONE_AXIS_KINDS, ShapeCase, lay_out
+from fftgauge.harness.shapes.reference import shaped_reference
+from shaped_signals import shaped_signal
+
+MANY = [((6, 8), (0, 1)), ((5, 4, 6), (2, 0)), ((3, 4, 5), (-1, -3)), ((7, 5), (1, 0)), ((1, 9), (0, 1)),
+        ((3, 4, 5), (0, 1, 2))]
+ONE = [((4, 6), (-1,)), ((6, 4), (0,)), ((3, 7, 5), (1,)), ((2, 3, 8), (-3,)), ((6, 1), (0,)), ((9,), (0,))]
+
+#: (SPEC, the module it needs). Library backends are skipped where the library is missing.
+BACKENDS = [("numpy", None), ("scipy", None), ("scipy[workers=2]", None), ("pyfftw", "pyfftw"),
+            ("pyfftw[aligned=false]", "pyfftw")]
+
+
+def _backend(spec: str, module: str | None):
+    if module is not None:
+        pytest.importorskip(module)
+    return load_backend(spec)
+
+
+def _check(backend, case: ShapeCase, seed: int = 0) -> float:
+    """Return error / limit of the backend's transform of a seeded input laid out as the case says."""
+    x = lay_out(shaped_signal(case, seed), case.layout)
+    kept = x.copy()
+    plan = backend.plan_shaped(case)
+    prepared = plan.prepare(x)
+    y = np.array(plan.execute(prepared))
+    again = np.array(plan.execute(prepared))  # a second run on the prepared input: the same answer
+    direct = np.array(plan.execute(x))  # an unprepared array of the case's layout
+    plan.close()
+    assert np.array_equal(x, kept), f"{case.label()}: the caller's input changed"
+    assert y.shape == case.output_shape, (case.label(), y.shape)
+    assert y.dtype == case.output_dtype, (case.label(), y.dtype)
+    assert np.array_equal(y, again) and np.array_equal(y, direct), case.label()
+    ref = shaped_reference(kept, case)
+    return ref.relative_error(y) / shaped_limit(case)
+
+
+@pytest.mark.parametrize("spec,module", BACKENDS)
+@pytest.mark.parametrize("kind", ONE_AXIS_KINDS + MANY_AXIS_KINDS)
+def test_shaped_transforms_match_the_ground_truth(spec, module, kind):
+    backend = _backend(spec, module)
+    assert kind in backend.capabilities().shaped_kinds
+    worst = 0.0
+    for shape, axes in (MANY if kind in MANY_AXIS_KINDS else ONE):
+        for dtype in ("float32", "float64"):
+            for layout in LAYOUTS:
+                case = ShapeCase(kind, dtype, shape, axes, layout)
+                assert backend.shaped_unsupported_reason(case) is None
+                ratio = _check(backend, case)
+                assert ratio <= 1.0, f"{spec} {case.label()}: error/limit = {ratio:.3g}"
+                worst = max(worst, ratio)
+        for norm in ("ortho", "forward"):
+            case = ShapeCase(kind, "float64", shape, axes, "C", norm)
+            assert _check(backend, case) <= 1.0, f"{spec} {case.label()}"
+    assert worst > 0.0  # the errors were really measured
+
+
+@pytest.mark.parametrize("spec,module", [("numpy", None), ("scipy", None)])
+def test_long_double_shaped_transforms(spec, module):
+    """numpy and scipy in long double, against the double-double ground truth (line by line)."""
+    backend = _backend(spec, module)
+    for kind, shape, axes in (("fftn", (4, 6), (0, 1)), ("irfftn", (5, 4, 6), (2, 0)), ("rfft", (3, 8), (0,)),
+                              ("ifft", (4, 5), (-1,))):
+        case = ShapeCase(kind, "longdouble", shape, axes, "F")
+        assert _check(backend, case) <= 1.0, f"{spec} {case.label()}"
+
+
+def test_a_wrong_axis_is_far_above_the_limit():
+    """Detection: numpy's fft along the wrong axis of a batch is judged wrong by the same limit."""
+    case = ShapeCase("fft", "float64", (6, 8), (0,))
+    x = shaped_signal(case)
+    ref = shaped_reference(x, case)
+    wrong = np.fft.fft(x, axis=1)
+    assert ref.relative_error(wrong) / shaped_limit(case) > 1e10
