@@ -21,8 +21,9 @@ from __future__ import annotations
 import ducc0
 import ducc0.fft
 
-from fftgauge.backends.base import Backend, Capabilities, FunctionPlan, OptionSpec, Plan
+from fftgauge.backends.base import Backend, Capabilities, FunctionPlan, OptionSpec, Plan, ShapedFunctionPlan
 from fftgauge.harness.cases import Case, norm_factor
+from fftgauge.harness.shapes.case import SHAPE_KINDS, ShapeCase
 
 
 def inorm_code(case: Case) -> int:
@@ -65,7 +66,7 @@ class Ducc0Backend(Backend):
     def capabilities(self) -> Capabilities:
         """Every kind and norm, any size, float32/float64/longdouble; in place when asked."""
         return Capabilities(dtypes=("float32", "float64", "longdouble"), thread_option="nthreads",
-                            in_place=bool(self.opts["in_place"]))
+                            in_place=bool(self.opts["in_place"]), shaped_kinds=SHAPE_KINDS)
 
     def plan(self, case: Case) -> Plan:
         """Return a plan calling ``ducc0.fft.c2c``, ``r2c`` or ``c2r``; nothing to plan."""
@@ -81,3 +82,25 @@ class Ducc0Backend(Backend):
         if in_place:
             return FunctionPlan(case, lambda x: fft.c2c(x, forward=forward, inorm=inorm, out=x, nthreads=nthreads))
         return FunctionPlan(case, lambda x: fft.c2c(x, forward=forward, inorm=inorm, nthreads=nthreads))
+
+    def plan_shaped(self, case: ShapeCase) -> Plan:
+        """Return a plan calling ``ducc0.fft.c2c``, ``r2c`` or ``c2r`` over the case's axes (r2c/c2r
+        halve the last one listed, as numpy); always out of place; nothing to plan.
+
+        ``inorm`` is taken from the norm's factor over N, the product of the transformed
+        lengths (ducc0 divides by the square root of that product, or by the product).
+        """
+        axes, nthreads = case.axes, self.opts["nthreads"]
+        factor = norm_factor(case.points, case.norm, case.is_inverse)
+        inorm = 0 if factor == 1.0 else (1 if case.norm == "ortho" else 2)
+        fft = ducc0.fft
+        if case.base_kind == "rfft":
+            return ShapedFunctionPlan(case, lambda x: fft.r2c(x, axes=axes, forward=True, inorm=inorm,
+                                                              nthreads=nthreads))
+        if case.base_kind == "irfft":
+            last = case.lengths[-1]
+            return ShapedFunctionPlan(case, lambda x: fft.c2r(x, axes=axes, lastsize=last, forward=False,
+                                                              inorm=inorm, nthreads=nthreads))
+        forward = not case.is_inverse
+        return ShapedFunctionPlan(case, lambda x: fft.c2c(x, axes=axes, forward=forward, inorm=inorm,
+                                                          nthreads=nthreads))

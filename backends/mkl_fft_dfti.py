@@ -26,8 +26,9 @@ import threading
 import mkl
 import mkl_fft
 
-from fftgauge.backends.base import Backend, Capabilities, FunctionPlan, OptionSpec, Plan
+from fftgauge.backends.base import Backend, Capabilities, FunctionPlan, OptionSpec, Plan, ShapedFunctionPlan
 from fftgauge.harness.cases import Case
+from fftgauge.harness.shapes.case import ONE_AXIS_KINDS, SHAPE_KINDS, ShapeCase
 
 
 def mkl_version() -> str:
@@ -72,7 +73,7 @@ class MklFftBackend(Backend):
     def capabilities(self) -> Capabilities:
         """Every kind and norm, any size, float32 and float64; results not bitwise reproducible."""
         return Capabilities(dtypes=("float32", "float64"), thread_option="threads",
-                            bitwise_reproducible=False)
+                            bitwise_reproducible=False, shaped_kinds=SHAPE_KINDS)
 
     def plan(self, case: Case) -> Plan:
         """Return a plan calling ``mkl_fft.<kind>`` under the thread count; nothing to plan."""
@@ -86,3 +87,21 @@ class MklFftBackend(Backend):
 
         set_thread_count(threads)
         return FunctionPlan(case, run)
+
+    def plan_shaped(self, case: ShapeCase) -> Plan:
+        """Return a plan calling ``mkl_fft.<kind>`` over the case's axes (``n``/``axis`` for one
+        axis, ``s``/``axes`` for several) under the thread count; nothing to plan."""
+        fn = getattr(mkl_fft, case.kind)
+        norm, threads = case.norm, self.opts["threads"]
+        if case.kind in ONE_AXIS_KINDS:
+            where = {"n": case.lengths[0], "axis": case.axes[0]}
+        else:
+            where = {"s": case.lengths, "axes": case.axes}
+
+        def run(x):
+            if getattr(THREAD_SETTING, "threads", None) != threads:
+                set_thread_count(threads)
+            return fn(x, norm=norm, **where)
+
+        set_thread_count(threads)
+        return ShapedFunctionPlan(case, run)

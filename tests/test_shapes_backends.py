@@ -24,7 +24,8 @@ ONE = [((4, 6), (-1,)), ((6, 4), (0,)), ((3, 7, 5), (1,)), ((2, 3, 8), (-3,)), (
 
 #: (SPEC, the module it needs). Library backends are skipped where the library is missing.
 BACKENDS = [("numpy", None), ("scipy", None), ("scipy[workers=2]", None), ("pyfftw", "pyfftw"),
-            ("pyfftw[aligned=false]", "pyfftw")]
+            ("pyfftw[aligned=false]", "pyfftw"), ("mkl_fft", "mkl_fft"), ("mkl_fft[threads=2]", "mkl_fft"),
+            ("ducc0", "ducc0"), ("ducc0[nthreads=2]", "ducc0")]
 
 
 def _backend(spec: str, module: str | None):
@@ -46,8 +47,11 @@ def _check(backend, case: ShapeCase, seed: int = 0) -> float:
     assert np.array_equal(x, kept), f"{case.label()}: the caller's input changed"
     assert y.shape == case.output_shape, (case.label(), y.shape)
     assert y.dtype == case.output_dtype, (case.label(), y.dtype)
-    assert np.array_equal(y, again) and np.array_equal(y, direct), case.label()
     ref = shaped_reference(kept, case)
+    if backend.capabilities().bitwise_reproducible:
+        assert np.array_equal(y, again) and np.array_equal(y, direct), case.label()
+    else:  # MKL promises no bitwise repeatability: each run is judged by the limit
+        assert max(ref.relative_error(again), ref.relative_error(direct)) <= shaped_limit(case), case.label()
     return ref.relative_error(y) / shaped_limit(case)
 
 
@@ -71,9 +75,9 @@ def test_shaped_transforms_match_the_ground_truth(spec, module, kind):
     assert worst > 0.0  # the errors were really measured
 
 
-@pytest.mark.parametrize("spec,module", [("numpy", None), ("scipy", None)])
+@pytest.mark.parametrize("spec,module", [("numpy", None), ("scipy", None), ("ducc0", "ducc0")])
 def test_long_double_shaped_transforms(spec, module):
-    """numpy and scipy in long double, against the double-double ground truth (line by line)."""
+    """numpy, scipy and ducc0 in long double, against the double-double ground truth (line by line)."""
     backend = _backend(spec, module)
     for kind, shape, axes in (("fftn", (4, 6), (0, 1)), ("irfftn", (5, 4, 6), (2, 0)), ("rfft", (3, 8), (0,)),
                               ("ifft", (4, 5), (-1,))):
