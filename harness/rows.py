@@ -17,6 +17,8 @@ DIAGNOSES = (
     "sign", "scale", "bit-reversed", "shifted", "precision", "truncated-size", "input-modified",
     "nondeterministic", "dtype", "shape", "nonfinite", "real-only", "thread-unsafe", "overflow", "user-limit",
     "localised", "time-shifted", "output-aliased", "scaling-shift", "rounding", "twiddle-bits", "unknown",
+    # shaped cases (fftgauge.harness.shapes.diagnosis)
+    "wrong-axis", "transposed", "batch-leak", "layout", "hermitian-half",
 )
 
 
@@ -136,6 +138,13 @@ class TimeRow:
     seconds_p10: float | None = None
     seconds_p10_low: float | None = None
     seconds_p10_high: float | None = None
+    #: Shaped cases (:mod:`fftgauge.harness.shapes.fields`): the array's shape, the axes
+    #: transformed, the input's layout, transforms per call, N (= ``n``); None for 1-D cases.
+    shape: list[int] | None = None
+    axes: list[int] | None = None
+    layout: str | None = None
+    batch: int | None = None
+    points: int | None = None
 
     def as_dict(self) -> dict[str, Any]:
         """Return the row as a JSON-able dict."""
@@ -222,6 +231,15 @@ class GateRow:
     baseline_ll_misses: float | None = None
     count_transforms: int | None = None
     count_repeats: int | None = None
+    #: Instructions per transform of each repeat (what a stored-mode count baseline pools).
+    instructions_repeats: list[float] | None = None
+    baseline_instructions_repeats: list[float] | None = None
+    #: Shaped cases: as in :class:`TimeRow` (None for 1-D cases).
+    shape: list[int] | None = None
+    axes: list[int] | None = None
+    layout: str | None = None
+    batch: int | None = None
+    points: int | None = None
 
     def as_dict(self) -> dict[str, Any]:
         """Return the row as a JSON-able dict (contract fields first)."""

@@ -8,6 +8,7 @@ import threading
 import time
 
 from fftgauge.harness.cases import DTYPES, KINDS, NORMS
+from fftgauge.harness.shapes.case import SHAPE_KINDS
 from fftgauge.harness.cli import EXIT_USAGE, add_common_options, default_results_path, parse_choice_list
 from fftgauge.harness.cluster.target import add_cluster_option, cluster_from_args
 from fftgauge.harness.errors import UsageError
@@ -52,7 +53,11 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                              f"when --sizes is not given, else no limit; 0: no limit)")
     parser.add_argument("--plot", metavar="PATH",
                         help="also draw the time per point (median time of one transform / N) against N, one "
-                             "panel per kind and precision (PNG or SVG by the extension)")
+                             "panel per kind and precision (PNG or SVG by the extension); with --shapes: the "
+                             "time per call against the array's points, one line per layout or axis")
+    from fftgauge.harness.shapes.options import LAYOUTS_HELP, SHAPES_HELP
+    parser.add_argument("--shapes", metavar="SHAPES", help=SHAPES_HELP)
+    parser.add_argument("--layouts", metavar="LIST", help=LAYOUTS_HELP)
 
 
 def request_from_args(args: argparse.Namespace) -> TimingRequest:
@@ -76,17 +81,37 @@ def request_from_args(args: argparse.Namespace) -> TimingRequest:
     limit = args.pure_python_max_n
     if limit is None:
         limit = DEFAULT_PURE_PYTHON_MAX_N if args.sizes is None else 0
+    shaped = shaped_request_cases(args)
     return TimingRequest(
         specs=tuple(args.backend) if args.backend else tuple(default_specs()),
-        kinds=parse_choice_list(args.kinds, KINDS, "kind"),
+        kinds=parse_choice_list(args.kinds, SHAPE_KINDS if shaped else KINDS, "kind"),
         dtypes=parse_choice_list(args.dtypes, DTYPES, "dtype") or ("float64",),
-        sizes=tuple(parse_sizes(args.sizes or DEFAULT_SIZES)),
+        sizes=() if shaped else tuple(parse_sizes(args.sizes or DEFAULT_SIZES)),
         norms=parse_choice_list(args.norms, NORMS, "norm") or ("backward",),
         seed=args.seed, threads=args.threads or 1, samples=args.samples, budget_seconds=args.budget,
         cold_cache=args.cold_cache, measure_memory=not args.no_memory, timeout_seconds=args.timeout,
         max_n_pure_python=limit or None, rounds=args.rounds,
-        cpus=choose_cpus(parse_pin(args.pin_cpu), args.threads or 1),
+        cpus=choose_cpus(parse_pin(args.pin_cpu), args.threads or 1), shape_cases=tuple(shaped),
     )
+
+
+def shaped_request_cases(args: argparse.Namespace) -> list:
+    """Return the shaped cases ``--shapes`` names (empty without it).
+
+    Raises
+    ------
+    UsageError
+        For a malformed ``--shapes``/``--layouts``/``--kinds``, ``--layouts`` without
+        ``--shapes``, or ``--shapes`` with ``--sizes``.
+    """
+    from fftgauge.harness.shapes.options import shaped_cases_from_options
+
+    if getattr(args, "shapes", None) is None:
+        if getattr(args, "layouts", None):
+            raise UsageError("--layouts goes with --shapes (a 1-D size has one layout)")
+        return []
+    return shaped_cases_from_options(args.shapes, args.kinds, args.dtypes, args.layouts,
+                                     parse_choice_list(args.norms, NORMS, "norm") or ("backward",), args.sizes)
 
 
 def summary_text(doc: dict) -> str:
@@ -96,6 +121,10 @@ def summary_text(doc: dict) -> str:
     from fftgauge.harness.report.time_tables import comparison_table, format_comparison, format_seconds
 
     rows = doc["rows"]
+    if any(r.get("shape") for r in rows):
+        from fftgauge.harness.report.shape_tables import shaped_summary
+
+        return shaped_summary(rows)
     parts = [format_comparison(comparison_table(rows))]
     planned = [r for r in rows if r.get("status") == "ok" and (r.get("plan_seconds") or 0) > 1e-4]
     if planned:
@@ -179,7 +208,10 @@ def run(args: argparse.Namespace) -> int:
     else:
         print(summary_text(doc), file=out)
     written = _write_outputs(doc, args, path)
-    if args.plot:
+    if args.plot and any(r.get("shape") for r in doc["rows"]):
+        from fftgauge.harness.report.shape_plots import plot_shaped_time
+        written.append(plot_shaped_time(doc["rows"], args.plot))
+    elif args.plot:
         from fftgauge.harness.report.plots import plot_time
         from fftgauge.harness.cluster.timing import rows_for_plot
         written.append(plot_time(rows_for_plot(doc["rows"]), args.plot))

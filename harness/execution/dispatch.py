@@ -26,7 +26,9 @@ def describe_cases(worker: Any, spec: str, cases: list[Case], max_n_pure_python:
     UsageError
         When the SPEC cannot be loaded, or the backend fails while describing itself.
     """
-    fields = [(c.kind, c.dtype, c.n, c.norm) for c in cases]
+    from fftgauge.harness.shapes.fields import case_fields
+
+    fields = [case_fields(c) for c in cases]  # 1-D or shaped cases (fftgauge.harness.shapes.fields)
     try:
         return worker.call(jobs.backend_claims, fields, max_n_pure_python,
                            timeout_seconds=timeout_seconds)

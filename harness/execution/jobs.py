@@ -89,10 +89,20 @@ def backend_claims(backend: Any, case_fields: list[tuple], max_n_pure_python: in
     """
     from fftgauge.backends.claims import BackendClaims
 
+    from fftgauge.harness.shapes.fields import case_from_fields, is_shaped
+
     caps = backend.capabilities()
     reasons = []
     for fields in case_fields:
-        case = Case(*fields)
+        case = case_from_fields(fields)
+        if is_shaped(case):  # a shaped case: its own claims; the pure-Python cap applies to the whole array
+            reason = backend.shaped_unsupported_reason(case)
+            points = int(np.prod(case.shape))
+            if reason is None and max_n_pure_python and caps.pure_python and points > max_n_pure_python:
+                reason = (f"{backend.label} is a pure-Python reference: this run limits it to arrays of at most "
+                          f"{max_n_pure_python} points ({points} here)")
+            reasons.append(reason)
+            continue
         reason = backend.unsupported_reason(case)
         if reason is None and max_n_pure_python and caps.pure_python and case.n > max_n_pure_python:
             reason = (f"{backend.label} is a pure-Python reference: this run limits it to n <= "
@@ -132,6 +142,20 @@ def run_case_job(backend: Any, case_fields: tuple, seed: int, check_names: list[
 
     _cap_blas(blas_threads)
     rows = run_case_checks(backend, case_fields, seed, check_names)
+    _cap_blas(blas_threads)
+    return rows
+
+
+def run_shaped_case_job(backend: Any, case_fields: tuple, seed: int, check_names: list[str],
+                        blas_threads: int | None = 1) -> list[dict]:
+    """The shaped battery's job: the checks of one shaped case
+    (:func:`fftgauge.harness.shapes.battery.check_shaped_fields`; ``case_fields`` as
+    :func:`fftgauge.harness.shapes.fields.case_fields` makes them), BLAS pools capped as in
+    :func:`run_case_job`. Returns the rows as dicts."""
+    from fftgauge.harness.shapes.battery import check_shaped_fields
+
+    _cap_blas(blas_threads)
+    rows = check_shaped_fields(backend, case_fields, seed, check_names)
     _cap_blas(blas_threads)
     return rows
 
@@ -204,7 +228,7 @@ def blas_thread_caps(backend: Any) -> list[int]:
 #: The job functions, by name (what the child looks up).
 JOBS: dict[str, Any] = {f.__name__: f for f in (
     plan_and_execute, describe_backend, unsupported_reason, backend_claims, call_seconds, run_case_job,
-    run_case_checks, time_case, prepare_case, sample_block, release_case, yardstick_block,
+    run_shaped_case_job, run_case_checks, time_case, prepare_case, sample_block, release_case, yardstick_block,
     blas_thread_caps)}
 
 

@@ -16,14 +16,15 @@ from typing import Any
 import numpy as np
 
 from fftgauge.backends.base import Backend, Plan
-from fftgauge.harness.battery.conventions import backend_convention, declared_input_plan
-from fftgauge.harness.battery.inputs import case_rng, random_input
 from fftgauge.harness.cases import Case
 from fftgauge.harness.errors import UnsupportedCase
 from fftgauge.harness.rows import TimeRow
+from fftgauge.harness.shapes.case import ShapeCase
+from fftgauge.harness.shapes.fields import case_from_fields, case_size, row_fields
+from fftgauge.harness.shapes.timed import plan_for, timing_input, unsupported
 from fftgauge.harness.timing.clock import DEFAULT_CLOCK, Clock
 from fftgauge.harness.timing.memory import detect_in_place, measure_memory
-from fftgauge.harness.timing.opcount import gflops, ns_per_nlogn, pseudo_flops
+from fftgauge.harness.timing.opcount import gflops, ns_per_nlogn, shaped_pseudo_flops
 from fftgauge.harness.timing.timer import (Measurement, Timer, TimerSettings, TimingSession, limit_threads,
                                            measure_self_reported)
 
@@ -57,19 +58,18 @@ class _OpenCase:
 _OPEN_CASES: dict[tuple, _OpenCase] = {}
 
 
-def planned(backend: Backend, case: Case, clock: Clock) -> tuple[Plan, float]:
-    """Return ``backend.plan(case)`` and the seconds it took on ``clock``; the plan prepares
-    numpy-convention inputs in the convention the backend declared (a packed irfft half
-    spectrum, a bit-reversed ifft spectrum; :func:`~fftgauge.harness.battery.conventions.declared_input_plan`)."""
-    start = clock()
-    plan = backend.plan(case)
-    plan_seconds = (clock() - start) * 1e-9
-    return declared_input_plan(backend, plan), plan_seconds
+def planned(backend: Backend, case: Case | ShapeCase, clock: Clock) -> tuple[Plan, float]:
+    """Return ``backend.plan(case)`` (``plan_shaped`` for a shaped case) and the seconds it took
+    on ``clock``; a 1-D plan prepares numpy-convention inputs in the convention the backend
+    declared (a packed irfft half spectrum, a bit-reversed ifft spectrum), a shaped one lays the
+    input out as the case says (:func:`fftgauge.harness.shapes.timed.plan_for`)."""
+    return plan_for(backend, case, clock)
 
 
-def _open_case(backend: Backend, case: Case, settings: TimerSettings, seed: int, clock: Clock) -> _OpenCase:
+def _open_case(backend: Backend, case: Case | ShapeCase, settings: TimerSettings, seed: int,
+               clock: Clock) -> _OpenCase:
     """Plan ``case``, prepare its input and start its timing session (planning timed)."""
-    x = random_input(case, case_rng(seed, case, "time"))
+    x = timing_input(case, seed)
     plan, plan_seconds = planned(backend, case, clock)
     try:
         session = Timer(settings, clock).start(plan, x)
@@ -99,7 +99,8 @@ def time_case(backend: Backend, case_fields: tuple, options: dict, clock: Clock 
     Parameters
     ----------
     backend : the adapter, with its own thread option already set by the registry.
-    case_fields : ``(kind, dtype, n, norm)``.
+    case_fields : ``(kind, dtype, n, norm)``, or a shaped case's
+        ``(kind, dtype, shape, axes, layout, norm)`` (:mod:`fftgauge.harness.shapes.fields`).
     options : :class:`TimerSettings` fields, plus ``threads`` (recorded in the row and the
         cap :func:`limit_threads` puts on BLAS/OpenMP pools; default 1), ``seed`` (of the
         random input, :func:`fftgauge.harness.battery.inputs.case_rng` with purpose ``"time"``; default 0),
@@ -124,9 +125,9 @@ def time_case(backend: Backend, case_fields: tuple, options: dict, clock: Clock 
     Exception
         Whatever the backend raises while planning or executing.
     """
-    case = Case(*case_fields)
+    case = case_from_fields(case_fields)
     settings, rest = _split_options(options)
-    reason = backend.unsupported_reason(case) or backend_convention(backend).unsupported_reason(case)
+    reason = unsupported(backend, case)
     if reason is not None:
         raise UnsupportedCase(reason)
     key = (tuple(case_fields), rest["seed"])
@@ -168,9 +169,10 @@ def _memory(plan: Plan, x: np.ndarray, wanted: bool) -> tuple[Any, bool]:
     return None, any(detect_in_place(plan, x))
 
 
-def _time_whole(backend: Backend, case: Case, settings: TimerSettings, rest: dict[str, Any], clock: Clock) -> dict:
+def _time_whole(backend: Backend, case: Case | ShapeCase, settings: TimerSettings, rest: dict[str, Any],
+                clock: Clock) -> dict:
     """Time a backend that reports its own times in one call (rounds do not apply); return the row."""
-    x = random_input(case, case_rng(rest["seed"], case, "time"))
+    x = timing_input(case, rest["seed"])
     plan, plan_seconds = planned(backend, case, clock)
     try:
         m = measure_self_reported(plan, x, settings, clock)
@@ -183,15 +185,17 @@ def _time_whole(backend: Backend, case: Case, settings: TimerSettings, rest: dic
     return _row(backend, case, rest["threads"], plan_seconds, m, mem, in_place, source)
 
 
-def _row(backend: Backend, case: Case, threads: int, plan_seconds: float, m: Measurement, mem: Any,
+def _row(backend: Backend, case: Case | ShapeCase, threads: int, plan_seconds: float, m: Measurement, mem: Any,
          in_place: bool, source: str) -> dict:
-    """Return the ``fftgauge-time/1`` row of a finished case as a dict."""
-    flops = pseudo_flops(case.n, case.is_real)
+    """Return the ``fftgauge-time/1`` row of a finished case as a dict (a shaped case's with
+    :data:`~fftgauge.harness.shapes.fields.ROW_FIELDS`; its rates count every transform of the batch)."""
+    n, batch = case_size(case), getattr(case, "batch", 1)
+    flops = shaped_pseudo_flops(n, batch, case.is_real)
     row = TimeRow(
-        backend=backend.label, kind=case.kind, dtype=case.dtype, n=case.n, threads=threads,
+        backend=backend.label, kind=case.kind, dtype=case.dtype, n=n, threads=threads,
         plan_seconds=plan_seconds, seconds=m.seconds, seconds_low=m.seconds_low,
         seconds_high=m.seconds_high, samples=m.samples, loops=m.loops, flops=flops,
-        gflops=gflops(flops, m.seconds), ns_per_nlogn=ns_per_nlogn(m.seconds, case.n),
+        gflops=gflops(flops, m.seconds), ns_per_nlogn=ns_per_nlogn(m.seconds / batch, n),
         peak_bytes=None if mem is None else mem.peak_bytes,
         in_place=in_place, norm=case.norm,
         message=("times measured by the program itself (its reported elapsed time per call)" if source == "program"
@@ -200,5 +204,6 @@ def _row(backend: Backend, case: Case, threads: int, plan_seconds: float, m: Mea
         overhead_seconds=m.overhead_seconds, floor_seconds=m.floor_seconds, relative_spread=m.relative_spread,
         coverage=m.coverage, cold_cache=m.cold_cache, memory_method=None if mem is None else mem.method,
         seconds_p10=m.seconds_p10, seconds_p10_low=m.seconds_p10_low, seconds_p10_high=m.seconds_p10_high,
+        **row_fields(case),
     )
     return row.as_dict()

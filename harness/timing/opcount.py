@@ -4,7 +4,8 @@ the table ``fftgauge count`` prints.
 Each model formula lives in exactly one function here, with its source in the docstring:
 the direct DFT (:func:`direct_complex_mults`: N^2), radix-2 (:func:`radix2_complex_mults`:
 (N/2) log2 N), split radix, the conventional flop count (:func:`pseudo_flops`: 5 N log2 N
-complex, 2.5 N log2 N real) and the rates built on them (:func:`gflops`,
+complex, 2.5 N log2 N real; :func:`shaped_pseudo_flops` for a batch or an N-D transform) and the
+rates built on them (:func:`gflops`,
 :func:`ns_per_nlogn`, :func:`nlogn`).
 "Complex multiplication" and "complex addition" are counted as the trade counts them: a
 subtraction is an addition, and a multiplication by a twiddle factor counts whatever its
@@ -120,6 +121,21 @@ def pseudo_flops(n: int, real_input: bool) -> float:
         return 0.0
     factor = 2.5 if real_input else 5.0
     return factor * n * math.log2(n)
+
+
+def shaped_pseudo_flops(points: int, batch: int, real_input: bool) -> float:
+    """Return the conventional real-operation count of one call of a batched or N-D transform.
+
+    ``batch * 5 N log2 N`` (``2.5 N log2 N`` for the real kinds) with N the product of the
+    transformed lengths (the points of one transform) and ``batch`` the transforms one call
+    computes: :func:`pseudo_flops` of N, ``batch`` times. For an N-D transform done axis by
+    axis, 5 N log2 N is exactly the sum of the 1-D counts over the axes
+    (N log2 N = sum over axes a of (N / n_a) n_a log2 n_a), so one convention serves both.
+
+    Source: common practice in FFT benchmarking (the usual FFT flop convention, applied per
+    transform).
+    """
+    return batch * pseudo_flops(points, real_input)
 
 
 def nlogn(n: int) -> float:

@@ -35,6 +35,7 @@ from fftgauge.harness.errors import BackendFailure, UnsupportedCase, UsageError
 from fftgauge.backends.registry import require_unique_labels
 from fftgauge.harness.execution.dispatch import Progress, describe_cases
 from fftgauge.harness.results import ResultsWriter, envelope
+from fftgauge.harness.shapes.fields import case_fields, case_size, is_shaped, row_fields, row_order_key
 
 TIME_SCHEMA = "fftgauge-time/1"
 DEFAULT_CASE_TIMEOUT_SECONDS = 120.0
@@ -66,6 +67,9 @@ class TimingRequest:
     max_n_pure_python: int | None = None
     cpus: tuple[int, ...] | None = None
     rounds: int = DEFAULT_ROUNDS
+    #: Shaped cases (:class:`~fftgauge.harness.shapes.case.ShapeCase`): when given, these are
+    #: timed instead of kinds x dtypes x norms x sizes.
+    shape_cases: tuple = ()
 
     def timer_options(self, round_index: int = 0) -> dict[str, Any]:
         """Return the options :func:`fftgauge.harness.timing.case_job.time_case` takes for round ``round_index``."""
@@ -74,19 +78,20 @@ class TimingRequest:
                 "rounds": self.rounds, "round": round_index}
 
 
-def placeholder_row(label: str, case: Case, threads: int, status: str, message: str) -> dict[str, Any]:
-    """Return a ``fftgauge-time/1`` row that holds no time: a ``skip`` or an ``error``."""
-    return {"backend": label, "kind": case.kind, "dtype": case.dtype, "n": case.n, "threads": threads,
+def placeholder_row(label: str, case: Any, threads: int, status: str, message: str) -> dict[str, Any]:
+    """Return a ``fftgauge-time/1`` row that holds no time: a ``skip`` or an ``error`` (a
+    shaped case's with its shape fields)."""
+    return {"backend": label, "kind": case.kind, "dtype": case.dtype, "n": case_size(case), "threads": threads,
             "plan_seconds": None, "seconds": None, "seconds_low": None, "seconds_high": None, "samples": 0,
             "loops": 0, "flops": None, "gflops": None, "ns_per_nlogn": None, "peak_bytes": None,
-            "in_place": None, "norm": case.norm, "status": status, "message": message}
+            "in_place": None, "norm": case.norm, "status": status, "message": message, **row_fields(case)}
 
 
 def _time_round(worker: Any, label: str, case: Case, req: TimingRequest, round_index: int) -> dict[str, Any] | None:
     """Run one round of ``case`` in ``worker``; return its row when the case is finished
     (a time, a skip or an error), None when more rounds are due."""
     try:
-        return worker.call(jobs.time_case, (case.kind, case.dtype, case.n, case.norm),
+        return worker.call(jobs.time_case, case_fields(case),
                            req.timer_options(round_index), timeout_seconds=req.timeout_seconds)
     except UnsupportedCase as exc:
         return placeholder_row(label, case, req.threads, "skip", str(exc))
@@ -126,7 +131,8 @@ def _run_timing_pinned(req: TimingRequest, json_path: str | None, quiet: bool,
     from fftgauge.harness.execution.worker import Worker
 
     kinds = req.kinds or KINDS
-    cases = [Case(k, d, n, norm) for k in kinds for d in req.dtypes for norm in req.norms for n in req.sizes]
+    cases = list(req.shape_cases) or [Case(k, d, n, norm) for k in kinds for d in req.dtypes for norm in req.norms
+                                      for n in req.sizes]
     workers = {spec: Worker(spec, threads=req.threads) for spec in req.specs}
     position: dict[str, int] = {}
     try:
@@ -139,7 +145,8 @@ def _run_timing_pinned(req: TimingRequest, json_path: str | None, quiet: bool,
             "backends": {claims[s].label: claims[s].record(s) for s in req.specs},
             "request": {"kinds": list(kinds), "dtypes": list(req.dtypes), "norms": list(req.norms),
                         "sizes": list(req.sizes), "samples": req.samples, "budget_seconds": req.budget_seconds,
-                        "cold_cache": req.cold_cache, "rounds": req.rounds},
+                        "cold_cache": req.cold_cache, "rounds": req.rounds,
+                        **({"shapes": [c.label() for c in req.shape_cases]} if req.shape_cases else {})},
         }))
         writer = ResultsWriter(json_path, doc)
         progress = Progress(total=sum(not unclaimed_kind(req, claims[s], c) for s in req.specs for c in cases),
@@ -153,8 +160,7 @@ def _run_timing_pinned(req: TimingRequest, json_path: str | None, quiet: bool,
             finished = True
         finally:
             progress.close()
-            doc["rows"].sort(key=lambda r: (KINDS.index(r["kind"]), r["dtype"], r["norm"], r["n"],
-                                            position[r["backend"]]))
+            doc["rows"].sort(key=lambda r: (row_order_key(r), position[r["backend"]]))
             writer.close(complete=finished)
     finally:
         for worker in workers.values():
@@ -165,6 +171,8 @@ def _run_timing_pinned(req: TimingRequest, json_path: str | None, quiet: bool,
 def unclaimed_kind(req: Any, claims: Any, case: Case) -> bool:
     """Return True when ``case`` is of a kind the backend never claimed in a run that did not
     name its kinds (``req.kinds`` None): such a case is no finding, it makes no row."""
+    if is_shaped(case):
+        return req.kinds is None and case.kind not in claims.capabilities.shaped_kinds
     return req.kinds is None and not claims.claims_kind(case.kind)
 
 
