@@ -47,6 +47,11 @@ class BatteryRequest:
     reference_budget_seconds: float | None = None
     #: The user's pass criteria (:func:`fftgauge.harness.battery.criteria.build_limits`); empty: the built-in bounds.
     limits: tuple = ()
+    #: ``--shapes``: the parsed items (:class:`fftgauge.harness.shapes.grammar.ShapeSpec`) and the
+    #: shaped cases they give with the kinds, precisions, ``layouts`` and norms (empty: none).
+    shapes: tuple = ()
+    layouts: tuple[str, ...] = ("C",)
+    shape_cases: tuple = ()
 
 
 def choice_list(value: str | Sequence[str] | None, allowed: Sequence[str], what: str) -> tuple[str, ...] | None:
@@ -71,7 +76,8 @@ def build_request(backends: Sequence[str] | None = None, sizes: str | None = Non
                   timeout_seconds: float = DEFAULT_CASE_TIMEOUT_SECONDS,
                   pure_python_max_n: int | None = None, limits=None,
                   limits_file: str | None = None,
-                  case_budget_seconds: float | None = DEFAULT_CASE_BUDGET_SECONDS) -> BatteryRequest:
+                  case_budget_seconds: float | None = DEFAULT_CASE_BUDGET_SECONDS,
+                  shapes: str | None = None, layouts: str | Sequence[str] | None = None) -> BatteryRequest:
     """Return the validated :class:`BatteryRequest` for these arguments.
 
     Parameters
@@ -91,6 +97,9 @@ def build_request(backends: Sequence[str] | None = None, sizes: str | None = Non
     limits, limits_file : the user's pass criteria: ``--limit`` strings or a mapping
         ``{check: "AMOUNT UNIT"}``, and a TOML file of them
         (:func:`fftgauge.harness.battery.criteria.build_limits`).
+    shapes, layouts : the ``--shapes`` grammar (:mod:`fftgauge.harness.shapes.grammar`) and the
+        input layouts of its cases (default C); with shapes and no ``sizes`` only the shaped
+        cases run, with both both do (:func:`fftgauge.harness.shapes.request.shaped_fields`).
 
     Raises
     ------
@@ -115,6 +124,19 @@ def build_request(backends: Sequence[str] | None = None, sizes: str | None = Non
     reference_budget = None
     if sizes is None and pure_python_max_n is None:
         reference_budget = min(REFERENCE_CASE_BUDGET_SECONDS, budget or REFERENCE_CASE_BUDGET_SECONDS)
+    from fftgauge.harness.shapes.request import shaped_fields
+
+    shaped = shaped_fields(shapes, layouts, kinds, dtypes or DEFAULT_DTYPES, norms or DEFAULT_NORMS, checks)
+    if shaped:
+        line_sizes = tuple(parse_sizes(sizes)) if sizes is not None else ()
+        return BatteryRequest(
+            specs=tuple(backends) if backends else tuple(default_specs()), kinds=shaped["kinds"],
+            dtypes=choice_list(dtypes, DTYPES, "dtype") or DEFAULT_DTYPES, sizes=line_sizes,
+            norms=choice_list(norms, NORMS, "norm") or DEFAULT_NORMS, checks=shaped["checks"], seed=int(seed),
+            threads=threads, timeout_seconds=float(timeout_seconds), max_n_pure_python=pure_python_max_n or None,
+            case_budget_seconds=budget, reference_budget_seconds=reference_budget,
+            limits=build_limits(limits, limits_file), shapes=shaped["shapes"], layouts=shaped["layouts"],
+            shape_cases=shaped["shape_cases"])
     return BatteryRequest(
         specs=tuple(backends) if backends else tuple(default_specs()),
         kinds=choice_list(kinds, KINDS, "kind"),

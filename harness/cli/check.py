@@ -28,6 +28,12 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     add_criteria_and_outputs(parser)
     add_cluster_option(parser, "the battery's cases")
     parser.add_argument("--norms", metavar="LIST", help="comma list of backward, ortho, forward (default backward)")
+    parser.add_argument("--shapes", metavar="SHAPES",
+                        help="shaped cases (batched and N-D transforms): e.g. 256x256, 12^3, 1000x64 along -1, "
+                             "16x12x10 over 1+2, @default, @deep; alone they replace the 1-D sizes, with --sizes "
+                             "both run (one results file)")
+    parser.add_argument("--layouts", metavar="LIST", help="with --shapes: comma list of C, F, strided, reversed "
+                                                          "(default C; the layout check compares every one with C)")
     parser.add_argument("--checks", metavar="LIST", help=f"comma list of checks to run (default: all): {', '.join(CHECKS)}")
     parser.add_argument("--timeout", type=float, default=DEFAULT_CASE_TIMEOUT_SECONDS, metavar="SECONDS",
                         help=f"seconds one case may take before the backend is killed (default "
@@ -53,12 +59,13 @@ def request_from_args(args: argparse.Namespace) -> BatteryRequest:
     return build_request(backends=args.backend, sizes=args.sizes, kinds=args.kinds, dtypes=args.dtypes,
                          norms=args.norms, checks=args.checks, seed=args.seed, threads=args.threads,
                          timeout_seconds=args.timeout, pure_python_max_n=args.pure_python_max_n,
-                         limits=args.limit, limits_file=args.limits, case_budget_seconds=args.case_budget)
+                         limits=args.limit, limits_file=args.limits, case_budget_seconds=args.case_budget,
+                         shapes=getattr(args, "shapes", None), layouts=getattr(args, "layouts", None))
 
 
 def run(args: argparse.Namespace) -> int:
     """Run the battery; print the summary; return 0 (all held), 1 (a check failed or errored)."""
-    from fftgauge.harness.battery.run import run_battery
+    from fftgauge.harness.shapes.battery import run_check_request
     from fftgauge.harness.errors import RunStopped
     from fftgauge.harness.results import ResultsWriteError
     from fftgauge.harness.shutdown import stop_on_signals, stop_reason
@@ -80,7 +87,7 @@ def run(args: argparse.Namespace) -> int:
                 from fftgauge.harness.cluster.battery import run_battery_on_cluster
                 doc = run_battery_on_cluster(req, cluster, json_path=path, quiet=args.quiet)
             else:
-                doc = run_battery(req, json_path=path, quiet=args.quiet)
+                doc = run_check_request(req, json_path=path, quiet=args.quiet)  # 1-D sizes and/or shapes
     except RunStopped as exc:
         stopped, doc = exc, exc.doc
     except ResultsWriteError as exc:
@@ -97,8 +104,9 @@ def run(args: argparse.Namespace) -> int:
             print(f"written from what finished: {', '.join(written)}", file=out)
         return code
     df = rows_frame(doc["rows"])
-    print(format_summary(df, doc.get("backends")), file=out)
-    not_run = not_run_lines(doc["rows"])
+    from fftgauge.harness.shapes.summary import check_summary
+    print(check_summary(doc, format_summary), file=out)  # 1-D rows as before, shaped rows by shape
+    not_run = not_run_lines([r for r in doc["rows"] if not r.get("shape")])
     if not_run:
         print("\nnot run (sizes not claimed, or skipped for time; one line per reason):", file=out)
         print("\n".join(not_run), file=out)

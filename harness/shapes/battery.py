@@ -1,0 +1,307 @@
+"""The shaped battery's engine: shaped cases x backends, in worker processes, rows streamed to
+the same results file as the 1-D battery's.
+
+:func:`run_check_request` is what ``fftgauge check`` calls: the 1-D battery
+(:func:`fftgauge.harness.battery.run.run_battery`) for ``--sizes``, the shaped battery
+(:func:`run_shaped_battery`) for ``--shapes``, both when both are given (1-D first, then the
+shaped cases, in one results file). As in the 1-D battery every backend is described by a
+worker of its own (which shaped cases it claims; the others become ``skip`` rows with the
+reason), and every claimed case runs in a worker (:func:`fftgauge.harness.execution.jobs.run_shaped_case_job`)
+with a timeout, so a crash or a hang becomes ``error`` rows and the run goes on. One lane per
+core takes batches (every case of one backend and one shape: kinds, precisions, layouts) from
+a shared queue, largest arrays first, keeping one worker per backend it has run.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import os
+import threading
+from collections import deque
+from typing import Any
+
+from fftgauge.harness.battery.request import BatteryRequest
+from fftgauge.harness.errors import BackendFailure, RunStopped, UsageError
+from fftgauge.harness.execution import jobs
+from fftgauge.harness.rows import CheckRow
+from fftgauge.harness.shapes.case import ShapeCase
+from fftgauge.harness.shapes.fields import case_fields, row_order_key
+
+__all__ = ["SHAPED_CASE_CHECK", "ShapedQueue", "run_check_request", "run_shaped_battery", "shaped_check_names"]
+
+#: The ``check`` name of the single row that stands for a shaped case not run (as the 1-D battery's).
+SHAPED_CASE_CHECK = "all"
+
+
+def shaped_check_names(req: BatteryRequest) -> list[str]:
+    """Return the shaped checks a request asks for: its ``--checks`` that are shaped checks, or all."""
+    from fftgauge.harness.shapes.checks import SHAPED_CHECKS
+
+    if not req.checks:
+        return list(SHAPED_CHECKS)
+    return [c for c in req.checks if c in SHAPED_CHECKS]
+
+
+def case_row(label: str, case: ShapeCase, status: str, message: str, check: str = SHAPED_CASE_CHECK) -> dict:
+    """Return the dict of one ``skip``/``error`` row standing for a whole shaped case (or one check of it)."""
+    from fftgauge.harness.shapes.context import shaped_row
+
+    return shaped_row(label, case, check, status, message=message).as_dict()
+
+
+class ShapedQueue:
+    """The shaped battery's work: per backend, batches (one shape each) largest array first;
+    lanes take them with :meth:`next` (their own backend's first, then a backend no lane has
+    started, then the one with most left). Thread-safe."""
+
+    def __init__(self, specs: list[str], claimed: dict[str, list[int]], cases: list[ShapeCase]):
+        self._order = list(specs)
+        self._left: dict[str, deque[tuple[str, tuple[int, ...]]]] = {}
+        for spec in specs:
+            by_shape: dict[tuple, list[int]] = {}
+            for i in claimed[spec]:
+                by_shape.setdefault((cases[i].shape, cases[i].axes), []).append(i)
+            order = sorted(by_shape, key=lambda key: -cases[by_shape[key][0]].input_bytes())
+            self._left[spec] = deque((spec, tuple(by_shape[key])) for key in order)
+        #: Cases and batches the queue held at the start.
+        self.total_cases = sum(len(b[1]) for q in self._left.values() for b in q)
+        self.total_batches = sum(len(q) for q in self._left.values())
+        self._started: set[str] = set()
+        self._lock = threading.Lock()
+        self.stopped = False
+
+    def stop(self) -> None:
+        """Hand out no more batches (the run is stopping)."""
+        self.stopped = True
+
+    def next(self, spec: str | None) -> tuple[str, tuple[int, ...]] | None:
+        """Return the next ``(spec, case indices)`` for a lane on backend ``spec``, or None."""
+        with self._lock:
+            if self.stopped:
+                return None
+            if spec is not None and self._left.get(spec):
+                return self._left[spec].popleft()
+            for other in self._order:
+                if other not in self._started and self._left[other]:
+                    self._started.add(other)
+                    return self._left[other].popleft()
+            busiest = max(self._order, key=lambda s: len(self._left[s]), default=None)
+            if busiest is not None and self._left[busiest]:
+                return self._left[busiest].popleft()
+            return None
+
+
+class ShapedLane:
+    """One core's share of the shaped run: the worker of the backend it runs now (the describing
+    worker when it is the first to reach that backend)."""
+
+    def __init__(self, spare: dict[str, Any], lock: threading.Lock, req: BatteryRequest, lanes: int):
+        self._spare, self._lock, self._req, self._lanes = spare, lock, req, lanes
+        self.spec: str | None = None
+        self._worker: Any = None
+
+    def worker_for(self, spec: str) -> Any:
+        """Return a worker for ``spec`` (the current one, a spare, or a new one)."""
+        from fftgauge.harness.execution.worker import Worker
+
+        if spec != self.spec:
+            self.close()
+            with self._lock:
+                self._worker = self._spare.pop(spec, None)
+            self._worker = self._worker or Worker(spec, threads=self._req.threads, concurrency=self._lanes)
+            self.spec = spec
+        return self._worker
+
+    def close(self) -> None:
+        """Close the current worker (if any)."""
+        if self._worker is not None:
+            self._worker.close()
+        self._worker, self.spec = None, None
+
+    def abort(self) -> None:
+        """Kill the current worker's child at once (the run is stopping)."""
+        if self._worker is not None:
+            self._worker.abort()
+
+
+def run_case(worker: Any, label: str, case: ShapeCase, req: BatteryRequest, names: list[str]) -> list[dict]:
+    """Return the rows of one shaped case run in ``worker``: its checks' rows, or an ``error``
+    row per check when the worker crashed, hung or raised; an ``error`` row of check ``all``
+    beside them when the job left processes running."""
+    from fftgauge.harness.execution.crash import leftover_text
+
+    try:
+        rows = worker.call(jobs.run_shaped_case_job, case_fields(case), req.seed, names, req.threads or 1,
+                           timeout_seconds=req.timeout_seconds)
+    except BackendFailure as exc:
+        rows = [case_row(label, case, "error", str(exc), check=name) for name in names]
+    if worker.left_running > 0:
+        rows.append(case_row(label, case, "error", f"the case's checks ran, but {leftover_text(worker.left_running)}"))
+    return rows
+
+
+def _describe(workers: dict[str, Any], req: BatteryRequest, cases: list[ShapeCase]) -> dict[str, Any]:
+    from concurrent.futures import ThreadPoolExecutor
+
+    from fftgauge.harness.execution.dispatch import describe_cases
+
+    pool = ThreadPoolExecutor(max_workers=max(1, min(os.cpu_count() or 1, len(req.specs))))
+    try:
+        futures = {spec: pool.submit(describe_cases, workers[spec], spec, cases, req.max_n_pure_python,
+                                     req.timeout_seconds) for spec in req.specs}
+        return {spec: futures[spec].result() for spec in req.specs}
+    except BaseException:
+        pool.shutdown(wait=False, cancel_futures=True)
+        raise
+    finally:
+        pool.shutdown(wait=False)
+
+
+def _request_record(req: BatteryRequest, names: list[str]) -> dict[str, Any]:
+    return {"shapes": [spec.label() for spec in req.shapes], "layouts": list(req.layouts),
+            "shape_kinds": sorted({c.kind for c in req.shape_cases}), "shape_checks": names}
+
+
+def run_shaped_battery(req: BatteryRequest, json_path: str | None = None, quiet: bool = True,
+                       doc: dict[str, Any] | None = None) -> dict[str, Any]:
+    """Run the shaped cases of ``req`` and return the ``fftgauge-check/1`` document.
+
+    ``doc`` is the document of a 1-D run of the same request to add the shaped rows to (its
+    rows are kept; without it a new envelope is made). Rows are streamed to ``json_path``.
+
+    Raises
+    ------
+    UsageError
+        When a backend SPEC cannot be loaded or describe itself.
+    RunStopped
+        When a signal stopped the run (its ``doc`` holds what finished, ``complete: false``).
+    fftgauge.harness.results.ResultsWriteError
+        When the results file could not be written.
+    """
+    from fftgauge.backends.registry import require_unique_labels
+    from fftgauge.harness.battery.criteria import apply_limits
+    from fftgauge.harness.battery.run import CHECK_SCHEMA, RowSink, drive_lanes
+    from fftgauge.harness.execution.dispatch import Progress
+    from fftgauge.harness.execution.worker import Worker
+    from fftgauge.harness.results import ResultsWriter, envelope
+    from fftgauge.harness.shapes.reference import shaped_reference_method
+    from fftgauge.harness.shutdown import stop_reason
+
+    cases = list(req.shape_cases)
+    names = shaped_check_names(req)
+    parallel = max(1, os.cpu_count() or 1)
+    workers = {spec: Worker(spec, threads=req.threads, concurrency=parallel) for spec in req.specs}
+    try:
+        claims = _describe(workers, req, cases)
+        require_unique_labels({spec: claims[spec].label for spec in req.specs})
+        if doc is None:
+            doc = envelope(CHECK_SCHEMA, req.seed, extra={
+                "reference": {}, "backends": {}, "request": {"kinds": [], "dtypes": list(req.dtypes),
+                                                             "norms": list(req.norms), "sizes": [],
+                                                             "checks": list(req.checks or names)}})
+        doc.setdefault("reference", {}).update(
+            {f"{d} (shapes)": f"{shaped_reference_method(d)} axis by axis" for d in req.dtypes})
+        doc.setdefault("backends", {}).update({claims[s].label: claims[s].record(s) for s in req.specs})
+        doc.setdefault("request", {}).update(_request_record(req, names))
+        writer = ResultsWriter(json_path, doc)
+        claimed: dict[str, list[int]] = {}
+        skipped = []
+        for spec in req.specs:
+            claimed[spec] = [i for i, reason in enumerate(claims[spec].reasons) if reason is None]
+            skipped += [case_row(claims[spec].label, c, "skip", reason)
+                        for c, reason in zip(cases, claims[spec].reasons) if reason is not None]
+        writer.add(skipped)
+        queue = ShapedQueue(list(req.specs), claimed, cases)
+        progress = Progress(total=queue.total_cases, quiet=quiet, desc="checking shapes")
+        lock = threading.Lock()
+        count = min(parallel, max(1, queue.total_batches))
+        lanes = [ShapedLane(workers, lock, req, count) for _ in range(count)]
+        sink = RowSink(writer)
+        labels = {spec: claims[spec].label for spec in req.specs}
+        conventions = {spec: getattr(claims[spec].capabilities, "conventions", None) for spec in req.specs}
+
+        def run_lane(lane: ShapedLane) -> None:
+            try:
+                while (batch := queue.next(lane.spec)) is not None:
+                    spec, indices = batch
+                    worker = lane.worker_for(spec)
+                    for index in indices:
+                        if queue.stopped:
+                            return
+                        rows = run_case(worker, labels[spec], cases[index], req, names)
+                        if queue.stopped:
+                            return
+                        sink.add(apply_limits(rows, req.limits, conventions[spec]))
+                        progress.advance(note=f"{labels[spec]} {cases[index].label()}")
+            finally:
+                lane.close()
+
+        stop = None
+        try:
+            stop = drive_lanes(lanes, queue, workers, run_lane)
+        finally:
+            progress.close()
+            try:
+                sink.close()
+            finally:
+                position = {claims[s].label: i for i, s in enumerate(req.specs)}
+                doc["rows"].sort(key=lambda r: (bool(r.get("shape")), position.get(r["backend"], 0))
+                                 + (row_order_key(r) if r.get("shape") else ()))
+                writer.close(complete=stop is None)
+    except KeyboardInterrupt:
+        for worker in workers.values():
+            worker.abort()
+        raise
+    finally:
+        for worker in workers.values():
+            worker.close()
+    if stop is not None:
+        name, code = stop_reason(stop)
+        raise RunStopped(name, code, doc) from stop
+    return doc
+
+
+def run_check_request(req: BatteryRequest, json_path: str | None = None, quiet: bool = True) -> dict[str, Any]:
+    """Run what a ``check`` request asks: the 1-D battery for its sizes, the shaped battery for
+    its shapes, or both (1-D first, the shaped rows added to the same document and file).
+
+    Raises what :func:`fftgauge.harness.battery.run.run_battery` and :func:`run_shaped_battery` raise.
+    """
+    from fftgauge.harness.battery.checks import CHECKS
+    from fftgauge.harness.battery.run import run_battery
+    from fftgauge.harness.shapes.case import family_kind
+
+    if not req.shape_cases:
+        return run_battery(req, json_path=json_path, quiet=quiet)
+    doc = None
+    if req.sizes:
+        kinds = tuple(dict.fromkeys(family_kind(k, 1) for k in req.kinds)) if req.kinds else None
+        checks = tuple(c for c in req.checks if c in CHECKS) if req.checks else None
+        if checks != ():
+            line_req = dataclasses.replace(req, kinds=kinds, checks=checks)
+            doc = run_battery(line_req, json_path=None if json_path == "-" else json_path, quiet=quiet)
+    return run_shaped_battery(req, json_path=json_path, quiet=quiet, doc=doc)
+
+
+def shaped_rows_from(rows: list[CheckRow]) -> list[dict]:
+    """Return check rows as dicts (the job's return value)."""
+    return [row.as_dict() for row in rows]
+
+
+def check_shaped_fields(backend: Any, fields: tuple, seed: int, check_names: list[str] | None) -> list[dict]:
+    """Return the rows (dicts) of the checks of the shaped case ``fields`` (what the worker job runs).
+
+    Raises
+    ------
+    UsageError
+        For an unknown check name.
+    ValueError
+        For fields no shaped case can be built from.
+    """
+    from fftgauge.harness.shapes.checks import check_shaped_case
+    from fftgauge.harness.shapes.fields import case_from_fields
+
+    case = case_from_fields(tuple(fields))
+    if not isinstance(case, ShapeCase):
+        raise UsageError(f"not a shaped case: {fields!r}")
+    return shaped_rows_from(check_shaped_case(backend, case, seed, check_names))
