@@ -46,6 +46,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                            f"measured on this machine (default {DEFAULT_LAST_RUNS})")
     add_common_options(parser, "backend", "kinds", "dtypes", "sizes", "seed", "json", "csv", "quiet", "threads",
                        "pin")
+    from fftgauge.harness.shapes.options import LAYOUTS_HELP, SHAPES_HELP
+    parser.add_argument("--shapes", metavar="SHAPES", help=SHAPES_HELP + "; A/B mode (--old/--new) only")
+    parser.add_argument("--layouts", metavar="LIST", help=LAYOUTS_HELP)
     decide = parser.add_argument_group("how to decide")
     decide.add_argument("--metric", choices=METRICS, default=DEFAULT_METRIC,
                         help="what a case's ratio compares: time per call, or instructions per transform counted "
@@ -108,7 +111,8 @@ def request_from_args(args: argparse.Namespace) -> GateRequest:
                          allow_other_machine=args.allow_other_machine, timeout=args.timeout,
                          inconclusive=args.inconclusive, save=args.save, commit=args.commit,
                          metric=args.metric, count_repeats=args.count_repeats,
-                         count_transforms=args.count_transforms, cache_sim=args.cache_sim)
+                         count_transforms=args.count_transforms, cache_sim=args.cache_sim,
+                         shapes=args.shapes, layouts=args.layouts)
 
 
 def run(args: argparse.Namespace) -> int:

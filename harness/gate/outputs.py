@@ -47,6 +47,9 @@ def short(text: Any, limit: int = SHORT_MESSAGE_CHARS) -> str:
 
 def _case_label(row: dict[str, Any]) -> str:
     norm = row.get("norm") or "backward"
+    if row.get("shape"):  # a shaped case: its shape, axes and layout say more than N
+        from fftgauge.harness.shapes.fields import shape_text
+        return f"{row['kind']} {row['dtype']} {shape_text(row)}" + ("" if norm == "backward" else f" norm={norm}")
     return f"{row['kind']} {row['dtype']} n={row['n']}" + ("" if norm == "backward" else f" norm={norm}")
 
 

@@ -23,6 +23,7 @@ from typing import Sequence
 from fftgauge.harness.cases import DTYPES, KINDS
 from fftgauge.harness.errors import UsageError
 from fftgauge.harness.gate.history import DEFAULT_LAST_RUNS, StoredRun
+from fftgauge.harness.shapes.case import SHAPE_KINDS
 
 MODES = ("ab", "referenced", "stored", "record")
 #: Sizes of the A/B, referenced and record modes when none are given: a handful, about 10-20 s.
@@ -116,6 +117,8 @@ class GateRequest:
     notes: tuple[str, ...] = ()
     commit: str | None = None
     cpus: tuple[int, ...] | None = None
+    #: ``--shapes``: shaped cases (:class:`~fftgauge.harness.shapes.case.ShapeCase`) gated instead of sizes.
+    shape_cases: tuple = ()
 
 
 def parse_threshold(text: str | float) -> float:
@@ -237,12 +240,14 @@ def build_request(*, old: str | None = None, new: str | None = None, backends: S
                   inconclusive: str = DEFAULT_INCONCLUSIVE, save: str | None = None,
                   commit: str | None = None, metric: str = DEFAULT_METRIC,
                   count_repeats: int = DEFAULT_COUNT_REPEATS, count_transforms: int | None = None,
-                  cache_sim: bool = False) -> GateRequest:
+                  cache_sim: bool = False, shapes: str | None = None, layouts: str | None = None) -> GateRequest:
     """Return the validated :class:`GateRequest` the options describe, stored runs loaded.
 
     The keywords are the command line's options (``kinds``, ``dtypes`` and ``sizes`` in their
     text form, ``threshold`` as ``5%`` or ``0.05``, by default :data:`DEFAULT_THRESHOLD` for time and
-    :data:`DEFAULT_COUNT_THRESHOLD` for instructions); ``save`` is only checked here.
+    :data:`DEFAULT_COUNT_THRESHOLD` for instructions); ``save`` is only checked here. ``shapes``
+    and ``layouts`` name shaped cases instead of sizes (A/B mode only:
+    :func:`fftgauge.harness.shapes.options.shaped_gate_cases`).
 
     Raises
     ------
@@ -262,7 +267,9 @@ def build_request(*, old: str | None = None, new: str | None = None, backends: S
     if threshold is None:
         threshold = DEFAULT_COUNT_THRESHOLD if metric == "instructions" else DEFAULT_THRESHOLD
     fraction = parse_threshold(threshold)
-    kind_list = parse_choice_list(kinds, KINDS, "kind")
+    from fftgauge.harness.shapes.options import shaped_gate_cases  # --shapes (A/B only)
+    shaped = shaped_gate_cases(shapes, layouts, kinds, dtypes, sizes, mode, metric, accuracy, save)
+    kind_list = parse_choice_list(kinds, SHAPE_KINDS if shaped else KINDS, "kind")
     dtype_list = parse_choice_list(dtypes, DTYPES, "dtype")
     size_list = tuple(parse_sizes(sizes)) if sizes else None
     runs: tuple[StoredRun, ...] = ()
@@ -290,4 +297,4 @@ def build_request(*, old: str | None = None, new: str | None = None, backends: S
                        sizes=size_list, seed=seed, threads=threads or 1, settings=settings, accuracy=accuracy,
                        accuracy_growth=accuracy_growth, timeout_seconds=timeout, stored_runs=runs,
                        baseline_path=baseline, baseline_label=baseline_backend, warnings=tuple(warnings),
-                       notes=tuple(notes), commit=commit, cpus=cpus)
+                       notes=tuple(notes), commit=commit, cpus=cpus, shape_cases=tuple(shaped))

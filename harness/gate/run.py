@@ -35,10 +35,13 @@ from fftgauge.harness.gate.history import (GATE_SCHEMA, baseline_for, case_of, r
                                            stored_cases)
 from fftgauge.harness.gate.request import GateRequest, GateSettings
 from fftgauge.harness.rows import GateRow
+from fftgauge.harness.shapes.fields import case_size, row_fields
 
 
 def request_cases(req: GateRequest) -> list[Case]:
-    """Return the A/B or record mode's cases: kinds x dtypes x norms x sizes."""
+    """Return the A/B or record mode's cases: kinds x dtypes x norms x sizes, or the shaped cases of ``--shapes``."""
+    if req.shape_cases:
+        return list(req.shape_cases)
     kinds = req.kinds or KINDS
     return [Case(k, d, n, norm) for k in kinds for d in (req.dtypes or ("float64",)) for norm in req.norms
             for n in (req.sizes or ())]
@@ -141,7 +144,8 @@ def new_doc(req: GateRequest) -> dict[str, Any]:
                     "accuracy": req.accuracy, "accuracy_growth": req.accuracy_growth,
                     "samples_per_block": s.samples_per_block, "initial_pairs": s.initial_pairs,
                     "processes": s.processes,
-                    "max_samples": s.max_samples},
+                    "max_samples": s.max_samples,
+                    **({"shapes": [c.label() for c in req.shape_cases]} if req.shape_cases else {})},
         "baseline": None if req.mode not in ("stored", "referenced") else {
             "path": req.baseline_path, "backend": req.baseline_label, "runs": [run.path for run in req.stored_runs],
             "created": [run.created for run in req.stored_runs]},
@@ -196,7 +200,8 @@ def gate_row(it: GateItem, settings: GateSettings) -> GateRow:
         fields.update(count_fields(it))
     fields.setdefault("sampling_seconds", it.pair_seconds * it.pairs_taken)
     verdict = it.verdict if ok else None
-    return GateRow(backend=it.backend, kind=it.case.kind, dtype=it.case.dtype, n=it.case.n, verdict=verdict,
+    fields.update(row_fields(it.case))  # a shaped case's shape, axes, layout, batch, points
+    return GateRow(backend=it.backend, kind=it.case.kind, dtype=it.case.dtype, n=case_size(it.case), verdict=verdict,
                    norm=it.case.norm, status=it.status, message=it.message or acc.get("message") or "",
                    p_holm=it.p_holm, significant=it.significant, conclusive=it.conclusive,
                    inconclusive=None if e is None or not ok else undecided(verdict, e, settings.threshold),

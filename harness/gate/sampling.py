@@ -82,20 +82,18 @@ def _prepared(backend: Any, case_fields: tuple, seed: int, threads: int | None) 
     key = (tuple(case_fields), seed)
     if key in _PREPARED:
         return _PREPARED[key]
-    from fftgauge.harness.battery.conventions import declared_input_plan
-    from fftgauge.harness.battery.inputs import case_rng, random_input
+    from fftgauge.harness.shapes.fields import case_from_fields, is_shaped
+    from fftgauge.harness.shapes.timed import plan_for, timing_input
     from fftgauge.harness.timing.clock import autorange, gc_paused, time_empty_loop, warm_up
 
-    case = Case(*case_fields)
-    reason = backend.unsupported_reason(case)
+    case = case_from_fields(case_fields)  # 1-D or shaped (fftgauge.harness.shapes.fields)
+    reason = backend.shaped_unsupported_reason(case) if is_shaped(case) else backend.unsupported_reason(case)
     if reason is not None:
         raise UnsupportedCase(reason)
     _cap_threads(threads)
-    x = random_input(case, case_rng(seed, case, "time"))
-    start = time.perf_counter()
-    plan = backend.plan(case)
-    plan_seconds = time.perf_counter() - start
-    plan = declared_input_plan(backend, plan)  # inputs in the backend's declared convention
+    x = timing_input(case, seed)
+    # inputs in the backend's declared convention (1-D), or laid out as the shaped case says
+    plan, plan_seconds = plan_for(backend, case, time.perf_counter_ns)
     try:
         x_in = plan.prepare(np.array(x, copy=True))
         with gc_paused():
@@ -263,8 +261,10 @@ class WorkerSampler:
         return describe_cases(self.workers[key][0], self.specs[key], cases, None, self.timeout_seconds)
 
     @staticmethod
-    def _fields(case: Case) -> tuple:
-        return (case.kind, case.dtype, case.n, case.norm)
+    def _fields(case: Any) -> tuple:
+        from fftgauge.harness.shapes.fields import case_fields
+
+        return case_fields(case)  # 1-D or shaped
 
     def prepare(self, item: Any) -> dict[str, dict[str, Any]]:
         """Prepare the item's case in every process of each of its sides; return the first

@@ -15,7 +15,7 @@ from fftgauge.harness.cases import DTYPES, parse_choice_list
 from fftgauge.harness.errors import UsageError
 from fftgauge.harness.shapes.case import LAYOUTS, SHAPE_KINDS, ShapeCase
 
-__all__ = ["LAYOUTS_HELP", "SHAPES_HELP", "shaped_cases_from_options"]
+__all__ = ["LAYOUTS_HELP", "SHAPES_HELP", "shaped_cases_from_options", "shaped_gate_cases"]
 
 SHAPES_HELP = ("shaped cases instead of --sizes: e.g. 256x256, 12^3, 1000x64 along -1, 16x12x10 over 1+2, "
                "@default, @deep (comma-separated; kinds fft..irfft and fftn..irfftn alike)")
@@ -50,3 +50,34 @@ def shaped_cases_from_options(shapes: str, kinds: str | None, dtypes: str | None
         raise UsageError(f"--shapes {shapes!r} names no case")
     check_memory(cases)
     return cases
+
+
+def shaped_gate_cases(shapes: str | None, layouts: str | None, kinds: str | None, dtypes: str | None,
+                      sizes: str | None, mode: str, metric: str, accuracy: bool,
+                      save: str | None = None) -> list[ShapeCase]:
+    """Return the shaped cases of ``fftgauge gate --shapes`` (empty without ``--shapes``).
+
+    Shaped cases are gated in A/B mode (``--old``/``--new``, both sides measured in the run),
+    by time, without ``--accuracy`` (the shaped battery is ``fftgauge check --shapes``).
+
+    Raises
+    ------
+    UsageError
+        For ``--layouts`` without ``--shapes``, ``--shapes`` in another mode, with
+        ``--metric instructions``, ``--accuracy`` or ``--save``, or any error of
+        :func:`shaped_cases_from_options`.
+    """
+    if shapes is None:
+        if layouts:
+            raise UsageError("--layouts goes with --shapes (a 1-D size has one layout)")
+        return []
+    if mode != "ab":
+        raise UsageError("--shapes gates two sides measured in this run: give --old SPEC --new SPEC "
+                         "(stored baselines and saved runs hold 1-D cases only)")
+    if metric != "time":
+        raise UsageError("--shapes goes with --metric time (instruction counts take 1-D cases)")
+    if accuracy:
+        raise UsageError("--shapes goes without --accuracy; check shaped accuracy with fftgauge check --shapes")
+    if save:
+        raise UsageError("--shapes goes without --save (saved gate runs are read back as 1-D cases)")
+    return shaped_cases_from_options(shapes, kinds, dtypes, layouts, sizes=sizes)
