@@ -421,7 +421,9 @@ def _row_problem(row: dict[str, Any], schema: str) -> tuple[str, str] | None:
             return name, f"is {_type_name(row[name])}, not text"
     if not row["backend"]:
         return "backend", "is empty"
-    if row["kind"] not in KINDS:
+    from fftgauge.harness.shapes.case import SHAPE_KINDS  # rows of shaped cases (fftn, ...)
+
+    if row["kind"] not in KINDS and not (row.get("shape") and row["kind"] in SHAPE_KINDS):
         return "kind", f"is {row['kind']!r}, not one of {', '.join(KINDS)}"
     if row["dtype"] not in DTYPES:
         return "dtype", f"is {row['dtype']!r}, not one of {', '.join(DTYPES)}"
