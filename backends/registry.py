@@ -51,6 +51,8 @@ BUILTINS: dict[str, tuple[str, str, str]] = {
     "scipy-backend": ("fftgauge.backends.scipy_backend_object", "ScipyBackendObject", "pip install scipy"),
     "jax": ("fftgauge.backends.jax_fft", "JaxBackend", "pip install 'fftgauge[jax]'"),
     "torch": ("fftgauge.backends.torch_fft", "TorchBackend", "pip install 'fftgauge[torch]'"),
+    "cupy": ("fftgauge.backends.cupy_fft", "CupyBackend",
+             "pip install 'fftgauge[cupy]' (cupy-cuda12x) on a machine with an NVIDIA GPU and its driver"),
     "radix2-dit": ("fftgauge.backends.radix2", "Radix2DitBackend", "reinstall fftgauge"),
     "radix2-dif": ("fftgauge.backends.radix2", "Radix2DifBackend", "reinstall fftgauge"),
     "direct": ("fftgauge.backends.direct", "DirectBackend", "reinstall fftgauge"),
