@@ -136,6 +136,8 @@ def run_battery_on_cluster(req: Any, target: ClusterTarget, json_path: str | Non
     from fftgauge.harness.battery.checks import CHECKS
     from fftgauge.harness.cluster.session import cluster_session
 
+    if getattr(req, "shape_cases", ()):
+        raise UsageError("--shapes does not run on a cluster yet; leave out --cluster")
     if req.checks:
         unknown = [c for c in req.checks if c not in CHECKS]
         if unknown:

@@ -123,7 +123,13 @@ class TaskLoop:
                 else:
                     lost_since = None
                     self._fail_lost_hosts()
-        except BaseException:
+        except ClusterLost:
+            self._meta.clear()
+            raise
+        except BaseException as exc:
+            if not isinstance(exc, KeyboardInterrupt) and not self.session.alive():
+                self._meta.clear()
+                raise ClusterLost(f"the Dask scheduler at {self.session.target.text} went away mid-run") from None
             self.cancel()
             raise
 
@@ -138,9 +144,12 @@ class TaskLoop:
                 pass
 
     def _finish(self, future: Any) -> None:
-        meta = self._meta.pop(future, None)
+        meta = self._meta.get(future)
         if meta is None:
             return
+        if future.status != "finished" and not self.session.alive():  # dropped with the scheduler: no finding
+            raise ClusterLost(f"the Dask scheduler at {self.session.target.text} went away mid-run")
+        self._meta.pop(future)
         if future.status == "finished":
             try:
                 result = future.result(timeout=SCHEDULER_LOST_SECONDS)

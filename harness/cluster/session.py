@@ -228,6 +228,7 @@ def cluster_session(target: ClusterTarget, specs: list[str], threads: int | None
         For an unreachable scheduler, a cluster without workers, or workers lacking fftgauge
         or a backend's library (:func:`probe_workers`).
     """
+    quieted = quiet_dask_logs()
     cluster = start_local_cluster(target.local_processes) if target.is_local else None
     client = None
     try:
@@ -252,3 +253,24 @@ def cluster_session(target: ClusterTarget, specs: list[str], threads: int | None
             with contextlib.suppress(Exception):
                 call_with_timeout(lambda: cluster.close(timeout=CLOSE_TIMEOUT_SECONDS), CLOSE_TIMEOUT_SECONDS * 2,
                                   "closing the local cluster")
+        for logger, level in quieted.items():
+            logger.setLevel(level)
+
+
+#: The loggers of dask that speak to the terminal during a run (their messages become fftgauge's one line).
+DASK_LOGGERS = ("distributed", "distributed.client", "distributed.scheduler", "distributed.worker",
+                "distributed.nanny", "distributed.core", "distributed.comm", "distributed.batched")
+
+
+def quiet_dask_logs() -> dict[logging.Logger, int]:
+    """Raise dask's client-side loggers to CRITICAL (what goes wrong is said in fftgauge's own
+    words); return logger -> the level to put back. Imports distributed first: its import
+    sets the levels from dask's configuration."""
+    import distributed  # noqa: F401
+
+    before = {}
+    for name in DASK_LOGGERS:
+        logger = logging.getLogger(name)
+        before[logger] = logger.level
+        logger.setLevel(logging.CRITICAL)
+    return before
