@@ -91,7 +91,7 @@ def check(backends: Sequence[str] | None = None, sizes: str | None = None, kinds
           norms=None, checks=None, seed: int = 1234, json_path: str | None = None,
           timeout_seconds: float | None = None, threads: int | None = None,
           pure_python_max_n: int | None = None, limits=None, limits_file: str | None = None,
-          case_budget_seconds: float | None = None):
+          case_budget_seconds: float | None = None, shapes: str | None = None, layouts=None):
     """Run the correctness battery and return its rows as a pandas DataFrame.
 
     Parameters mirror ``fftgauge check`` and are validated by the same request builder
@@ -102,6 +102,8 @@ def check(backends: Sequence[str] | None = None, sizes: str | None = None, kinds
     when given. ``limits`` are the user's pass criteria instead of the built-in bounds (a mapping
     ``{"accuracy": "8 eps"}`` or ``--limit`` strings), ``limits_file`` a TOML file of them
     (docs/reference.md, "User limits"); the rows record the limit used in ``limit_source``.
+    ``shapes`` (the ``--shapes`` grammar) and ``layouts`` run the shaped cases (alone, or
+    beside ``sizes`` when both are given; docs/reference.md, "Shaped checks").
 
     Raises
     ------
@@ -109,13 +111,14 @@ def check(backends: Sequence[str] | None = None, sizes: str | None = None, kinds
         For an unknown backend, a malformed size list, an unknown kind/dtype/check or a bad limit.
     """
     from fftgauge.harness.battery.request import DEFAULT_CASE_TIMEOUT_SECONDS, build_request
-    from fftgauge.harness.battery.run import run_battery
     from fftgauge.harness.report.check_tables import rows_frame
+    from fftgauge.harness.shapes.battery import run_check_request
 
     req = build_request(backends=backends, sizes=sizes, kinds=kinds, dtypes=dtypes, norms=norms, checks=checks,
                         seed=seed, threads=threads,
                         timeout_seconds=DEFAULT_CASE_TIMEOUT_SECONDS if timeout_seconds is None else timeout_seconds,
                         pure_python_max_n=pure_python_max_n, limits=limits, limits_file=limits_file,
-                        **({} if case_budget_seconds is None else {"case_budget_seconds": case_budget_seconds}))
-    doc = run_battery(req, json_path=json_path, quiet=True)
+                        **({} if case_budget_seconds is None else {"case_budget_seconds": case_budget_seconds}),
+                        shapes=shapes, layouts=layouts)
+    doc = run_check_request(req, json_path=json_path, quiet=True)
     return rows_frame(doc["rows"])
