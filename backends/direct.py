@@ -34,15 +34,20 @@ from __future__ import annotations
 
 import numpy as np
 
+from fftgauge.backends.axis_passes import AxisPassPlan, plan_axis_passes
 from fftgauge.backends.base import Backend, Capabilities, OpCount, Plan
 from fftgauge import __version__
 from fftgauge.harness import dft
 from fftgauge.harness.cases import Case, norm_factor
+from fftgauge.harness.shapes.case import SHAPE_KINDS, ShapeCase
 from fftgauge.harness.timing.opcount import OperationTally
 
 #: Largest size the direct DFT claims: O(N^2) time and memory traffic (a 4096-point
 #: transform gathers 16.8 million matrix entries).
 MAX_N = 4096
+
+#: Largest shaped case (total points of the array) the direct DFT takes, axis by axis.
+MAX_SHAPED_POINTS = 2**16
 
 #: Largest block of the DFT matrix built at once, in bytes (32 MiB: 2048 rows at N = 1024).
 BLOCK_BYTES = 32 * 2**20
@@ -182,10 +187,16 @@ class DirectBackend(Backend):
 
     def capabilities(self) -> Capabilities:
         return Capabilities(dtypes=("float32", "float64"), sizes="any", max_n=MAX_N,
-                            pure_python=True, separate_planning=True, counts_operations=True)
+                            pure_python=True, separate_planning=True, counts_operations=True,
+                            shaped_kinds=SHAPE_KINDS, max_shaped_points=MAX_SHAPED_POINTS)
 
     def plan(self, case: Case) -> DirectPlan:
         return DirectPlan(case)
+
+    def plan_shaped(self, case: ShapeCase) -> AxisPassPlan:
+        """Return the direct DFT of every line along each transformed axis in turn
+        (:func:`~fftgauge.backends.axis_passes.plan_axis_passes`)."""
+        return plan_axis_passes(self, case)
 
     def count_operations(self, case: Case, count_trivial: bool = True) -> OpCount:
         """Run ``case`` once on a fixed input through the counted sum and return its operations.

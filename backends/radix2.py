@@ -57,15 +57,21 @@ import math
 
 import numpy as np
 
+from fftgauge.backends.axis_passes import AxisPassPlan, plan_axis_passes
 from fftgauge.backends.base import Backend, Capabilities, OpCount, Plan
 from fftgauge import __version__
 from fftgauge.harness import dft
 from fftgauge.harness.cases import Case, norm_factor
+from fftgauge.harness.shapes.case import SHAPE_KINDS, ShapeCase
 from fftgauge.harness.timing.opcount import OperationTally
 
 #: Largest size the pure-Python reference claims: a 2**14-point transform is about
 #: 115,000 butterflies, a fraction of a second in CPython.
 MAX_N = 2**14
+
+#: Largest shaped case (total points of the array) it takes, axis by axis: a 64x64 array is
+#: 128 pure-Python transforms of 64 points per call.
+MAX_SHAPED_POINTS = 2**12
 
 
 def bit_reverse_permutation(n: int) -> list[int]:
@@ -284,10 +290,16 @@ class _Radix2Backend(Backend):
 
     def capabilities(self) -> Capabilities:
         return Capabilities(dtypes=("float32", "float64"), sizes="pow2", max_n=MAX_N,
-                            pure_python=True, separate_planning=True, counts_operations=True)
+                            pure_python=True, separate_planning=True, counts_operations=True,
+                            shaped_kinds=SHAPE_KINDS, max_shaped_points=MAX_SHAPED_POINTS)
 
     def plan(self, case: Case) -> Radix2Plan:
         return Radix2Plan(case, self.decimation)
+
+    def plan_shaped(self, case: ShapeCase) -> AxisPassPlan:
+        """Return this radix-2 FFT of every line along each transformed axis in turn
+        (:func:`~fftgauge.backends.axis_passes.plan_axis_passes`); powers of two along each axis."""
+        return plan_axis_passes(self, case)
 
     def count_operations(self, case: Case, count_trivial: bool = True) -> OpCount:
         """Run ``case`` once on a fixed input in counting mode and return the operations performed."""

@@ -92,3 +92,33 @@ def test_a_wrong_axis_is_far_above_the_limit():
     ref = shaped_reference(x, case)
     wrong = np.fft.fft(x, axis=1)
     assert ref.relative_error(wrong) / shaped_limit(case) > 1e10
+
+
+POW2_MANY = [((4, 8), (0, 1)), ((2, 4, 8), (2, 0)), ((4, 2, 4), (-1, -3)), ((1, 8), (0, 1))]
+POW2_ONE = [((4, 8), (-1,)), ((8, 4), (0,)), ((3, 8, 5), (1,)), ((1, 6), (0,))]
+
+
+@pytest.mark.parametrize("spec", ["direct", "radix2-dit", "radix2-dif"])
+@pytest.mark.parametrize("kind", ONE_AXIS_KINDS + MANY_AXIS_KINDS)
+def test_reference_backends_axis_by_axis(spec, kind):
+    """The direct DFT and the pure-Python radix-2 FFTs, line by line along each axis."""
+    backend = load_backend(spec)
+    shapes = (MANY + POW2_MANY if kind in MANY_AXIS_KINDS else ONE + POW2_ONE) if spec == "direct" else \
+        (POW2_MANY if kind in MANY_AXIS_KINDS else POW2_ONE)
+    for shape, axes in shapes:
+        for dtype in ("float32", "float64"):
+            for layout in ("C", "reversed"):
+                case = ShapeCase(kind, dtype, shape, axes, layout)
+                assert backend.shaped_unsupported_reason(case) is None
+                assert _check(backend, case) <= 1.0, f"{spec} {case.label()}"
+        case = ShapeCase(kind, "float64", shape, axes, "F", "ortho")
+        assert _check(backend, case) <= 1.0, f"{spec} {case.label()}"
+
+
+def test_reference_backends_claim_small_shapes_only():
+    radix2 = load_backend("radix2-dit")
+    assert "along axis 1" in radix2.shaped_unsupported_reason(ShapeCase("fftn", "float64", (8, 12), (0, 1)))
+    assert "at most 4096 points" in radix2.shaped_unsupported_reason(ShapeCase("fftn", "float64", (128, 64), (0, 1)))
+    direct = load_backend("direct")
+    assert direct.shaped_unsupported_reason(ShapeCase("rfftn", "float64", (256, 256), (0, 1))) is None
+    assert "points" in direct.shaped_unsupported_reason(ShapeCase("rfftn", "float64", (512, 256), (0, 1)))
