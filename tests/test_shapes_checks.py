@@ -200,3 +200,24 @@ def test_wrong_shape_is_a_fail_never_a_crash():
     row = assert_fails(rows, "shape", "shape")
     assert "(8, 5) where (9, 5) is due" in row.message
     assert all(r.status == "fail" for name, r in rows.items() if name not in ("batch-independence", "input-intact"))
+
+
+def test_single_precision_inside_a_double_transform():
+    rows = rows_by_check(bugs.LowPrecision(), ShapeCase("fftn", "float64", (16, 12), (0, 1)))
+    row = assert_fails(rows, "accuracy", "precision")
+    assert "float32" in row.message
+
+
+def test_separability_line_by_line_without_batched_kinds():
+    """Without batched one-axis kinds the successive transforms are the backend's 1-D ones, line by line."""
+    rows = rows_by_check(bugs.ManyAxesOnly(), ShapeCase("rfftn", "float64", (6, 10), (0, 1)))
+    assert rows["separability"].status == "pass" and "(1-D)" in rows["separability"].message
+    assert "not claimed" in rows["axis-handling"].message
+
+
+def test_separability_names_the_wrong_pass():
+    """An N-D transform that is right while its batched one-axis passes leak: separability names the pass."""
+    rows = rows_by_check(bugs.Leaky(), ShapeCase("fftn", "float64", (4, 4), (0, 1)))
+    assert rows["accuracy"].status == "pass"
+    row = assert_fails(rows, "separability", "batch-leak")
+    assert "its fft along axis 1 is wrong" in row.message

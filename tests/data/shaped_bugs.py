@@ -142,3 +142,26 @@ class OneDOnly(NumpyBackend):
 
     def capabilities(self):
         return Capabilities(dtypes=("float32", "float64", "longdouble"))
+
+
+class LowPrecision(NumpyBackend):
+    """Computes double-precision N-D transforms in single precision, returning complex128."""
+
+    name = "low-precision"
+
+    def plan_shaped(self, case):
+        inner = super().plan_shaped(case)
+        if case.dtype != "float64" or case.is_real:
+            return inner
+        return ShapedFunctionPlan(case, lambda x: np.asarray(inner.execute(np.asarray(x).astype(np.complex64)))
+                                  .astype(np.complex64).astype(np.complex128))
+
+
+class ManyAxesOnly(NumpyBackend):
+    """numpy's N-D kinds and 1-D transforms, but no batched one-axis kinds."""
+
+    name = "many-axes-only"
+
+    def capabilities(self):
+        return Capabilities(dtypes=("float32", "float64", "longdouble"),
+                            shaped_kinds=("fftn", "ifftn", "rfftn", "irfftn"))
