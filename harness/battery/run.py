@@ -126,7 +126,7 @@ class BatchQueue:
             return None
 
 
-class _Lane:
+class Lane:
     """One core's share of the run: what a thread of the main process uses to drive one worker
     process at a time. ``spare_workers`` (SPEC -> describing worker) is shared by the lanes,
     under ``lock``; the first lane to reach a backend takes its describing worker."""
@@ -206,7 +206,7 @@ class RowSink:
             raise self._error
 
 
-def _run_lane(lane: _Lane, batches: BatchQueue, cases: list[Case], req: BatteryRequest,
+def _run_lane(lane: Lane, batches: BatchQueue, cases: list[Case], req: BatteryRequest,
               check_names: list[str] | None, sink: RowSink, progress: Progress) -> None:
     """Take batches from ``batches`` until it has none for this lane, passing rows to ``sink``
     as they come; closes the lane's worker."""
@@ -384,7 +384,7 @@ def run_battery(req: BatteryRequest, json_path: str | None = None, quiet: bool =
         progress = Progress(total=batches.total_cases, quiet=quiet)
         spare_lock = threading.Lock()
         lane_count = min(parallel, max(1, batches.total_batches))
-        lanes = [_Lane(workers, spare_lock, req, lane_count) for _ in range(lane_count)]
+        lanes = [Lane(workers, spare_lock, req, lane_count) for _ in range(lane_count)]
         sink = RowSink(writer)
         stop: KeyboardInterrupt | None = None
         try:
@@ -418,7 +418,7 @@ JOIN_POLL_SECONDS = 0.1
 STOP_WAIT_SECONDS = 1.0
 
 
-def drive_lanes(lanes: list[_Lane], batches: BatchQueue, workers: dict[str, Any],
+def drive_lanes(lanes: list[Lane], batches: BatchQueue, workers: dict[str, Any],
                 run_lane: Any) -> KeyboardInterrupt | None:
     """Run ``run_lane(lane)`` for every lane in a thread of its own until all are done; return
     None, or the interruption (KeyboardInterrupt, or the StopRequested of a SIGTERM/SIGHUP)
@@ -436,7 +436,7 @@ def drive_lanes(lanes: list[_Lane], batches: BatchQueue, workers: dict[str, Any]
     """
     errors: list[BaseException] = []
 
-    def lane_main(lane: _Lane) -> None:
+    def lane_main(lane: Lane) -> None:
         try:
             run_lane(lane)
         except BaseException as exc:  # noqa: BLE001 - raised again in the main thread

@@ -9,7 +9,8 @@ worker of its own (which shaped cases it claims; the others become ``skip`` rows
 reason), and every claimed case runs in a worker (:func:`fftgauge.harness.execution.jobs.run_shaped_case_job`)
 with a timeout, so a crash or a hang becomes ``error`` rows and the run goes on. One lane per
 core takes batches (every case of one backend and one shape: kinds, precisions, layouts) from
-a shared queue, largest arrays first, keeping one worker per backend it has run.
+a shared queue, largest arrays first, driving one worker at a time (the 1-D battery's
+:class:`~fftgauge.harness.battery.run.Lane`).
 """
 
 from __future__ import annotations
@@ -91,39 +92,6 @@ class ShapedQueue:
             return None
 
 
-class ShapedLane:
-    """One core's share of the shaped run: the worker of the backend it runs now (the describing
-    worker when it is the first to reach that backend)."""
-
-    def __init__(self, spare: dict[str, Any], lock: threading.Lock, req: BatteryRequest, lanes: int):
-        self._spare, self._lock, self._req, self._lanes = spare, lock, req, lanes
-        self.spec: str | None = None
-        self._worker: Any = None
-
-    def worker_for(self, spec: str) -> Any:
-        """Return a worker for ``spec`` (the current one, a spare, or a new one)."""
-        from fftgauge.harness.execution.worker import Worker
-
-        if spec != self.spec:
-            self.close()
-            with self._lock:
-                self._worker = self._spare.pop(spec, None)
-            self._worker = self._worker or Worker(spec, threads=self._req.threads, concurrency=self._lanes)
-            self.spec = spec
-        return self._worker
-
-    def close(self) -> None:
-        """Close the current worker (if any)."""
-        if self._worker is not None:
-            self._worker.close()
-        self._worker, self.spec = None, None
-
-    def abort(self) -> None:
-        """Kill the current worker's child at once (the run is stopping)."""
-        if self._worker is not None:
-            self._worker.abort()
-
-
 def run_case(worker: Any, label: str, case: ShapeCase, req: BatteryRequest, names: list[str]) -> list[dict]:
     """Return the rows of one shaped case run in ``worker``: its checks' rows, or an ``error``
     row per check when the worker crashed, hung or raised; an ``error`` row of check ``all``
@@ -180,7 +148,7 @@ def run_shaped_battery(req: BatteryRequest, json_path: str | None = None, quiet:
     """
     from fftgauge.backends.registry import require_unique_labels
     from fftgauge.harness.battery.criteria import apply_limits
-    from fftgauge.harness.battery.run import CHECK_SCHEMA, RowSink, drive_lanes
+    from fftgauge.harness.battery.run import CHECK_SCHEMA, Lane, RowSink, drive_lanes
     from fftgauge.harness.execution.dispatch import Progress
     from fftgauge.harness.execution.worker import Worker
     from fftgauge.harness.results import ResultsWriter, envelope
@@ -215,12 +183,12 @@ def run_shaped_battery(req: BatteryRequest, json_path: str | None = None, quiet:
         progress = Progress(total=queue.total_cases, quiet=quiet, desc="checking shapes")
         lock = threading.Lock()
         count = min(parallel, max(1, queue.total_batches))
-        lanes = [ShapedLane(workers, lock, req, count) for _ in range(count)]
+        lanes = [Lane(workers, lock, req, count) for _ in range(count)]
         sink = RowSink(writer)
         labels = {spec: claims[spec].label for spec in req.specs}
         conventions = {spec: getattr(claims[spec].capabilities, "conventions", None) for spec in req.specs}
 
-        def run_lane(lane: ShapedLane) -> None:
+        def run_lane(lane: Lane) -> None:
             try:
                 while (batch := queue.next(lane.spec)) is not None:
                     spec, indices = batch
