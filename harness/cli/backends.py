@@ -60,4 +60,6 @@ def run(args: argparse.Namespace) -> int:
         print(_line(info))
     from fftgauge.harness.counts.cachegrind import availability_line
     print(availability_line())
+    from fftgauge.harness.cluster.target import cluster_lines
+    print("\n".join(cluster_lines()))
     return 0

@@ -93,3 +93,21 @@ def cluster_from_args(args: Any) -> ClusterTarget | None:
     if target is not None and importlib.util.find_spec("distributed") is None:
         raise UsageError("--cluster needs dask.distributed: pip install 'fftgauge[cluster]'")
     return target
+
+
+def cluster_lines() -> list[str]:
+    """Return what ``fftgauge backends`` says about ``--cluster``: whether dask.distributed is
+    installed here (its version, read without importing it) and how to start a cluster."""
+    import importlib.metadata
+
+    from fftgauge import __version__
+
+    try:
+        here = f"dask.distributed {importlib.metadata.version('distributed')} is installed"
+    except importlib.metadata.PackageNotFoundError:
+        here = "dask.distributed is not installed (pip install 'fftgauge[cluster]')"
+    return [f"cluster (--cluster on check, time, count): {here}; local:N needs nothing more.",
+            "  on a cluster: `dask scheduler` on one machine (port 8786), then on every host "
+            "`dask worker tcp://SCHEDULER:8786 --resources timing=1`;",
+            f"  every worker needs fftgauge {__version__} and the libraries of the backends asked for "
+            "(checked at start; docs/cluster.md)"]
