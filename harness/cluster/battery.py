@@ -247,4 +247,5 @@ def chunk_summary(chunks: list[tuple[int, float]], overhead_seconds: float) -> d
     work = statistics.median(seconds)
     return {"tasks": len(chunks), "cases_per_task_min": cases[0], "cases_per_task_median": statistics.median(cases),
             "cases_per_task_max": cases[-1], "work_seconds_per_task_median": work,
+            "work_seconds_total": sum(seconds),
             "overhead_share": overhead_seconds / (overhead_seconds + work) if work > 0 else None}
