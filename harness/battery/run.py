@@ -329,6 +329,16 @@ def sort_battery_rows(rows: list[dict], req: BatteryRequest, claims: dict[str, d
                              r["n"], check_pos.get(r["check"], len(check_pos))))
 
 
+def finish_battery_rows(doc: dict[str, Any], req: BatteryRequest, claims: dict[str, Any]) -> None:
+    """Put a run's rows in their final form, in place: unclaimed size classes folded, rows
+    sorted (:func:`sort_battery_rows`), ``size_patterns`` added (an optional field, docs/reference.md)."""
+    from fftgauge.harness.battery.checks import CHECKS
+
+    doc["rows"][:] = unclaim_size_classes(doc["rows"], doc["backends"])
+    sort_battery_rows(doc["rows"], req, claims, list(CHECKS))
+    doc["size_patterns"] = size_patterns(doc["rows"])
+
+
 def battery_envelope(req: BatteryRequest, claims: dict[str, Any], kinds: Sequence[str],
                      check_names: list[str] | None) -> dict[str, Any]:
     """Return the ``fftgauge-check/1`` envelope of a run (rows empty): reference methods, the
@@ -395,9 +405,7 @@ def run_battery(req: BatteryRequest, json_path: str | None = None, quiet: bool =
             try:
                 sink.close()
             finally:
-                doc["rows"][:] = unclaim_size_classes(doc["rows"], doc["backends"])
-                sort_battery_rows(doc["rows"], req, claims, list(CHECKS))
-                doc["size_patterns"] = size_patterns(doc["rows"])  # optional field (docs/reference.md)
+                finish_battery_rows(doc, req, claims)
                 writer.close(complete=stop is None)
     except KeyboardInterrupt:  # while describing: end the workers at once, not after their start-up
         for worker in workers.values():

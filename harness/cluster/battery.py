@@ -150,10 +150,8 @@ def battery_in_session(session: ClusterSession, req: Any, json_path: str | None,
     """:func:`run_battery_on_cluster`'s body, on an open session."""
     from fftgauge.backends.registry import require_unique_labels
     from fftgauge.harness.battery.checks import CHECKS
-    from fftgauge.harness.battery.run import (RowSink, battery_envelope, build_cases, sort_battery_rows,
+    from fftgauge.harness.battery.run import (RowSink, battery_envelope, build_cases, finish_battery_rows,
                                               unclaimed_case_rows)
-    from fftgauge.harness.battery.size_patterns import size_patterns
-    from fftgauge.harness.battery.unclaimed import unclaim_size_classes
     from fftgauge.harness.execution.dispatch import Progress
     from fftgauge.harness.results import ResultsWriter
     from fftgauge.harness.rows import error_rows
@@ -209,9 +207,7 @@ def battery_in_session(session: ClusterSession, req: Any, json_path: str | None,
         try:
             sink.close()
         finally:
-            doc["rows"][:] = unclaim_size_classes(doc["rows"], doc["backends"])
-            sort_battery_rows(doc["rows"], req, claims, list(CHECKS))
-            doc["size_patterns"] = size_patterns(doc["rows"])
+            finish_battery_rows(doc, req, claims)
             doc["cluster"]["tasks"] = tally.done
             doc["cluster"]["chunks"] = chunk_summary(feed.chunks, session.overhead_seconds)
             writer.close(complete=stop is None and lost is None)
