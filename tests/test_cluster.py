@@ -238,3 +238,105 @@ def test_an_unreachable_scheduler_is_one_line_and_exit_2_within_the_timeout(monk
     assert time.monotonic() - started < 30
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and "cannot reach the Dask scheduler" in err[0]
+
+
+# -- a scheduler and workers started as `dask scheduler` / `dask worker` (slow) ------------------
+def free_port() -> int:
+    import socket
+
+    with socket.socket() as sock:
+        sock.bind(("127.0.0.1", 0))
+        return sock.getsockname()[1]
+
+
+def dask_command(*args: str) -> list[str]:
+    """Return the ``dask`` command line of this environment (the console script beside Python)."""
+    script = Path(sys.executable).parent / "dask"
+    if not script.exists():
+        pytest.skip("no dask console script beside this Python")
+    return [str(script), *args]
+
+
+def start_scheduler_and_workers(tmp_path: Path, hosts: tuple[str, ...]) -> tuple[str, list[subprocess.Popen]]:
+    """Start ``dask scheduler`` and one ``dask worker --resources timing=1`` per loopback host
+    (127.0.0.1, 127.0.0.2: two hosts as the scheduler sees them); return (address, processes)."""
+    port = free_port()
+    address = f"tcp://127.0.0.1:{port}"
+    log = open(tmp_path / "dask.log", "w")
+    procs = [subprocess.Popen(dask_command("scheduler", "--host", "127.0.0.1", "--port", str(port), "--no-dashboard"),
+                              stdout=log, stderr=log, start_new_session=True)]
+    from distributed import Client
+
+    deadline = time.monotonic() + 60
+    for host in hosts:
+        procs.append(subprocess.Popen(dask_command("worker", address, "--host", host, "--nthreads", "1",
+                                                   "--resources", "timing=1", "--no-dashboard"),
+                                      stdout=log, stderr=log, start_new_session=True))
+    while time.monotonic() < deadline:
+        try:
+            with Client(address, timeout=5, set_as_default=False) as client:
+                if len(client.scheduler_info(n_workers=-1)["workers"]) == len(hosts):
+                    return address, procs
+        except OSError:
+            pass
+        time.sleep(0.5)
+    stop_processes(procs)
+    pytest.fail("the scheduler and workers did not come up: " + (tmp_path / "dask.log").read_text()[-2000:])
+
+
+def stop_processes(procs: list[subprocess.Popen]) -> None:
+    for proc in reversed(procs):
+        if proc.poll() is None:
+            os.killpg(proc.pid, signal.SIGTERM)
+    for proc in procs:
+        try:
+            proc.wait(timeout=20)
+        except subprocess.TimeoutExpired:
+            os.killpg(proc.pid, signal.SIGKILL)
+            proc.wait(timeout=10)
+
+
+@pytest.mark.slow
+def test_two_hosts_time_every_case_into_one_table_with_a_host_column(tmp_path: Path, capsys) -> None:
+    address, procs = start_scheduler_and_workers(tmp_path, ("127.0.0.1", "127.0.0.2"))
+    try:
+        path = tmp_path / "t.json"
+        code = main(["time", "--backend", "numpy", "--sizes", "16,64", "--kinds", "fft", "--samples", "5", "--rounds",
+                     "1", "--budget", "0.05", "--no-memory", "--pin-cpu", "off", "--cluster", address,
+                     "--json", str(path), "--quiet"])
+    finally:
+        stop_processes(procs)
+    assert code == 0
+    rows = json.loads(path.read_text())["rows"]
+    assert sorted((r["host"], r["n"]) for r in rows) == [("127.0.0.1", 16), ("127.0.0.1", 64),
+                                                         ("127.0.0.2", 16), ("127.0.0.2", 64)]
+    out = capsys.readouterr().out
+    assert "numpy @ 127.0.0.1" in out and "numpy @ 127.0.0.2" in out  # one table, a column per host
+
+
+@pytest.mark.slow
+def test_a_scheduler_that_vanishes_mid_run_keeps_the_rows_and_exits_2(tmp_path: Path) -> None:
+    address, procs = start_scheduler_and_workers(tmp_path, ("127.0.0.1",))
+    path = tmp_path / "v.json"
+    cmd = [sys.executable, "-c", "import sys; from fftgauge.harness.cli import main; sys.exit(main(sys.argv[1:]))",
+           "check", "--backend", SLOW, "--kinds", "fft", "--dtypes", "float64", "--sizes", "1..300",
+           "--cluster", address, "--quiet", "--json", str(path)]
+    run = subprocess.Popen(cmd, cwd=tmp_path, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    try:
+        deadline = time.monotonic() + 120
+        while time.monotonic() < deadline and not (path.exists() and any(
+                r.get("host") for r in json.loads(path.read_text())["rows"])):
+            time.sleep(0.2)
+        os.killpg(procs[0].pid, signal.SIGKILL)  # the scheduler
+        killed = time.monotonic()
+        out, err = run.communicate(timeout=90)
+    finally:
+        if run.poll() is None:
+            run.kill()
+        stop_processes(procs)
+    assert run.returncode == 2 and time.monotonic() - killed < 60
+    lines = [line for line in err.strip().splitlines() if line.startswith("fftgauge:")]
+    assert len(lines) == 1 and "went away mid-run" in lines[0] and "Traceback" not in err
+    doc = json.loads(path.read_text())
+    assert doc["complete"] is False and doc["rows"]
+    assert not [r for r in doc["rows"] if r["status"] == "error"]  # the lost chunks are no error rows

@@ -187,17 +187,12 @@ def hosts_of(doc: dict[str, Any]) -> list[str]:
 
 
 def per_host_summary(doc: dict[str, Any], summary: Any) -> str:
-    """Return ``summary(doc)`` for a one-host document, else one section per host (``host X:``
-    followed by ``summary`` of that host's rows)."""
-    hosts = hosts_of(doc)
-    if len(hosts) <= 1:
+    """Return ``summary(doc)``; with several hosts, of the rows as :func:`rows_for_plot` gives
+    them (each backend as ``BACKEND @ HOST``), so one table compares the hosts, the fastest
+    marked across them."""
+    if len(hosts_of(doc)) <= 1:
         return summary(doc)
-    parts = []
-    for host in hosts:
-        part = {**doc, "rows": [r for r in doc["rows"] if r.get("host") == host],
-                "machine": (doc.get("cluster") or {}).get("hosts", {}).get(host, doc.get("machine"))}
-        parts.append(f"host {host}:\n{summary(part)}")
-    return "\n\n".join(parts)
+    return summary({**doc, "rows": rows_for_plot(doc["rows"])})
 
 
 def rows_for_plot(rows: list[dict[str, Any]]) -> list[dict[str, Any]]:
