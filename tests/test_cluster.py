@@ -257,9 +257,11 @@ def dask_command(*args: str) -> list[str]:
     return [str(script), *args]
 
 
-def start_scheduler_and_workers(tmp_path: Path, hosts: tuple[str, ...]) -> tuple[str, list[subprocess.Popen]]:
+def start_scheduler_and_workers(tmp_path: Path, hosts: tuple[str, ...],
+                                extra: dict[str, list[str]] | None = None) -> tuple[str, list[subprocess.Popen]]:
     """Start ``dask scheduler`` and one ``dask worker --resources timing=1`` per loopback host
-    (127.0.0.1, 127.0.0.2: two hosts as the scheduler sees them); return (address, processes)."""
+    (127.0.0.1, 127.0.0.2: two hosts as the scheduler sees them; ``extra``: more options of a
+    host's worker); return (address, processes)."""
     port = free_port()
     address = f"tcp://127.0.0.1:{port}"
     log = open(tmp_path / "dask.log", "w")
@@ -270,7 +272,8 @@ def start_scheduler_and_workers(tmp_path: Path, hosts: tuple[str, ...]) -> tuple
     deadline = time.monotonic() + 60
     for host in hosts:
         procs.append(subprocess.Popen(dask_command("worker", address, "--host", host, "--nthreads", "1",
-                                                   "--resources", "timing=1", "--no-dashboard"),
+                                                   "--resources", "timing=1", "--no-dashboard",
+                                                   *(extra or {}).get(host, [])),
                                       stdout=log, stderr=log, start_new_session=True))
     while time.monotonic() < deadline:
         try:
@@ -340,3 +343,30 @@ def test_a_scheduler_that_vanishes_mid_run_keeps_the_rows_and_exits_2(tmp_path: 
     doc = json.loads(path.read_text())
     assert doc["complete"] is False and doc["rows"]
     assert not [r for r in doc["rows"] if r["status"] == "error"]  # the lost chunks are no error rows
+
+
+BLOCKER = '''import sys
+class Blocker:
+    """Make fftgauge unimportable here: a worker of a host where it is not installed."""
+    def find_spec(self, name, path=None, target=None):
+        if name.split(".")[0] == "fftgauge":
+            raise ModuleNotFoundError(f"No module named {name!r}", name=name)
+for name in [m for m in sys.modules if m.split(".")[0] == "fftgauge"]:
+    del sys.modules[name]
+sys.meta_path.insert(0, Blocker())
+'''
+
+
+@pytest.mark.slow
+def test_a_worker_without_fftgauge_is_named_in_one_line_exit_2(tmp_path: Path, capsys) -> None:
+    preload = tmp_path / "no_fftgauge_here.py"
+    preload.write_text(BLOCKER)
+    address, procs = start_scheduler_and_workers(tmp_path, ("127.0.0.1", "127.0.0.2"),
+                                                 {"127.0.0.2": ["--preload", str(preload)]})
+    try:
+        code = main(["check", "--backend", "numpy", "--sizes", "8", "--cluster", address, "--quiet"])
+    finally:
+        stop_processes(procs)
+    err = capsys.readouterr().err.strip().splitlines()
+    assert code == 2 and len(err) == 1
+    assert "host 127.0.0.2" in err[0] and "No module named 'fftgauge'" in err[0] and "127.0.0.1" not in err[0]

@@ -140,8 +140,8 @@ def worker_problems(answers: dict[str, Any], workers: dict[str, str]) -> list[st
     for address, answer in sorted(answers.items()):
         where = f"host {workers.get(address, address)} (worker {address})"
         if isinstance(answer, BaseException):
-            problems.append(f"{where} cannot run fftgauge ({type(answer).__name__}: {answer}); install fftgauge "
-                            f"{__version__} there")
+            what = str(answer) if type(answer) is Exception else f"{type(answer).__name__}: {answer}"
+            problems.append(f"{where} cannot run fftgauge ({what}); install fftgauge {__version__} there")
             continue
         if answer.get("fftgauge") != __version__:
             problems.append(f"{where} has fftgauge {answer.get('fftgauge')}, this machine {__version__}")
