@@ -36,10 +36,12 @@ from typing import Any
 import numpy as np
 
 from fftgauge.backends.base import Backend, Capabilities, OptionSpec, Plan
-from fftgauge.backends.pipe_protocol import (PRECISION_BYTES, PROTOCOL_VERSION, ProgramExited, ProgramFailure,
+from fftgauge.backends.pipe_protocol import (PRECISION_BYTES, ProgramExited, ProgramFailure,
                                              ProgramStatus, ProgramTimeout, ProtocolError, encode_hello,
                                              encode_transform, one_line, payload_reals)
 from fftgauge.backends.program_connection import ProgramConnection
+from fftgauge.backends.program_shaped import ProgramShapedPlan, shaped_kinds_of, shaped_reason
+from fftgauge.harness.shapes.case import ShapeCase
 from fftgauge.harness.cases import FIXED_DTYPES, Case
 from fftgauge.harness.errors import UsageError
 from fftgauge.harness.fixed.declared import FixedScaling
@@ -251,7 +253,17 @@ class ExternalProgramBackend(Backend):
     def capabilities(self) -> Capabilities:
         h = self.hello
         return Capabilities(kinds=h.kinds, dtypes=h.dtypes, sizes="pow2" if h.pow2_only else "any",
-                            norms=h.norms, max_n=h.max_n, fixed=self.fixed)
+                            norms=h.norms, max_n=h.max_n, fixed=self.fixed, shaped_kinds=shaped_kinds_of(h))
+
+    def shaped_unsupported_reason(self, case: ShapeCase) -> str | None:
+        """The claims' reason, or that the case has more axes than the program's hello allows."""
+        return super().shaped_unsupported_reason(case) or shaped_reason(self.hello, case)
+
+    def plan_shaped(self, case: ShapeCase) -> Plan:
+        """Return a :class:`~fftgauge.backends.program_shaped.ProgramShapedPlan` (protocol version 2);
+        restarts the program first if it is not running."""
+        self.connection.ensure_running()
+        return ProgramShapedPlan(case, self.connection)
 
     def plan(self, case: Case) -> Plan:
         """Return a :class:`ProgramPlan`; restarts the program first if it is not running
@@ -302,7 +314,7 @@ class ExternalProgramBackend(Backend):
             round_trip = None
         return {
             "program": list(self.argv),
-            "protocol_version": PROTOCOL_VERSION,
+            "protocol_version": self.hello.version,  # the highest it speaks (2: shaped requests too)
             "reports_own_timing": self.reports_own_timing,
             "timing_source": "program" if self.reports_own_timing else "adapter",
             "round_trip_overhead_seconds": round_trip,

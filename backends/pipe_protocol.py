@@ -1,5 +1,10 @@
-"""The pipe protocol of ``exec:`` backends, version 1, as bytes: encoding requests and
+"""The pipe protocol of ``exec:`` backends, versions 1 and 2, as bytes: encoding requests and
 decoding responses, with no process involved (docs/external-backends.md, "The pipe protocol").
+
+Version 2 adds shaped requests (op 3: a whole array, its shape and the axes to transform) and
+nothing else. A program says it speaks version 2 in its hello answer (the record's version
+field, zero in version 1); 1-D requests stay version 1 for every program, so a version-1
+program works as before, and shaped cases are sent only to programs that declared version 2.
 
 Every header is little-endian. A request is a 32-byte :data:`REQUEST_HEADER` and its payload;
 a response a 32-byte :data:`RESPONSE_HEADER` and its payload. The answer to a hello carries a
@@ -24,11 +29,17 @@ RESPONSE_MAGIC = b"FGRS"
 REQUEST_HEADER = struct.Struct("<4sHHBBBBIQQ")
 #: magic, version, status, flags, reserved, elapsed_ns, payload_bytes
 RESPONSE_HEADER = struct.Struct("<4sHHIIQQ")
-#: kinds mask, precisions mask, norms mask, flags, reserved, max_n; the identity text follows
-HELLO_RECORD = struct.Struct("<BBBBIQ")
+#: kinds mask, precisions mask, norms mask, flags, version (0 or 1: version 1; 2: shaped
+#: requests too), shaped kinds mask, largest rank of one transform, max_n; the identity text follows
+HELLO_RECORD = struct.Struct("<BBBBHBBQ")
+#: The version of shaped requests (op 3) and of their answers.
+SHAPED_VERSION = 2
+#: One length or one axis of a shaped request's shape block.
+SHAPE_ITEM = struct.Struct("<Q")
 
 OP_HELLO = 1
 OP_TRANSFORM = 2
+OP_TRANSFORM_SHAPED = 3
 KIND_CODES = {kind: i for i, kind in enumerate(KINDS)}            # fft 0, ifft 1, rfft 2, irfft 3
 NORM_CODES = {norm: i for i, norm in enumerate(NORMS)}            # backward 0, ortho 1, forward 2
 PRECISION_BYTES = {"float32": 4, "float64": 8, "q15": 2, "q31": 4}   # bytes per real (per part: q15/q31)
@@ -81,6 +92,12 @@ class Hello:
     self_timed: bool
     max_n: int | None
     identity: str
+    #: Highest protocol version the program speaks (1 unless its hello says 2).
+    version: int = 1
+    #: Version 2: the kinds it transforms on whole arrays, by family (``fft`` also stands for
+    #: ``fftn``), and the most axes one transform may have (1: batches of 1-D transforms only).
+    shaped_kinds: tuple[str, ...] = ()
+    max_rank: int = 0
 
 
 @dataclass(frozen=True)
@@ -115,7 +132,10 @@ def decode_hello(payload: bytes) -> Hello:
     if len(payload) < HELLO_RECORD.size:
         raise ProtocolError(f"the hello answer holds {len(payload)} bytes, fewer than the "
                             f"{HELLO_RECORD.size} of its record")
-    kinds_mask, precisions_mask, norms_mask, flags, _, max_n = HELLO_RECORD.unpack_from(payload)
+    kinds_mask, precisions_mask, norms_mask, flags, version, shaped_mask, max_rank, max_n = \
+        HELLO_RECORD.unpack_from(payload)
+    version = max(1, version)
+    shaped = tuple(k for k, i in KIND_CODES.items() if shaped_mask >> i & 1) if version >= SHAPED_VERSION else ()
     kinds = tuple(k for k, i in KIND_CODES.items() if kinds_mask >> i & 1)
     dtypes = tuple(d for d, bit in PRECISION_BITS.items() if precisions_mask & bit)
     norms = tuple(m for m, i in NORM_CODES.items() if norms_mask >> i & 1) or ("backward",)
@@ -123,7 +143,23 @@ def decode_hello(payload: bytes) -> Hello:
         raise ProtocolError("the hello answer declares no transform kind or no precision")
     identity = bytes(payload[HELLO_RECORD.size:]).decode("utf-8", "replace").strip() or "unnamed program"
     return Hello(kinds, dtypes, norms, bool(flags & HELLO_FLAG_POW2), bool(flags & HELLO_FLAG_SELF_TIMED),
-                 max_n or None, identity)
+                 max_n or None, identity, version, shaped, max_rank if shaped else 0)
+
+
+def encode_shaped_transform(case: Any, data_bytes: int) -> bytes:
+    """Return the version-2 request header and shape block of a shaped ``case`` (:class:`ShapeCase`).
+
+    Header: op 3, the family's kind code (``fftn`` as ``fft``), precision, norm, the array's
+    rank in byte 11, the number of transformed axes as ``count``, ``n`` zero; the payload is the
+    shape block (the rank lengths of the logical shape, then the axes, non-negative, in order;
+    each a u64) followed by ``data_bytes`` of the array in C order.
+    """
+    shape, axes = case.shape, case.axes_normalised
+    block = b"".join(SHAPE_ITEM.pack(v) for v in (*shape, *axes))
+    header = REQUEST_HEADER.pack(REQUEST_MAGIC, SHAPED_VERSION, OP_TRANSFORM_SHAPED, KIND_CODES[case.base_kind],
+                                 PRECISION_BYTES[case.dtype], NORM_CODES[case.norm], len(shape), len(axes), 0,
+                                 len(block) + data_bytes)
+    return header + block
 
 
 def payload_reals(case: Case) -> tuple[int, int]:
@@ -159,12 +195,13 @@ def check_response_start(header: bytes | bytearray, what: str) -> None:
                             f"(it began {bytes(header[:16])!r}); is it printing text to stdout?")
 
 
-def decode_response_header(header: bytes | bytearray, what: str,
-                           expected_bytes: int | None) -> tuple[int, int | None, int]:
+def decode_response_header(header: bytes | bytearray, what: str, expected_bytes: int | None,
+                           version_asked: int = PROTOCOL_VERSION) -> tuple[int, int | None, int]:
     """Return ``(status, elapsed_ns or None, payload_bytes)`` of a complete response header.
 
     ``expected_bytes`` is the payload length a status-0 response must have; ``None`` (a
     hello answer) or a non-zero status allow a message of at most :data:`MAX_MESSAGE_BYTES`.
+    ``version_asked`` is the request's version, the one the answer must be in.
 
     Raises
     ------
@@ -172,9 +209,9 @@ def decode_response_header(header: bytes | bytearray, what: str,
         For another protocol version, an oversized message, or a payload of the wrong length.
     """
     _, version, status, flags, _, elapsed_ns, size = RESPONSE_HEADER.unpack(bytes(header))
-    if version != PROTOCOL_VERSION:
+    if version != version_asked:
         raise ProtocolError(f"program answered {what} in protocol version {version}; fftgauge speaks "
-                            f"version {PROTOCOL_VERSION}")
+                            f"version {version_asked} (the request's)")
     if status != 0 or expected_bytes is None:
         if size > MAX_MESSAGE_BYTES:
             raise ProtocolError(f"program announced a {size}-byte payload with {what} (status {status}); "

@@ -21,7 +21,7 @@ import time
 import weakref
 from typing import BinaryIO
 
-from fftgauge.backends.pipe_protocol import (RESPONSE_HEADER, Hello, ProgramExited,
+from fftgauge.backends.pipe_protocol import (PROTOCOL_VERSION, RESPONSE_HEADER, Hello, ProgramExited,
                                              ProgramFailure, ProgramTimeout, ProtocolError, Response,
                                              check_response_start, decode_hello, decode_response_header,
                                              encode_hello, one_line, status_failure)
@@ -208,11 +208,12 @@ class ProgramConnection:
 
     # -- requests -------------------------------------------------------------------------
     def request(self, header: bytes, payload: memoryview | None, expected_bytes: int | None,
-                what: str) -> Response:
+                what: str, version: int = PROTOCOL_VERSION) -> Response:
         """Send one request, return its response; start (or restart) the program if needed.
 
         ``expected_bytes`` is the payload length a status-0 response must have (``None``: a
-        message of at most :data:`MAX_MESSAGE_BYTES`, as a hello answer is).
+        message of at most :data:`MAX_MESSAGE_BYTES`, as a hello answer is); ``version`` the
+        request's protocol version, which the answer must carry (2 for shaped requests).
 
         Raises
         ------
@@ -222,21 +223,22 @@ class ProgramConnection:
         with self._lock:
             self.ensure_running()
             parts = [header] if payload is None else [header, payload]
-            response = self._exchange(parts, what, expected_bytes, self.timeout_seconds)
+            response = self._exchange(parts, what, expected_bytes, self.timeout_seconds, version)
             if response.status != 0:
                 raise status_failure(response.status, response.payload, what)
             return response
 
-    def _exchange(self, parts: list, what: str, expected_bytes: int | None, timeout_seconds: float) -> Response:
-        """Write ``parts`` and read one response, both before a deadline; kill on failure."""
+    def _exchange(self, parts: list, what: str, expected_bytes: int | None, timeout_seconds: float,
+                  version: int = PROTOCOL_VERSION) -> Response:
+        """Write ``parts`` and read one response (in ``version``), both before a deadline; kill on failure."""
         try:
-            return self._exchange_or_raise(parts, what, expected_bytes, timeout_seconds)
+            return self._exchange_or_raise(parts, what, expected_bytes, timeout_seconds, version)
         except ProgramFailure:
             self.kill()
             raise
 
     def _exchange_or_raise(self, parts: list, what: str, expected_bytes: int | None,
-                           timeout_seconds: float) -> Response:
+                           timeout_seconds: float, version: int = PROTOCOL_VERSION) -> Response:
         proc = self._proc
         assert proc is not None and proc.stdin is not None and proc.stdout is not None
         deadline = time.monotonic() + timeout_seconds
@@ -276,7 +278,7 @@ class ProgramConnection:
                         check_response_start(header, what)
                         if len(header) < RESPONSE_HEADER.size:
                             continue
-                        status, elapsed_ns, size = decode_response_header(header, what, expected_bytes)
+                        status, elapsed_ns, size = decode_response_header(header, what, expected_bytes, version)
                         payload = bytearray(size)
                         if size == 0:
                             return Response(status, elapsed_ns, payload)

@@ -14,6 +14,10 @@ three plan functions. Options:
   ``plan``: ``void *PREFIX_plan(size_t n, int sign)``,
   ``int PREFIX_execute(void *plan, const T *in, T *out)``, ``void PREFIX_destroy(void *plan)``
   (``plan=``, ``execute=``, ``destroy=`` name any of the three explicitly);
+  ``many``: ``int SYMBOL(int rank, const size_t *n, size_t howmany, const T *in, ptrdiff_t
+  istride, ptrdiff_t idist, T *out, ptrdiff_t ostride, ptrdiff_t odist, int sign)``, batched
+  and N-D transforms with strides (:mod:`fftgauge.backends.shared_library_many`; it also
+  serves the 1-D cases as rank 1, one transform);
 - ``kind``    the transform: ``fft`` (default), ``ifft``, ``rfft``, ``irfft``; with
   ``shape=plan`` also ``fft+ifft`` or ``rfft+irfft`` (``sign`` -1 for the forward kind,
   +1 for the inverse one);
@@ -49,6 +53,8 @@ from fftgauge.harness.cases import FIXED_DTYPES, KINDS, NORMS, Case
 from fftgauge.harness.errors import BackendFailure, UsageError
 from fftgauge.harness.fixed.declared import FixedScaling
 from fftgauge.harness.fixed.formats import ROUNDINGS
+from fftgauge.harness.shapes.case import ShapeCase, family_kind
+from fftgauge.backends.shared_library_many import MANY_ARGTYPES, ManyPlan
 
 SCHEME = "clib"
 
@@ -249,7 +255,8 @@ class SharedLibraryBackend(Backend):
     #: The program does not time itself: timings are the adapter's, foreign call included.
     reports_own_timing = False
     options = {
-        "shape": OptionSpec(str, "oneshot", "calling shape: oneshot or plan", choices=("oneshot", "plan")),
+        "shape": OptionSpec(str, "oneshot", "calling shape: oneshot, plan or many (batched and N-D, with strides)",
+                            choices=("oneshot", "plan", "many")),
         "kind": OptionSpec(str, "fft", "the transform: fft, ifft, rfft, irfft (plan: fft+ifft, rfft+irfft)"),
         "dtype": OptionSpec(str, "float64", "precision of T: float32 (float), float64 (double), "
                                             "longdouble (long double), q15 (int16_t), q31 (int32_t)",
@@ -290,7 +297,9 @@ class SharedLibraryBackend(Backend):
         self._lib, self._full_path = load_library(spec, path)
         self._version: str | None = None
         self._overhead: tuple[float | None, str] | None = None
-        if self.shape == "oneshot":
+        if self.shape == "many":
+            self._many = many_function(spec, self._lib, path, symbol, o)
+        elif self.shape == "oneshot":
             unknown = [k for k in ("plan", "execute", "destroy") if o[k]]
             if unknown:
                 raise UsageError(f"backend {spec!r}: option {unknown[0]}= needs shape=plan")
@@ -338,9 +347,10 @@ class SharedLibraryBackend(Backend):
 
     def capabilities(self) -> Capabilities:
         o = self.opts
+        shaped = tuple(dict.fromkeys(k for kind in self.kinds for k in (kind, family_kind(kind, 2))))
         return Capabilities(kinds=self.kinds, dtypes=(o["dtype"],), sizes=o["sizes"], norms=(o["norm"],),
                             min_n=o["min_n"], max_n=o["max_n"] or None, separate_planning=self.shape == "plan",
-                            fixed=self.fixed)
+                            fixed=self.fixed, shaped_kinds=shaped if self.shape == "many" else ())
 
     def plan(self, case: Case) -> Plan:
         """Return a plan for ``case``; with ``shape=plan`` this calls the C plan function.
@@ -350,6 +360,8 @@ class SharedLibraryBackend(Backend):
         ForeignCallError
             When the C plan function returns NULL.
         """
+        if self.shape == "many":
+            return ManyPlan(case, self._many, self.symbol, sign_of(case.kind))
         if self.shape == "oneshot":
             return OneShotPlan(case, self._oneshot, self.symbol)
         sign = sign_of(case.kind)
@@ -358,6 +370,11 @@ class SharedLibraryBackend(Backend):
             raise ForeignCallError(f"{self.plan_symbols['plan']}({case.n}, {sign}) returned NULL for "
                                    f"{case.label()}")
         return HandlePlan(case, self._execute_fn, self._destroy_fn, handle, self.plan_symbols["execute"])
+
+    def plan_shaped(self, case: ShapeCase) -> Plan:
+        """Return the many shape's plan of a batched or N-D ``case`` (``shape=many`` only; the
+        engine asks only for cases the capabilities claim)."""
+        return ManyPlan(case, self._many, self.symbol, sign_of(case.base_kind))
 
     def call_overhead_seconds(self) -> float | None:
         """Return the median seconds one call through the adapter costs beyond the C work.
@@ -423,11 +440,28 @@ class SharedLibraryBackend(Backend):
         return {
             "library": self._full_path or self.path,
             "shape": self.shape,
-            "symbols": dict(self.plan_symbols) if self.shape == "plan" else {"oneshot": self.symbol},
+            "symbols": (dict(self.plan_symbols) if self.shape == "plan"
+                        else {self.shape: self.symbol}),
             "reports_own_timing": False,
             "call_overhead_seconds": self.call_overhead_seconds() if self._noop is not None else None,
             "call_overhead_method": self.call_overhead_method,
         }
+
+
+def many_function(spec: str, lib: ctypes.CDLL, path: str, symbol: str, opts: dict[str, Any]) -> Any:
+    """Return the ctypes function of a ``shape=many`` SPEC with its prototype set.
+
+    Raises
+    ------
+    UsageError
+        For a fixed-point ``dtype``, a plan-shape option, or a missing symbol.
+    """
+    if opts["dtype"] in FIXED_DTYPES:
+        raise UsageError(f"backend {spec!r}: shape=many takes float32, float64 or longdouble (dtype={opts['dtype']})")
+    unknown = [k for k in ("plan", "execute", "destroy", "noop") if opts[k]]
+    if unknown:
+        raise UsageError(f"backend {spec!r}: option {unknown[0]}= does not go with shape=many")
+    return _declare(find_symbol(spec, lib, path, symbol), ctypes.c_int, *MANY_ARGTYPES)
 
 
 def parse_target(spec: str, body: str) -> tuple[str, str]:

@@ -23,7 +23,14 @@ C_TARGETS = {"libradix2.so": ("-fPIC", "-shared"), "libradix2_broken.so": ("-DMI
              "radix2_server": (), "radix2_server_broken": ("-DMISSING_BITREVERSAL",),
              # Q15 (radix2_q15.c), broken with -DMISSING_SATURATION
              "libradix2_q15.so": ("-fPIC", "-shared"), "libradix2_q15_broken.so": ("-DMISSING_SATURATION", "-fPIC", "-shared"),
-             "radix2_q15_server": (), "radix2_q15_server_broken": ("-DMISSING_SATURATION",)}
+             "radix2_q15_server": (), "radix2_q15_server_broken": ("-DMISSING_SATURATION",),
+             # the batched and N-D shape (radix2_many.c), its leaking twin (-DLEAKING_BATCH), the version-2 server
+             "libradix2_many.so": ("-fPIC", "-shared"), "libradix2_many_leaking.so": ("-DLEAKING_BATCH", "-fPIC", "-shared"),
+             "radix2_shaped_server": ()}
+#: Sources of the targets that are not radix2.c (with its server) or radix2_q15.c (without make).
+C_MANY_SOURCES = {"libradix2_many.so": ("radix2_many.c", "radix2.c"),
+                  "libradix2_many_leaking.so": ("radix2_many.c", "radix2.c"),
+                  "radix2_shaped_server": ("radix2_shaped_server.c", "radix2_many.c", "radix2.c")}
 
 
 def c_compiler() -> str | None:
@@ -53,6 +60,8 @@ def c_example_build(tmp_path_factory: pytest.TempPathFactory) -> Path:
         sources = [str(C_EXAMPLE / ("radix2_q15.c" if "q15" in target else "radix2.c"))]
         if "server" in target:
             sources.insert(0, str(C_EXAMPLE / ("radix2_q15_server.c" if "q15" in target else "radix2_server.c")))
+        if target in C_MANY_SOURCES:
+            sources = [str(C_EXAMPLE / name) for name in C_MANY_SOURCES[target]]
         subprocess.run([cc, "-O2", "-std=c99", *flags, "-o", str(build / target), *sources, "-lm"],
                        check=True, capture_output=True, timeout=120)
     return build
