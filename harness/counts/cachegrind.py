@@ -8,11 +8,15 @@ count wander between identical runs is pinned down (:func:`run_environment`): th
 more), single-threaded BLAS/OpenMP pools (idle worker threads spin), no working directory on the import
 path (its listing changes between runs, and the interpreter would read it; the driver drops
 its own folder too), no user site (``-s``), every module compiled before the counted runs into a
-bytecode cache of the count's own (:func:`prime`; a source file edited while a case is
-counted is still compiled in the runs after the edit, and the repeats' spread shows it),
-and address-space randomisation switched off with ``setarch -R`` where the machine allows it.
-Measured on the development machine (Python 3.11, numpy 2, valgrind 3.19): identical runs
-differ by a few thousand instructions, against about 1.57e5 per numpy transform of n = 1024.
+bytecode cache of the count's own and frozen there (:func:`prime`, :func:`freeze_bytecode`: a
+source file edited while a case is counted no longer changes the runs after the edit), the
+operating system's entropy replaced by a seeded stream in the driver
+(:func:`fftgauge.harness.counts.driver.pin_entropy`), and address-space randomisation switched
+off with ``setarch -R`` where the machine allows it.
+Measured on the development machine (Python 3.11, numpy 2.4, valgrind 3.19): with the entropy
+pinned, fresh runs of the same count give the same total to the instruction (3 of 3, spread 0;
+651,489,420-651,493,908 before, from the entropy-seeded start-up), and the same per-transform
+count with 1 or 100 bytes more environment, another bytecode cache path, or randomisation on.
 
 Cachegrind's output file holds an ``events:`` line naming the counted events and a
 ``summary:`` line with their totals (:func:`parse_counts`); with ``--cache-sim=yes`` the
@@ -199,7 +203,8 @@ def prime(spec: str, case: Case, seed: int, threads: int = 1, timeout: float = 1
     """Run the driver once without valgrind, bytecode writing allowed: every module the counted
     runs import is then compiled already (a module compiled in one counted run and read from
     its cache in the next would count differently), and a backend that fails is found in
-    seconds, not minutes.
+    seconds, not minutes. With ``pycache``, that cache is then frozen (:func:`freeze_bytecode`):
+    the counted runs use the code as it was compiled here, whatever is edited afterwards.
 
     Raises
     ------
@@ -216,6 +221,43 @@ def prime(spec: str, case: Case, seed: int, threads: int = 1, timeout: float = 1
         raise BackendFailure(f"one transform took more than {timeout:g} s without valgrind (--timeout)") from None
     if done.returncode != 0:
         raise BackendFailure(failure_line(done.stderr, done.returncode).replace("under valgrind", "without valgrind"))
+    if pycache is not None:
+        freeze_bytecode(pycache)
+
+
+#: Flags of a PEP 552 bytecode header saying "hash-based, source not checked".
+UNCHECKED_HASH_FLAGS = (1).to_bytes(4, "little")
+
+
+def freeze_bytecode(folder: str) -> int:
+    """Rewrite every timestamp-based ``.pyc`` under ``folder`` as an unchecked hash-based one
+    (PEP 552: the same magic and code, flags ``0b01``, the 8 bytes of mtime and size kept as the
+    unchecked hash); return how many were rewritten.
+
+    The interpreter then loads the code compiled by :func:`prime` without looking at the
+    source: a module edited between the first counted run and the last (a shared working tree,
+    an editor saving) no longer makes one run compile it and count millions of instructions
+    more than the others.
+    """
+    import importlib.util
+
+    rewritten = 0
+    for root, _, files in os.walk(folder):
+        for name in files:
+            if not name.endswith(".pyc"):
+                continue
+            path = os.path.join(root, name)
+            try:
+                with open(path, "rb") as fh:
+                    data = fh.read()
+                if len(data) < 16 or data[:4] != importlib.util.MAGIC_NUMBER or data[4:8] != bytes(4):
+                    continue
+                with open(path, "wb") as fh:
+                    fh.write(data[:4] + UNCHECKED_HASH_FLAGS + data[8:])
+                rewritten += 1
+            except OSError:
+                continue
+    return rewritten
 
 
 @dataclass(frozen=True)

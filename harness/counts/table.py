@@ -3,6 +3,7 @@ counted under cachegrind (:func:`add_counts`) beside its time, and the table tha
 against the N log2 N model (:func:`counts_table`).
 
 Per row: ``instructions`` (median per transform over the repeats), ``instructions_spread``,
+``instructions_repeats`` (per repeat; a stored-mode count gate pools them),
 ``instructions_per_point`` (per input point, ``instructions / n``),
 ``instructions_per_nlogn`` (per ``n log2 n``: flat across sizes for an O(N log N) transform,
 the model of :mod:`fftgauge.harness.timing.opcount`) and ``ns_per_instruction`` (the median
@@ -35,6 +36,7 @@ def add_counts(doc: dict[str, Any], threads: int = 1, timeout: float = 120.0, se
         When valgrind is not installed (the install line).
     """
     from fftgauge.harness.counts.cachegrind import default_calls, require_valgrind
+    from fftgauge.harness.counts.fingerprint import count_fingerprint
     from fftgauge.harness.counts.measure import count_sides
 
     valgrind = require_valgrind()
@@ -56,9 +58,11 @@ def add_counts(doc: dict[str, Any], threads: int = 1, timeout: float = 120.0, se
         nlogn = case.n * max(1.0, math.log2(case.n))
         seconds = row.get("seconds")
         row.update(instructions=got.median, instructions_spread=got.spread,
+                   instructions_repeats=list(got.instructions),
                    instructions_per_point=got.median / case.n, instructions_per_nlogn=got.median / nlogn,
                    ns_per_instruction=None if seconds is None else seconds * 1e9 / got.median)
-    doc["counting"] = {"tool": "cachegrind", "repeats": TIME_COUNT_REPEATS}
+    doc["counting"] = {"tool": "cachegrind", "repeats": TIME_COUNT_REPEATS,
+                       "fingerprint": count_fingerprint(valgrind)}
 
 
 def counts_table(rows: list[dict[str, Any]]) -> str:

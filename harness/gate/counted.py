@@ -3,9 +3,13 @@ valgrind's cachegrind (:mod:`fftgauge.harness.counts`), the ratio new/old with i
 and the verdicts by the timing modes' rule (:func:`fftgauge.harness.gate.decision.decide`:
 Holm across the cases, the threshold on the ratio).
 
-A/B mode counts both sides of every case, record mode the candidates alone. Backends are
-loaded in this process only to read their label and claims (:class:`CountSampler`); every
-count is made in fresh processes under valgrind.
+A/B mode counts both sides of every case, record mode the candidates alone; stored mode counts
+the candidates and compares them with the stored counts pooled over the last K usable runs
+(:func:`fftgauge.harness.gate.counted_baseline.stored_counts`); referenced mode counts both
+sides and compares this run's A/B count ratio with the stored A/B count ratios
+(:func:`fftgauge.harness.gate.estimates.estimate_referenced`). Backends are loaded in this
+process only to read their label and claims (:class:`CountSampler`); every count is made in
+fresh processes under valgrind.
 """
 
 from __future__ import annotations
@@ -80,6 +84,8 @@ def count_items(items: Sequence[GateItem], sampler: CountSampler, req: GateReque
     from fftgauge.harness.counts.cachegrind import default_calls, require_valgrind
     from fftgauge.harness.counts.measure import count_sides
     from fftgauge.harness.execution.dispatch import Progress
+    from fftgauge.harness.gate.counted_baseline import stored_counts
+    from fftgauge.harness.gate.estimates import estimate_referenced
 
     s = req.settings
     valgrind = require_valgrind()
@@ -99,13 +105,19 @@ def count_items(items: Sequence[GateItem], sampler: CountSampler, req: GateReque
                 progress.advance(note=it.case.label())
                 continue
             it.counts = {"new": got[it.new_key], "old": got.get(it.old_key) if it.old_key else None}
+            if req.mode == "stored":
+                it.counts["old"], it.counts["stored_runs"] = stored_counts(req.stored_runs, it.baseline_backend,
+                                                                           it.case)
             wander = max(c.spread for c in got.values())
             if wander > s.threshold / 4:
                 it.message = (f"the counts wandered by {wander * 100:.2g}% between repeats (more than a quarter "
                               f"of the threshold): something changed between runs (a source file edited, a "
                               f"backend that reads the clock or spawns threads)")
-            if it.old_key:
+            if it.counts["old"] is not None:
                 it.estimate = count_estimate(it.counts["new"], it.counts["old"], s.confidence)
+                if req.mode == "referenced":
+                    it.ab_estimate = it.estimate
+                    it.estimate = estimate_referenced(it.ab_estimate, it.baseline, s.confidence)
                 it.conclusive = is_conclusive(it.estimate, s.threshold)
             else:
                 it.conclusive = True
@@ -124,14 +136,34 @@ def count_fields(it: GateItem) -> dict[str, Any]:
     transform), ``instructions_spread`` (its repeats' (largest - smallest) / median),
     ``baseline_instructions`` and ``baseline_instructions_spread`` (the old side, A/B mode),
     ``ll_misses``/``baseline_ll_misses`` (simulated last-level misses per transform, with
-    ``--cache-sim``), ``count_transforms`` (K) and ``count_repeats``."""
+    ``--cache-sim``), ``count_transforms`` (K), ``count_repeats``, ``instructions_repeats`` and
+    ``baseline_instructions_repeats`` (per repeat); in stored mode the old side is the stored
+    counts and ``baseline_runs`` the stored runs holding the case."""
     if not it.counts:
         return {}
     new, old = it.counts["new"], it.counts.get("old")
     out = {"instructions": new.median, "instructions_spread": new.spread, "ll_misses": new.ll_median,
            "count_transforms": new.calls, "count_repeats": len(new.instructions),
+           "instructions_repeats": list(new.instructions),
            "sampling_seconds": new.seconds + (old.seconds if old else 0.0)}
     if old is not None:
         out.update(baseline_instructions=old.median, baseline_instructions_spread=old.spread,
-                   baseline_ll_misses=old.ll_median)
+                   baseline_ll_misses=old.ll_median, baseline_instructions_repeats=list(old.instructions))
+    if it.counts.get("stored_runs") is not None:
+        out["baseline_runs"] = it.counts["stored_runs"]
     return out
+
+
+def record_fingerprint(doc: dict[str, Any]) -> None:
+    """Add this run's count fingerprint (:func:`fftgauge.harness.counts.fingerprint.count_fingerprint`)
+    to the document's ``counting`` record, in place.
+
+    Raises
+    ------
+    UsageError
+        When valgrind is missing or the interpreter does not run under it.
+    """
+    from fftgauge.harness.counts.cachegrind import require_valgrind
+    from fftgauge.harness.counts.fingerprint import count_fingerprint
+
+    doc.setdefault("counting", {})["fingerprint"] = count_fingerprint(require_valgrind())

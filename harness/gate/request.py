@@ -175,8 +175,8 @@ def check_metric(metric: str, mode: str, accuracy: bool, repeats: int, transform
     Raises
     ------
     UsageError
-        For an unknown metric, counting options without ``--metric instructions``, a mode or
-        option counts do not support yet, or valgrind missing (with the install line).
+        For an unknown metric, counting options without ``--metric instructions``, an option
+        counts do not support (``--accuracy``), or valgrind missing (with the install line).
     """
     if metric not in METRICS:
         raise UsageError(f"--metric {metric!r}: expected one of {', '.join(METRICS)}")
@@ -184,9 +184,6 @@ def check_metric(metric: str, mode: str, accuracy: bool, repeats: int, transform
         if cache_sim or transforms is not None or repeats != DEFAULT_COUNT_REPEATS:
             raise UsageError("--count-repeats, --count-transforms and --cache-sim go with --metric instructions")
         return
-    if mode not in ("ab", "record"):
-        raise UsageError("--metric instructions compares two sides counted in this run (--old SPEC --new SPEC) "
-                         "or records counts (--backend SPEC --save DIR); stored baselines are compared by time only")
     if accuracy:
         raise UsageError("--accuracy goes with --metric time (run the battery in a gate of its own)")
     if repeats < 2:
@@ -276,7 +273,13 @@ def build_request(*, old: str | None = None, new: str | None = None, backends: S
     warnings: list[str] = []
     notes: list[str] = []
     specs = backends
-    if mode in ("stored", "referenced"):
+    if mode in ("stored", "referenced") and metric == "instructions":  # by the count fingerprint
+        from fftgauge.harness.counts.cachegrind import require_valgrind
+        from fftgauge.harness.counts.fingerprint import count_fingerprint
+        from fftgauge.harness.gate.counted_baseline import load_count_runs
+        runs, warnings, notes = load_count_runs(baseline, last, allow_other_machine,
+                                                count_fingerprint(require_valgrind()))
+    elif mode in ("stored", "referenced"):
         runs, warnings, notes = load_stored_runs(baseline, last, allow_other_machine)
     if mode == "stored":
         specs = specs or default_specs_of(runs)

@@ -120,7 +120,7 @@ def build_items(req: GateRequest, sampler: Any, doc: dict[str, Any]) -> list[Gat
                 it.status = "skip"
                 it.message = (f"in the baseline but no longer supported: {reasons[case]}" if req.mode == "stored"
                               else reasons[case])
-            elif req.mode == "stored":
+            elif req.mode == "stored" and req.settings.metric != "instructions":  # stored counts: gate.counted
                 raw, corrected, acc = baseline_for(req.stored_runs, base_label, case, req.settings.confidence)
                 it.baseline_raw, it.baseline, it.baseline_accuracy = raw, corrected or raw, acc
             items.append(it)
@@ -311,11 +311,12 @@ def run_gate(req: GateRequest, doc: dict[str, Any] | None = None, quiet: bool = 
 
 def _count_gate(req: GateRequest, doc: dict[str, Any], quiet: bool) -> dict[str, Any]:
     """Run the gate on instruction counts (:mod:`fftgauge.harness.gate.counted`); fill ``doc`` as :func:`run_gate`."""
-    from fftgauge.harness.gate.counted import CountSampler, count_items
+    from fftgauge.harness.gate.counted import CountSampler, count_items, record_fingerprint
 
     items: list[GateItem] = []
     started = time.monotonic()
     try:
+        record_fingerprint(doc)
         sampler = CountSampler(req)
         items.extend(build_items(req, sampler, doc))
         count_items(items, sampler, req, quiet=quiet)
