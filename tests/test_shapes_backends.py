@@ -122,3 +122,79 @@ def test_reference_backends_claim_small_shapes_only():
     direct = load_backend("direct")
     assert direct.shaped_unsupported_reason(ShapeCase("rfftn", "float64", (256, 256), (0, 1))) is None
     assert "points" in direct.shaped_unsupported_reason(ShapeCase("rfftn", "float64", (512, 256), (0, 1)))
+
+
+USER_CODE = '''
+import numpy as np
+
+def whole_fftn(x, axes):
+    return np.fft.fftn(x, axes=axes)
+
+def whole_ifftn(x, axes):
+    return np.fft.ifftn(x, axes=axes)
+
+def whole_rfftn(x, axes):
+    return np.fft.rfftn(x, axes=axes)
+
+def whole_irfftn(x, axes, s):
+    return np.fft.irfftn(x, s=s, axes=axes)
+
+def transposed_fftn(x, axes):
+    return np.fft.fftn(x, axes=axes).T
+
+def one_d_fft(x):
+    return np.fft.fft(x)
+'''
+
+
+@pytest.fixture()
+def user_file(tmp_path):
+    path = tmp_path / "camera_fft.py"
+    path.write_text(USER_CODE)
+    return path
+
+
+@pytest.mark.parametrize("pair,kinds", [("whole_fftn+whole_ifftn[kind=fftn]", ("fft", "ifft", "fftn", "ifftn")),
+                                        ("whole_rfftn+whole_irfftn[kind=rfftn]", ("rfft", "irfft", "rfftn", "irfftn")),
+                                        ("whole_irfftn[kind=irfftn]", ("irfft", "irfftn"))])
+def test_user_array_functions_are_called_with_the_axes(user_file, pair, kinds, monkeypatch):
+    """kind=fftn...: f(x, axes) (f(X, axes, s) for irfftn) serves shaped and 1-D cases of its family."""
+    monkeypatch.syspath_prepend(str(user_file.parent))
+    for spec in (f"{user_file}:{pair}", f"camera_fft:{pair}"):  # a file SPEC and a module SPEC
+        backend = load_backend(spec)
+        caps = backend.capabilities()
+        assert set(caps.shaped_kinds) == set(kinds)
+        assert set(caps.kinds) == {k for k in kinds if k in ONE_AXIS_KINDS}
+        for kind in caps.shaped_kinds:
+            shapes = MANY if kind in MANY_AXIS_KINDS else ONE
+            for shape, axes in shapes:
+                for layout in ("C", "F", "strided"):
+                    case = ShapeCase(kind, "float64", shape, axes, layout)
+                    assert backend.shaped_unsupported_reason(case) is None
+                    assert _check(backend, case) <= 1.0, f"{spec} {case.label()}"
+            assert "norm=ortho" in backend.shaped_unsupported_reason(ShapeCase(kind, "float64", (4, 4), (0, 1)
+                                                                                if kind in MANY_AXIS_KINDS else (0,),
+                                                                                norm="ortho"))
+        from fftgauge.harness.cases import Case
+        from fftgauge.harness.battery.reference import reference_transform
+        for kind in caps.kinds:  # the 1-D battery's cases, through axes = (0,)
+            case = Case(kind, "float64", 12)
+            x = np.random.default_rng(3).standard_normal(case.input_length) + (0 if kind == "rfft" else 0.5j)
+            x = x.astype(case.input_dtype)
+            plan = backend.plan(case)
+            assert reference_transform(x, case).relative_error(plan.execute(plan.prepare(x))) < 1e-14
+
+
+def test_a_wrong_shape_from_a_user_function_is_passed_on(user_file):
+    """The plan does not judge: a transposed output comes back transposed (the checks' `shape` row)."""
+    backend = load_backend(f"{user_file}:transposed_fftn[kind=fftn]")
+    case = ShapeCase("fftn", "float64", (4, 6), (0, 1))
+    plan = backend.plan_shaped(case)
+    x = np.ones(case.input_shape, complex)
+    assert plan.execute(plan.prepare(x)).shape == (6, 4)
+
+
+def test_a_one_d_user_function_claims_no_shapes(user_file):
+    backend = load_backend(f"{user_file}:one_d_fft")
+    assert backend.capabilities().shaped_kinds == ()
+    assert "1-D array only" in backend.shaped_unsupported_reason(ShapeCase("fft", "float64", (4, 6), (0,)))
