@@ -55,7 +55,7 @@ import numpy as np
 from fftgauge.harness.battery.double_double import double_double_transform
 from fftgauge.harness.battery.mpmath_engine import mpmath_transform
 from fftgauge.harness.cases import Case
-from fftgauge.harness.dft import WIDE_COMPLEX, clean_half_spectrum, machine_epsilon
+from fftgauge.harness.dft import WIDE_COMPLEX, clean_half_spectrum, machine_epsilon, real_bins
 
 #: ``Reference.method`` of the scipy-on-``clongdouble`` method.
 METHOD_LONGDOUBLE = "scipy.fft clongdouble"
@@ -271,3 +271,38 @@ def _via_longdouble(x: np.ndarray, case: Case) -> tuple[np.ndarray, np.ndarray]:
     hi = y.astype(np.complex128)
     lo = (y - hi).astype(np.complex128)
     return hi, lo
+
+
+# -- scipy along several axes (the shaped ground truth's passes) ---------------------------
+
+def scipy_axis_passes(x: np.ndarray, base_kind: str, axes: tuple[int, ...], lengths: tuple[int, ...], norm: str,
+                      wide: np.dtype) -> np.ndarray:
+    """Return the separable transform of ``x`` by scipy.fft's 1-D passes in the complex dtype ``wide``.
+
+    ``base_kind`` is the 1-D family (``fft``, ``ifft``, ``rfft``, ``irfft``) over the
+    non-negative ``axes`` with ``lengths``: the real forward kind runs its real FFT along the
+    last axis first, the real inverse its complex inverses first and the real inverse along
+    the last axis at the end, whose ignored imaginary parts (DC, even Nyquist) are zeroed
+    first (numpy's and the array API standard's rfftn/irfftn). Used by
+    :mod:`fftgauge.harness.shapes.reference`; kept here, the one module of the engine that
+    computes a DFT with a library.
+    """
+    import scipy.fft
+
+    real_wide = np.empty(0, wide).real.dtype
+    if base_kind == "rfft":
+        y = scipy.fft.rfft(np.real(x).astype(real_wide), n=lengths[-1], axis=axes[-1], norm=norm)
+        if len(axes) > 1:
+            y = scipy.fft.fftn(y, s=lengths[:-1], axes=axes[:-1], norm=norm, overwrite_x=True)
+        return y
+    y = np.array(x, dtype=wide, order="C")
+    if base_kind == "irfft":
+        if len(axes) > 1:
+            y = scipy.fft.ifftn(y, s=lengths[:-1], axes=axes[:-1], norm=norm, overwrite_x=True)
+        for k in real_bins(lengths[-1]):
+            index = [slice(None)] * y.ndim
+            index[axes[-1]] = k
+            y[tuple(index)] = y[tuple(index)].real
+        return scipy.fft.irfft(y, n=lengths[-1], axis=axes[-1], norm=norm, overwrite_x=True)
+    fn = scipy.fft.ifftn if base_kind == "ifft" else scipy.fft.fftn
+    return fn(y, s=lengths, axes=axes, norm=norm, overwrite_x=True)

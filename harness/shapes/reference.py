@@ -41,9 +41,8 @@ import numpy as np
 
 from fftgauge.harness.battery.double_double import DDArray, double_double_pair_transform
 from fftgauge.harness.battery.reference import (LONGDOUBLE_IS_EXTENDED, METHOD_DOUBLE, METHOD_DOUBLE_DOUBLE,
-                                                METHOD_LONGDOUBLE, Reference)
+                                                METHOD_LONGDOUBLE, Reference, scipy_axis_passes)
 from fftgauge.harness.cases import Case
-from fftgauge.harness.dft import real_bins
 from fftgauge.harness.shapes.case import ShapeCase
 
 __all__ = ["SHAPED_METHOD_CHOICES", "shaped_reference", "shaped_reference_method"]
@@ -115,38 +114,9 @@ def _choose(case: ShapeCase, method: str) -> str:
     return shaped_reference_method(case.dtype) if method == "auto" else method
 
 
-def _other_axes(case: ShapeCase) -> tuple[int, ...]:
-    return case.axes_normalised[:-1]
-
-
-def _clean_along(z: np.ndarray, axis: int, n: int) -> None:
-    """Zero, in place, the imaginary parts a real inverse of length ``n`` along ``axis`` ignores."""
-    for k in real_bins(n):
-        index = [slice(None)] * z.ndim
-        index[axis] = k
-        z[tuple(index)] = z[tuple(index)].real
-
-
 def _via_scipy(x: np.ndarray, case: ShapeCase, wide) -> tuple[np.ndarray, np.ndarray]:
     """Return (hi, lo) of the transform by scipy.fft's 1-D passes in ``wide`` (complex128 or clongdouble)."""
-    import scipy.fft  # the ground truth is the one place the engine computes a DFT
-
-    wide = np.dtype(wide)
-    real_wide = np.empty(0, wide).real.dtype
-    axes, lengths, norm = case.axes_normalised, case.lengths, case.norm
-    if case.base_kind == "rfft":
-        y = scipy.fft.rfft(np.real(x).astype(real_wide), n=lengths[-1], axis=axes[-1], norm=norm)
-        if len(axes) > 1:
-            y = scipy.fft.fftn(y, s=lengths[:-1], axes=axes[:-1], norm=norm, overwrite_x=True)
-    elif case.base_kind == "irfft":
-        y = np.array(x, dtype=wide, order="C")
-        if len(axes) > 1:
-            y = scipy.fft.ifftn(y, s=lengths[:-1], axes=axes[:-1], norm=norm, overwrite_x=True)
-        _clean_along(y, axes[-1], lengths[-1])
-        y = scipy.fft.irfft(y, n=lengths[-1], axis=axes[-1], norm=norm, overwrite_x=True)
-    else:
-        fn = scipy.fft.ifftn if case.is_inverse else scipy.fft.fftn
-        y = fn(np.array(x, dtype=wide, order="C"), s=lengths, axes=axes, norm=norm, overwrite_x=True)
+    y = scipy_axis_passes(x, case.base_kind, case.axes_normalised, case.lengths, case.norm, np.dtype(wide))
     return _split(np.ascontiguousarray(y))
 
 
