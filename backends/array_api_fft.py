@@ -23,6 +23,7 @@ import numpy as np
 from fftgauge.backends.base import Backend, Capabilities, OptionSpec, Plan
 from fftgauge.backends.user_code import import_module
 from fftgauge.harness.cases import KINDS, Case
+from fftgauge.harness.shapes.case import ONE_AXIS_KINDS, SHAPE_KINDS, ShapeCase
 from fftgauge.harness.errors import UsageError
 
 #: fftgauge precision -> the array API standard's (real, complex) dtype names.
@@ -64,6 +65,21 @@ class ArrayApiPlan(Plan):
         if type(x) is not self._array_type:
             x = self.prepare(x)
         return to_numpy(self._fn(x, **self._kwargs))
+
+
+class ArrayApiShapedPlan(ArrayApiPlan):
+    """A call of ``xp.fft.<kind>`` on a whole array: ``n``/``axis`` for a batch, ``s``/``axes`` for
+    several axes. The input becomes the namespace's array in :meth:`prepare` (its memory
+    layout is then the namespace's business)."""
+
+    def __init__(self, case: ShapeCase, xp: Any, fn: Any, array_type: type):
+        Plan.__init__(self, case)  # type: ignore[arg-type]
+        self._xp, self._fn, self._array_type = xp, fn, array_type
+        if case.kind in ONE_AXIS_KINDS:
+            self._kwargs = {"n": case.lengths[0], "axis": case.axes[0], "norm": case.norm}
+        else:
+            self._kwargs = {"s": tuple(case.lengths), "axes": tuple(case.axes), "norm": case.norm}
+        self._dtype = getattr(xp, STANDARD_DTYPES[case.dtype][0 if case.base_kind == "rfft" else 1])
 
 
 class ArrayApiBackend(Backend):
@@ -126,10 +142,30 @@ class ArrayApiBackend(Backend):
         dtypes = tuple(d for d in STANDARD_DTYPES if any((k, d) in works for k in KINDS))
         return kinds, dtypes
 
+    def probe_shaped(self, kind: str, dtype: str) -> bool:
+        """Return True when ``xp.fft.<kind>`` transforms a 4x8 input in ``dtype`` (along axis 0, or over both axes)."""
+        fn = getattr(self.xp.fft, kind, None)
+        if fn is None or not all(hasattr(self.xp, name) for name in STANDARD_DTYPES[dtype]):
+            return False
+        case = ShapeCase(kind, dtype, (4, PROBE_N), (0,) if kind in ONE_AXIS_KINDS else (0, 1))
+        try:
+            plan = ArrayApiShapedPlan(case, self.xp, fn, self.array_type)
+            y = plan.execute(plan.prepare(np.ones(case.input_shape, dtype=case.input_dtype)))
+        except Exception:  # noqa: BLE001 - any failure means the kind is not claimed on arrays
+            return False
+        return y.shape == case.output_shape
+
+    @cached_property
+    def shaped_claimed(self) -> tuple[str, ...]:
+        """Return the shaped kinds that work in every precision the 1-D probes found."""
+        dtypes = self.claimed[1]
+        return tuple(k for k in SHAPE_KINDS if dtypes and all(self.probe_shaped(k, d) for d in dtypes))
+
     def capabilities(self) -> Capabilities:
-        """The kinds and precisions the probes found (at load time), the standard's three norms, any size."""
+        """The kinds and precisions the probes found (at load time), the standard's three norms, any size;
+        the shaped kinds whose probes on a 4x8 array worked."""
         kinds, dtypes = self.claimed
-        return Capabilities(kinds=kinds, dtypes=dtypes)
+        return Capabilities(kinds=kinds, dtypes=dtypes, shaped_kinds=self.shaped_claimed)
 
     def details(self) -> dict[str, Any]:
         """The namespace module's name."""
@@ -138,3 +174,7 @@ class ArrayApiBackend(Backend):
     def plan(self, case: Case) -> ArrayApiPlan:
         """Return a plan calling ``xp.fft.<kind>``; nothing to plan."""
         return ArrayApiPlan(case, self.xp, getattr(self.xp.fft, case.kind), self.array_type)
+
+    def plan_shaped(self, case: ShapeCase) -> ArrayApiShapedPlan:
+        """Return a plan calling ``xp.fft.<kind>`` on the whole array; nothing to plan."""
+        return ArrayApiShapedPlan(case, self.xp, getattr(self.xp.fft, case.kind), self.array_type)

@@ -25,7 +25,8 @@ ONE = [((4, 6), (-1,)), ((6, 4), (0,)), ((3, 7, 5), (1,)), ((2, 3, 8), (-3,)), (
 #: (SPEC, the module it needs). Library backends are skipped where the library is missing.
 BACKENDS = [("numpy", None), ("scipy", None), ("scipy[workers=2]", None), ("pyfftw", "pyfftw"),
             ("pyfftw[aligned=false]", "pyfftw"), ("mkl_fft", "mkl_fft"), ("mkl_fft[threads=2]", "mkl_fft"),
-            ("ducc0", "ducc0"), ("ducc0[nthreads=2]", "ducc0")]
+            ("ducc0", "ducc0"), ("ducc0[nthreads=2]", "ducc0"), ("array-api[namespace=numpy]", None),
+            ("array-api[namespace=array_api_strict]", "array_api_strict")]
 
 
 def _backend(spec: str, module: str | None):
