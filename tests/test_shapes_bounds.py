@@ -57,8 +57,10 @@ LIBRARIES = {"numpy": np.fft, "scipy": scipy.fft, "pyfftw": pyfftw_builders}
 def test_correct_libraries_stay_below_the_limit_on_the_default_set(kind, dtype):
     """numpy.fft, scipy.fft and pyFFTW on every @default shape, three seeds: error <= limit.
 
-    And the limit is not absurdly loose: the worst error seen is above limit / 1000 (the 1-D
-    test's worst ratio is 0.23 at tiny sizes, below 0.06 for N >= 16).
+    And the limit is not absurdly loose: the worst error seen is above limit / 1000. Worst
+    ratios measured when this was written (three seeds, three libraries): 0.045 (fftn float64
+    1x16), 0.036 (ifft), 0.027 (rfft), 0.026 (irfft); the 1-D test's worst is 0.23 at tiny
+    sizes, below 0.06 for N >= 16.
     """
     worst = (0.0, "")
     for case in shape_cases(parse_shapes("@default"), [kind], [dtype]):
