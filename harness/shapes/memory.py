@@ -65,9 +65,9 @@ def check_memory(cases, copies: int = DEFAULT_COPIES, available_bytes: int | Non
     if not cases:
         return
     have = physical_memory_bytes() if available_bytes is None else int(available_bytes)
-    need, worst = max((case_bytes(c, copies), i) for i, c in enumerate(cases))
+    need, first = max((case_bytes(c, copies), -i) for i, c in enumerate(cases))
     if need > have:
-        case = cases[worst]
+        case = cases[-first]
         shape = "x".join(str(n) for n in case.shape)
         raise UsageError(f"shape {shape} ({case.kind} {case.input_dtype}) needs about {format_bytes(need)}; "
                          f"this machine has {format_bytes(have)}: choose smaller shapes")
