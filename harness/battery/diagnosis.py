@@ -59,7 +59,8 @@ import numpy as np
 
 from fftgauge.harness.cases import Case
 from fftgauge.harness.battery.hypotheses import ReferenceFn, candidates, resize_input, values128
-from fftgauge.harness.battery.localise import localise_error
+from fftgauge.harness.battery.localise import Localisation, inverse_delay, localise_error
+from fftgauge.harness.battery.radix_pass import pass_error
 from fftgauge.harness.dft import is_power_of_two, machine_epsilon, norm_factor, scale_factor, unit_roundoff
 
 #: A candidate matches when ``norm(y - a * candidate) / norm(a * candidate)`` is below this
@@ -277,6 +278,31 @@ def overflow_words(truth: np.ndarray, y: np.ndarray) -> str | None:
             f"fixed-point arithmetic gives when a sum passes the top of its range; the other outputs are right")
 
 
+def localised(case: Case, x: np.ndarray, truth: np.ndarray, y: np.ndarray, reference_fn: ReferenceFn,
+              limit: float | None) -> Localisation:
+    """Return where the error of ``y`` lives: :func:`~fftgauge.harness.battery.localise.localise_error`,
+    and for an error spread over the bins the wrong line of the combining pass
+    (:func:`~fftgauge.harness.battery.radix_pass.pass_error`, kind ``pass``), then the delay of an
+    inverse's output (:func:`~fftgauge.harness.battery.localise.inverse_delay`)."""
+    found = localise_error(case, truth, y, limit)
+    if found.structured:
+        return found
+    wrong = pass_error(case, x, truth, y, reference_fn)
+    if wrong is not None:
+        return Localisation("pass", wrong.detail, where=wrong.where, likely=wrong.likely)
+    if case.is_inverse:
+        fcase = Case("fft" if case.kind == "ifft" else "rfft", case.dtype, case.n, case.norm)
+        real = case.kind == "irfft"
+
+        def forward(v: np.ndarray) -> np.ndarray:
+            return values128(reference_fn(np.real(v) if real else v, fcase))
+
+        delayed = inverse_delay(case, truth, y, forward)
+        if delayed is not None:
+            return delayed
+    return found
+
+
 # -- the entry points --------------------------------------------------------------------------
 
 def diagnose(case: Case, x: np.ndarray, y: Any, reference_fn: ReferenceFn | None = None,
@@ -369,13 +395,13 @@ def diagnose(case: Case, x: np.ndarray, y: Any, reference_fn: ReferenceFn | None
     if _lower_dtype(case, y):
         return "dtype", (f"output has dtype {y.dtype}, lower precision than the {case.output_dtype} asked for; "
                          f"relative rms error {units:.3g} eps")
-    found = localise_error(case, truth, y128)
-    if found.kind in ("bins", "residue", "half"):
+    found = localised(case, x, truth, y128, reference_fn, limit)
+    if found.kind in ("bins", "residue", "half", "pass"):
         real = (" (this input is real: if complex inputs are right, look at a real-input fast path)"
                 if case.kind in ("fft", "ifft") and x.dtype.kind == "c" and not np.any(x.imag) else "")
-        return "localised", f"relative rms error {units:.3g} eps, not rounding: {found.words}{real}"
+        return "localised", f"relative rms error {units:.3g} eps, not rounding: {found.message()}{real}"
     if found.kind == "phase-ramp":
-        return "time-shifted", f"relative rms error {units:.3g} eps: {found.words}"
+        return "time-shifted", f"relative rms error {units:.3g} eps: {found.message()}"
     level = _precision_level(case, err, limit)
     if level is not None:
         return "precision", (f"errors at the level of {level}: relative rms error {units:.3g} eps of "

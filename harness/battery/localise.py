@@ -39,6 +39,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 from functools import reduce
 from math import gcd
+from typing import Callable
 
 import numpy as np
 
@@ -58,23 +59,60 @@ RAMP_MATCH_RELATIVE = 1e-3
 BINS_SHOWN = 8
 
 
+#: Below this size "a few bins" cannot be a small fraction of them: there a proper subset of
+#: wrong bins, the others right to the case's own accuracy limit, is localised too.
+SMALL_N = 16
+#: A bin that is right to the limit counts as evidence only when its exact value is at least
+#: this fraction of the rms output (a zero bin computed as zero proves nothing).
+RIGHT_BIN_SIGNIFICANT = 1e-3
+
+
 @dataclass(frozen=True)
 class Localisation:
     """Where an error lives: ``kind`` (``bins``, ``residue``, ``half``, ``phase-ramp``, ``spread``), the ``bins`` it
     is concentrated in (natural order; empty unless ``bins``), the estimated ``shift_samples``
     (``phase-ramp`` only), the radix-2 ``stage`` (1 = the first, log2 N = the last; None
-    when not found) and the plain ``words``."""
+    when not found), the plain ``words`` (the details), and the short ``where`` (which bins or
+    stage) and ``likely`` (the line of code in a typical implementation) of the summary."""
 
     kind: str
     words: str
     bins: tuple[int, ...] = ()
     shift_samples: float | None = None
     stage: int | None = None
+    where: str = ""
+    likely: str = ""
 
     @property
     def structured(self) -> bool:
         """Whether the error has a structure that points at code (not ``spread``)."""
         return self.kind != "spread"
+
+    def message(self) -> str:
+        """Return :func:`located` of this localisation (``words`` alone when it has no ``where``)."""
+        return located(self.where, self.likely, self.words) if self.where else self.words
+
+
+#: The words a located message carries its short parts in (:func:`located`, :func:`where_of`).
+WHERE_MARK, LIKELY_MARK, DETAIL_MARK = "where: ", "; likely code: ", ". Details: "
+
+
+def located(where: str, likely: str, detail: str) -> str:
+    """Return a message that says where an error lives, the likely line of code and the details:
+    ``"where: <where>; likely code: <likely>. Details: <detail>"``; :func:`where_of` reads the
+    two short parts back (the terminal summary shows them, the JSON keeps all)."""
+    return f"{WHERE_MARK}{where}{LIKELY_MARK}{likely}{DETAIL_MARK}{detail}"
+
+
+def where_of(message: str) -> tuple[str, str] | None:
+    """Return ``(where, likely)`` of a message that holds a :func:`located` part, else None."""
+    text = str(message or "")
+    start = text.find(WHERE_MARK)
+    mid = text.find(LIKELY_MARK, start + 1)
+    end = text.find(DETAIL_MARK, mid + 1)
+    if start < 0 or mid < 0 or end < 0:
+        return None
+    return text[start + len(WHERE_MARK):mid], text[mid + len(LIKELY_MARK):end]
 
 
 def error_energy(err: np.ndarray) -> tuple[np.ndarray, float] | None:
@@ -128,25 +166,70 @@ def stage_of(bins: tuple[int, ...], n: int) -> tuple[int, int, int] | None:
     return stage, span, bins[0] % span
 
 
-def _bins_words(bins: tuple[int, ...], case: Case, length: int) -> tuple[str, int | None]:
-    """Return the account of an error concentrated in ``bins`` and the stage it points at."""
+def right_to_limit(err: np.ndarray, truth: np.ndarray, limit: float | None) -> tuple[int, ...] | None:
+    """Return the wrong bins (sorted) of a small transform (length < :data:`SMALL_N`) whose
+    other bins are right to the case's own accuracy ``limit`` (each within ``limit`` times the
+    2-norm of the exact output), at least one of them a significant value
+    (:data:`RIGHT_BIN_SIGNIFICANT` of the rms output); else None.
+
+    Rounding in a lower precision touches every bin of a generic input; a wrong constant or
+    twiddle reaches only the bins that use it."""
+    length = err.shape[0]
+    if limit is None or not 2 <= length < SMALL_N:
+        return None
+    scale = float(np.linalg.norm(truth))
+    if not scale > 0 or not np.all(np.isfinite(err)):
+        return None
+    right = np.abs(err) <= limit * scale
+    significant = right & (np.abs(truth) >= RIGHT_BIN_SIGNIFICANT * scale / np.sqrt(length))
+    if right.all() or not significant.any():
+        return None
+    return tuple(int(k) for k in np.flatnonzero(~right))
+
+
+def _bins_notes(bins: tuple[int, ...], case: Case, length: int, truth: np.ndarray,
+                y: np.ndarray) -> tuple[list[str], str, str, int | None]:
+    """Return ``(notes, where, likely, stage)`` for an error in ``bins``: what the bins have in
+    common and the code that computes just those."""
     n = case.n
     count = len(bins)
-    head = (f"the error is concentrated in {count} of {length} output bins (k = {_shown(bins)}; "
-            f"{CONCENTRATED_SHARE:.0%} of its energy), the other bins are right")
-    notes = []
+    notes: list[str] = []
+    where = f"{count} of {length} bins (k = {_shown(bins)})"
+    likely, stage = "the code of those bins (no butterfly or stage they share found)", None
     if bins == (0,):
         notes.append("only the DC bin: the first (or last) term of a sum, for example the chirp filter's "
                      "wrap-around value of a Bluestein convolution, or the DC butterfly, is dropped")
-    elif n % 2 == 0 and set(bins) <= {0, n // 2}:
+        where = "bin k = 0 only"
+        likely = "a loop bound one short (a Bluestein chirp's wrap-around)"
+    elif n >= 4 and n % 2 == 0 and set(bins) <= {0, n // 2}:
         notes.append("DC and Nyquist: the special case of k = 0 and k = N/2 (a real transform's packing)")
-    stage = None
-    if n >= 4 and n % 2 == 0 and bins == (n // 2 - 1, n - 1):
+        where = "DC and Nyquist bins only"
+        likely = "the k = 0 and k = N/2 special case of a real transform's packing"
+    elif case.kind == "rfft" and n % 2 == 1 and bins == (length - 1,):
+        real = abs(y[-1] - truth[-1].real) <= 1e-3 * abs(truth[-1])
+        notes.append(f"the last bin k = (N - 1)/2 of an odd N, which is no Nyquist bin"
+                     f"{' (its imaginary part is dropped)' if real else ''}")
+        where = f"last bin k = {length - 1} of odd N only"
+        likely = "the odd-N branch treats the last bin as a Nyquist bin" + (" (keeps its real part)" if real else "")
+    elif case.kind in ("fft", "ifft") and _butterfly_rows(bins, n) is not None:
+        p = _butterfly_rows(bins, n)
+        notes.append(f"every bin from N/{p} = {n // p} up, the first {n // p} right: rows 1..{p - 1} of a radix-{p} "
+                     f"butterfly (row 0 is a plain sum of the legs)")
+        where = f"bins k >= N/{p}: rows 1..{p - 1} of a radix-{p} butterfly"
+        likely = f"a radix-{p} butterfly constant (cos, sin 2 pi/{p}) or a leg's root"
+    elif length >= 2 and bins == tuple(range(1, length)):
+        notes.append("every bin but DC: DC is the plain sum of the input, every other bin uses the twiddle or "
+                     "butterfly constants")
+        where = "every bin but DC (k = 0 right)"
+        likely = "a twiddle or butterfly constant (DC, a plain sum, uses none)"
+    if not notes and n >= 4 and n % 2 == 0 and bins == (n // 2 - 1, n - 1):
         notes.append("k = N/2 - 1 and N - 1 share the last butterfly of the final radix-2 stage, twiddle "
                      "W_N^(N/2-1): the twiddle index of the last stage runs one past the table (or the table is "
                      "one short)")
         stage = int(n).bit_length() - 1
-    elif is_power_of_two(n) and case.kind in ("fft", "ifft"):
+        where = "bins N/2-1, N-1 (the last stage's last butterfly)"
+        likely = "the twiddle index of the last stage runs one past the table"
+    elif not notes and is_power_of_two(n) and case.kind in ("fft", "ifft"):
         found = stage_of(bins, n)
         if found is not None:
             stage, span, j = found
@@ -159,11 +242,41 @@ def _bins_words(bins: tuple[int, ...], case: Case, length: int) -> tuple[str, in
             notes.append(f"{which} k = {j} (mod {span}) ({block}): butterfly j = {j} of radix-2 stage {stage} of "
                          f"{int(n).bit_length() - 1} (decimation in time: the stage merging sub-transforms of size "
                          f"{span} into {2 * span}, twiddle W_{2 * span}^{j})")
+            where = f"{which} k = {j} (mod {span}): radix-2 stage {stage} of {int(n).bit_length() - 1}"
+            likely = f"butterfly j = {j} of stage {stage}: its twiddle W_{2 * span}^{j}"
     if not notes and count > 1:
         rev_pairs = [b for b in bins if (n - b) % n in bins and b != (n - b) % n]
         if rev_pairs:
             notes.append("the bins come in pairs k, N - k (a Hermitian pair: the real-input or conjugate-pair split)")
-    return head + ("; " + "; ".join(notes) if notes else ""), stage
+            likely = "the split computing X[k] and X[N-k] together (real input)"
+    if case.kind in ("fft", "ifft") and n >= 3 and all(b > n // 2 for b in bins) and stage is None:
+        where = f"upper half of the spectrum only (k = {_shown(bins)})"
+        likely = "X[N-k] = conj X[k] in a real-input path (a missing conj, or off by one)"
+    return notes, where, likely, stage
+
+
+def _butterfly_rows(bins: tuple[int, ...], n: int) -> int | None:
+    """Return the odd prime p (3, 5, 7) for which ``bins`` are every k from N/p up, else None."""
+    for p in (3, 5, 7):
+        if n % p == 0 and bins == tuple(range(n // p, n)):
+            return p
+    return None
+
+
+def _bins_account(bins: tuple[int, ...], case: Case, truth: np.ndarray, y: np.ndarray,
+                  small: bool = False) -> Localisation:
+    """Return the ``bins`` localisation of an error in ``bins`` (``small``: found by
+    :func:`right_to_limit`, the other bins right to the accuracy limit)."""
+    length = truth.shape[0]
+    notes, where, likely, stage = _bins_notes(bins, case, length, truth, y)
+    if small:
+        head = (f"the error is in {len(bins)} of {length} output bins (k = {_shown(bins)}), the other bins are right "
+                f"to the accuracy limit (rounding in a lower precision would touch every bin)")
+    else:
+        head = (f"the error is concentrated in {len(bins)} of {length} output bins (k = {_shown(bins)}; "
+                f"{CONCENTRATED_SHARE:.0%} of its energy), the other bins are right")
+    words = head + ("; " + "; ".join(notes) if notes else "")
+    return Localisation("bins", words, bins=bins, stage=stage, where=where, likely=likely)
 
 
 def _ramp_fit(truth: np.ndarray, y: np.ndarray, k: np.ndarray, n: int) -> tuple[float, float]:
@@ -194,10 +307,13 @@ def _ramp_fit(truth: np.ndarray, y: np.ndarray, k: np.ndarray, n: int) -> tuple[
 def phase_ramp(case: Case, truth: np.ndarray, y: np.ndarray) -> float | None:
     """Return the delay d (samples, possibly fractional, in (-N/2, N/2]) when ``y`` equals
     ``truth`` times exp(-2j pi k d / N) up to a unit constant, for bins k numbered 0..N-1 or
-    with the upper half negative (k - N), else None (forward kinds only: fft, rfft) (and None for a delay of less than 1e-3
-    samples: that is no ramp)."""
+    (fft, ifft) with the upper half negative (k - N), else None (and None for a delay of less
+    than 1e-3 samples: that is no ramp). For ``ifft`` the index is the output's time t and
+    the ramp of an inverse has the opposite sign: the d returned is that of
+    exp(+2j pi t d / N). ``irfft`` (a real output) has no ramp here: see :func:`inverse_delay`.
+    At least 3 values are needed."""
     n, length = case.n, truth.shape[0]
-    if length < 4 or case.kind not in ("fft", "rfft"):
+    if length < 3 or case.kind == "irfft":
         return None
     base = float(np.linalg.norm(y - truth) / max(np.linalg.norm(truth), 1e-300))
     natural = np.arange(length)
@@ -210,13 +326,45 @@ def phase_ramp(case: Case, truth: np.ndarray, y: np.ndarray) -> float | None:
             best = (d, residual)
     if best is None or abs(best[0]) < 1e-3:
         return None
-    return best[0]
+    return -best[0] if case.kind == "ifft" else best[0]
 
 
-def residue_class(case: Case, err: np.ndarray) -> tuple[str, int] | None:
-    """Return ``(words, stage)`` when an fft/ifft error of a power-of-two N lives in one class
-    of bins k = j (mod P), P = 2^s < N (:data:`CONCENTRATED_SHARE` of its energy; the largest
-    such P), else None.
+def inverse_delay(case: Case, truth: np.ndarray, y: np.ndarray,
+                  forward: Callable[[np.ndarray], np.ndarray]) -> Localisation | None:
+    """Return the ``phase-ramp`` localisation of an ifft/irfft output that is the right one
+    delayed by d samples: its forward transform (``forward``, of the same norm) is the exact
+    one's times exp(-2j pi k d / N) (the DFT shift theorem). For an even-N irfft the Nyquist
+    bin is left out (a real output cannot carry its ramp). Else None."""
+    if case.kind not in ("ifft", "irfft"):
+        return None
+    fcase = Case("fft" if case.kind == "ifft" else "rfft", case.dtype, case.n, case.norm)
+    ft, fy = forward(truth), forward(y)
+    if case.kind == "irfft" and case.n % 2 == 0:
+        ft, fy = ft[:-1], fy[:-1]
+    d = phase_ramp(fcase, ft, fy)
+    if d is None:
+        return None
+    return _ramp_account(d, "the output is the inverse transform delayed", "its forward transform is the exact "
+                         "one's times exp(-2j pi k d / N)")
+
+
+def _ramp_account(d: float, subject: str, theorem: str, unit: str = "sample") -> Localisation:
+    """Return the ``phase-ramp`` localisation of a delay ``d`` (in ``unit``s: samples, or bins
+    for the output ramp of an ifft); ``subject`` says what is ``delayed``."""
+    sign = "delayed" if d > 0 else "advanced"
+    what = f"half a {unit}" if abs(abs(d) - 0.5) < 0.01 else f"{abs(d):.4g} {unit}s"
+    subject = subject.replace(" delayed", f" {sign}")
+    words = (f"{subject} by {what} (estimated d = {d:.4g}; {theorem}): a fractional time shift, for example a "
+             f"half-sample offset in the twiddles or the input index")
+    return Localisation("phase-ramp", words, shift_samples=d,
+                        where=f"every bin, a linear phase: {sign} by {what}",
+                        likely="a half-sample offset in a twiddle exponent or the sample index")
+
+
+def residue_class(case: Case, err: np.ndarray) -> Localisation | None:
+    """Return the ``residue`` localisation when an fft/ifft error of a power-of-two N lives in
+    one class of bins k = j (mod P), P = 2^s < N (:data:`CONCENTRATED_SHARE` of its energy;
+    the largest such P), else None.
 
     In bit-reversed order the class is one aligned block of N/P positions: the outputs of one
     sub-transform of size N/P of a decimation-in-frequency FFT, whose input the first s
@@ -249,13 +397,16 @@ def residue_class(case: Case, err: np.ndarray) -> tuple[str, int] | None:
              f"order that is the block {first}..{first + n // p - 1}: in decimation in frequency the sub-transform of "
              f"size {n // p} after stage {s} (a wrong twiddle of stage {s}), in decimation in time butterfly j = {j} "
              f"of the stage merging sub-transforms of size {p} (stage {s + 1})")
-    return words, s
+    return Localisation("residue", words, stage=s,
+                        where=f"bins k = {j} (mod {p}), bit-reversed {first}..{first + n // p - 1}",
+                        likely=f"a twiddle of stage {s} (decimation in frequency; in decimation in time butterfly "
+                               f"j = {j} of stage {s + 1})")
 
 
-def upper_half(case: Case, err: np.ndarray) -> str | None:
-    """Return the account of an fft/ifft error that lives in one half of the spectrum only
-    (:data:`CONCENTRATED_SHARE` of its energy in k > N/2, or in 0 < k < N/2), else None: the
-    half a real-input path builds from the other by the symmetry X[N-k] = conj X[k]."""
+def upper_half(case: Case, err: np.ndarray) -> Localisation | None:
+    """Return the ``half`` localisation of an fft/ifft error that lives in one half of the
+    spectrum only (:data:`CONCENTRATED_SHARE` of its energy in k > N/2, or in 0 < k < N/2),
+    else None: the half a real-input path builds from the other by X[N-k] = conj X[k]."""
     n = case.n
     if case.kind not in ("fft", "ifft") or n < 8:
         return None
@@ -267,44 +418,44 @@ def upper_half(case: Case, err: np.ndarray) -> str | None:
     for name, mask in (("upper", k > n // 2), ("lower", (k > 0) & (k < (n + 1) // 2))):
         if float(np.sum(energy[mask])) >= CONCENTRATED_SHARE * total:
             other = "0 < k < N/2" if name == "upper" else "k > N/2"
-            return (f"the error lives in the {name} half of the spectrum only ({name} bins wrong, {other} right): "
-                    f"the half a real-input path builds from the other by X[N-k] = conj X[k] (a missing "
-                    f"conjugate or an index off by one there)")
+            words = (f"the error lives in the {name} half of the spectrum only ({name} bins wrong, {other} right): "
+                     f"the half a real-input path builds from the other by X[N-k] = conj X[k] (a missing "
+                     f"conjugate or an index off by one there)")
+            return Localisation("half", words, where=f"{name} half of the spectrum only",
+                                likely="X[N-k] = conj X[k] in a real-input path (a missing conj, or off by one)")
     return None
 
 
-def localise_error(case: Case, truth: np.ndarray, y: np.ndarray) -> Localisation:
+def localise_error(case: Case, truth: np.ndarray, y: np.ndarray, limit: float | None = None) -> Localisation:
     """Return where the error ``y - truth`` lives (``truth`` the exact transform, both complex
-    arrays of the output length; see the module docstring for the kinds).
+    arrays of the output length; see the module docstring for the kinds). ``limit`` (the
+    case's relative accuracy limit) lets a small transform's proper subset of wrong bins count
+    as ``bins`` (:func:`right_to_limit`).
 
     Never raises for arrays of the right length; ``y`` with NaN/Inf gives ``spread``.
     """
     truth = np.asarray(truth, dtype=np.complex128)
     y = np.asarray(y, dtype=np.complex128)
-    length = truth.shape[0]
     if not np.all(np.isfinite(y)):
         return Localisation("spread", "the output is not finite")
     err = y - truth
     bins = concentrated_bins(err, case.n if case.kind in ("fft", "ifft") else None)
     if bins is not None:
-        words, stage = _bins_words(bins, case, length)
-        return Localisation("bins", words, bins=bins, stage=stage)
-    found = residue_class(case, err)
-    if found is not None:
-        words, stage = found
-        return Localisation("residue", words, stage=stage)
-    half = upper_half(case, err)
-    if half is not None:
-        return Localisation("half", half)
+        return _bins_account(bins, case, truth, y)
+    for found in (residue_class(case, err), upper_half(case, err)):
+        if found is not None:
+            return found
     d = phase_ramp(case, truth, y)
     if d is not None:
-        sign = "delayed" if d > 0 else "advanced"
-        what = "half a sample" if abs(abs(d) - 0.5) < 0.01 else f"{abs(d):.4g} samples"
-        where = "the output is the transform of the input"
-        return Localisation("phase-ramp", (
-            f"every bin is off by a phase growing linearly with k: {where} {sign} by {what} (estimated d = {d:.4g}; "
-            f"a shift of d samples multiplies X[k] by exp(-2j pi k d / N)): a fractional time shift, for example "
-            f"a half-sample offset in the twiddles or the input index"), shift_samples=d)
+        if case.kind == "ifft":
+            return _ramp_account(d, "every output sample is off by a phase growing linearly with t: the output is the "
+                                 "right one times exp(+2j pi t d / N), its spectrum delayed",
+                                 "the inverse's ramp has the + sign", unit="bin")
+        return _ramp_account(d, "every bin is off by a phase growing linearly with k: the output is the transform of "
+                             "the input delayed", "a shift of d samples multiplies X[k] by exp(-2j pi k d / N)")
+    small = right_to_limit(err, truth, limit)
+    if small is not None:
+        return _bins_account(small, case, truth, y, small=True)
     share = float(np.max(np.abs(err) ** 2) / max(np.sum(np.abs(err) ** 2), 1e-300))
     return Localisation("spread", f"the error is spread over the output bins (the largest bin holds {share:.1%} of "
                                   f"its energy) with no bin or phase structure found")

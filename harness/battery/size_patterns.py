@@ -32,6 +32,9 @@ SMOOTH_BOUND = 7
 ALSO_SLACK = 0.5
 #: At most this many also-consistent rules are listed.
 ALSO_LISTED = 3
+#: Sizes below this are trivial transforms (n = 1: X = x; n = 2: x0 +- x1, no twiddle): a bound
+#: that only sets them apart is no size path of its own.
+TRIVIAL_BELOW = 3
 
 
 def prime_factors(n: int) -> list[int]:
@@ -105,11 +108,17 @@ def bound_rules(failing: list[int], passing: list[int]) -> list[Rule]:
     returned, but is re-tested like the others): n above the largest passing size, n below
     the smallest passing size, prime above the largest passing prime."""
     out = []
-    if max(passing) < min(failing):
+    if max(passing) < min(failing) and max(passing) < TRIVIAL_BELOW:
+        b = max(passing)
+        out.append(Rule("nontrivial", f"n > {b} (every size from {min(failing)} up; n <= {b} needs no twiddle)",
+                        f"code every transform of more than {b} point{'s' if b > 1 else ''} runs (the twiddles, a "
+                        f"butterfly constant, or a step every path shares)", 1.0, lambda n, b=b: n > b))
+    elif max(passing) < min(failing):
         b = max(passing)
         out.append(Rule("above", f"n > {b} (every size from {min(failing)} up)",
                         f"the large-size path (a different algorithm, blocking or table used above {b} points)", 2.0,
                         lambda n, b=b: n > b))
+    out += compound_rules(failing, passing)
     if min(passing) > max(failing):
         b = min(passing)
         out.append(Rule("below", f"n < {b} (every size up to {max(failing)})",
@@ -121,6 +130,30 @@ def bound_rules(failing: list[int], passing: list[int]) -> list[Rule]:
         out.append(Rule("prime-above", f"n prime and n > {b} (every prime from {min(failing)} up)",
                         f"the path for large primes (Bluestein's chirp-z: its padded length or its chirp filter), "
                         f"used above {b}", 2.5, lambda n, b=b: n > b and is_prime(n)))
+    return out
+
+
+def compound_rules(failing: list[int], passing: list[int]) -> list[Rule]:
+    """Return the rules "R and n > b" for each rule R of :func:`fixed_rules` (prime aside:
+    ``prime-above`` is that one) that holds at every failing size, with b the largest passing
+    size where R holds (a path for such sizes taken from some size on). When b is below
+    :data:`TRIVIAL_BELOW` the bound only sets the trivial sizes apart and the rule is R at
+    every nontrivial size (a little dearer than R)."""
+    out = []
+    for rule in fixed_rules():
+        if rule.code == "prime" or not all(rule.holds(n) for n in failing):
+            continue
+        under = [n for n in passing if rule.holds(n)]
+        if not under or max(under) >= min(failing):
+            continue
+        b = max(under)
+        if b < TRIVIAL_BELOW:
+            out.append(Rule(rule.code, f"{rule.words}, n > {b} (n <= {b} needs no twiddle)", rule.suggests,
+                            rule.cost + 0.25, lambda n, r=rule, b=b: r.holds(n) and n > b))
+        else:
+            out.append(Rule(f"{rule.code}-above", f"{rule.words} and n > {b} (every such size from {min(failing)} up)",
+                            f"the large-size path for {rule.words} (a different algorithm, blocking or table used "
+                            f"above {b} points)", rule.cost + 2.0, lambda n, r=rule, b=b: r.holds(n) and n > b))
     return out
 
 
@@ -147,8 +180,9 @@ def infer_rule(failing: Iterable[int], passing: Iterable[int]) -> dict[str, Any]
             if all(r.holds(n) for n in failing) and not any(r.holds(n) for n in passing)]
     if not fits:
         return {**base, "sentence": (f"no size rule fits: the {len(failing)} failing sizes share none of the rules "
-                                     f"tried (divisibility by 2, 3, 5, 7, 11, 13 once or twice, prime, prime or n "
-                                     f"above a bound, odd/even, power of two, {SMOOTH_BOUND}-smooth)")}
+                                     f"tried (divisibility by 2, 3, 5, 7, 11, 13 once or twice, prime, n above a "
+                                     f"bound, odd/even, power of two, {SMOOTH_BOUND}-smooth, and each of these from a "
+                                     f"bound on)")}
     fits.sort(key=lambda r: r.cost)
     best = fits[0]
     also = [r.words for r in fits[1:] if r.cost <= best.cost + ALSO_SLACK][:ALSO_LISTED]

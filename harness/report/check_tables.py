@@ -100,7 +100,9 @@ def finding_lines(rows: Iterable[dict[str, Any]], per_backend: int = FINDINGS_PE
 
     Nothing is cut silently: past ``per_backend`` lines for one backend, one line says how many
     more findings that backend has and where they are; every backend's first finding is listed.
-    Each line gives the cases and sizes the cause covers and the worst case's message
+    Each entry (at most two lines, :meth:`~fftgauge.harness.report.findings.Finding.summary_lines`)
+    gives the cases and sizes the cause covers, their size rule, and where in the output and the
+    likely code, or the worst case's message
     (:func:`fftgauge.harness.report.findings.findings` does the grouping).
     """
     from fftgauge.harness.report.findings import findings
@@ -113,11 +115,7 @@ def finding_lines(rows: Iterable[dict[str, Any]], per_backend: int = FINDINGS_PE
     out = []
     for backend, found_here in by_backend.items():
         for found in found_here[:max(1, per_backend)]:
-            worst = found.worst
-            plural = "s" if found.cases != 1 else ""
-            out.append(f"  {backend} · {found.cause} ({', '.join(found.checks)}): {found.cases} case{plural} "
-                       f"({', '.join(found.panels)}) at n = {compress_sizes(found.sizes)}; worst "
-                       f"{worst.get('kind')} {worst.get('dtype')} n={worst.get('n')}: {worst.get('message')}")
+            out.append("\n".join(found.summary_lines()))  # at most two lines (findings.Finding.summary_lines)
         hidden = len(found_here) - max(1, per_backend)
         if hidden > 0:
             out.append(f"  {backend}: {hidden} more finding{'s' if hidden != 1 else ''} (distinct causes) not listed "
@@ -174,8 +172,8 @@ def format_summary(df: pd.DataFrame, backends: dict[str, Any] | None = None) -> 
     records = df.astype(object).where(df.notna(), None).to_dict("records")
     findings = finding_lines(records)
     if findings:
-        lines += ["", "findings, one per cause (backend · diagnosis (checks): cases, sizes; worst case: what was "
-                      "seen):"] + findings
+        lines += ["", "findings, one per cause, two lines each (backend · diagnosis (checks): cases, sizes; size "
+                      "rule / where, likely code; details in the results file):"] + findings
     from fftgauge.harness.battery.size_patterns import pattern_lines
 
     patterns = pattern_lines(records)

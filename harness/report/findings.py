@@ -72,6 +72,8 @@ class Finding:
     worst: Mapping[str, Any]
     #: The size patterns of the panels it covers (harness/battery/size_patterns.py), one sentence each.
     size_rules: tuple[str, ...] = ()
+    #: The same patterns as dicts (``rule`` None where no rule fits), for the terminal lines.
+    patterns: tuple[Mapping[str, Any], ...] = ()
 
     @property
     def could_not_run(self) -> bool:
@@ -108,6 +110,92 @@ class Finding:
                 f"{message or 'no message'}." + "".join(f" Sizes: {rule}." for rule in self.size_rules))
 
 
+    def summary_lines(self, width: int | None = None) -> list[str]:
+        """Return the finding in at most two terminal lines of ``width`` columns
+        (:func:`summary_width` when None): who, what and where over n (the size rule, or that
+        none fits), then where in the output and the likely line of code (the row's
+        :func:`~fftgauge.harness.battery.localise.located` part), or the size rule's code path
+        and the worst case's message. Past the width a line ends in "..."; every detail is in
+        the results file."""
+        from fftgauge.harness.battery.localise import where_of
+
+        width = summary_width() if width is None else width
+        worst = self.worst
+        rule = self._rule_words()
+        first = _fit_first_line(self, rule, width)
+        found = None if self.could_not_run else where_of(str(worst.get("message") or ""))
+        if found is not None:
+            second = f"{found[0]}; likely: {found[1]}"
+        else:
+            suggests = [p["suggests"] for p in self.patterns if p.get("rule")]
+            head = f"look at {suggests[0]}; " if suggests else ""
+            case = f"{worst.get('kind')} {worst.get('dtype')} n={worst.get('n')}"
+            second = f"{head}worst {case}: {_first_part(worst.get('message'))}"
+        return [first, _clip("    " + second, width)]
+
+    def _rule_words(self) -> str:
+        """Return the size rule part of the first line ("" when the finding has no pattern)."""
+        if self.could_not_run or not self.patterns:
+            return ""
+        ruled = [p for p in self.patterns if p.get("rule")]
+        if ruled:
+            return "sizes: " + "; ".join(dict.fromkeys(str(p["words"]).split(" (")[0] for p in ruled))
+        if all(not p.get("passing_sizes") for p in self.patterns):
+            return "fails at every size tried"
+        return "no size rule fits"
+
+
+#: The terminal width the summary uses when standard output is no terminal (and its least).
+SUMMARY_WIDTH_DEFAULT = 120
+SUMMARY_WIDTH_LEAST = 80
+
+
+def summary_width() -> int:
+    """Return the columns the terminal summary's findings fill: the terminal's (``COLUMNS``
+    first), :data:`SUMMARY_WIDTH_DEFAULT` when there is none, at least :data:`SUMMARY_WIDTH_LEAST`."""
+    import shutil
+
+    return max(SUMMARY_WIDTH_LEAST, shutil.get_terminal_size((SUMMARY_WIDTH_DEFAULT, 24)).columns)
+
+
+def _clip(line: str, width: int) -> str:
+    return line if len(line) <= width else line[: width - 3].rstrip() + "..."
+
+
+def _first_part(message: Any) -> str:
+    """Return a message without the accuracy check's lead-in (its error figures), which the
+    results file keeps: the part that says what was seen."""
+    text = str(message or "no message").strip()
+    marker = "worst on the "
+    at = text.find(marker)
+    if at >= 0:
+        rest = text[at:].split("; ", 1)
+        if len(rest) == 2:
+            return rest[1]
+    return text
+
+
+def _fit_first_line(found: "Finding", rule: str, width: int) -> str:
+    """Return the first line (backend, cause, checks, cases, panels, sizes, size rule) within
+    ``width``: the lists are shortened before the rule is cut."""
+    from fftgauge.harness.report.check_tables import compress_sizes
+
+    plural = "s" if found.cases != 1 else ""
+    line = ""
+    for checks_shown, size_limit, panels_shown in ((8, 12, 4), (2, 6, 2), (2, 3, 1), (0, 2, 1), (0, 0, 1)):
+        checks = (", ".join(found.checks[:checks_shown]) + (
+            f" +{len(found.checks) - checks_shown}" if len(found.checks) > checks_shown else "")
+            if checks_shown else f"{len(found.checks)} check{'s' if len(found.checks) != 1 else ''}")
+        panels = ", ".join(found.panels[:panels_shown]) + (
+            f" +{len(found.panels) - panels_shown}" if len(found.panels) > panels_shown else "")
+        sizes = f" at n = {compress_sizes(found.sizes, limit=max(1, size_limit))}" if size_limit or not rule else ""
+        line = (f"  {found.backend} · {found.cause} ({checks}): {found.cases} case{plural} ({panels}){sizes}"
+                + (f"; {rule}" if rule else ""))
+        if len(line) <= width:
+            return line
+    return _clip(line, width)
+
+
 def _error_kind(message: Any) -> str:
     """Return an error message with its numbers blanked, so that one cause at many sizes is one key."""
     from fftgauge.harness.rows import message_cause
@@ -140,8 +228,16 @@ def findings(rows: Iterable[Mapping[str, Any]]) -> list[Finding]:
             panels=tuple(dict.fromkeys(f"{r['kind']} {r['dtype']}" for r in members)),
             sizes=tuple(sorted({int(r["n"]) for r in members})),
             cases=len({(r["kind"], r["dtype"], r.get("norm") or "backward", r["n"]) for r in members}), worst=worst,
-            size_rules=_size_rules(patterns, backend, members) if cause != "error" else ()))
+            size_rules=_size_rules(patterns, backend, members) if cause != "error" else (),
+            patterns=_patterns_of(patterns, backend, members) if cause != "error" else ()))
     return out
+
+
+def _patterns_of(patterns: Mapping[tuple, Mapping[str, Any]], backend: str,
+                 members: list[Mapping[str, Any]]) -> tuple[Mapping[str, Any], ...]:
+    """Return the size patterns (dicts) of the panels ``members`` cover."""
+    panels = dict.fromkeys((r["kind"], r["dtype"], r.get("norm") or "backward") for r in members)
+    return tuple(p for p in (patterns.get((backend, *panel)) for panel in panels) if p is not None)
 
 
 def _size_rules(patterns: Mapping[tuple, Mapping[str, Any]], backend: str,

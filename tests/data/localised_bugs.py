@@ -189,3 +189,43 @@ def radix2_dif_twiddle(x):
     bits = n.bit_length() - 1
     rev = np.array([int(format(i, f"0{bits}b")[::-1], 2) if bits else 0 for i in range(n)])
     return a[rev].astype(x.dtype if x.dtype.kind == "c" else np.complex128)
+
+
+#: sin(2 pi / 3) written with four digits, as a hand-written radix-3 butterfly may have it.
+SIN_60_SHORT = 0.8660
+
+
+def radix3_rounded(x):
+    """numpy.fft, except at n divisible by 3, where the last decimation-in-time pass is a
+    radix-3 butterfly on the twiddled sub-transforms whose constant sin(2 pi / 3) is written
+    as 0.8660 (right to 2.5e-5): every bin but those of the first block N/3 is off by a little."""
+    x = np.asarray(x)
+    n = x.shape[0]
+    out_dtype = x.dtype if x.dtype.kind == "c" else np.complex128
+    if n % 3:
+        return np.fft.fft(x).astype(out_dtype)
+    m = n // 3
+    q = np.arange(m)
+    a, b, c = (np.fft.fft(x[r::3].astype(np.complex128)) * _twiddles(n, r * q) for r in range(3))
+    mid = a - 0.5 * (b + c)
+    rot = -1j * SIN_60_SHORT * (b - c)  # w_3 = -1/2 - j sin(2 pi/3)
+    return np.concatenate([a + b + c, mid + rot, mid - rot]).astype(out_dtype)
+
+
+def half_sample_ifft(x):
+    """numpy.fft.ifft with the time index offset by half a sample in its exponent
+    (exp(+2j pi k (t + 1/2) / N) read as exp(+2j pi (k + 1/2) t / N)): the output times
+    exp(+j pi t / N), the inverse's sign."""
+    x = np.asarray(x)
+    n = x.shape[0]
+    t = np.arange(n)
+    return (np.fft.ifft(x) * np.exp(1j * np.pi * t / n)).astype(x.dtype if x.dtype.kind == "c" else np.complex128)
+
+
+def half_sample_irfft(x, n):
+    """numpy.fft.irfft of the half spectrum times exp(-j pi k / N): the output delayed by half a
+    sample (a half-sample offset in the twiddles of a real inverse)."""
+    x = np.asarray(x)
+    k = np.arange(x.shape[0])
+    out = np.fft.irfft(x * np.exp(-1j * np.pi * k / n), n)
+    return out.astype(np.float32 if x.dtype == np.complex64 else np.float64)
