@@ -35,6 +35,7 @@ from fftgauge.harness.fixed.formats import QFormat, fixed_format
 from fftgauge.harness.fixed.measure import Point, exact_output, measure_points, read_output, reference_for
 from fftgauge.harness.fixed.metrics import sqnr_db
 from fftgauge.harness.fixed.signals import LEVELS_DBFS, test_signal
+from fftgauge.harness.fixed.structure import STRUCTURE_CHECKS, structure_rows
 from fftgauge.harness.rows import CheckRow, error_rows, skip_rows
 
 __all__ = ["DEFAULT_MARGIN_DB", "FIXED_CHECKS", "SWEEP_DBFS", "diagnose", "fixed_check_case", "overflow_row",
@@ -42,7 +43,9 @@ __all__ = ["DEFAULT_MARGIN_DB", "FIXED_CHECKS", "SWEEP_DBFS", "diagnose", "fixed
 
 #: The fixed-point checks, in the order they run (``input-intact`` and ``repeatable`` as in the
 #: float battery: the caller's pairs unchanged, the same input giving the same output bit for bit).
-FIXED_CHECKS = ("sqnr", "overflow", "input-intact", "repeatable")
+#: ``linearity``, ``impulse``, ``time-shift``, ``round-trip``, ``concurrent`` and ``shape`` are
+#: :mod:`fftgauge.harness.fixed.structure`'s, with limits in LSBs from harness/fixed/bounds.py.
+FIXED_CHECKS = ("sqnr", "overflow", "input-intact", "repeatable") + STRUCTURE_CHECKS
 
 #: dB the backend's SQNR may be below the reference's before ``sqnr`` fails.
 DEFAULT_MARGIN_DB = 1.0
@@ -95,7 +98,9 @@ def fixed_check_case(backend: Any, case: Any, seed: int, margin_db: float = DEFA
     try:
         return [sqnr_row(label, case, plan.execute, fmt, declared, seed, margin_db),
                 overflow_row(label, case, plan.execute, fmt, declared, seed),
-                *behaviour_rows(label, case, plan.execute, fmt, declared, seed, backend.capabilities())]
+                *behaviour_rows(label, case, plan.execute, fmt, declared, seed, backend.capabilities()),
+                *structure_rows(lambda check, status, **fields: row_of(label, case, check, status, **fields),
+                                plan.execute, fmt, case.n, declared, seed, lambda: backend.plan(case))]
     except OutputProblem as problem:
         return [row_of(label, case, name, "fail", diagnosis=problem.code, message=problem.message) for name in names]
     except Exception as exc:  # noqa: BLE001 - the backend raised or returned something unusable
