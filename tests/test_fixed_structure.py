@@ -155,3 +155,24 @@ def test_shared_scratch_fails_concurrent():
 def test_wrong_shape_fails_with_shape():
     rows = rows_of(Flat(), n=16)
     assert (rows["shape"].status, rows["shape"].diagnosis) == ("fail", "shape")
+
+
+def test_cmsis_q15_wraps_at_sizes_that_are_not_powers_of_four():
+    """Found by the battery and verified here without it: arm_cfft_q15 on the overload input
+    (every part at full scale; bin N/8 exactly (1 + sqrt 2)/2 * 32767 = 39553.3 real) gives
+    the rail 32765 at N = 64 and a wrapped -25990 (39546 - 65536) at N = 32 and 128. The exact
+    value is numpy.fft.fft of the same integers over N."""
+    dsp = pytest.importorskip("cmsisdsp")
+    for n, wraps in ((32, True), (64, False), (128, True)):
+        k = np.arange(n)
+        z = (1 + 1j) * (1j ** (k // 2)) * 32767
+        x = np.stack([z.real, z.imag], -1).round().astype(np.int16)
+        inst = dsp.arm_cfft_instance_q15()
+        assert dsp.arm_cfft_init_q15(inst, n) == 0
+        y = np.asarray(dsp.arm_cfft_q15(inst, x.reshape(-1).copy(), 0, 1)).reshape(-1, 2)
+        exact = np.fft.fft(x[:, 0] + 1j * x[:, 1]) / n
+        assert exact[n // 8].real == pytest.approx(39553.3, abs=0.1)
+        assert (y[n // 8, 0] < 0) == wraps, (n, y[n // 8])
+        from fftgauge.backends.cmsis_dsp import CmsisDspBackend
+        row = rows_of(CmsisDspBackend(), n=n)["overflow"]
+        assert (row.status == "fail") == wraps, row.message
