@@ -179,10 +179,26 @@ def run_environment(base: dict[str, str] | None = None, pycache: str | None = No
     return env
 
 
+#: The caches simulated with ``--cache-sim``: (size in bytes, ways, line bytes) per level, fixed
+#: (not the host's, which valgrind would read and which differ between machines: 480 MiB of L3
+#: on the development machine) so that stored miss counts compare across hosts. A common
+#: desktop configuration: 32 KiB 8-way L1s, an 8 MiB 16-way last level, 64-byte lines.
+SIMULATED_CACHES = {"I1": (32768, 8, 64), "D1": (32768, 8, 64), "LL": (8388608, 16, 64)}
+
+
+def cache_options(caches: dict[str, tuple[int, int, int]] | None = None) -> list[str]:
+    """Return cachegrind's ``--I1``/``--D1``/``--LL`` options: :data:`SIMULATED_CACHES` with the
+    levels of ``caches`` in their place."""
+    levels = {**SIMULATED_CACHES, **(caches or {})}
+    return [f"--{level}={size},{ways},{line}" for level, (size, ways, line) in levels.items()]
+
+
 def driver_argv(valgrind: str, out_file: str, spec: str, case: Case, seed: int, calls: int, threads: int,
-                cache_sim: bool) -> list[str]:
-    """Return the command line of one counted run of ``calls`` transforms."""
-    return [*setarch_prefix(), valgrind, "--tool=cachegrind", f"--cache-sim={'yes' if cache_sim else 'no'}",
+                cache_sim: bool, caches: dict[str, tuple[int, int, int]] | None = None) -> list[str]:
+    """Return the command line of one counted run of ``calls`` transforms (with ``cache_sim``,
+    the caches of :func:`cache_options`)."""
+    sim = ["--cache-sim=yes", *cache_options(caches)] if cache_sim else ["--cache-sim=no"]
+    return [*setarch_prefix(), valgrind, "--tool=cachegrind", *sim,
             "-q", f"--cachegrind-out-file={out_file}", sys.executable, "-s", DRIVER, spec, case.kind, case.dtype,
             str(case.n), case.norm, str(seed), str(calls), str(threads)]
 
@@ -270,7 +286,8 @@ class RunCount:
 
 
 def count_run(valgrind: str, spec: str, case: Case, seed: int, calls: int, threads: int = 1,
-              cache_sim: bool = False, timeout: float = 120.0, pycache: str | None = None) -> RunCount:
+              cache_sim: bool = False, timeout: float = 120.0, pycache: str | None = None,
+              caches: dict[str, tuple[int, int, int]] | None = None) -> RunCount:
     """Run the driver once under cachegrind and return its :class:`RunCount`.
 
     Raises
@@ -281,7 +298,7 @@ def count_run(valgrind: str, spec: str, case: Case, seed: int, calls: int, threa
     """
     with tempfile.TemporaryDirectory(prefix="fftgauge-count-") as work:
         out_file = os.path.join(work, "cachegrind.out")
-        argv = driver_argv(valgrind, out_file, spec, case, seed, calls, threads, cache_sim)
+        argv = driver_argv(valgrind, out_file, spec, case, seed, calls, threads, cache_sim, caches)
         started = time.monotonic()
         try:
             done = subprocess.run(argv, env=run_environment(pycache=pycache), capture_output=True, text=True,

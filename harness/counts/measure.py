@@ -67,8 +67,11 @@ def _side_count(pairs: list[tuple[RunCount, RunCount]], calls: int) -> CaseCount
 
 def count_sides(valgrind: str, specs: Mapping[str, str], case: Case, *, seed: int, calls: int, repeats: int,
                 threads: int = 1, cache_sim: bool = False, timeout: float = 120.0,
-                workers: int | None = None) -> dict[str, CaseCount]:
-    """Return each side's :class:`CaseCount` of ``case`` (``specs`` maps a side's key to its SPEC).
+                workers: int | None = None,
+                caches: dict[str, tuple[int, int, int]] | None = None) -> dict[str, CaseCount]:
+    """Return each side's :class:`CaseCount` of ``case`` (``specs`` maps a side's key to its SPEC;
+    ``caches``: simulated cache levels in place of
+    :data:`~fftgauge.harness.counts.cachegrind.SIMULATED_CACHES`, with ``cache_sim``).
 
     Raises
     ------
@@ -78,17 +81,17 @@ def count_sides(valgrind: str, specs: Mapping[str, str], case: Case, *, seed: in
     """
     with tempfile.TemporaryDirectory(prefix="fftgauge-pycache-") as pycache:
         return _count_sides(valgrind, specs, case, seed, calls, repeats, threads, cache_sim, timeout, workers,
-                            pycache)
+                            pycache, caches)
 
 
 def _count_sides(valgrind: str, specs: Mapping[str, str], case: Case, seed: int, calls: int, repeats: int,
                  threads: int, cache_sim: bool, timeout: float, workers: int | None,
-                 pycache: str) -> dict[str, CaseCount]:
+                 pycache: str, caches: dict[str, tuple[int, int, int]] | None = None) -> dict[str, CaseCount]:
     keys = list(specs)
 
     def one(key: str, n_calls: int) -> RunCount:
         try:
-            return count_run(valgrind, specs[key], case, seed, n_calls, threads, cache_sim, timeout, pycache)
+            return count_run(valgrind, specs[key], case, seed, n_calls, threads, cache_sim, timeout, pycache, caches)
         except BackendFailure as exc:
             raise BackendFailure(f"{specs[key]}: {exc}") from None
 

@@ -156,7 +156,8 @@ def count_fields(it: GateItem) -> dict[str, Any]:
 
 def record_fingerprint(doc: dict[str, Any]) -> None:
     """Add this run's count fingerprint (:func:`fftgauge.harness.counts.fingerprint.count_fingerprint`)
-    to the document's ``counting`` record, in place.
+    to the document's ``counting`` record, and with ``--cache-sim`` the simulated caches
+    (``simulated_caches``: level -> [bytes, ways, line bytes]), in place.
 
     Raises
     ------
@@ -166,4 +167,9 @@ def record_fingerprint(doc: dict[str, Any]) -> None:
     from fftgauge.harness.counts.cachegrind import require_valgrind
     from fftgauge.harness.counts.fingerprint import count_fingerprint
 
-    doc.setdefault("counting", {})["fingerprint"] = count_fingerprint(require_valgrind())
+    from fftgauge.harness.counts.cachegrind import SIMULATED_CACHES
+
+    counting = doc.setdefault("counting", {})
+    counting["fingerprint"] = count_fingerprint(require_valgrind())
+    if counting.get("cache_sim"):
+        counting["simulated_caches"] = {level: list(v) for level, v in SIMULATED_CACHES.items()}
