@@ -109,8 +109,9 @@ def render_markdown(blocks: list[tuple], md_path: str) -> str:
 
 #: The page's style: readable widths, tables that scroll sideways on their own (on a phone
 #: too), text blocks that wrap instead of hiding lines in a scrolling box, images no wider
-#: than the page; on paper (``@media print``) the full width, no contents list, tables, plots
-#: and text blocks kept whole on a page, the verdict's colours printed.
+#: than the page; on paper (``@media print``) the full width, no contents list, small table
+#: text that may wrap (a table cannot scroll on paper), tables, plots and text blocks kept
+#: whole on a page, the verdict's colours printed.
 PAGE_STYLE = (
     "body{font-family:system-ui,sans-serif;max-width:1500px;margin:1.5em auto;padding:0 1.2em;color:#222;"
     "line-height:1.45;overflow-wrap:break-word}"
@@ -128,7 +129,8 @@ PAGE_STYLE = (
     "pre{padding:.5em;font-size:.8em}td,th{padding:.2em .4em}}"
     "@page{margin:1.5cm}"
     "@media print{body{max-width:none;margin:0;padding:0;font-size:10pt;color:#000}nav{display:none}"
-    ".table-wrap{overflow:visible}table{font-size:8pt}th{background:#eee}"
+    ".table-wrap{overflow:visible}table{font-size:7.5pt}th{background:#eee}"
+    "td,th,td:not(.text),td.short{white-space:normal;padding:.1em .3em;word-break:break-word}"
     "figure,table,pre,.verdict{break-inside:avoid}h2,h3{break-after:avoid}"
     ".verdict{border:1px solid #000;-webkit-print-color-adjust:exact;print-color-adjust:exact}"
     "pre{background:none;border:1px solid #ccc}}"
