@@ -23,6 +23,7 @@ from __future__ import annotations
 import argparse
 import json
 import os
+import resource
 import subprocess
 import sys
 import tempfile
@@ -33,16 +34,30 @@ PROJECTED_CORES = 32
 TARGET_RATIO = 1.2
 
 
-def run_check(sizes: str, path: str, cluster: str | None) -> tuple[float, int]:
-    """Return (wall seconds, exit code) of one ``fftgauge check`` run written to ``path``."""
+def children_cpu_seconds() -> float:
+    """Return the processor seconds (user + system) of every finished descendant so far."""
+    usage = resource.getrusage(resource.RUSAGE_CHILDREN)
+    return usage.ru_utime + usage.ru_stime
+
+
+def load() -> str:
+    """Return the one-minute load average as text."""
+    return f"{os.getloadavg()[0]:.2f}"
+
+
+def run_check(sizes: str, path: str, cluster: str | None) -> tuple[float, int, float]:
+    """Return (wall seconds, exit code, processor seconds of the command and every process it
+    started: its worker processes, and for ``local:N`` the Dask processes and theirs) of one
+    ``fftgauge check`` run written to ``path``."""
     cmd = [sys.executable, "-m", "fftgauge", "check", "--backend", "numpy", "--kinds", "fft", "--dtypes", "float64",
            "--sizes", sizes, "--quiet", "--json", path] + (["--cluster", cluster] if cluster else [])
+    cpu_before = children_cpu_seconds()
     started = time.perf_counter()
     proc = subprocess.run(cmd, cwd=ROOT, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
     seconds = time.perf_counter() - started
     if proc.returncode not in (0, 1):
         sys.exit(f"bench_cluster: {' '.join(cmd)} exited {proc.returncode}: {proc.stderr.strip()[-500:]}")
-    return seconds, proc.returncode
+    return seconds, proc.returncode, children_cpu_seconds() - cpu_before
 
 
 def same_rows(local: list[dict], cluster: list[dict]) -> bool:
@@ -57,8 +72,12 @@ def main() -> None:
     args = parser.parse_args()
     with tempfile.TemporaryDirectory() as tmp:
         local_path, cluster_path = os.path.join(tmp, "local.json"), os.path.join(tmp, "cluster.json")
-        local_seconds, local_code = run_check(args.sizes, local_path, None)
-        cluster_seconds, cluster_code = run_check(args.sizes, cluster_path, f"local:{args.processes}")
+        # the cluster first, then locally: a load that falls over the run does not favour the cluster
+        loads = [load()]
+        cluster_seconds, cluster_code, cluster_cpu = run_check(args.sizes, cluster_path, f"local:{args.processes}")
+        loads.append(load())
+        local_seconds, local_code, local_cpu = run_check(args.sizes, local_path, None)
+        loads.append(load())
         local, cluster = json.load(open(local_path)), json.load(open(cluster_path))
     record, chunks = cluster["cluster"], cluster["cluster"]["chunks"]
     overhead, tasks = record["task_overhead_seconds"], chunks["tasks"]
@@ -72,7 +91,9 @@ def main() -> None:
           f"exits {local_code} local, {cluster_code} cluster; rows equal apart from host: "
           f"{same_rows(local['rows'], cluster['rows'])}")
     print(f"local ({os.cpu_count()} cores): {local_seconds:.1f} s; local:{args.processes}: {cluster_seconds:.1f} s; "
-          f"ratio {ratio:.2f} (target <= {TARGET_RATIO}: {'meets' if ratio <= TARGET_RATIO else 'MISSES'})")
+          f"ratio {ratio:.2f} (target <= {TARGET_RATIO}: {'meets' if ratio <= TARGET_RATIO else 'MISSES'}); "
+          f"processor time {local_cpu:.1f} s local, {cluster_cpu:.1f} s cluster (ratio {cluster_cpu / local_cpu:.2f}); "
+          f"load average {' -> '.join(loads)} (before, between, after)")
     print(f"per-task overhead {overhead * 1e3:.1f} ms (median empty-task round trip) against "
           f"{chunks['work_seconds_per_task_median'] * 1e3:.0f} ms of work per task (median): overhead share "
           f"{chunks['overhead_share']:.1%}; {tasks} tasks of {chunks['cases_per_task_min']}.."
