@@ -244,3 +244,9 @@ def test_time_shapes_end_to_end(tmp_path):
     assert batch["batch"] == 8 and batch["points"] == 100 and batch["flops"] == pytest.approx(8 * 5 * 100 * math.log2(100))
     assert "16x16 axes=0,1 C" in out.stdout and doc["request"]["shapes"]
     assert (tmp_path / "t.png").stat().st_size > 0
+    # fftgauge report on the shaped file: the shaped table and plot, no 1-D scaling fit over N
+    report = _fftgauge("report", str(path), "--out", str(tmp_path / "rep"), "--markdown", str(tmp_path / "r.md"))
+    assert report.returncode == 0, report.stderr
+    page = (tmp_path / "r.md").read_text()
+    assert "| 100x8 axes=0 F | 8 | 100 |" in page and "time-per-call-shaped.png" in page
+    assert "shaped cases only: no scaling fit" in page

@@ -58,6 +58,12 @@ def draw_plots(inputs: ReportInputs, out: str, fmt: str, cases: list[Case] | Non
     notes: list[str] = []
     if inputs.time:
         rows = merged_time_rows(inputs.time)
+        if any(r.get("shape") for r in rows):  # shaped cases: their own plot (harness/report/shape_plots.py)
+            from fftgauge.harness.report.shape_plots import SHAPED_CAPTION, plot_shaped_time
+            images["time"].append((plot_shaped_time(rows, os.path.join(out, f"time-per-call-shaped.{fmt}")),
+                                   SHAPED_CAPTION))
+            rows = [r for r in rows if not r.get("shape")]
+    if inputs.time and rows:
         if relative_rows(timed_rows(rows)):
             images["time"].append((plots.plot_relative(rows, os.path.join(out, f"relative-speed.{fmt}")),
                                    RELATIVE_CAPTION))
@@ -145,7 +151,8 @@ def make_report(request: ReportRequest) -> ReportOutcome:
         outcome.notes += notes
         outcome.written += [p for section in images.values() for p, _ in section]
     if inputs.time:
-        text = "\n\n".join(f"{path}\n" + scaling_report(doc["rows"], doc.get("machine")) for path, doc in inputs.time)
+        text = "\n\n".join(f"{path}\n" + scaling_report([r for r in doc["rows"] if not r.get("shape")],  # 1-D only
+                                                        doc.get("machine")) for path, doc in inputs.time)
         scaling_path = os.path.join(request.out, "scaling.txt")
         write_text_atomic(scaling_path, text + "\n")
         outcome.written.append(scaling_path)

@@ -127,16 +127,24 @@ def _timing(inputs: ReportInputs, images: dict[str, list]) -> list[tuple]:
                         "(median and most over the sizes). GFLOP/s counts 5 N log2 N operations per complex "
                         "transform and 2.5 N log2 N per real one, whatever algorithm runs."))
     blocks.append(("table", TIMING_SUMMARY_HEADER, timing_summary(rows), set()))
-    for block in comparison_blocks(comparison_table(rows), "µs"):
+    for block in comparison_blocks(comparison_table([r for r in rows if not r.get("shape")]), "µs"):
         blocks.append(("h", 3, f"{block['kind']} {block['dtype']}: median time per transform (fastest in bold)"))
         bold = {(i, j) for i, j in enumerate(block["fastest"]) if j is not None}
         blocks.append(("table", block["header"], block["rows"], bold))
         if block.get("legend"):
             blocks.append(("p", block["legend"]))
+    from fftgauge.harness.report.shape_tables import shaped_blocks  # shaped cases, one line per shape
+
+    for block in shaped_blocks(rows, "µs"):
+        blocks.append(("h", 3, f"{block['title']}: median time of one call (fastest in bold)"))
+        blocks.append(("table", block["header"], block["rows"],
+                       {(i, j) for i, j in enumerate(block["fastest"]) if j is not None}))
     blocks += [("img", p, c) for p, c in images.get("time", [])]
     blocks.append(("h", 3, "Scaling"))
     for path, doc in inputs.time:
-        blocks.append(("pre", f"{path}\n" + scaling_report(doc["rows"], doc.get("machine"))))
+        flat = [r for r in doc["rows"] if not r.get("shape")]  # N alone does not order shaped cases
+        blocks.append(("pre", f"{path}\n" + (scaling_report(flat, doc.get("machine")) if flat else
+                                              "shaped cases only: no scaling fit over N (see the shaped plot)")))
     return blocks
 
 

@@ -19,7 +19,11 @@ from fftgauge.harness.errors import UsageError
 from fftgauge.harness.report.figures import (backend_colours, check_plot_path, new_figure, save_figure,
                                              seconds_tick, style_axes, styled, timed_rows)
 
-__all__ = ["draw_shaped_time", "plot_shaped_time", "series_name", "total_points"]
+__all__ = ["SHAPED_CAPTION", "draw_shaped_time", "plot_shaped_time", "series_name", "total_points"]
+
+#: The caption of the plot in a report page.
+SHAPED_CAPTION = ("Shaped cases: median time of one call (every transform of the batch) against the array's "
+                  "points, one line per backend, layout and axis; the band is the 95% interval of the median.")
 
 _MARKERS = ("o", "s", "^", "D", "v", "P", "X", "*")
 _LINESTYLES = ("-", "--", ":", "-.")
