@@ -203,6 +203,14 @@ def rate_gflops(row: dict[str, Any]) -> float | None:
     return gflops(flops, row["seconds"])
 
 
+def rate_text(rate: float | None, dtype: str) -> str:
+    """Return a rate cell: ``'5.12'`` (GFLOP/s), ``'0.512 Gop/s'`` for a q15/q31 case (the same
+    5 N log2 N count, integer operations: not floating point), ``'-'`` for None."""
+    if rate is None:
+        return "-"
+    return f"{rate:.3g} Gop/s" if dtype in ("q15", "q31") else f"{rate:.3g}"
+
+
 #: Columns of :func:`timing_summary`.
 TIMING_SUMMARY_HEADER = ["backend", "kind", "dtype", "sizes timed", "fastest at", "planning (median)",
                          "planning (most)", "largest N", "time at largest N", "peak memory at largest N",
@@ -242,6 +250,5 @@ def timing_summary(time_rows: Iterable[Any], micro: str = "µs") -> list[list[st
                       format_seconds(plans[(len(plans) - 1) // 2], micro) if plans else "-",
                       format_seconds(plans[-1], micro) if plans else "-", str(top["n"]),
                       format_seconds(top["seconds"], micro), format_bytes(top.get("peak_bytes")) or "-",
-                      f"{rate_gflops(top):.3g}" if rate_gflops(top) is not None else "-",
-                      f"{max(rates):.3g}" if rates else "-"])
+                      rate_text(rate_gflops(top), dtype), rate_text(max(rates) if rates else None, dtype)])
     return lines
