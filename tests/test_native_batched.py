@@ -220,3 +220,22 @@ def test_time_shapes_on_both_native_backends(c_example_build, tmp_path):
 def test_hello_dataclass_defaults_keep_old_constructions_working():
     hello = Hello(("fft",), ("float64",), ("backward",), True, False, None, "x")
     assert hello.version == 1 and hello.shaped_kinds == () and shaped_kinds_of(hello) == ()
+
+
+def test_shaped_battery_passes_the_example_and_finds_the_leaking_twin(c_example_build, tmp_path):
+    """fftgauge check --shapes (the shaped battery, its own ground truth) on the many shape, its
+    leaking twin and the version-2 server: no failure but the twin's, diagnosed batch-leak."""
+    good = many_spec(c_example_build, "complex")
+    leaking = many_spec(c_example_build, "complex", library="libradix2_many_leaking.so", label="leaking")
+    path = tmp_path / "c.json"
+    out = subprocess.run([sys.executable, "-m", "fftgauge", "check", "--backend", good, "--backend", leaking,
+                          "--backend", f"exec:{c_example_build / 'radix2_shaped_server'}", "--dtypes", "float64",
+                          "--shapes", "8x16 along -1,16x8 along 0,16x16", "--layouts", "C,F", "--quiet",
+                          "--json", str(path)], capture_output=True, text=True, timeout=300)
+    assert out.returncode == 1, out.stderr  # the twin fails
+    rows = [r for r in json.loads(path.read_text())["rows"] if r.get("shape")]
+    failed = [r for r in rows if r["status"] == "fail"]
+    assert failed and all(r["backend"] == "leaking" for r in failed)
+    assert {r["diagnosis"] for r in failed if r["check"] == "batch-independence"} == {"batch-leak"}
+    assert all(r["status"] in ("pass", "skip") for r in rows if r["backend"] != "leaking")
+    assert sum(r["status"] == "pass" for r in rows if r["backend"].startswith("exec:")) > 0
