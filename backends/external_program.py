@@ -8,7 +8,8 @@ The command line is split like a POSIX shell would split it (:func:`shlex.split`
 never run through a shell. ``PROGRAM`` is a path (relative to the current folder) or a
 name looked up on ``PATH``. Options (parsed and checked by the registry): ``timeout``
 (seconds to wait for one response, default 30) and ``start_timeout`` (seconds for the
-program to start and answer the hello, default 10).
+program to start and answer the hello, default 10); for a q15/q31 program ``output_shift``
+and ``rounding``, its declared fixed-point scaling (docs/fixed-point.md).
 
 The program is started once per backend (per worker process) and answers requests until
 its stdin closes. Its capabilities (kinds, precisions, norms, powers of two only, largest
