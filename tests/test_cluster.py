@@ -370,3 +370,21 @@ def test_a_worker_without_fftgauge_is_named_in_one_line_exit_2(tmp_path: Path, c
     err = capsys.readouterr().err.strip().splitlines()
     assert code == 2 and len(err) == 1
     assert "host 127.0.0.2" in err[0] and "No module named 'fftgauge'" in err[0] and "127.0.0.1" not in err[0]
+
+
+def test_a_wait_that_runs_out_is_one_line_not_a_traceback() -> None:
+    from fftgauge.harness.cluster.session import ClusterLost, call_with_timeout
+
+    with pytest.raises(ClusterLost, match="the probe got no answer within 0.1 s"):
+        call_with_timeout(lambda: time.sleep(5), 0.1, "the probe")
+    assert call_with_timeout(lambda: 42, 5.0, "an answer") == 42
+
+
+@pytest.mark.slow
+def test_workers_that_do_not_answer_the_check_in_time_are_exit_2(monkeypatch, capsys) -> None:
+    from fftgauge.harness.cluster import session
+
+    monkeypatch.setattr(session, "PROBE_TIMEOUT_SECONDS", 0.001)
+    assert main(["check", "--backend", "numpy", "--sizes", "8", "--cluster", "local:1", "--quiet"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "the check of the workers got no answer within 0.001 s" in err[0], err

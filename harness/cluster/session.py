@@ -225,8 +225,9 @@ def cluster_session(target: ClusterTarget, specs: list[str], threads: int | None
     Raises
     ------
     UsageError
-        For an unreachable scheduler, a cluster without workers, or workers lacking fftgauge
-        or a backend's library (:func:`probe_workers`).
+        For an unreachable scheduler, a cluster without workers, workers lacking fftgauge
+        or a backend's library (:func:`probe_workers`), or a :class:`ClusterLost` (a wait
+        that ran out) raised in the block.
     """
     quieted = quiet_dask_logs()
     cluster = start_local_cluster(target.local_processes) if target.is_local else None
@@ -243,6 +244,8 @@ def cluster_session(target: ClusterTarget, specs: list[str], threads: int | None
             print(f"cluster {target.text}: {len(session.workers)} worker(s) on {len(set(session.workers.values()))} "
                   f"host(s); dashboard {board}", file=sys.stderr)
         yield session
+    except ClusterLost as exc:  # a wait that ran out: the cluster stopped answering
+        raise UsageError(f"{exc} (cluster {target.text}); check the scheduler and its workers") from None
     finally:
         if client is not None:
             release(client)
