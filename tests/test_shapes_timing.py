@@ -250,3 +250,15 @@ def test_time_shapes_end_to_end(tmp_path):
     page = (tmp_path / "r.md").read_text()
     assert "| 100x8 axes=0 F | 8 | 100 |" in page and "time-per-call-shaped.png" in page
     assert "shaped cases only: no scaling fit" in page
+
+
+def test_self_timed_columns_are_marked_and_not_the_fastest_beside_harness_times():
+    from fftgauge.harness.report.shape_tables import shaped_blocks
+
+    rows = [_row("host", (64, 64), (0, 1), "C", 2e-4), {**_row("board", (64, 64), (0, 1), "C", 1e-5),
+                                                        "timing_source": "program"}]
+    block = shaped_blocks(rows)[0]
+    assert block["header"][3:5] == ["host", "board (self-timed)"]
+    assert block["fastest"] == [None]  # one fftgauge-timed column: nothing to compare it with
+    alone = shaped_blocks([rows[1], {**rows[1], "backend": "board2", "seconds": 2e-5}])[0]
+    assert alone["fastest"] == [3]  # only self-timed columns: the fastest of those

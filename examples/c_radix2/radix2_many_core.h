@@ -143,35 +143,46 @@ int FN(over_axes)(int family, int rank, const size_t *n, int naxes, const int *a
     return rc;
 }
 
-/* The many shape: gather each transform's block into a packed array (strides honoured, any
-   sign), transform it over all its axes, scatter it out. `in_width`/`out_width` are the reals
-   per element (2 complex, 1 real); `in_len`/`out_len` the lengths of each side. */
+/* The many shape: gather every transform's block into one packed array of shape
+   (howmany, n...) (strides honoured, any sign), transform it over all axes but the first in
+   one call (so each 1-D plan serves the whole batch), scatter it out. `in_width`/`out_width`
+   are the reals per element (2 complex, 1 real); `in_len`/`out_len` the lengths of each side. */
 static int FN(many_blocks)(int family, int rank, const size_t *n, const size_t *in_len, const size_t *out_len,
                            size_t howmany, const REAL *in, ptrdiff_t istride, ptrdiff_t idist, int in_width,
                            REAL *out, ptrdiff_t ostride, ptrdiff_t odist, int out_width)
 {
-    int axes[64];
-    if (rank < 1 || rank > 64)
+    int axes[63];
+    size_t batched[64];
+    if (rank < 1 || rank > 63 || howmany == 0)
         return RADIX2_ERR_ARGS;
-    for (int m = 0; m < rank; m++)
-        axes[m] = m;
+    batched[0] = howmany;
+    for (int m = 0; m < rank; m++) {
+        axes[m] = m + 1;
+        batched[m + 1] = n[m];
+    }
     size_t in_count = FN(volume_from)(rank, in_len, 0), out_count = FN(volume_from)(rank, out_len, 0);
-    REAL *a = malloc(sizeof(REAL) * in_width * in_count), *b = malloc(sizeof(REAL) * out_width * out_count);
+    REAL *a = calloc(in_width * in_count * howmany, sizeof(REAL));
+    REAL *b = malloc(sizeof(REAL) * out_width * out_count * howmany);
     int rc = (a == NULL || b == NULL) ? RADIX2_ERR_MEMORY : RADIX2_OK;
     for (size_t t = 0; t < howmany && rc == RADIX2_OK; t++) {
         const REAL *src = in + (ptrdiff_t)t * idist * in_width;
+        REAL *block = a + t * in_width * in_count;
         for (size_t j = 0; j < in_count; j++)
             for (int w = 0; w < in_width; w++)
-                a[in_width * j + w] = src[(ptrdiff_t)j * istride * in_width + w];
+                block[in_width * j + w] = src[(ptrdiff_t)j * istride * in_width + w];
 #ifdef LEAKING_BATCH
         if (t > 0)
-            a[0] += (REAL)0.01 * (in + (ptrdiff_t)(t - 1) * idist * in_width)[0];
+            block[0] += (REAL)0.01 * (in + (ptrdiff_t)(t - 1) * idist * in_width)[0];
 #endif
-        rc = FN(over_axes)(family, rank, n, rank, axes, a, b);
+    }
+    if (rc == RADIX2_OK)
+        rc = FN(over_axes)(family, rank + 1, batched, rank, axes, a, b);
+    for (size_t t = 0; t < howmany && rc == RADIX2_OK; t++) {
         REAL *dst = out + (ptrdiff_t)t * odist * out_width;
-        for (size_t j = 0; j < out_count && rc == RADIX2_OK; j++)
+        const REAL *block = b + t * out_width * out_count;
+        for (size_t j = 0; j < out_count; j++)
             for (int w = 0; w < out_width; w++)
-                dst[(ptrdiff_t)j * ostride * out_width + w] = b[out_width * j + w];
+                dst[(ptrdiff_t)j * ostride * out_width + w] = block[out_width * j + w];
     }
     free(a);
     free(b);

@@ -29,12 +29,15 @@ def shaped_blocks(rows: Iterable[dict[str, Any]], micro: str = "us") -> list[dic
         Each with ``title`` (``"fftn float64"``, the norm added when not backward), ``header``
         (``["shape", "batch", "N", backend..., "GFLOP/s"]``), ``rows`` (cell texts, ``"-"``
         where a backend has no time, ``skip``/``error`` where it skipped or failed) and
-        ``fastest`` (per line, the column index of the fastest backend, or None).
+        ``fastest`` (per line, the column index of the fastest backend, or None). A column whose
+        times the program measured itself is marked ``(self-timed)`` and is the fastest only on a
+        line where no fftgauge-timed column has a time.
     """
-    from fftgauge.harness.report.time_tables import format_seconds
+    from fftgauge.harness.report.time_tables import SELF_TIMED_MARK, format_seconds
 
     shaped = sorted((r for r in rows if r.get("shape")), key=row_order_key)
     backends = list(dict.fromkeys(r["backend"] for r in shaped))
+    self_timed = {r["backend"] for r in shaped if r.get("timing_source") == "program"}
     blocks: dict[tuple, dict[tuple, dict[str, dict]]] = {}
     for r in shaped:
         line = (tuple(r["shape"]), tuple(r["axes"]), r.get("layout"))
@@ -45,7 +48,9 @@ def shaped_blocks(rows: Iterable[dict[str, Any]], micro: str = "us") -> list[dic
         for by_backend in lines.values():
             first = next(iter(by_backend.values()))
             timed = {b: r for b, r in by_backend.items() if r.get("status", "ok") == "ok" and r.get("seconds")}
-            best = min(timed, key=lambda b: timed[b]["seconds"]) if timed else None
+            # the fastest among fftgauge-timed columns; self-timed ones only where none has a time
+            pool = {b: r for b, r in timed.items() if b not in self_timed} or timed
+            best = min(pool, key=lambda b: pool[b]["seconds"]) if pool else None
             texts = []
             for b in backends:
                 r = by_backend.get(b)
@@ -57,9 +62,10 @@ def shaped_blocks(rows: Iterable[dict[str, Any]], micro: str = "us") -> list[dic
                     texts.append(r.get("status") or "-")
             rate = f"{timed[best]['gflops']:.2f}" if best is not None and timed[best].get("gflops") else "-"
             cells.append([shape_text(first), str(first.get("batch")), str(first.get("points"))] + texts + [rate])
-            fastest.append(3 + backends.index(best) if best is not None and len(timed) > 1 else None)
+            fastest.append(3 + backends.index(best) if best is not None and len(pool) > 1 else None)
         title = f"{kind} {dtype}" + ("" if norm == "backward" else f" norm={norm}")
-        out.append({"title": title, "header": ["shape", "batch", "N"] + backends + ["GFLOP/s"], "rows": cells,
+        names = [f"{b} {SELF_TIMED_MARK}" if b in self_timed else b for b in backends]
+        out.append({"title": title, "header": ["shape", "batch", "N"] + names + ["GFLOP/s"], "rows": cells,
                     "fastest": fastest})
     return out
 
