@@ -290,3 +290,147 @@ def test_a_battery_run_carries_the_size_patterns_in_the_json_and_the_summary():
     bluestein = [r for r in doc["rows"] if r["backend"].endswith("bluestein_padding") and r["check"] == "accuracy"
                  and r["status"] == "fail"]
     assert bluestein and all(r["diagnosis"] == "localised" for r in bluestein)
+
+
+# -- issue 19: every pattern localised, in at most two lines per finding ----------------------------
+#
+# Sources: the DFT shift theorem (Oppenheim & Schafer, 3rd ed., Table 8.2), checked numerically
+# with numpy.fft below for the inverse kinds; the mixed-radix decimation-in-time split
+# X[q + s m] = sum_r w_p^(r s) W_N^(r q) S_r[q] (Cooley & Tukey 1965; Oppenheim & Schafer sec. 9.5,
+# from memory), checked numerically against numpy.fft in test_the_mixed_radix_split_rebuilds_the_dft.
+
+from fftgauge.harness.battery.localise import located, where_of  # noqa: E402
+from fftgauge.harness.battery.radix_pass import pass_error  # noqa: E402
+from fftgauge.harness.battery.reference import reference_transform  # noqa: E402
+
+
+def test_the_mixed_radix_split_rebuilds_the_dft():
+    for n, p in ((48, 3), (4096, 2), (35, 5)):
+        x = _input(n)
+        m, k = n // p, np.arange(n)
+        rebuilt = sum(np.exp(-2j * np.pi * r * k / n) * np.fft.fft(x[r::p])[k % m] for r in range(p))
+        assert np.allclose(rebuilt, _exact(x), rtol=0, atol=1e-9 * np.abs(_exact(x)).max())
+
+
+def test_a_radix3_bug_at_n3_is_localised_not_precision():
+    """The radix-3 butterfly constant sin(2 pi/3) written 0.8660: at n = 3 the error's size alone
+    reads as float32's level under float64, but DC (the plain sum) is right to float64's limit."""
+    case = Case("fft", "float64", 3)
+    x = _input(3)
+    y = bugs.radix3_rounded(x)
+    truth = _exact(x)
+    assert abs(y[0] - truth[0]) <= 1e-15 * np.linalg.norm(truth)  # DC uses no constant
+    err = float(np.linalg.norm(y - truth) / np.linalg.norm(truth))
+    assert _lower_precision_level(case, err, "float32")
+    code, message = diag.diagnose(case, x, y)
+    assert code == "localised", message
+    where, likely = where_of(message)
+    assert "rows 1..2 of a radix-3 butterfly" in where and "butterfly constant" in likely
+    assert diag.diagnose(case, x, bugs.radix3_pass(x))[0] == "localised"
+
+
+def test_the_radix3_pass_is_named_with_its_leg_and_its_butterfly():
+    case = Case("fft", "float64", 48)
+    x = _input(48)
+    code, message = diag.diagnose(case, x, bugs.radix3_pass(x))
+    assert code == "localised" and where_of(message)[0] == "leg 2 of the radix-3 pass: W_N^(k) for W_N^(2k)"
+    code, message = diag.diagnose(case, x, bugs.radix3_rounded(x))
+    where, likely = where_of(message)
+    assert code == "localised" and where == "radix-3 butterfly entries (row, leg) (1,1), (1,2), (2,1), (2,2)"
+    assert "too few digits" in likely and "2.5e-05" in likely  # 0.8660254 - 0.8660
+
+
+def test_the_large_size_path_twiddle_table_is_named():
+    case = Case("fft", "float64", 4096)
+    x = _input(4096)
+    code, message = diag.diagnose(case, x, bugs.large_path(x))
+    where, likely = where_of(message)
+    assert code == "localised" and where == "all 2048 twiddles of leg 1, radix-2 pass"
+    assert likely == "the twiddle table is built for N/2 points, not N"
+
+
+def test_a_right_output_gives_no_pass_error():
+    case = Case("fft", "float64", 48)
+    x = _input(48)
+    truth = _exact(x)
+    assert pass_error(case, x, truth, np.fft.fft(x), reference_transform) is None
+    noisy = np.fft.fft(x.astype(np.complex64)).astype(np.complex128)  # rounding in float32: no one line
+    assert pass_error(case, x, truth, noisy, reference_transform) is None
+
+
+def test_time_shifts_of_the_inverses_with_the_inverse_sign():
+    n = 64
+    x = _input(n)
+    t = np.arange(n)
+    y = bugs.half_sample_ifft(x)
+    assert np.allclose(y, np.fft.ifft(x) * np.exp(1j * np.pi * t / n))  # the + sign of the inverse
+    code, message = diag.diagnose(Case("ifft", "float64", n), x, y)
+    assert code == "time-shifted" and "estimated d = 0.5" in message and "exp(+2j pi t d / N)" in message
+    for m in (64, 33):
+        half = _input(m // 2 + 1)
+        half[0] = half[0].real
+        if m % 2 == 0:
+            half[-1] = half[-1].real
+        y = bugs.half_sample_irfft(half, m)
+        k = np.arange(half.shape[0])
+        # shift theorem: the forward transform of the output is the spectrum times exp(-j pi k / N)
+        ok = slice(0, -1) if m % 2 == 0 else slice(None)
+        assert np.allclose(np.fft.rfft(y)[ok], (half * np.exp(-1j * np.pi * k / m))[ok])
+        code, message = diag.diagnose(Case("irfft", "float64", m), half, y)
+        assert code == "time-shifted" and "estimated d = 0.5" in message, message
+
+
+def test_a_located_message_reads_back():
+    text = "relative rms error 3 eps: " + located("bins 1, 2", "a twiddle", "long account; with: colons.")
+    assert where_of(text) == ("bins 1, 2", "a twiddle")
+    assert where_of("no marker here") is None
+
+
+#: Per broken FFT of the battery run below: what its finding's two lines must name (size rule on
+#: the first line, where and the likely code on the second).
+EXPECTED_FINDINGS = {
+    "radix3_pass": ("localised", "sizes: n divisible by 3", "radix-3"),
+    "radix3_rounded": ("localised", "sizes: n divisible by 3", "radix-3 butterfly"),
+    "bluestein_padding": ("localised", "sizes: n prime and n > 61", "bin k = 0 only; likely: a loop bound one short"),
+    "large_path": ("localised", "sizes: n even and n > 128", "twiddle table is built for N/2 points"),
+    "radix2_last_twiddle": ("localised", "sizes: n > 2",
+                            "bins N/2-1, N-1 (last stage's last butterfly); likely: the twiddle index of the last "
+                            "stage runs one past the table"),
+    "half_sample": ("time-shifted", "sizes: n > 1", "delayed by half a sample; likely: a half-sample offset"),
+    "half_sample_ifft[kind=ifft]": ("time-shifted", "sizes: n > 1", "delayed by half a bin"),
+    "half_sample_irfft[kind=irfft]": ("time-shifted", "sizes: n > 1", "delayed by half a sample"),
+    "real_fast_path": ("localised", "sizes: n > 2", ("upper half of the spectrum only", "likely: X[N-k] = conj X[k]")),
+    "aliased_output": ("output-aliased", "fails at every size tried", "likely: the function returns its internal output "
+                                                                        "buffer"),
+    "odd_real[kind=rfft]": ("localised", "sizes: n odd, n > 1", "of odd N only; likely: the odd-N branch treats the "
+                                                                 "last bin as a Nyquist bin"),
+    "no_rule": ("localised", "no size rule fits", "2 of 5 bins"),
+}
+
+
+def test_every_pattern_is_a_finding_of_at_most_two_lines_naming_rule_and_place():
+    from fftgauge.harness.battery import run as battery
+    from fftgauge.harness.report.check_tables import finding_lines, format_summary, rows_frame
+    from fftgauge.harness.report.findings import summary_width
+
+    specs = tuple(f"{DATA}:{name}" for name in EXPECTED_FINDINGS) + ("numpy", "scipy", "pyfftw")
+    sizes = tuple(range(1, 17)) + (22, 39, 56, 61, 67, 97, 101, 128, 4093, 4096, 5000, 6561)  # 6561: odd, passes
+    req = battery.BatteryRequest(specs=specs, kinds=None, dtypes=("float64",), sizes=sizes,
+                                 checks=("accuracy", "symmetry", "repeatable"))
+    doc = battery.run_battery(req, quiet=True)
+    width = summary_width()
+    entries = finding_lines(doc["rows"])
+    for entry in entries:
+        lines = entry.split("\n")
+        assert len(lines) <= 2 and all(len(line) <= width for line in lines), entry
+    for name, (cause, rule, place) in EXPECTED_FINDINGS.items():
+        mine = [e for e in entries if e.startswith(f"  localised_bugs:{name} · {cause} ")]
+        assert len(mine) == 1, (name, [e for e in entries if f":{name} " in e])
+        first, second = mine[0].split("\n")
+        assert rule in first, mine[0]
+        assert all(part in second for part in ((place,) if isinstance(place, str) else place)), mine[0]
+    text = format_summary(rows_frame(doc["rows"]))
+    for library in ("numpy", "scipy", "pyfftw"):  # they pass: no finding, no size pattern, no located message
+        assert not any(e.startswith(f"  {library} ") for e in entries)
+        assert f"  {library} · " not in text
+        assert not any("where: " in str(r["message"]) for r in doc["rows"] if r["backend"] == library)

@@ -22,6 +22,7 @@ import numpy as np
 
 from fftgauge.backends.base import FunctionPlan, Plan
 from fftgauge.harness.errors import BackendFailure
+from fftgauge.harness.battery.localise import located
 from fftgauge.harness.execution.crash import exception_text
 
 
@@ -70,6 +71,8 @@ def kept_output_change(plan: Plan, x: np.ndarray, other: np.ndarray) -> str | No
         return None
     same = isinstance(second, np.ndarray) and np.shares_memory(first, second)
     how = "the second call returned the same array" if same else "the array it returned was written to later"
-    return (f"the result of one call changed when the function was called again with another input: {changed} of "
-            f"{kept.size} values of the caller's kept result differ ({how}): the function returns its internal "
-            f"output buffer; return a new array (or a copy) from each call")
+    detail = (f"the result of one call changed when the function was called again with another input: {changed} of "
+              f"{kept.size} values of the caller's kept result differ ({how}): the function returns its internal "
+              f"output buffer; return a new array (or a copy) from each call")
+    return located(f"a kept result ({changed} of {kept.size} values changed by the next call)",
+                   "the function returns its internal output buffer (return a copy)", detail)

@@ -227,7 +227,7 @@ def _bins_notes(bins: tuple[int, ...], case: Case, length: int, truth: np.ndarra
                      "W_N^(N/2-1): the twiddle index of the last stage runs one past the table (or the table is "
                      "one short)")
         stage = int(n).bit_length() - 1
-        where = "bins N/2-1, N-1 (the last stage's last butterfly)"
+        where = "bins N/2-1, N-1 (last stage's last butterfly)"
         likely = "the twiddle index of the last stage runs one past the table"
     elif not notes and is_power_of_two(n) and case.kind in ("fft", "ifft"):
         found = stage_of(bins, n)
