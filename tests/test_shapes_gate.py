@@ -150,3 +150,15 @@ def test_gate_shapes_in_stored_mode_exits_2_with_one_line(tmp_path):
     assert out.returncode == 2
     lines = out.stderr.strip().splitlines()
     assert len(lines) == 1 and "--shapes" in lines[0] and "Traceback" not in out.stderr
+
+
+def test_a_shaped_time_file_as_stored_baseline_says_what_it_holds(tmp_path):
+    """A baseline written by fftgauge time --shapes is refused with the way to gate shapes, not as corrupt."""
+    from fftgauge.harness.gate.history import load_stored_runs
+
+    out = subprocess.run([sys.executable, "-m", "fftgauge", "time", "--backend", "numpy", "--shapes", "4x4",
+                          "--kinds", "fftn", "--samples", "5", "--rounds", "1", "--no-memory", "--quiet",
+                          "--json", str(tmp_path / "t.json")], capture_output=True, text=True, timeout=120)
+    assert out.returncode == 0, out.stderr
+    with pytest.raises(UsageError, match="holds shaped cases"):
+        load_stored_runs(str(tmp_path / "t.json"), 5, False)

@@ -157,6 +157,9 @@ def _usable_rows(path: str, doc: dict[str, Any]) -> list[dict[str, Any]]:
         missing = [k for k in ("backend", "kind", "dtype", "n") if k not in row]
         if missing:
             raise UsageError(f"baseline {path!r}: row {i} lacks {', '.join(missing)}; the file is corrupt or was edited")
+        if row.get("shape"):  # a fftgauge time --shapes file
+            raise UsageError(f"baseline {path!r} holds shaped cases (fftgauge time --shapes); a stored baseline "
+                             f"holds 1-D cases: gate shapes in A/B mode, --old SPEC --new SPEC --shapes ...")
         n = row["n"]
         if (not isinstance(row["backend"], str) or row["kind"] not in KINDS or row["dtype"] not in DTYPES
                 or (row.get("norm") or "backward") not in NORMS or not isinstance(n, int) or isinstance(n, bool)
