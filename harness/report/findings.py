@@ -39,6 +39,12 @@ DIAGNOSIS_MEANINGS = {
     "scaling-shift": "a fixed-point output is right but shifted by other bits than its declared output shift",
     "rounding": "a fixed-point SQNR matching a radix-2 that truncates where rounding was declared (or the reverse)",
     "twiddle-bits": "a fixed-point SQNR matching a radix-2 whose twiddle factors have too few bits",
+    "wrong-axis": "the transform runs along other axes than the ones asked for",
+    "transposed": "the right answer with its axes transposed",
+    "batch-leak": "the rows of a batch leak into each other's outputs",
+    "layout": "right for a C-ordered input, wrong for the same values in another memory layout",
+    "hermitian-half": "an N-D inverse real transform that treats every line along the halved axis as a Hermitian half "
+                      "by itself",
     "unknown": "wrong, and none of the known bugs explains it",
 }
 
