@@ -41,7 +41,9 @@ overflow        (tested before the candidates) only the outputs of largest magni
                 wrong, some with the sign flipped: a fixed-point sum wrapped around
 localised       (after the candidates) the error sits in a few output bins (or one half of
                 the spectrum), the rest are right: one wrong twiddle or butterfly (:mod:`~fftgauge.harness.battery.localise`
-                names the bins and, for a power of two, the radix-2 stage); never ``precision``
+                names the bins and, for a power of two, the radix-2 stage), or one wrong line of
+                the last mixed-radix pass (:mod:`~fftgauge.harness.battery.radix_pass`: a leg's
+                twiddle exponent or table, the butterfly matrix); never ``precision``
 time-shifted    every bin off by a phase growing linearly with k: the input delayed by d
                 samples, d possibly fractional (DFT shift theorem)
 precision       right structure, error spread over the bins, between 0.1 unit roundoff

@@ -30,6 +30,13 @@
     the error is spread over the bins with no structure found: rounding (a lower precision)
     or nondeterminism, not one wrong line of code.
 
+Below :data:`SMALL_N` bins, where "a few" cannot be a small fraction, a proper subset of wrong
+bins whose other bins are right to the case's accuracy limit is ``bins`` too
+(:func:`right_to_limit`). :func:`inverse_delay` finds the delay of an ifft/irfft output from its
+forward transform. Every structured localisation carries a short ``where`` and ``likely`` (the
+line of code in a typical implementation) besides its ``words``; :func:`located` puts the three
+in one message and :func:`where_of` reads the short two back for the terminal summary.
+
 It runs only on a failed output (in the worker, from :func:`~fftgauge.harness.battery.diagnosis.diagnose`),
 where the output and the ground truth are both at hand.
 """
