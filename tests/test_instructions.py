@@ -1,7 +1,8 @@
 """The instruction-count metric: cachegrind output parsing, the K/2K difference, the count ratio
 and its interval, the request's checks, the outputs' metric column; end to end under valgrind
-(marked slow, skipped where valgrind is missing): a fixed extra 1% / 5% of work is seen, 0% is
-``same``, a crashing backend is an ``error`` row."""
+(marked slow, skipped where valgrind is missing): a fixed extra 1% / 5% of work is seen in A/B,
+stored and referenced modes (one saved A/B run shared), the same code is ``same``, simulated
+last-level misses grow past the simulated cache, a crashing backend is one line."""
 
 import json
 import math
@@ -160,40 +161,97 @@ def test_outputs_name_the_metric():
     assert doc["metric"] == "instructions" and doc["counting"]["repeats"] == 3
 
 
-@pytest.mark.slow
-@needs_valgrind
-def test_counts_see_one_and_five_percent_of_extra_work():
-    specs = {"base": f"{FIXED}:fft", "again": f"{FIXED}:fft", "plus1": f"{FIXED}:fft_plus1",
-             "plus5": f"{FIXED}:fft_plus5"}
-    got = count_sides(cachegrind.require_valgrind(), specs, Case("fft", "float64", 64), seed=1234, calls=10,
-                      repeats=2)
-    same, plus1, plus5 = (count_ratio(got[k], got["base"]) for k in ("again", "plus1", "plus5"))
-    # the same code on both sides: 3e-3 leaves room for the count's wander seen in fresh
-    # clones with the suite on two cores (5.4e-4, and a spread of 1.4e-3), below the 1% to be seen
-    assert abs(same.ratio - 1.0) < 3e-3
-    # extra passes are 1% and 5% of the passes (the call's fixed overhead makes the ratios a little
-    # less); the bounds leave 2e-3 for the counts' own wander in a tree other processes edit
-    assert 1.008 < plus1.ratio < 1.012 and plus1.ratio_low > 1.0
-    assert 1.045 < plus5.ratio < 1.052 and plus5.ratio_low > 1.0
-    verdicts = [v[0] for v in decide([_estimate(r) for r in (same, plus1, plus5)], 0.005, 0.05)]
-    assert verdicts == ["same", "slower", "slower"]
-    assert [v[0] for v in decide([_estimate(r) for r in (same, plus5)], 0.01, 0.05)] == ["same", "slower"]
-    assert max(c.spread for c in got.values()) < 3e-3  # the count's own spread, measured (see above)
+@pytest.fixture(scope="module")
+def history(tmp_path_factory):
+    """One A/B count gate run (old ``fft``, new ``fft_plus1``: 1% more numpy passes), saved into a
+    history folder; the A/B, stored and referenced tests below share it (8 valgrind runs)."""
+    if shutil.which("valgrind") is None:
+        pytest.skip("valgrind is not installed")
+    folder = tmp_path_factory.mktemp("counts")
+    code = cli.main(["gate", "--old", f"{FIXED}:fft", "--new", f"{FIXED}:fft_plus1", "--metric", "instructions",
+                     "--threshold", "0.5%", "--kinds", "fft", "--sizes", "64", "--count-repeats", "2",
+                     "--count-transforms", "10", "--json", str(folder / "ab.json"), "--junit", str(folder / "ab.xml"),
+                     "--save", str(folder / "hist"), "--quiet"])
+    return code, folder, json.loads((folder / "ab.json").read_text())
+
+
+# Bounds. With the driver's entropy pinned and its bytecode frozen, fresh processes count the
+# same run to the instruction (measured on the 2-core development machine at load 3-8: run
+# totals equal in 3 of 3 processes, and per-transform counts equal with other environment sizes,
+# another bytecode cache path and randomisation on); before, totals wandered by up to 4.5e3
+# (entropy-seeded start-up) and by millions when a source file was edited during a count.
+# The same code counted by two gate runs (the history's A/B run and a stored-mode run) differed
+# by 1.9e-4 per transform (4,257,770 against 4,256,962; each run's repeats equal to the
+# instruction; cause not found: not the environment's size, the simulated caches, the bytecode
+# cache's path or randomisation, each measured equal). The bounds keep 1e-6 for the repeats'
+# spread and 5e-4 for the same code across gate runs (was 3e-3), below the 1% to be seen.
+SAME_CODE = 5e-4
 
 
 @pytest.mark.slow
-@needs_valgrind
-def test_gate_cli_fails_on_five_percent_more_instructions(tmp_path, capsys):
-    out = tmp_path / "gate.json"
-    code = cli.main(["gate", "--old", f"{FIXED}:fft", "--new", f"{FIXED}:fft_plus5", "--metric", "instructions",
-                     "--kinds", "fft", "--sizes", "64", "--count-repeats", "2", "--count-transforms", "10",
-                     "--json", str(out), "--junit", str(tmp_path / "g.xml"), "--quiet"])
-    doc = json.loads(out.read_text())
+def test_ab_counts_see_one_percent_more_work(history):
+    code, folder, doc = history
     assert code == 1 and doc["outcome"] == "regression" and doc["metric"] == "instructions"
     (row,) = doc["rows"]
     assert row["metric"] == "instructions" and row["verdict"] == "slower" and row["seconds"] is None
-    assert row["instructions"] > row["baseline_instructions"] and row["count_repeats"] == 2
-    assert "in instructions per transform" in (tmp_path / "g.xml").read_text()
+    # 101 passes against 100: 1% more work, less the call's fixed overhead
+    assert 1.008 < row["ratio"] < 1.012 and row["ratio_low"] > 1.0
+    assert row["count_repeats"] == 2 and len(row["instructions_repeats"]) == 2
+    assert row["instructions_spread"] < 1e-6 and row["baseline_instructions_spread"] < 1e-6
+    assert "in instructions per transform" in (folder / "ab.xml").read_text()
+    fp = doc["counting"]["fingerprint"]
+    assert fp["valgrind"].startswith("valgrind-") and fp["instruction_set"]["found"]
+
+
+@pytest.mark.slow
+def test_stored_counts_of_the_same_code_are_the_same(history, tmp_path):
+    _, folder, ab = history
+    out = tmp_path / "stored.json"
+    code = cli.main(["gate", "--backend", f"{FIXED}:fft_plus1", "--baseline", str(folder / "hist"), "--metric",
+                     "instructions", "--count-repeats", "2", "--count-transforms", "10", "--cache-sim",
+                     "--json", str(out), "--quiet"])
+    doc = json.loads(out.read_text())
+    (row,) = doc["rows"]
+    assert code == 0 and row["verdict"] == "same" and row["baseline_runs"] == 1
+    assert abs(row["ratio"] - 1.0) < SAME_CODE, row["ratio"]  # another gate run, other processes and caches
+    assert row["baseline_instructions_repeats"] == ab["rows"][0]["instructions_repeats"]
+    # n = 64 fits the simulated 8 MiB last level: under one miss per point per transform (the
+    # test below sees the misses grow past a smaller one)
+    assert 0 <= row["ll_misses"] < 64 and row["baseline_ll_misses"] is None
+    assert doc["counting"]["simulated_caches"]["LL"] == [8388608, 16, 64]
+
+
+@pytest.mark.slow
+def test_referenced_counts_see_five_percent_against_the_stored_one(history, tmp_path):
+    _, folder, ab = history
+    out = tmp_path / "ref.json"
+    code = cli.main(["gate", "--old", f"{FIXED}:fft", "--new", f"{FIXED}:fft_plus5", "--baseline",
+                     str(folder / "hist"), "--baseline-backend", "fixed_work_fft:fft_plus1", "--metric",
+                     "instructions", "--kinds", "fft", "--sizes", "64", "--count-repeats", "2",
+                     "--count-transforms", "10", "--json", str(out), "--quiet"])
+    (row,) = json.loads(out.read_text())["rows"]
+    assert code == 1 and row["verdict"] == "slower" and row["baseline_runs"] == 1
+    assert 1.045 < row["ab_ratio"] < 1.052  # 105 passes against 100
+    # this run's A/B ratio against the stored one (101 against 100)
+    assert row["ratio"] == pytest.approx(row["ab_ratio"] / ab["rows"][0]["ratio"], rel=1e-9)
+    assert row["ratio_low"] > 1.0
+
+
+@pytest.mark.slow
+@needs_valgrind
+def test_cache_sim_sees_a_working_set_beyond_the_last_level():
+    """A simulated last level of 256 KiB: n = 1024 (32 KiB in and out) fits, n = 65536 (2 MiB)
+    does not. Measured: 0.62 and 4.15 misses per point per transform."""
+    from concurrent.futures import ThreadPoolExecutor
+
+    def misses(n, calls):
+        got = count_sides(cachegrind.require_valgrind(), {"x": "numpy"}, Case("fft", "float64", n), seed=1234,
+                          calls=calls, repeats=1, cache_sim=True, caches={"LL": (262144, 16, 64)})["x"]
+        return got.ll_median / n
+
+    with ThreadPoolExecutor(max_workers=2) as pool:
+        fits, exceeds = pool.map(misses, (1024, 65536), (8, 2))
+    assert fits >= 0 and exceeds > 3 * fits and exceeds > 1.0
 
 
 @pytest.mark.slow
