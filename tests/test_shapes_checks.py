@@ -109,6 +109,7 @@ def test_hermitian_extension_and_clean_half_give_a_real_signal():
     ShapeCase("irfft", "float32", (4, 9, 3), (1,)), ShapeCase("rfftn", "float64", (16, 12, 10), (2, 0)),
     ShapeCase("ifftn", "float64", (5, 6, 7), (0, 1, 2), "F"), ShapeCase("rfft", "float64", (7, 12), (-1,), "strided"),
     ShapeCase("ifft", "float32", (6, 10), (0,), "reversed", "ortho"),
+    ShapeCase("rfftn", "longdouble", (6, 8), (0, 1), "F", "ortho"), ShapeCase("ifft", "longdouble", (9, 8), (0,), "C", "forward"),
 ], ids=lambda c: c.label())
 def test_numpy_passes_every_shaped_check(case):
     rows = check_shaped_case(NumpyBackend(), case, seed=5)

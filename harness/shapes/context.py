@@ -133,9 +133,12 @@ class ShapedContext:
         """The complex dtype comparisons are made in: complex128, or clongdouble for long double."""
         return np.dtype(np.clongdouble if self.case.dtype == "longdouble" else np.complex128)
 
-    def scale(self, case: ShapeCase | None = None) -> float:
-        """The normalisation factor of ``case`` (default: this one): the product over its axes."""
+    def scale(self, case: ShapeCase | None = None) -> Any:
+        """The normalisation factor of ``case`` (default: this one), the product over its axes,
+        in the work precision (long double for long double cases)."""
         case = case or self.case
+        if self.work_dtype == np.dtype(np.clongdouble):
+            return norm_factor(case.points, case.norm, case.is_inverse, np.longdouble, np.sqrt)
         return float(norm_factor(case.points, case.norm, case.is_inverse))
 
     def limit_of(self, case: ShapeCase) -> float:
@@ -292,7 +295,8 @@ class ShapedContext:
             diagnosis: str | None = None, message: str = "", eps: bool = True,
             reference: str | None = None) -> CheckRow:
         """Return one row of this case; ``eps_units`` from ``value`` when ``eps`` is True."""
-        value = finite_or_none(value)
+        value = finite_or_none(None if value is None else float(value))  # plain floats (long double values too)
+        limit = None if limit is None else float(limit)
         eps_units = bounds.eps_units(value, self.case.dtype) if (eps and value is not None) else None
         return shaped_row(self.label, self.case, check, status, value=value, limit=limit, eps_units=eps_units,
                           diagnosis=diagnosis if status == "fail" else None, message=message,
