@@ -15,6 +15,9 @@ DATA_DIR = Path(__file__).parent / "data"
 #: How long the leftover ``sleep`` of tests/data/misbehaving.py sleeps: a value of this test
 #: process's own, so tests that count those sleepers machine-wide (psutil) see only their own
 #: when two test processes run at once (pytest -n 2).
+# The terminal summary fits its findings to the terminal's width (harness/report/findings.py);
+# the tests read it at one fixed width, whatever terminal (or none) the suite runs under.
+os.environ["COLUMNS"] = "120"
 os.environ.setdefault("FFTGAUGE_TEST_SLEEP_SECONDS", f"987.{os.getpid() % 1000:03d}")
 C_EXAMPLE = Path(__file__).resolve().parent.parent / "examples" / "c_radix2"
 #: What the example builds: the shared libraries and protocol servers, each also broken
