@@ -19,7 +19,7 @@ from fftgauge.harness import cli
 from fftgauge.harness.cases import Case
 from fftgauge.harness.counts import cachegrind
 from fftgauge.harness.counts.cachegrind import RunCount, default_calls, parse_counts, per_transform
-from fftgauge.harness.counts.measure import SPREAD_FLOOR, CaseCount, _misses_per_transform, count_ratio, count_sides
+from fftgauge.harness.counts.measure import SPREAD_FLOOR, CaseCount, misses_per_transform, count_ratio, count_sides
 from fftgauge.harness.errors import BackendFailure, UsageError
 from fftgauge.harness.gate.decision import decide
 from fftgauge.harness.gate.outputs import csv_text, junit_xml, markdown_summary, summary_text
@@ -63,13 +63,13 @@ def test_per_transform_is_the_difference_over_k():
         per_transform(short, RunCount(20, {"Ir": 1_000_000}, 1.0))
 
 
-def test_misses_per_transform_is_the_difference_over_k_and_never_below_zero():
+def testmisses_per_transform_is_the_difference_over_k_and_never_below_zero():
     def run(calls, misses):
         return RunCount(calls, {"Ir": 1, "ILmr": misses, "DLmr": 0, "DLmw": 0}, 1.0)
 
-    assert _misses_per_transform(run(10, 1000), run(20, 1640)) == 64.0
+    assert misses_per_transform(run(10, 1000), run(20, 1640)) == 64.0
     # start-up noise larger than the transforms' own misses (seen in CI: -25.6 with K = 10)
-    assert _misses_per_transform(run(10, 1000), run(20, 744)) == 0.0
+    assert misses_per_transform(run(10, 1000), run(20, 744)) == 0.0
 
 
 def test_default_calls_bounds():

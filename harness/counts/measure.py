@@ -57,7 +57,7 @@ class CaseCount:
         return None if self.ll_misses is None else float(np.median(self.ll_misses))
 
 
-def _misses_per_transform(short: RunCount, long: RunCount) -> float:
+def misses_per_transform(short: RunCount, long: RunCount) -> float:
     """Return the simulated last-level misses per transform: the misses of the run of 2K
     transforms less those of the run of K, over K, and 0 where that difference is negative.
 
@@ -73,7 +73,7 @@ def _side_count(pairs: list[tuple[RunCount, RunCount]], calls: int) -> CaseCount
     instr = tuple(per_transform(a, b) for a, b in pairs)
     misses = None
     if all(ll_misses(a.counts) is not None for a, _ in pairs):
-        misses = tuple(_misses_per_transform(a, b) for a, b in pairs)
+        misses = tuple(misses_per_transform(a, b) for a, b in pairs)
     return CaseCount(calls, instr, misses, sum(a.seconds + b.seconds for a, b in pairs))
 
 
