@@ -27,13 +27,17 @@ C_TARGETS = {"libradix2.so": ("-fPIC", "-shared"), "libradix2_broken.so": ("-DMI
              # Q15 (radix2_q15.c), broken with -DMISSING_SATURATION
              "libradix2_q15.so": ("-fPIC", "-shared"), "libradix2_q15_broken.so": ("-DMISSING_SATURATION", "-fPIC", "-shared"),
              "radix2_q15_server": (), "radix2_q15_server_broken": ("-DMISSING_SATURATION",),
+             # Q31 (radix2_q31.c), broken with -DMISSING_SATURATION
+             "radix2_q31_server": (), "radix2_q31_server_broken": ("-DMISSING_SATURATION",),
              # the batched and N-D shape (radix2_many.c), its leaking twin (-DLEAKING_BATCH), the version-2 server
              "libradix2_many.so": ("-fPIC", "-shared"), "libradix2_many_leaking.so": ("-DLEAKING_BATCH", "-fPIC", "-shared"),
              "radix2_shaped_server": ()}
 #: Sources of the targets that are not radix2.c (with its server) or radix2_q15.c (without make).
 C_MANY_SOURCES = {"libradix2_many.so": ("radix2_many.c", "radix2.c"),
                   "libradix2_many_leaking.so": ("radix2_many.c", "radix2.c"),
-                  "radix2_shaped_server": ("radix2_shaped_server.c", "radix2_many.c", "radix2.c")}
+                  "radix2_shaped_server": ("radix2_shaped_server.c", "radix2_many.c", "radix2.c"),
+                  "radix2_q31_server": ("radix2_q31_server.c", "radix2_q31.c"),
+                  "radix2_q31_server_broken": ("radix2_q31_server.c", "radix2_q31.c")}
 
 
 def c_compiler() -> str | None:

@@ -1,6 +1,7 @@
 """Fixed point through the pipe protocol (``exec:``): the q15/q31 precision codes and hello
-bits, the C example's Q15 server (examples/c_radix2/radix2_q15_server.c) and its twin
-without saturation, and the backwards compatibility of float-only programs.
+bits, the C example's Q15 and Q31 servers (examples/c_radix2/radix2_q15_server.c,
+radix2_q31_server.c) and their twins without saturation, and the backwards compatibility of
+float-only programs.
 
 Sources: the expected outputs are the built-in reference's (harness/fixed/radix2.py), itself
 checked bit for bit against exact rational arithmetic in tests/test_fixed_point.py; the
@@ -28,11 +29,17 @@ from fftgauge.harness.fixed.formats import FORMATS, quantise
 from fftgauge.harness.fixed.radix2 import FixedRadix2
 
 Q15 = FORMATS["q15"]
+Q31 = FORMATS["q31"]
 ROOT = Path(__file__).resolve().parent.parent
 
 
 def q15_server(build: Path, name: str = "radix2_q15_server", options: str = "[output_shift=log2n]"):
     """Return the exec: backend of the example's Q15 server (``name`` in the build folder)."""
+    return load_backend(f"exec:{build / name}{options}")
+
+
+def q31_server(build: Path, name: str = "radix2_q31_server", options: str = "[output_shift=log2n]"):
+    """Return the exec: backend of the example's Q31 server (``name`` in the build folder)."""
     return load_backend(f"exec:{build / name}{options}")
 
 
@@ -145,3 +152,80 @@ def test_command_line_through_exec(c_example_build, tmp_path):
                            capture_output=True, text=True)
     assert wrong.returncode == 2 and "Traceback" not in wrong.stderr
     assert len(wrong.stderr.strip().splitlines()) == 1 and "output_shift" in wrong.stderr
+
+
+# -- the C example's Q31 server ---------------------------------------------------------------
+
+def test_q31_server_matches_the_reference_bit_for_bit(c_example_build):
+    """Through the protocol (precision code 0x84, int32 pairs), one request per transform and
+    one batch: equal to the built-in radix-2 in q31 (1/2 per stage, round half up,
+    saturation) at N = 1..4096; the hello claims fft in q31 only."""
+    backend = q31_server(c_example_build)
+    try:
+        caps = backend.capabilities()
+        assert caps.dtypes == ("q31",) and caps.kinds == ("fft",)
+        rng = np.random.default_rng(4)
+        for t in range(13):
+            n = 1 << t
+            x = quantise((rng.uniform(-1, 1, n) + 1j * rng.uniform(-1, 1, n)) * 0.7, Q31)
+            plan = backend.plan(Case("fft", "q31", n))
+            got = plan.execute(x)
+            assert got.shape == (n, 2) and got.dtype == np.int32
+            assert np.array_equal(got, FixedRadix2(Q31, "stage", "round-half-up").transform(x).pairs), n
+            both = plan.execute_batch(np.stack([x, x[::-1]]))
+            assert both.shape == (2, n, 2) and np.array_equal(both[0], got)
+    finally:
+        backend.close()
+
+
+def test_q31_server_refuses_other_precision_codes_on_the_wire(c_example_build):
+    """Raw requests to the program (docs/external-backends.md's layout): a q31 request (0x84)
+    of an impulse is answered ok with the impulse's flat spectrum over N (output shift log2 N,
+    the DFT of a unit impulse being all ones); the same request coded q15 (0x82) or float64
+    (8) is answered status 1 (unsupported), and the server stays in step for the next one."""
+    from fftgauge.backends.pipe_protocol import RESPONSE_HEADER, encode_hello
+
+    n = 8
+    x = np.zeros((n, 2), dtype=np.int32)
+    x[0, 0] = 1 << 30                           # 0.5 in Q31
+    payload = x.tobytes()                       # little-endian host, as the example assumes
+    proc = subprocess.Popen([str(c_example_build / "radix2_q31_server")], stdin=subprocess.PIPE, stdout=subprocess.PIPE)
+
+    def ask(request: bytes) -> tuple[int, bytes]:
+        proc.stdin.write(request)
+        proc.stdin.flush()
+        head = RESPONSE_HEADER.unpack(proc.stdout.read(RESPONSE_HEADER.size))
+        return head[2], proc.stdout.read(head[6])
+
+    try:
+        status, _ = ask(encode_hello())
+        assert status == 0
+        for dtype in ("q15", "float64"):
+            request = bytearray(encode_transform(Case("fft", "q31", n), 1, len(payload)))
+            request[9] = {"q15": 0x82, "float64": 8}[dtype]
+            status, message = ask(bytes(request) + payload)
+            assert status == 1 and b"q31" in message, (dtype, message)
+        status, body = ask(encode_transform(Case("fft", "q31", n), 1, len(payload)) + payload)
+        assert status == 0
+        y = np.frombuffer(body, dtype=np.int32).reshape(n, 2)
+        # 0.5 / 8 = 2^27 in every bin's real part, 0 imaginary: exact (each halving is of an even number)
+        assert np.array_equal(y[:, 0], np.full(n, 1 << 27)) and not y[:, 1].any()
+    finally:
+        proc.stdin.close()
+        proc.wait(timeout=30)
+
+
+def test_q31_server_passes_and_its_twin_without_saturation_fails(c_example_build):
+    """The Q31 server passes every fixed-point check; the -DMISSING_SATURATION twin fails
+    overflow with diagnosis overflow (sums wrap around), N = 16 and 1024."""
+    good, bad = q31_server(c_example_build), q31_server(c_example_build, "radix2_q31_server_broken")
+    try:
+        for n in (16, 1024):
+            rows = {r.check: r for r in fixed_check_case(good, Case("fft", "q31", n), 5)}
+            assert {r.status for r in rows.values() if r.check != "round-trip"} == {"pass"}, [r.message for r in rows.values()]
+            broken = {r.check: r for r in fixed_check_case(bad, Case("fft", "q31", n), 5)}
+            assert (broken["overflow"].status, broken["overflow"].diagnosis) == ("fail", "overflow"), n
+            assert "sums wrap around inside" in broken["overflow"].message
+    finally:
+        good.close()
+        bad.close()

@@ -8,126 +8,26 @@
  *
  * Its hello says version 2, every kind on arrays, up to 8 axes at once. It times its own
  * transforms (CLOCK_MONOTONIC around the compute only). Anything for a human goes to stderr.
+ * The protocol's I/O (headers, responses, the hello record) is pipe_io.h's, shared by the servers.
  */
-#define _POSIX_C_SOURCE 199309L
-#include <stdint.h>
-#include <stdio.h>
-#include <stdlib.h>
-#include <string.h>
-#include <time.h>
-
+#include "pipe_io.h"
 #include "radix2.h"
 #include "radix2_many.h"
 
-#define OP_HELLO 1
-#define OP_TRANSFORM 2
-#define OP_TRANSFORM_SHAPED 3
-#define STATUS_OK 0
-#define STATUS_UNSUPPORTED 1
-#define STATUS_BAD_REQUEST 2
-#define STATUS_FAILED 3
-#define STATUS_VERSION 4
-#define HEADER_BYTES 32
 #define MAX_N ((uint64_t)1 << 24)
 #define MAX_RANK 8
 #define IDENTITY "radix2_shaped_server 1.0"
 
-typedef struct {
-    uint16_t version, op;
-    uint8_t kind, precision, norm, rank;
-    uint32_t count;
-    uint64_t n, payload_bytes;
-} request_t;
-
-static uint64_t get_le(const unsigned char *p, int bytes)
-{
-    uint64_t v = 0;
-    for (int i = bytes - 1; i >= 0; i--)
-        v = (v << 8) | p[i];
-    return v;
-}
-
-static void put_le(unsigned char *p, uint64_t v, int bytes)
-{
-    for (int i = 0; i < bytes; i++, v >>= 8)
-        p[i] = (unsigned char)(v & 0xff);
-}
-
-static int read_exact(void *buf, size_t bytes)
-{
-    return fread(buf, 1, bytes, stdin) == bytes;
-}
-
-static int skip(uint64_t bytes)
-{
-    for (uint64_t i = 0; i < bytes; i++)
-        if (getchar() == EOF)
-            return 0;
-    return 1;
-}
-
-static int read_request(request_t *r)
-{
-    unsigned char h[HEADER_BYTES];
-    if (!read_exact(h, sizeof h) || memcmp(h, "FGRQ", 4) != 0)
-        return 0;
-    r->version = (uint16_t)get_le(h + 4, 2);
-    r->op = (uint16_t)get_le(h + 6, 2);
-    r->kind = h[8];
-    r->precision = h[9];
-    r->norm = h[10];
-    r->rank = h[11];
-    r->count = (uint32_t)get_le(h + 12, 4);
-    r->n = get_le(h + 16, 8);
-    r->payload_bytes = get_le(h + 24, 8);
-    return 1;
-}
-
-static void respond(int version, int status, int timed, uint64_t elapsed_ns, const void *payload, uint64_t bytes)
-{
-    unsigned char h[HEADER_BYTES] = {0};
-    memcpy(h, "FGRS", 4);
-    put_le(h + 4, (uint64_t)version, 2);
-    put_le(h + 6, (uint64_t)status, 2);
-    put_le(h + 8, timed ? 1 : 0, 4);
-    put_le(h + 16, elapsed_ns, 8);
-    put_le(h + 24, bytes, 8);
-    fwrite(h, 1, sizeof h, stdout);
-    if (bytes)
-        fwrite(payload, 1, (size_t)bytes, stdout);
-    fflush(stdout);
-}
-
-static void respond_error(int version, int status, const char *message)
-{
-    respond(version, status, 0, 0, message, strlen(message));
-}
-
 static void hello(void)
 {
-    unsigned char caps[16 + sizeof IDENTITY - 1] = {0};
-    caps[0] = 0x0f;       /* kinds: fft, ifft, rfft, irfft */
-    caps[1] = 0x03;       /* precisions: float32, float64 */
-    caps[2] = 0x01;       /* norms: backward */
-    caps[3] = 0x03;       /* flags: powers of two only, reports its own elapsed time */
-    put_le(caps + 4, 2, 2);  /* speaks protocol version 2 */
-    caps[6] = 0x0f;       /* shaped kinds: every family */
-    caps[7] = MAX_RANK;   /* up to 8 axes in one transform */
-    put_le(caps + 8, MAX_N, 8);
-    memcpy(caps + 16, IDENTITY, sizeof IDENTITY - 1);
-    respond(1, STATUS_OK, 0, 0, caps, sizeof caps);
-}
-
-static uint64_t now_ns(void)
-{
-    struct timespec t;
-    clock_gettime(CLOCK_MONOTONIC, &t);
-    return (uint64_t)t.tv_sec * 1000000000u + (uint64_t)t.tv_nsec;
+    /* kinds: fft, ifft, rfft, irfft; precisions: float32, float64; flags: powers of two only,
+       reports its own elapsed time; speaks protocol version 2, shaped: every family, up to 8 axes */
+    send_hello(0x0f, 0x03, 0x03, 2, 0x0f, MAX_RANK, MAX_N, IDENTITY);
 }
 
 static int is_pow2(uint64_t n)
 {
-    return n >= 1 && (n & (n - 1)) == 0 && n <= MAX_N;
+    return is_pow2_upto(n, MAX_N);
 }
 
 /* Version 1: r->count 1-D transforms of length r->n, one after the other in the payload. */
@@ -176,7 +76,7 @@ static int transform_shaped(const request_t *r)
     unsigned char raw[8 * 2 * MAX_RANK];
     int rank = r->rank, naxes = (int)r->count;
     if (rank < 1 || rank > MAX_RANK || naxes < 1 || naxes > rank || r->payload_bytes < 8u * (rank + naxes)) {
-        if (!skip(r->payload_bytes))
+        if (!skip_payload(r->payload_bytes))
             return 0;
         respond_error(2, STATUS_UNSUPPORTED, "rank must be 1..8 and the axes 1..rank");
         return 1;
@@ -198,7 +98,7 @@ static int transform_shaped(const request_t *r)
     }
     uint64_t data = r->payload_bytes - 8u * (rank + naxes);
     if (!ok) {
-        if (!skip(data))
+        if (!skip_payload(data))
             return 0;
         respond_error(2, STATUS_UNSUPPORTED, "every transformed length must be a power of two up to 2^24, "
                                              "every axis below the rank and listed once");
@@ -244,7 +144,7 @@ int main(void)
     while (read_request(&r)) {
         int shaped = r.op == OP_TRANSFORM_SHAPED;
         if (r.version != (shaped ? 2 : 1)) {  /* hello and 1-D requests: version 1 */
-            if (!skip(r.payload_bytes))
+            if (!skip_payload(r.payload_bytes))
                 return 1;
             respond_error(r.version == 2 ? 2 : 1, STATUS_VERSION,
                           "this program speaks protocol version 1 (1-D requests) and 2 (shaped requests)");
@@ -260,7 +160,7 @@ int main(void)
         }
         if (r.kind > 3 || (r.precision != 4 && r.precision != 8) || r.norm != 0 ||
             (!shaped && (r.count == 0 || !is_pow2(r.n)))) {
-            if (!skip(r.payload_bytes))
+            if (!skip_payload(r.payload_bytes))
                 return 1;
             respond_error(r.version, STATUS_UNSUPPORTED, "kind, precision, norm or n not supported");
             continue;
