@@ -6,6 +6,8 @@ Source: the rows are made here by hand, so what each line must say is known exac
 
 from __future__ import annotations
 
+import pytest
+
 from fftgauge.harness.report.check_tables import finding_lines, format_summary, rows_frame
 
 
@@ -72,3 +74,62 @@ def test_one_line_per_backend_that_declared_a_convention():
                      "mine: declared sign=+1, forward_scale=1/n, inverse_scale=1, packing=halfcomplex "
                      "(checked in numpy's convention)"]
     assert "declared" not in format_summary(rows_frame([_row("dit", "accuracy", "pass")]))
+
+
+LONG_MESSAGE = ("relative rms error 3.1e-03 (2.8e+13 eps) worst on the real part; the outputs of the second "
+                "half of the spectrum are the complex conjugates of a wrongly mirrored first half, "
+                "look at the loop that fills X[N-k] from X[k] near bin 1000 (zzlastword)")
+
+
+def _words(lines):
+    return " ".join(lines).split()
+
+
+@pytest.mark.parametrize("columns", [60, 80])
+def test_a_long_finding_wraps_at_the_terminal_width_and_loses_no_word(monkeypatch, columns):
+    """At COLUMNS=60 and 80 a finding longer than the line wraps, with a hanging indent, and
+    every word of it (the same finding at an unbounded width) is there, in order, the last
+    word of its message included."""
+    from fftgauge.harness.report.findings import findings, summary_width
+
+    monkeypatch.setenv("COLUMNS", str(columns))
+    assert summary_width() == columns
+    rows = [_row("a-rather-long-backend-name", check, "fail", "unknown", n=n, dtype="float64",
+                 message=LONG_MESSAGE, eps=2.8e13)
+            for check in ("accuracy", "parseval", "linearity") for n in (3, 5, 7, 11, 13, 17, 19, 23)]
+    (found,) = findings(rows)
+    wide = found.summary_lines(width=10**6)
+    assert len(wide) == 2 and "zzlastword)" in wide[1]
+    lines = found.summary_lines()
+    assert len(lines) > 2
+    assert _words(lines) == _words(wide)
+    assert all(len(line) <= columns for line in lines), lines
+    assert lines[0].startswith("  a-rather-long-backend-name · unknown")
+    second = [i for i, line in enumerate(lines) if line.startswith("    ") and not line.startswith("      ")]
+    assert len(second) == 1 and lines[second[0]].startswith("    worst fft float64")  # part 2, then continuations
+    assert all(line.startswith("      ") for i, line in enumerate(lines) if i not in (0, second[0]))
+    text = format_summary(rows_frame(rows))  # the whole summary's findings, at the terminal's width
+    entry = text.split("details in the results file):\n", 1)[1].split("\n\n")[0]
+    assert _words(entry.split("\n")) == _words(wide)
+    assert all(len(line) <= columns for line in entry.split("\n"))
+
+
+@pytest.mark.parametrize("columns", [60, 80])
+def test_a_long_shaped_finding_wraps_and_loses_no_word(monkeypatch, columns):
+    """The shaped summary's findings (harness/shapes/summary.py) wrap the same way: every
+    word of the unbounded line is there at COLUMNS=60 and 80."""
+    from fftgauge.harness.shapes.summary import shaped_summary_lines
+
+    monkeypatch.setenv("COLUMNS", str(columns))
+    rows = [dict(_row("a-rather-long-backend-name", "accuracy", "fail", "layout", n=144, dtype="float64",
+                      kind="fftn", message=LONG_MESSAGE, eps=2.8e13), shape=[12, 12], axes=[0, 1], layout=layout)
+            for layout in ("F", "strided")]
+    wide = shaped_summary_lines(rows, width=10**6)
+    narrow = shaped_summary_lines(rows)
+    (finding,) = [line for line in wide if line.startswith("  a-rather-long-backend-name · layout")]
+    assert "zzlastword)" in finding and len(finding) > columns
+    at = [i for i, line in enumerate(narrow) if line.startswith("  a-rather-long-backend-name · layout")][0]
+    block = [narrow[at]] + [line for line in narrow[at + 1:] if line.startswith("      ")]
+    assert len(block) > 1 and _words(block) == finding.split()
+    found_at = narrow.index(block[-1]) + 1
+    assert all(len(line) <= columns for line in narrow[at:found_at])

@@ -100,12 +100,12 @@ def finding_lines(rows: Iterable[dict[str, Any]], per_backend: int = FINDINGS_PE
 
     Nothing is cut silently: past ``per_backend`` lines for one backend, one line says how many
     more findings that backend has and where they are; every backend's first finding is listed.
-    Each entry (at most two lines, :meth:`~fftgauge.harness.report.findings.Finding.summary_lines`)
-    gives the cases and sizes the cause covers, their size rule, and where in the output and the
-    likely code, or the worst case's message
+    Each entry (:meth:`~fftgauge.harness.report.findings.Finding.summary_lines`, wrapped at the
+    terminal's width, never cut) gives the cases and sizes the cause covers, their size rule,
+    and where in the output and the likely code, or the worst case's message
     (:func:`fftgauge.harness.report.findings.findings` does the grouping).
     """
-    from fftgauge.harness.report.findings import findings
+    from fftgauge.harness.report.findings import findings, wrap_line
 
     rows = [dict(r) for r in rows]
     order = list(dict.fromkeys(str(r["backend"]) for r in rows))
@@ -115,11 +115,12 @@ def finding_lines(rows: Iterable[dict[str, Any]], per_backend: int = FINDINGS_PE
     out = []
     for backend, found_here in by_backend.items():
         for found in found_here[:max(1, per_backend)]:
-            out.append("\n".join(found.summary_lines()))  # at most two lines (findings.Finding.summary_lines)
+            out.append("\n".join(found.summary_lines()))  # two parts, each wrapped (findings.Finding.summary_lines)
         hidden = len(found_here) - max(1, per_backend)
         if hidden > 0:
-            out.append(f"  {backend}: {hidden} more finding{'s' if hidden != 1 else ''} (distinct causes) not listed "
-                       f"here; every row is in the results file (its path is printed below)")
+            out.append("\n".join(wrap_line(
+                f"  {backend}: {hidden} more finding{'s' if hidden != 1 else ''} (distinct causes) not listed "
+                f"here; every row is in the results file (its path is printed below)")))
     return out
 
 
@@ -158,26 +159,27 @@ def format_summary(df: pd.DataFrame, backends: dict[str, Any] | None = None) -> 
     if (shown["norm"] == "backward").all():
         shown = shown.drop(columns=["norm"])
     text = shown.to_string(index=False)
-    from fftgauge.harness.report.findings import case_counts
+    from fftgauge.harness.report.findings import case_counts, wrap_line
 
     counts = case_counts(df.to_dict("records"))
     verdict = ("PASS: every case held" if counts["wrong"] + counts["error"] == 0 else
                f"FAIL: {counts['wrong']} case(s) gave wrong answers, {counts['error']} could not run (raised, "
                f"crashed, timed out, returned something unusable or left processes running), "
                f"{counts['passed']} passed")
-    lines = [verdict, "", text]
+    lines = [*wrap_line(verdict), "", text]
     conventions = convention_lines(backends)
     if conventions:
         lines += [""] + conventions
     records = df.astype(object).where(df.notna(), None).to_dict("records")
     findings = finding_lines(records)
     if findings:
-        lines += ["", "findings, one per cause, two lines each (backend · diagnosis (checks): cases, sizes; size "
-                      "rule / where, likely code; details in the results file):"] + findings
+        lines += ["", *wrap_line("findings, one per cause, in two parts (backend · diagnosis (checks): cases, sizes; "
+                                 "size rule / where, likely code; details in the results file):"), *findings]
     from fftgauge.harness.battery.size_patterns import pattern_lines
 
     patterns = pattern_lines(records)
     if patterns:
-        lines += ["", "size patterns (backend · kind precision: the rule over n that tells failing sizes from "
-                      "passing ones):"] + patterns
+        lines += ["", *wrap_line("size patterns (backend · kind precision: the rule over n that tells failing sizes "
+                                 "from passing ones):")]
+        lines += [part for line in patterns for part in wrap_line(line)]
     return "\n".join(lines)

@@ -117,18 +117,17 @@ class Finding:
 
 
     def summary_lines(self, width: int | None = None) -> list[str]:
-        """Return the finding in at most two terminal lines of ``width`` columns
-        (:func:`summary_width` when None): who, what and where over n (the size rule, or that
-        none fits), then where in the output and the likely line of code (the row's
+        """Return the finding as terminal lines of at most ``width`` columns (:func:`summary_width`
+        when None), in two parts: who, what and where over n (the size rule, or that none fits),
+        then where in the output and the likely line of code (the row's
         :func:`~fftgauge.harness.battery.localise.located` part), or the size rule's code path
-        and the worst case's message. Past the width a line ends in "..."; every detail is in
-        the results file."""
+        and the worst case's message. Each part is wrapped (:func:`wrap_line`), never cut: its
+        words are the same at every width; every further detail is in the results file."""
         from fftgauge.harness.battery.localise import where_of
 
         width = summary_width() if width is None else width
         worst = self.worst
-        rule = self._rule_words()
-        first = _fit_first_line(self, rule, width)
+        first = _first_line(self, self._rule_words())
         found = None if self.could_not_run else where_of(str(worst.get("message") or ""))
         if found is not None:
             second = f"{found[0]}; likely: {found[1]}"
@@ -137,7 +136,7 @@ class Finding:
             head = f"look at {suggests[0]}; " if suggests else ""
             case = f"{worst.get('kind')} {worst.get('dtype')} n={worst.get('n')}"
             second = f"{head}worst {case}: {_first_part(worst.get('message'))}"
-        return [first, _clip("    " + second, width)]
+        return wrap_line(first, width) + wrap_line("    " + second, width)
 
     def _rule_words(self) -> str:
         """Return the size rule part of the first line ("" when the finding has no pattern)."""
@@ -151,9 +150,12 @@ class Finding:
         return "no size rule fits"
 
 
-#: The terminal width the summary uses when standard output is no terminal (and its least).
+#: The terminal width the summary uses when standard output is no terminal (and its least,
+#: below which a hanging indent leaves too little room for words).
 SUMMARY_WIDTH_DEFAULT = 120
-SUMMARY_WIDTH_LEAST = 80
+SUMMARY_WIDTH_LEAST = 40
+#: The indent of a wrapped line's continuation lines (deeper than any line's own indent).
+SUMMARY_HANGING_INDENT = "      "
 
 
 def summary_width() -> int:
@@ -164,8 +166,19 @@ def summary_width() -> int:
     return max(SUMMARY_WIDTH_LEAST, shutil.get_terminal_size((SUMMARY_WIDTH_DEFAULT, 24)).columns)
 
 
-def _clip(line: str, width: int) -> str:
-    return line if len(line) <= width else line[: width - 3].rstrip() + "..."
+def wrap_line(line: str, width: int | None = None, hanging: str = SUMMARY_HANGING_INDENT) -> list[str]:
+    """Return ``line`` wrapped at ``width`` columns (:func:`summary_width` when None): its own
+    leading spaces kept on the first line, the continuation lines indented by ``hanging``.
+    Words are never cut or dropped (a word longer than the room left stands on a line of its
+    own, past the width); a line that fits is returned as it is."""
+    import textwrap
+
+    width = summary_width() if width is None else width
+    if len(line) <= width:
+        return [line]
+    lead = line[: len(line) - len(line.lstrip(" "))]
+    return textwrap.wrap(line.lstrip(" "), width=width, initial_indent=lead, subsequent_indent=hanging,
+                         break_long_words=False, break_on_hyphens=False) or [line]
 
 
 def _first_part(message: Any) -> str:
@@ -181,25 +194,24 @@ def _first_part(message: Any) -> str:
     return text
 
 
-def _fit_first_line(found: "Finding", rule: str, width: int) -> str:
-    """Return the first line (backend, cause, checks, cases, panels, sizes, size rule) within
-    ``width``: the lists are shortened before the rule is cut."""
+#: How much of its lists a finding's first line names: checks, runs of sizes, panels (the
+#: rest as "+N" and "... (N sizes)"; every one is in the results file).
+CHECKS_SHOWN, SIZE_RUNS_SHOWN, PANELS_SHOWN = 8, 12, 4
+
+
+def _first_line(found: "Finding", rule: str) -> str:
+    """Return the first part of a finding (backend, cause, checks, cases, panels, sizes, size
+    rule), whatever the terminal's width."""
     from fftgauge.harness.report.check_tables import compress_sizes
 
     plural = "s" if found.cases != 1 else ""
-    line = ""
-    for checks_shown, size_limit, panels_shown in ((8, 12, 4), (2, 6, 2), (2, 3, 1), (0, 2, 1), (0, 0, 1)):
-        checks = (", ".join(found.checks[:checks_shown]) + (
-            f" +{len(found.checks) - checks_shown}" if len(found.checks) > checks_shown else "")
-            if checks_shown else f"{len(found.checks)} check{'s' if len(found.checks) != 1 else ''}")
-        panels = ", ".join(found.panels[:panels_shown]) + (
-            f" +{len(found.panels) - panels_shown}" if len(found.panels) > panels_shown else "")
-        sizes = f" at n = {compress_sizes(found.sizes, limit=max(1, size_limit))}" if size_limit or not rule else ""
-        line = (f"  {found.backend} · {found.cause} ({checks}): {found.cases} case{plural} ({panels}){sizes}"
-                + (f"; {rule}" if rule else ""))
-        if len(line) <= width:
-            return line
-    return _clip(line, width)
+    checks = ", ".join(found.checks[:CHECKS_SHOWN]) + (
+        f" +{len(found.checks) - CHECKS_SHOWN}" if len(found.checks) > CHECKS_SHOWN else "")
+    panels = ", ".join(found.panels[:PANELS_SHOWN]) + (
+        f" +{len(found.panels) - PANELS_SHOWN}" if len(found.panels) > PANELS_SHOWN else "")
+    sizes = f" at n = {compress_sizes(found.sizes, limit=SIZE_RUNS_SHOWN)}"
+    return (f"  {found.backend} · {found.cause} ({checks}): {found.cases} case{plural} ({panels}){sizes}"
+            + (f"; {rule}" if rule else ""))
 
 
 def _error_kind(message: Any) -> str:

@@ -4,7 +4,8 @@ prints them, the shaped rows by shape.
 The shaped part has a verdict line, one table line per backend x kind x precision (cases
 passed, failed, errors, skipped; worst accuracy in eps with its limit; the failing shapes;
 the diagnoses), one finding per backend and diagnosis (the checks that saw it, the shapes,
-the worst case's message), and the shaped cases not run, one line per reason.
+the worst case's message), and the shaped cases not run, one entry per reason; findings and
+not-run entries wrap at the terminal's width, never cut.
 """
 
 from __future__ import annotations
@@ -109,8 +110,12 @@ def _not_run(rows: list[dict[str, Any]]) -> list[str]:
             for (backend, _), members in groups.items()]
 
 
-def shaped_summary_lines(rows: list[dict[str, Any]]) -> list[str]:
-    """Return the shaped part of the summary (verdict, table, findings, not run) as lines."""
+def shaped_summary_lines(rows: list[dict[str, Any]], width: int | None = None) -> list[str]:
+    """Return the shaped part of the summary (verdict, table, findings, not run) as lines: the
+    findings and not-run lines wrapped at ``width`` columns (the terminal's when None,
+    :func:`~fftgauge.harness.report.findings.wrap_line`), never cut."""
+    from fftgauge.harness.report.findings import wrap_line
+
     if not rows:
         return []
     statuses = {}
@@ -126,11 +131,13 @@ def shaped_summary_lines(rows: list[dict[str, Any]]) -> list[str]:
     lines = [verdict, ""] + ([_table(run)] if run else ["no shaped case was run"])
     found = _findings(rows)
     if found:
-        lines += ["", "shaped findings, one per cause (backend · diagnosis (checks): cases; worst case: what was seen):"]
-        lines += found
+        lines += ["", *wrap_line("shaped findings, one per cause (backend · diagnosis (checks): cases; worst case: "
+                                 "what was seen):", width)]
+        lines += [part for line in found for part in wrap_line(line, width)]
     skipped = _not_run(rows)
     if skipped:
-        lines += ["", "shaped cases not run (one line per reason):"] + skipped
+        lines += ["", "shaped cases not run (one entry per reason):"]
+        lines += [part for line in skipped for part in wrap_line(line, width)]
     return lines
 
 
