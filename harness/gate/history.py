@@ -19,6 +19,7 @@ from typing import TYPE_CHECKING, Any, Sequence
 
 from fftgauge.harness.cases import DTYPES, KINDS, NORMS, Case
 from fftgauge.harness.errors import UsageError
+from fftgauge.harness.shapes.case import SHAPE_KINDS, ShapeCase, family_kind
 
 if TYPE_CHECKING:  # the estimates import scipy.stats: not at the command line's start-up
     from fftgauge.harness.gate.estimates import StoredBaseline
@@ -50,23 +51,66 @@ class StoredRun:
     complete: bool = True
 
 
-def case_of(row: dict[str, Any]) -> Case:
-    """Return the :class:`~fftgauge.harness.cases.Case` a stored row describes (norm ``backward`` when absent)."""
-    return Case(row["kind"], row["dtype"], int(row["n"]), row.get("norm") or "backward")
+def case_of(row: dict[str, Any]) -> Case | ShapeCase:
+    """Return the case a stored row describes: a :class:`~fftgauge.harness.cases.Case` for a
+    1-D row, a :class:`~fftgauge.harness.shapes.case.ShapeCase` for a row with a ``shape``
+    (keyed by kind, precision, shape, axes, layout and norm; ``n`` is N, derived). Norm
+    ``backward`` and layout ``C`` when absent.
+
+    Raises
+    ------
+    ValueError, TypeError, KeyError
+        For a row no case can be built from (the loaders turn this into a corrupt-file error).
+    """
+    norm = row.get("norm") or "backward"
+    if row.get("shape") is not None:
+        return ShapeCase(row["kind"], row["dtype"], tuple(int(v) for v in row["shape"]),
+                         tuple(int(a) for a in row["axes"]), row.get("layout") or "C", norm)
+    return Case(row["kind"], row["dtype"], int(row["n"]), norm)
+
+
+def case_order_key(case: Case | ShapeCase) -> tuple:
+    """Return the sort key of a stored case: 1-D kinds first, then the shaped ones (the 1-D names
+    of a batch, then the ``n`` names), precision, norm, N, then shape, axes and layout."""
+    if isinstance(case, ShapeCase):
+        return (len(KINDS) + SHAPE_KINDS.index(case.kind), case.dtype, case.norm, case.points, case.shape,
+                case.axes, case.layout)
+    return (KINDS.index(case.kind), case.dtype, case.norm, case.n, (), (), "")
 
 
 def stored_cases(runs: Sequence[StoredRun], label: str, kinds: Sequence[str] | None = None,
-                 dtypes: Sequence[str] | None = None, sizes: Sequence[int] | None = None) -> list[Case]:
-    """Return the cases the stored runs hold for backend ``label``, filtered by ``kinds``,
-    ``dtypes`` and ``sizes`` when given, in the stored order (kind, dtype, norm, n)."""
+                 dtypes: Sequence[str] | None = None, sizes: Sequence[int] | None = None,
+                 shapes: Sequence[Any] | None = None,
+                 layouts: Sequence[str] | None = None) -> list[Case | ShapeCase]:
+    """Return the cases the stored runs hold for backend ``label``, in :func:`case_order_key` order.
+
+    Without ``sizes`` and ``shapes`` every stored case, 1-D and shaped; ``sizes`` keeps the 1-D
+    cases of those sizes, ``shapes`` (items of the ``--shapes`` grammar,
+    :class:`~fftgauge.harness.shapes.grammar.ShapeSpec`) the shaped cases of those shapes and
+    axes (``layouts``, when given, of those layouts). ``kinds`` and ``dtypes`` filter both when
+    given; a kind names its family's form for the case's axis count (``fft`` keeps ``fftn``
+    cases of a 2-D shape, as ``--kinds`` does for ``--shapes``).
+    """
     cases = {case_of(r) for run in runs for r in run.rows if r["backend"] == label}
     if kinds:
-        cases = {c for c in cases if c.kind in kinds}
+        cases = {c for c in cases if c.kind in kinds
+                 or (isinstance(c, ShapeCase) and c.kind in {family_kind(k, len(c.axes)) for k in kinds})}
     if dtypes:
         cases = {c for c in cases if c.dtype in dtypes}
     if sizes:
-        cases = {c for c in cases if c.n in sizes}
-    return sorted(cases, key=lambda c: (KINDS.index(c.kind), c.dtype, c.norm, c.n))
+        cases = {c for c in cases if isinstance(c, Case) and c.n in sizes}
+    if shapes:
+        wanted = {(tuple(s.shape), tuple(s.axes)) for s in shapes}
+        cases = {c for c in cases if isinstance(c, ShapeCase) and (c.shape, c.axes) in wanted
+                 and (not layouts or c.layout in layouts)}
+    return sorted(cases, key=case_order_key)
+
+
+def shapes_not_stored(runs: Sequence[StoredRun], label: str, shapes: Sequence[Any]) -> list[str]:
+    """Return the ``--shapes`` items (their grammar labels) of which the stored runs hold no
+    case of backend ``label`` at all, in the order given."""
+    held = {(c.shape, c.axes) for c in stored_cases(runs, label) if isinstance(c, ShapeCase)}
+    return [s.label() for s in shapes if (tuple(s.shape), tuple(s.axes)) not in held]
 
 
 def baseline_for(runs: Sequence[StoredRun], label: str, case: Case,
@@ -140,6 +184,44 @@ def _number(value: Any) -> bool:
     return isinstance(value, (int, float)) and not isinstance(value, bool)
 
 
+def _integers(value: Any) -> bool:
+    return isinstance(value, list) and bool(value) and all(isinstance(v, int) and not isinstance(v, bool)
+                                                          for v in value)
+
+
+def check_stored_case(path: str, i: int, row: dict[str, Any]) -> None:
+    """Check that row ``i`` of the stored file ``path`` names a possible case: a 1-D one (kind,
+    precision, norm, a positive integer ``n``) or, with a ``shape``, a shaped one (``shape`` and
+    ``axes`` lists of integers that make a :class:`~fftgauge.harness.shapes.case.ShapeCase`
+    with its ``kind``, precision, ``layout`` and norm); return nothing.
+
+    Raises
+    ------
+    UsageError
+        For a row that lacks a case field or holds an impossible case (the file is corrupt).
+    """
+    missing = [k for k in ("backend", "kind", "dtype", "n") if k not in row]
+    if missing:
+        raise UsageError(f"baseline {path!r}: row {i} lacks {', '.join(missing)}; the file is corrupt or was edited")
+    n = row["n"]
+    if row.get("shape") is not None:
+        try:
+            ok = (isinstance(row["backend"], str) and _integers(row["shape"]) and _integers(row.get("axes"))
+                  and isinstance(case_of(row), ShapeCase))
+        except (ValueError, TypeError, KeyError):
+            ok = False
+        if not ok:
+            raise UsageError(f"baseline {path!r}: row {i} holds an impossible shaped case ({row.get('backend')!r}, "
+                             f"{row.get('kind')!r}, {row.get('dtype')!r}, shape={row.get('shape')!r}, "
+                             f"axes={row.get('axes')!r}, layout={row.get('layout')!r}); the file is corrupt")
+        return
+    if (not isinstance(row["backend"], str) or row["kind"] not in KINDS or row["dtype"] not in DTYPES
+            or (row.get("norm") or "backward") not in NORMS or not isinstance(n, int) or isinstance(n, bool)
+            or n < 1):
+        raise UsageError(f"baseline {path!r}: row {i} holds an impossible case ({row.get('backend')!r}, "
+                         f"{row.get('kind')!r}, {row.get('dtype')!r}, n={n!r}); the file is corrupt")
+
+
 def _usable_rows(path: str, doc: dict[str, Any]) -> list[dict[str, Any]]:
     """Return the rows of a stored doc that hold a time, after checking their fields.
 
@@ -154,18 +236,7 @@ def _usable_rows(path: str, doc: dict[str, Any]) -> list[dict[str, Any]]:
             raise UsageError(f"baseline {path!r}: row {i} is not an object; the file is corrupt")
         if row.get("status", "ok") != "ok" or row.get("seconds") is None:
             continue
-        missing = [k for k in ("backend", "kind", "dtype", "n") if k not in row]
-        if missing:
-            raise UsageError(f"baseline {path!r}: row {i} lacks {', '.join(missing)}; the file is corrupt or was edited")
-        if row.get("shape"):  # a fftgauge time --shapes file
-            raise UsageError(f"baseline {path!r} holds shaped cases (fftgauge time --shapes); a stored baseline "
-                             f"holds 1-D cases: gate shapes in A/B mode, --old SPEC --new SPEC --shapes ...")
-        n = row["n"]
-        if (not isinstance(row["backend"], str) or row["kind"] not in KINDS or row["dtype"] not in DTYPES
-                or (row.get("norm") or "backward") not in NORMS or not isinstance(n, int) or isinstance(n, bool)
-                or n < 1):
-            raise UsageError(f"baseline {path!r}: row {i} holds an impossible case ({row.get('backend')!r}, "
-                             f"{row.get('kind')!r}, {row.get('dtype')!r}, n={n!r}); the file is corrupt")
+        check_stored_case(path, i, row)
         if not _number(row["seconds"]) or any(row.get(k) is not None and not _number(row.get(k))
                                               for k in ("seconds_low", "seconds_high", "seconds_p10",
                                                         "seconds_p10_low", "seconds_p10_high")):

@@ -119,6 +119,10 @@ class GateRequest:
     cpus: tuple[int, ...] | None = None
     #: ``--shapes``: shaped cases (:class:`~fftgauge.harness.shapes.case.ShapeCase`) gated instead of sizes.
     shape_cases: tuple = ()
+    #: Stored mode's ``--shapes``: the items (:class:`~fftgauge.harness.shapes.grammar.ShapeSpec`)
+    #: whose stored shaped cases are re-measured, and ``--layouts`` (None: every stored layout).
+    shape_specs: tuple = ()
+    layouts: tuple[str, ...] | None = None
 
 
 def parse_threshold(text: str | float) -> float:
@@ -194,6 +198,37 @@ def check_metric(metric: str, mode: str, accuracy: bool, repeats: int, transform
     require_valgrind()
 
 
+def stored_shape_filter(shapes: str | None, layouts: str | None, sizes: str | None,
+                        accuracy: bool) -> tuple[tuple, tuple[str, ...] | None]:
+    """Return stored mode's ``--shapes`` items and ``--layouts`` (``((), None)`` without ``--shapes``).
+
+    In stored mode ``--shapes`` selects stored shaped cases to re-measure, as ``--sizes``
+    selects stored 1-D ones: the items of the grammar
+    (:func:`~fftgauge.harness.shapes.grammar.parse_shapes`, named sets included) by shape and
+    axes, ``--layouts`` (when given) by layout, ``--kinds``/``--dtypes`` as for 1-D cases.
+
+    Raises
+    ------
+    UsageError
+        For a malformed item or layout, ``--layouts`` without ``--shapes``, ``--shapes`` with
+        ``--sizes`` or with ``--accuracy``.
+    """
+    from fftgauge.harness.cli import parse_choice_list
+    from fftgauge.harness.shapes.case import LAYOUTS
+    from fftgauge.harness.shapes.grammar import parse_shapes
+
+    if shapes is None:
+        if layouts:
+            raise UsageError("--layouts goes with --shapes (a 1-D size has one layout)")
+        return (), None
+    if sizes:
+        raise UsageError("--shapes and --sizes both given: --shapes names whole arrays (a 1-D size is a "
+                         "one-length shape such as 1024); give one of them")
+    if accuracy:
+        raise UsageError("--shapes goes without --accuracy; check shaped accuracy with fftgauge check --shapes")
+    return tuple(parse_shapes(shapes)), parse_choice_list(layouts, LAYOUTS, "layout")
+
+
 def mode_of(old: str | None, new: str | None, backends: Sequence[str], baseline: str | None,
             baseline_backend: str | None, save: str | None) -> str:
     """Return the mode (:data:`MODES`) the options ask for, after parsing every SPEC.
@@ -243,8 +278,9 @@ def build_request(*, old: str | None = None, new: str | None = None, backends: S
     The keywords are the command line's options (``kinds``, ``dtypes`` and ``sizes`` in their
     text form, ``threshold`` as ``5%`` or ``0.05``, by default :data:`DEFAULT_THRESHOLD` for time and
     :data:`DEFAULT_COUNT_THRESHOLD` for instructions); ``save`` is only checked here. ``shapes``
-    and ``layouts`` name shaped cases instead of sizes (A/B mode only:
-    :func:`fftgauge.harness.shapes.options.shaped_gate_cases`).
+    and ``layouts`` name shaped cases instead of sizes: the cases measured in the A/B,
+    referenced and record modes (:func:`fftgauge.harness.shapes.options.shaped_gate_cases`), the
+    stored shaped cases re-measured in stored mode (:func:`stored_shape_filter`).
 
     Raises
     ------
@@ -264,9 +300,11 @@ def build_request(*, old: str | None = None, new: str | None = None, backends: S
     if threshold is None:
         threshold = DEFAULT_COUNT_THRESHOLD if metric == "instructions" else DEFAULT_THRESHOLD
     fraction = parse_threshold(threshold)
-    from fftgauge.harness.shapes.options import shaped_gate_cases  # --shapes (A/B only)
-    shaped = shaped_gate_cases(shapes, layouts, kinds, dtypes, sizes, mode, metric, accuracy, save)
-    kind_list = parse_choice_list(kinds, SHAPE_KINDS if shaped else KINDS, "kind")
+    from fftgauge.harness.shapes.options import shaped_gate_cases
+    shape_specs, layout_list = stored_shape_filter(shapes, layouts, sizes, accuracy) if mode == "stored" else ((), None)
+    shaped = [] if mode == "stored" else shaped_gate_cases(shapes, layouts, kinds, dtypes, sizes, mode, metric,
+                                                              accuracy, save)
+    kind_list = parse_choice_list(kinds, SHAPE_KINDS if shaped or shape_specs else KINDS, "kind")
     dtype_list = parse_choice_list(dtypes, DTYPES, "dtype")
     size_list = tuple(parse_sizes(sizes)) if sizes else None
     runs: tuple[StoredRun, ...] = ()
@@ -300,4 +338,5 @@ def build_request(*, old: str | None = None, new: str | None = None, backends: S
                        sizes=size_list, seed=seed, threads=threads or 1, settings=settings, accuracy=accuracy,
                        accuracy_growth=accuracy_growth, timeout_seconds=timeout, stored_runs=runs,
                        baseline_path=baseline, baseline_label=baseline_backend, warnings=tuple(warnings),
-                       notes=tuple(notes), commit=commit, cpus=cpus, shape_cases=tuple(shaped))
+                       notes=tuple(notes), commit=commit, cpus=cpus, shape_cases=tuple(shaped),
+                       shape_specs=tuple(shape_specs), layouts=layout_list)

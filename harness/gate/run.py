@@ -31,8 +31,8 @@ from fftgauge.harness.errors import BackendFailure, UnsupportedCase, UsageError
 from fftgauge.harness.gate.adaptive import GateItem, collect, finalise, yardstick_summary
 from fftgauge.harness.gate.decision import compare_accuracy, outcome_of, undecided
 from fftgauge.harness.gate.estimates import STATISTICS, common_statistic, sample_statistic
-from fftgauge.harness.gate.history import (GATE_SCHEMA, baseline_for, case_of, ratio_baseline_for, save_run,
-                                           stored_cases)
+from fftgauge.harness.gate.history import (GATE_SCHEMA, baseline_for, case_of, case_order_key, ratio_baseline_for,
+                                           save_run, shapes_not_stored, stored_cases)
 from fftgauge.harness.gate.request import GateRequest, GateSettings
 from fftgauge.harness.rows import GateRow
 from fftgauge.harness.shapes.fields import case_size, row_fields
@@ -92,8 +92,7 @@ def build_items(req: GateRequest, sampler: Any, doc: dict[str, Any]) -> list[Gat
         if req.mode == "record":
             cases = request_cases(req)
         else:
-            cases = sorted({case_of(r) for run in req.stored_runs for r in run.rows},
-                           key=lambda c: (KINDS.index(c.kind), c.dtype, c.norm, c.n))
+            cases = sorted({case_of(r) for run in req.stored_runs for r in run.rows}, key=case_order_key)
         claims = sampler.claims(spec, cases)
         label = claims.label
         if label in doc["backends"]:  # two SPECs, one label: exit 2 naming it
@@ -106,10 +105,16 @@ def build_items(req: GateRequest, sampler: Any, doc: dict[str, Any]) -> list[Gat
                 raise UsageError(f"the baseline holds no timed rows of backend {base_label!r} (it holds: "
                                  f"{', '.join(stored_labels) or 'none'}); pass --backend with one of those, or "
                                  f"--baseline-backend LABEL to compare with another one's rows")
-            wanted = stored_cases(req.stored_runs, base_label, req.kinds, req.dtypes, req.sizes)
+            wanted = stored_cases(req.stored_runs, base_label, req.kinds, req.dtypes, req.sizes, req.shape_specs,
+                                  req.layouts)
             if not wanted:
-                raise UsageError(f"no stored case of backend {base_label!r} matches --kinds/--dtypes/--sizes; "
+                options = "--kinds/--dtypes/" + ("--shapes/--layouts" if req.shape_specs else "--sizes")
+                raise UsageError(f"no stored case of backend {base_label!r} matches {options}; "
                                  f"drop those options to re-measure every stored case")
+            absent = shapes_not_stored(req.stored_runs, base_label, req.shape_specs)
+            if absent:
+                doc["notes"].append(f"not in the baseline of {base_label}, so not gated: {', '.join(absent)} "
+                                    f"(record them with fftgauge gate --backend SPEC --shapes ... --save DIR)")
         else:
             wanted = cases
         reasons = dict(zip(cases, claims.reasons))
@@ -145,7 +150,9 @@ def new_doc(req: GateRequest) -> dict[str, Any]:
                     "samples_per_block": s.samples_per_block, "initial_pairs": s.initial_pairs,
                     "processes": s.processes,
                     "max_samples": s.max_samples,
-                    **({"shapes": [c.label() for c in req.shape_cases]} if req.shape_cases else {})},
+                    **({"shapes": [c.label() for c in req.shape_cases]} if req.shape_cases else {}),
+                    **({"shapes": [spec.label() for spec in req.shape_specs],
+                        "layouts": list(req.layouts) if req.layouts else None} if req.shape_specs else {})},
         "baseline": None if req.mode not in ("stored", "referenced") else {
             "path": req.baseline_path, "backend": req.baseline_label, "runs": [run.path for run in req.stored_runs],
             "created": [run.created for run in req.stored_runs]},

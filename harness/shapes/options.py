@@ -55,29 +55,25 @@ def shaped_cases_from_options(shapes: str, kinds: str | None, dtypes: str | None
 def shaped_gate_cases(shapes: str | None, layouts: str | None, kinds: str | None, dtypes: str | None,
                       sizes: str | None, mode: str, metric: str, accuracy: bool,
                       save: str | None = None) -> list[ShapeCase]:
-    """Return the shaped cases of ``fftgauge gate --shapes`` (empty without ``--shapes``).
-
-    Shaped cases are gated in A/B mode (``--old``/``--new``, both sides measured in the run),
-    by time, without ``--accuracy`` (the shaped battery is ``fftgauge check --shapes``).
+    """Return the shaped cases of ``fftgauge gate --shapes`` (empty without ``--shapes``) in the
+    modes that measure the cases asked (A/B, referenced, record), by time or by instruction
+    counts (``metric``), saved with ``--save`` or not, without ``--accuracy`` (the shaped battery
+    is ``fftgauge check --shapes``). Stored mode selects stored cases instead
+    (:func:`fftgauge.harness.gate.request.stored_shape_filter`).
 
     Raises
     ------
     UsageError
-        For ``--layouts`` without ``--shapes``, ``--shapes`` in another mode, with
-        ``--metric instructions``, ``--accuracy`` or ``--save``, or any error of
-        :func:`shaped_cases_from_options`.
+        For ``--layouts`` without ``--shapes``, ``mode`` ``stored``, ``--accuracy``, or any
+        error of :func:`shaped_cases_from_options`.
     """
     if shapes is None:
         if layouts:
             raise UsageError("--layouts goes with --shapes (a 1-D size has one layout)")
         return []
-    if mode != "ab":
-        raise UsageError("--shapes gates two sides measured in this run: give --old SPEC --new SPEC "
-                         "(stored baselines and saved runs hold 1-D cases only)")
-    if metric != "time":
-        raise UsageError("--shapes goes with --metric time (instruction counts take 1-D cases)")
+    if mode == "stored":
+        raise UsageError("stored mode re-measures the stored shaped cases --shapes selects "
+                         "(fftgauge.harness.gate.request.stored_shape_filter)")
     if accuracy:
         raise UsageError("--shapes goes without --accuracy; check shaped accuracy with fftgauge check --shapes")
-    if save:
-        raise UsageError("--shapes goes without --save (saved gate runs are read back as 1-D cases)")
     return shaped_cases_from_options(shapes, kinds, dtypes, layouts, sizes=sizes)
