@@ -43,9 +43,10 @@ def detect(args: argparse.Namespace) -> dict:
     from fftgauge.harness.counts.measure import count_ratio, count_sides
     from fftgauge.harness.gate.counted import count_estimate
     from fftgauge.harness.gate.decision import decide
-    from fftgauge.harness.gate.request import parse_threshold
+    from fftgauge.harness.gate.request import DEFAULT_COUNT_THRESHOLD, parse_threshold
 
     threshold = parse_threshold(args.threshold)
+    default = parse_threshold(DEFAULT_COUNT_THRESHOLD)
     specs = {"old": f"{FIXED}:fft", "same": f"{FIXED}:fft", "plus1": f"{FIXED}:fft_plus1"}
     trials = []
     for i in range(args.trials):
@@ -54,19 +55,27 @@ def detect(args: argparse.Namespace) -> dict:
                           calls=args.transforms, repeats=args.repeats)
         est = [count_estimate(got[k], got["old"], 0.95) for k in ("same", "plus1")]
         verdicts = [v[0] for v in decide(est, threshold, 0.05)]
+        at_default = [v[0] for v in decide(est, default, 0.05)]
         trial = {"ratio_same": est[0].ratio, "ratio_plus1": est[1].ratio, "verdict_same": verdicts[0],
-                 "verdict_plus1": verdicts[1], "interval_plus1": [est[1].ratio_low, est[1].ratio_high],
+                 "verdict_plus1": verdicts[1], "default_verdict_same": at_default[0],
+                 "default_verdict_plus1": at_default[1], "interval_plus1": [est[1].ratio_low, est[1].ratio_high],
                  "spread": max(c.spread for c in got.values()), "seconds": time.monotonic() - started,
                  "load": os.getloadavg()[0]}
         trials.append(trial)
         print(f"trial {i + 1}: 0% {trial['ratio_same']:.5f} {verdicts[0]}; +1% {trial['ratio_plus1']:.5f} "
-              f"{verdicts[1]}; spread {trial['spread'] * 100:.3f}%; {trial['seconds']:.0f} s; load "
+              f"{verdicts[1]} (at {DEFAULT_COUNT_THRESHOLD}: {at_default[0]}, {at_default[1]}); spread {trial['spread'] * 100:.3f}%; {trial['seconds']:.0f} s; load "
               f"{trial['load']:.1f}", flush=True)
     false_alarms = sum(t["verdict_same"] != "same" for t in trials)
     detected = sum(t["verdict_plus1"] == "slower" for t in trials)
+    default_alarms = sum(t["default_verdict_same"] != "same" for t in trials)
+    default_detected = sum(t["default_verdict_plus1"] == "slower" for t in trials)
     print(f"threshold {args.threshold}: 0% injected: {false_alarms} of {len(trials)} runs fail; +1% of passes "
           f"injected: {detected} of {len(trials)} detected")
-    return {"threshold": args.threshold, "trials": trials, "false_alarms": false_alarms, "detected": detected}
+    print(f"at the default threshold {DEFAULT_COUNT_THRESHOLD} (the +1% sits on it): {default_alarms} and "
+          f"{default_detected} of {len(trials)}")
+    return {"threshold": args.threshold, "repeats": args.repeats, "trials": trials, "false_alarms": false_alarms,
+            "detected": detected, "default_threshold": DEFAULT_COUNT_THRESHOLD, "default_false_alarms": default_alarms,
+            "default_detected": default_detected}
 
 
 def cost(args: argparse.Namespace) -> dict:

@@ -26,7 +26,9 @@ machine) to ``results/bench-gate-<UTC time>.json``.
 Run: ``.venv/bin/python benchmarks/bench_gate.py`` (the full version takes about an hour on
 a 2-core machine), or shorter: ``--runs 3 --sizes 1024,16384``. ``--signals TRIES`` measures
 instead the seconds from SIGINT, SIGTERM and SIGHUP to the exit of ``fftgauge gate`` on a slow
-backend (goal: under 2 s), the outputs written.
+backend (goal: under 2 s), the outputs written. ``--smallest`` finds instead the smallest of
+``--percents`` that the A/B mode detects in 19 of 20 runs (for example ``--smallest --percents
+5,6,7,8 --budget 30``), printing the seconds each run took.
 """
 
 from __future__ import annotations
@@ -150,6 +152,70 @@ def run_configuration(mode: str, percent: float, args: argparse.Namespace, compe
             "load_before": load_before, "load_after": os.getloadavg()}
 
 
+def smallest_detected(args: argparse.Namespace) -> dict[str, Any]:
+    """Return the A/B runs of ``--percents`` taken in ascending order, stopping at the first
+    percent detected in at least ``ceil(0.95 * --runs)`` runs (19 of 20).
+
+    A percent's runs stop early once so many have missed that the target cannot be reached
+    (the rest could not change the answer); the percent that reaches it runs all ``--runs``.
+    Each run's record keeps the seconds it took (``wall_seconds``, and ``sampling_seconds``:
+    the part of the ``--budget`` spent sampling). ``smallest`` is None when no percent held.
+    """
+    import math
+
+    need = math.ceil(0.95 * args.runs)
+    tried = []
+    smallest = None
+    for percent in sorted(float(p) for p in args.percents.split(",") if p.strip()):
+        label = f"A/B {percent:g}%"
+        runs: list[dict[str, Any]] = []
+        load_before = os.getloadavg()
+        for i in range(args.runs):
+            result = one_run(gate_request("ab", percent, args, None, args.seed + i), None)
+            result["load"] = os.getloadavg()
+            runs.append(result)
+            hits = sum(r["slower"] > 0 for r in runs)
+            misses = len(runs) - hits
+            ratios = " ".join(f"{c['ratio']:.3f}" if c["ratio"] is not None else "-" for c in result["cases"])
+            print(f"  {label:<10} run {i + 1:>2}/{args.runs}: {result['outcome']:<10} ratios {ratios} "
+                  f"(wall {result['wall_seconds']:.1f} s, sampling {result['sampling_seconds'] or 0:.1f} s of "
+                  f"--budget {args.budget:g}; load {result['load'][0]:.1f})", flush=True)
+            if misses > args.runs - need:
+                break
+        hits = sum(r["slower"] > 0 for r in runs)
+        held = hits >= need
+        tried.append({"label": label, "percent": percent, "runs": runs, "detections": hits, "held": held,
+                      "stopped_early": len(runs) < args.runs, "load_before": load_before,
+                      "load_after": os.getloadavg()})
+        print(f"{label}: detected in {hits} of {len(runs)} runs"
+              + (" (stopped: the target can no longer be reached)" if len(runs) < args.runs else "")
+              + f"; target {need} of {args.runs}: {'held' if held else 'missed'}", flush=True)
+        if held:
+            smallest = percent
+            break
+    return {"need": need, "tried": tried, "smallest": smallest}
+
+
+def smallest_table(found: dict[str, Any], args: argparse.Namespace) -> str:
+    """Return the lines summing up :func:`smallest_detected`: per percent, detections and the
+    wall and sampling seconds of its runs (min / median / max)."""
+    import numpy as np
+
+    lines = []
+    for t in found["tried"]:
+        wall = [r["wall_seconds"] for r in t["runs"]]
+        samp = [r["sampling_seconds"] or 0.0 for r in t["runs"]]
+        lines.append(f"{t['label']}: {t['detections']} of {len(t['runs'])} detected; wall s {min(wall):.1f} / "
+                     f"{np.median(wall):.1f} / {max(wall):.1f}, sampling s {min(samp):.1f} / {np.median(samp):.1f} / "
+                     f"{max(samp):.1f} (min / median / max)")
+    if found["smallest"] is None:
+        lines.append(f"no percent of {args.percents} was detected in {found['need']} of {args.runs} runs")
+    else:
+        lines.append(f"smallest injected slowdown detected in >= {found['need']} of {args.runs} runs: "
+                     f"{found['smallest']:g}% (--budget {args.budget:g})")
+    return "\n".join(lines)
+
+
 def _median_ratio(config: dict[str, Any]) -> float | None:
     import numpy as np
 
@@ -259,9 +325,26 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--signals", type=int, metavar="TRIES", default=0,
                         help="only measure the seconds from SIGINT, SIGTERM and SIGHUP to the gate's exit, TRIES "
                              "times each, and print them")
+    parser.add_argument("--smallest", action="store_true",
+                        help="only find the smallest of --percents (ascending) detected in 19 of 20 A/B runs "
+                             "(ceil(0.95 * --runs)), printing each run's seconds")
     args = parser.parse_args(argv)
     if args.signals:
         print(signals_table(args.signals))
+        return 0
+    if args.smallest:
+        found = smallest_detected(args)
+        table = smallest_table(found, args)
+        print()
+        print(table)
+        out = args.out or os.path.join("results", "bench-gate-smallest-" + dt.datetime.now(dt.timezone.utc).strftime(
+            "%Y%m%d-%H%M%S") + ".json")
+        command = "python benchmarks/bench_gate.py " + " ".join(argv if argv is not None else sys.argv[1:])
+        write_text_atomic(out, dumps({"schema": "fftgauge-bench-gate-smallest/1", "command": command.strip(),
+                                      "created": dt.datetime.now(dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
+                                      "machine": machine_fingerprint(), "settings": vars(args), "result": found,
+                                      "table": table}))
+        print(f"\nwritten to {out}")
         return 0
     plan = [("ab", float(p), False) for p in args.percents.split(",") if p.strip()]
     plan += [("stored", float(p), False) for p in args.stored_percents.split(",") if p.strip()]
