@@ -220,7 +220,6 @@ def _fftgauge(*args, cwd=None):
     (["--layouts", "F"], "--layouts goes with --shapes"),
     (["--shapes", "4x4", "--sizes", "16"], "--sizes"),
     (["--shapes", "4x4", "--layouts", "diagonal"], "diagonal"),
-    (["--shapes", "4x4", "--metric", "instructions"], "--metric time"),
 ])
 def test_bad_shaped_requests_exit_2_with_one_line(args, words, tmp_path):
     out = _fftgauge("time", "--backend", "numpy", "--json", str(tmp_path / "t.json"), *args)

@@ -110,8 +110,6 @@ def shaped_request_cases(args: argparse.Namespace) -> list:
         if getattr(args, "layouts", None):
             raise UsageError("--layouts goes with --shapes (a 1-D size has one layout)")
         return []
-    if getattr(args, "metric", "time") == "instructions":
-        raise UsageError("--shapes goes with --metric time (instruction counts take 1-D cases)")
     return shaped_cases_from_options(args.shapes, args.kinds, args.dtypes, args.layouts,
                                      parse_choice_list(args.norms, NORMS, "norm") or ("backward",), args.sizes)
 

@@ -2,7 +2,9 @@
 
 One *run* is a fresh process, ``valgrind --tool=cachegrind python -s driver.py ...``
 (:mod:`fftgauge.harness.counts.driver`), that makes ``K`` (or ``2K``) transforms after the
-same start-up; per transform, ``(I(2K) - I(K)) / K`` (:func:`per_transform`). What makes a
+same start-up; per transform, ``(I(2K) - I(K)) / K`` (:func:`per_transform`). A shaped case
+(:class:`~fftgauge.harness.shapes.case.ShapeCase`) is counted the same way, one call of the
+whole array being one transform here (its ``batch`` transforms of N points). What makes a
 count wander between identical runs is pinned down (:func:`run_environment`): the hash seed
 (``PYTHONHASHSEED=0``), no bytecode written (a first run writing ``.pyc`` files would count
 more), single-threaded BLAS/OpenMP pools (idle worker threads spin), no working directory on the import
@@ -38,6 +40,7 @@ from functools import lru_cache
 
 from fftgauge.harness.cases import Case
 from fftgauge.harness.errors import BackendFailure, UsageError
+from fftgauge.harness.shapes.case import ShapeCase
 
 #: How to install valgrind where it is missing (Debian and Ubuntu CI images).
 INSTALL_LINE = "apt-get install valgrind"
@@ -193,14 +196,23 @@ def cache_options(caches: dict[str, tuple[int, int, int]] | None = None) -> list
     return [f"--{level}={size},{ways},{line}" for level, (size, ways, line) in levels.items()]
 
 
-def driver_argv(valgrind: str, out_file: str, spec: str, case: Case, seed: int, calls: int, threads: int,
-                cache_sim: bool, caches: dict[str, tuple[int, int, int]] | None = None) -> list[str]:
+def driver_command(spec: str, case: Case | ShapeCase, seed: int, calls: int, threads: int) -> list[str]:
+    """Return the driver's command line (this interpreter, ``-s``, :data:`DRIVER` and its
+    arguments: :mod:`fftgauge.harness.counts.driver`) for ``calls`` transforms of a 1-D or a
+    shaped ``case``."""
+    from fftgauge.harness.counts.driver import case_args, shape_args
+
+    return [sys.executable, "-s", DRIVER, spec, *case_args(case), str(seed), str(calls), str(threads),
+            *shape_args(case)]
+
+
+def driver_argv(valgrind: str, out_file: str, spec: str, case: Case | ShapeCase, seed: int, calls: int,
+                threads: int, cache_sim: bool, caches: dict[str, tuple[int, int, int]] | None = None) -> list[str]:
     """Return the command line of one counted run of ``calls`` transforms (with ``cache_sim``,
     the caches of :func:`cache_options`)."""
     sim = ["--cache-sim=yes", *cache_options(caches)] if cache_sim else ["--cache-sim=no"]
     return [*setarch_prefix(), valgrind, "--tool=cachegrind", *sim,
-            "-q", f"--cachegrind-out-file={out_file}", sys.executable, "-s", DRIVER, spec, case.kind, case.dtype,
-            str(case.n), case.norm, str(seed), str(calls), str(threads)]
+            "-q", f"--cachegrind-out-file={out_file}", *driver_command(spec, case, seed, calls, threads)]
 
 
 def failure_line(stderr: str, returncode: int) -> str:
@@ -214,7 +226,7 @@ def failure_line(stderr: str, returncode: int) -> str:
     return f"crashed under valgrind (exit status {returncode}): {last}"
 
 
-def prime(spec: str, case: Case, seed: int, threads: int = 1, timeout: float = 120.0,
+def prime(spec: str, case: Case | ShapeCase, seed: int, threads: int = 1, timeout: float = 120.0,
           pycache: str | None = None) -> None:
     """Run the driver once without valgrind, bytecode writing allowed: every module the counted
     runs import is then compiled already (a module compiled in one counted run and read from
@@ -229,8 +241,7 @@ def prime(spec: str, case: Case, seed: int, threads: int = 1, timeout: float = 1
     """
     env = run_environment(pycache=pycache)
     env.pop("PYTHONDONTWRITEBYTECODE")
-    argv = [sys.executable, "-s", DRIVER, spec, case.kind, case.dtype, str(case.n), case.norm, str(seed), "1",
-            str(threads)]
+    argv = driver_command(spec, case, seed, 1, threads)
     try:
         done = subprocess.run(argv, env=env, capture_output=True, text=True, timeout=timeout)
     except subprocess.TimeoutExpired:
@@ -285,7 +296,7 @@ class RunCount:
     seconds: float
 
 
-def count_run(valgrind: str, spec: str, case: Case, seed: int, calls: int, threads: int = 1,
+def count_run(valgrind: str, spec: str, case: Case | ShapeCase, seed: int, calls: int, threads: int = 1,
               cache_sim: bool = False, timeout: float = 120.0, pycache: str | None = None,
               caches: dict[str, tuple[int, int, int]] | None = None) -> RunCount:
     """Run the driver once under cachegrind and return its :class:`RunCount`.
@@ -337,9 +348,18 @@ def per_transform(short: RunCount, long: RunCount, event: str = "Ir") -> float:
 TARGET_POINT_LOGS = 2 ** 21
 
 
-def default_calls(n: int) -> int:
-    """Return the automatic K for size ``n``: about :data:`TARGET_POINT_LOGS` / (n log2 n)
-    transforms, between 4 and 1000 (enough that the start-up's few thousand wandering
-    instructions are far below 1e-4 of the K transforms' count)."""
-    work = n * max(1.0, math.log2(max(n, 2)))
+def default_calls(n: int, batch: int = 1) -> int:
+    """Return the automatic K for size ``n``: about :data:`TARGET_POINT_LOGS` / (batch n log2 n)
+    calls of ``batch`` transforms each, between 4 and 1000 (enough that the start-up's few
+    thousand wandering instructions are far below 1e-4 of the K calls' count)."""
+    work = batch * n * max(1.0, math.log2(max(n, 2)))
     return int(min(1000, max(4, math.ceil(TARGET_POINT_LOGS / work))))
+
+
+def calls_for(case: Case | ShapeCase) -> int:
+    """Return the automatic K of a case (:func:`default_calls`): by ``n`` for a 1-D case, by N
+    (the points of one transform) and the batch for a shaped one, whose call transforms the
+    whole array."""
+    if isinstance(case, ShapeCase):
+        return default_calls(case.points, case.batch)
+    return default_calls(case.n)

@@ -22,6 +22,7 @@ import numpy as np
 from fftgauge.harness.cases import Case
 from fftgauge.harness.counts.cachegrind import RunCount, count_run, ll_misses, per_transform, prime
 from fftgauge.harness.errors import BackendFailure
+from fftgauge.harness.shapes.case import ShapeCase
 
 #: Smallest relative spread (standard deviation of log counts) the interval assumes: identical
 #: runs differ by a few thousand instructions at start-up, about 1e-5 of a counted run's work
@@ -77,12 +78,12 @@ def _side_count(pairs: list[tuple[RunCount, RunCount]], calls: int) -> CaseCount
     return CaseCount(calls, instr, misses, sum(a.seconds + b.seconds for a, b in pairs))
 
 
-def count_sides(valgrind: str, specs: Mapping[str, str], case: Case, *, seed: int, calls: int, repeats: int,
-                threads: int = 1, cache_sim: bool = False, timeout: float = 120.0,
+def count_sides(valgrind: str, specs: Mapping[str, str], case: Case | ShapeCase, *, seed: int, calls: int,
+                repeats: int, threads: int = 1, cache_sim: bool = False, timeout: float = 120.0,
                 workers: int | None = None,
                 caches: dict[str, tuple[int, int, int]] | None = None) -> dict[str, CaseCount]:
-    """Return each side's :class:`CaseCount` of ``case`` (``specs`` maps a side's key to its SPEC;
-    ``caches``: simulated cache levels in place of
+    """Return each side's :class:`CaseCount` of ``case``, 1-D or shaped (``specs`` maps a side's
+    key to its SPEC; ``caches``: simulated cache levels in place of
     :data:`~fftgauge.harness.counts.cachegrind.SIMULATED_CACHES`, with ``cache_sim``).
 
     Raises
@@ -96,8 +97,8 @@ def count_sides(valgrind: str, specs: Mapping[str, str], case: Case, *, seed: in
                             pycache, caches)
 
 
-def _count_sides(valgrind: str, specs: Mapping[str, str], case: Case, seed: int, calls: int, repeats: int,
-                 threads: int, cache_sim: bool, timeout: float, workers: int | None,
+def _count_sides(valgrind: str, specs: Mapping[str, str], case: Case | ShapeCase, seed: int, calls: int,
+                 repeats: int, threads: int, cache_sim: bool, timeout: float, workers: int | None,
                  pycache: str, caches: dict[str, tuple[int, int, int]] | None = None) -> dict[str, CaseCount]:
     keys = list(specs)
 

@@ -10,6 +10,11 @@ sides and compares this run's A/B count ratio with the stored A/B count ratios
 (:func:`fftgauge.harness.gate.estimates.estimate_referenced`). Backends are loaded in this
 process only to read their label and claims (:class:`CountSampler`); every count is made in
 fresh processes under valgrind.
+
+A shaped case (``--shapes``) is counted as a 1-D one: the driver plans it, lays its input out
+(:func:`fftgauge.harness.shapes.case.lay_out`) and calls it K and 2K times; its count is per
+call, one transform of the whole array (``batch`` transforms of N points), as a shaped row's
+``seconds`` is per call.
 """
 
 from __future__ import annotations
@@ -23,6 +28,7 @@ from fftgauge.harness.gate.adaptive import GateItem
 from fftgauge.harness.gate.decision import decide, is_conclusive
 from fftgauge.harness.gate.estimates import Estimate
 from fftgauge.harness.gate.request import GateRequest
+from fftgauge.harness.shapes.case import ShapeCase
 
 #: The ``method`` of a count estimate (a row's ``method`` field).
 COUNT_METHOD = "instructions: Welch t on log counts"
@@ -43,8 +49,8 @@ class CountSampler:
     def __exit__(self, *exc: Any) -> None:
         return None
 
-    def claims(self, key: str, cases: list[Case]) -> Any:
-        """Return the backend's :class:`~fftgauge.backends.claims.BackendClaims` for ``cases``.
+    def claims(self, key: str, cases: list[Case | ShapeCase]) -> Any:
+        """Return the backend's :class:`~fftgauge.backends.claims.BackendClaims` for ``cases`` (1-D or shaped).
 
         Raises
         ------
@@ -53,10 +59,11 @@ class CountSampler:
         """
         from fftgauge.backends.registry import load_backend
         from fftgauge.harness.execution import jobs
+        from fftgauge.harness.shapes.fields import case_fields
 
         backend = load_backend(self.specs[key], self.threads)
         try:
-            return jobs.backend_claims(backend, [(c.kind, c.dtype, c.n, c.norm) for c in cases], None)
+            return jobs.backend_claims(backend, [case_fields(c) for c in cases], None)
         except Exception as exc:  # a backend's own failure while describing itself
             raise UsageError(f"backend {self.specs[key]!r} failed while describing itself: {exc}") from None
 
@@ -81,7 +88,7 @@ def count_items(items: Sequence[GateItem], sampler: CountSampler, req: GateReque
     A side that fails under valgrind, or a case too slow to count within ``--timeout``, makes
     the item an ``error`` row with the one line that says why.
     """
-    from fftgauge.harness.counts.cachegrind import default_calls, require_valgrind
+    from fftgauge.harness.counts.cachegrind import calls_for, require_valgrind
     from fftgauge.harness.counts.measure import count_sides
     from fftgauge.harness.execution.dispatch import Progress
     from fftgauge.harness.gate.counted_baseline import stored_counts
@@ -95,7 +102,7 @@ def count_items(items: Sequence[GateItem], sampler: CountSampler, req: GateReque
             if it.status != "ok":
                 continue
             keys = [it.new_key] + ([it.old_key] if it.old_key else [])
-            calls = s.count_transforms or default_calls(it.case.n)
+            calls = s.count_transforms or calls_for(it.case)
             try:
                 got = count_sides(valgrind, {k: sampler.specs[k] for k in keys}, it.case, seed=req.seed,
                                   calls=calls, repeats=s.count_repeats, threads=req.threads,

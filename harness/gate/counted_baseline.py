@@ -24,7 +24,8 @@ from typing import Any, Sequence
 
 from fftgauge.harness.cases import Case
 from fftgauge.harness.errors import UsageError
-from fftgauge.harness.gate.history import GATE_SCHEMA, TIME_SCHEMA, StoredRun, case_of
+from fftgauge.harness.shapes.case import ShapeCase
+from fftgauge.harness.gate.history import GATE_SCHEMA, TIME_SCHEMA, StoredRun, case_of, check_stored_case
 
 
 def _positive(value: Any) -> bool:
@@ -34,18 +35,17 @@ def _positive(value: Any) -> bool:
 
 def count_rows(path: str, doc: dict[str, Any]) -> list[dict[str, Any]]:
     """Return the rows of a loaded results document that hold a stored count (status ``ok``,
-    a positive ``instructions``, a 1-D case).
+    a positive ``instructions``, a 1-D or a shaped case).
 
     Raises
     ------
     UsageError
-        For a count that is not a positive number, or repeats that are not a list of them.
+        For a count that is not a positive number, repeats that are not a list of them, or an
+        impossible case (:func:`fftgauge.harness.gate.history.check_stored_case`).
     """
     rows = []
     for i, row in enumerate(doc.get("rows") or []):
         if not isinstance(row, dict) or row.get("status", "ok") != "ok" or row.get("instructions") is None:
-            continue
-        if row.get("shape") is not None:
             continue
         if not _positive(row["instructions"]):
             raise UsageError(f"baseline {path!r}: row {i} has instructions {row['instructions']!r}, not a positive "
@@ -54,10 +54,7 @@ def count_rows(path: str, doc: dict[str, Any]) -> list[dict[str, Any]]:
         if reps is not None and not (isinstance(reps, list) and reps and all(_positive(v) for v in reps)):
             raise UsageError(f"baseline {path!r}: row {i} has instructions_repeats that are not a list of positive "
                              f"numbers; the file is corrupt")
-        missing = [k for k in ("backend", "kind", "dtype", "n") if k not in row]
-        if missing:
-            raise UsageError(f"baseline {path!r}: row {i} lacks {', '.join(missing)}; the file is corrupt or "
-                             f"was edited")
+        check_stored_case(path, i, row)
         rows.append(row)
     return rows
 
@@ -135,7 +132,7 @@ def load_count_runs(path: str, last_k: int, allow_other: bool,
     return tuple(used), warnings, notes
 
 
-def stored_counts(runs: Sequence[StoredRun], label: str, case: Case) -> Any:
+def stored_counts(runs: Sequence[StoredRun], label: str, case: Case | ShapeCase) -> Any:
     """Return the stored counts of ``label``'s ``case`` pooled over ``runs`` as a
     :class:`~fftgauge.harness.counts.measure.CaseCount` (each row's ``instructions_repeats``,
     or its median where it has none), with the number of runs holding it; None when none does."""
