@@ -262,3 +262,42 @@ def test_a_stopped_run_writes_its_outputs_from_what_finished(tmp_path):
     assert root_el.find("testsuite/properties/property[@name='complete']").attrib["value"] == "false"
     assert (tmp_path / "r.md").read_text().startswith("## fftgauge check: INCOMPLETE\n")
     assert len(list(csv.DictReader(io.StringIO((tmp_path / "r.csv").read_text())))) == len(doc["rows"])
+
+
+SHAPED_BUGS = os.path.join(HERE, "data", "shaped_bugs.py")
+
+
+def test_shaped_cases_are_named_by_shape_axes_and_layout(tmp_path):
+    """A small shaped run (tests/data/shaped_bugs.py:FortranBug, right for C-ordered input and
+    wrong for F: its layout check fails in both cases, its accuracy only in F): the JUnit
+    test cases, their messages and the Markdown name each shaped case by its shape, axes and
+    layout, never by n alone (both cases have N = 240)."""
+    paths = {name: str(tmp_path / f"run.{name}") for name in ("json", "xml", "md")}
+    code = main(["check", "--backend", f"{SHAPED_BUGS}:FortranBug", "--shapes", "12x20", "--layouts", "C,F",
+                 "--kinds", "fftn", "--dtypes", "float64", "--checks", "accuracy,layout", "--quiet",
+                 "--json", paths["json"], "--junit", paths["xml"], "--markdown", paths["md"]])
+    assert code == 1
+    with open(paths["json"], encoding="utf-8") as fh:
+        doc = json.load(fh)
+    assert {(tuple(r["shape"]), tuple(r["axes"]), r["layout"], r["n"]) for r in doc["rows"]} == \
+        {((12, 20), (0, 1), "C", 240), ((12, 20), (0, 1), "F", 240)}
+    with open(paths["xml"], encoding="utf-8") as fh:
+        root = validate_junit(fh.read())
+    cases = {c.attrib["name"]: c for c in root.iter("testcase")}
+    assert set(cases) == {f"fftn float64 12x20 axes (0,1) {layout} {check}"
+                          for layout in ("C", "F") for check in ("accuracy", "layout")}
+    assert cases["fftn float64 12x20 axes (0,1) C accuracy"].find("failure") is None
+    failure = cases["fftn float64 12x20 axes (0,1) F accuracy"].find("failure")
+    assert failure.attrib["type"] == "layout"
+    assert failure.attrib["message"].startswith("fails at 12x20 axes (0,1) F (layout: ")
+    assert "Worst, 12x20 axes (0,1) F: " in failure.attrib["message"]
+    assert failure.text.startswith("12x20 axes (0,1) F: fail (layout)")
+    passed = cases["fftn float64 12x20 axes (0,1) C accuracy"].find("system-out").text
+    assert passed.startswith("passes at 12x20 axes (0,1) C; worst 12x20 axes (0,1) C: ")
+    assert all("n = 240" not in (el.text or "") + (el.attrib.get("message") or "") for el in root.iter())
+    with open(paths["md"], encoding="utf-8") as fh:
+        md = fh.read()
+    assert "2 wrong" in md and "of 2 case(s)" in md  # two cases of one N
+    finding = next(line for line in md.splitlines() if line.startswith("- fortran-bug (fftn float64): layout "))
+    assert "at 12x20 axes (0,1) C; 12x20 axes (0,1) F (2 cases)" in finding
+    assert "accuracy, fftn float64 12x20 axes (0,1) F: " in finding and "n = 240" not in finding

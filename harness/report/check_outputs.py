@@ -5,9 +5,11 @@ Every writer takes the ``fftgauge-check/1`` document as it stands, complete or n
 stopped by a signal has ``complete: false``), so an interrupted run still explains itself.
 
 - JUnit XML (:func:`junit_xml`): one ``testsuite`` per backend, one ``testcase`` per
-  backend x kind x precision (x norm) x check, its sizes inside. ``classname`` is
-  ``fftgauge.check.<label>`` (the backend's label, never a path), ``name`` ``<kind> <dtype>
-  <check>``. A case with a failing size has a ``failure`` whose message lists the failing sizes
+  backend x kind x precision (x norm) x check, its sizes inside, and one per shaped case x
+  check. ``classname`` is ``fftgauge.check.<label>`` (the backend's label, never a path),
+  ``name`` ``<kind> <dtype> <check>``, for a shaped case ``<kind> <dtype> <shape> axes
+  (<axes>) <layout> <check>`` (``fftn float64 12x12x12 axes (0,1,2) C accuracy``); sizes and
+  shaped cases are named the same way in the messages and the Markdown. A case with a failing size has a ``failure`` whose message lists the failing sizes
   and the diagnosis in words; one with only ``error`` sizes an ``error``; one whose every size
   was skipped ``skipped``. The body lists each failing or erroring size with its message.
 - Markdown (:func:`markdown_summary`): the verdict first, then the findings in words (one per
@@ -50,23 +52,33 @@ def _norm(row: Mapping[str, Any]) -> str:
     return row.get("norm") or "backward"
 
 
-def junit_case_name(kind: str, dtype: str, norm: str, check: str) -> str:
-    """Return a test case's name: ``fft float64 accuracy`` (``norm=ortho`` added when not backward)."""
-    return f"{kind} {dtype} {check}" + ("" if norm == "backward" else f" norm={norm}")
+def junit_case_name(kind: str, dtype: str, norm: str, check: str, shape: str = "") -> str:
+    """Return a test case's name: ``fft float64 accuracy``, for a shaped case (``shape``, its
+    :func:`~fftgauge.harness.report.findings.shape_words`) ``fftn float64 12x12x12 axes (0,1,2)
+    C accuracy`` (``norm=ortho`` added when not backward)."""
+    return " ".join([kind, dtype] + ([shape] if shape else []) + [check]) + (
+        "" if norm == "backward" else f" norm={norm}")
 
 
-def grouped_cases(doc: Mapping[str, Any]) -> dict[tuple[str, str, str, str, str], list[Mapping[str, Any]]]:
-    """Return the rows by (backend, kind, dtype, norm, check), in the document's order; a row for a
-    whole unclaimed case (check ``all``) counts for every check the run asked for."""
+def grouped_cases(doc: Mapping[str, Any]) -> dict[tuple[str, str, str, str, str, str], list[Mapping[str, Any]]]:
+    """Return the rows by (backend, kind, dtype, norm, check, shape), in the document's order:
+    ``shape`` is ``""`` for the 1-D rows (their sizes in one group) and a shaped case's
+    :func:`~fftgauge.harness.report.findings.shape_words` (one group per shaped case). A row for
+    a whole unclaimed case (check ``all``) counts for every check the run asked for (of its
+    battery: the request's ``shape_checks`` for a shaped one)."""
+    from fftgauge.harness.report.findings import shape_words
+
     rows = list(doc.get("rows") or [])
-    asked = list((doc.get("request") or {}).get("checks") or [])
+    request = doc.get("request") or {}
     seen = list(dict.fromkeys(r["check"] for r in rows if r.get("check") != WHOLE_CASE_CHECK))
-    checks = asked or seen
-    groups: dict[tuple[str, str, str, str, str], list[Mapping[str, Any]]] = {}
+    checks = list(request.get("checks") or []) or seen
+    shape_checks = list(request.get("shape_checks") or []) or checks
+    groups: dict[tuple[str, str, str, str, str, str], list[Mapping[str, Any]]] = {}
     for r in rows:
-        names = checks if r.get("check") == WHOLE_CASE_CHECK else [r["check"]]
+        shape = shape_words(r)
+        names = (shape_checks if shape else checks) if r.get("check") == WHOLE_CASE_CHECK else [r["check"]]
         for name in names:
-            groups.setdefault((r["backend"], r["kind"], r["dtype"], _norm(r), name), []).append(r)
+            groups.setdefault((r["backend"], r["kind"], r["dtype"], _norm(r), name, shape), []).append(r)
     return groups
 
 
@@ -74,6 +86,18 @@ def _sizes(rows: Iterable[Mapping[str, Any]]) -> str:
     from fftgauge.harness.report.check_tables import compress_sizes
 
     return compress_sizes([r["n"] for r in rows], limit=10**6)
+
+
+def _at(rows: Iterable[Mapping[str, Any]]) -> str:
+    """Return where rows were seen: ``n = 8, 16`` for 1-D rows, the shaped case's shape, axes
+    and layout (``12x12x12 axes (0,1,2) C``) for rows of shaped cases."""
+    from fftgauge.harness.report.findings import shape_words
+
+    rows = list(rows)
+    shapes = list(dict.fromkeys(shape_words(r) for r in rows))
+    if shapes and all(shapes):
+        return "; ".join(shapes)
+    return f"n = {_sizes(rows)}"
 
 
 def _meaning(code: str | None) -> str:
@@ -91,39 +115,40 @@ def failure_message(rows: list[Mapping[str, Any]]) -> str:
     by_code: dict[str | None, list[Mapping[str, Any]]] = {}
     for r in rows:
         by_code.setdefault(r.get("diagnosis"), []).append(r)
-    parts = [f"n = {_sizes(rs)} ({_meaning(code)})" for code, rs in by_code.items()]
+    parts = [f"{_at(rs)} ({_meaning(code)})" for code, rs in by_code.items()]
     worst = max(rows, key=lambda r: r.get("eps_units") or 0.0)
-    return f"fails at {'; '.join(parts)}. Worst, n = {worst['n']}: {worst.get('message') or 'no message'}"
+    return f"fails at {'; '.join(parts)}. Worst, {_at([worst])}: {worst.get('message') or 'no message'}"
 
 
 def _detail(rows: list[Mapping[str, Any]]) -> str:
-    return "\n".join(f"n = {r['n']}: {r['status']}" + (f" ({r['diagnosis']})" if r.get("diagnosis") else "")
+    return "\n".join(f"{_at([r])}: {r['status']}" + (f" ({r['diagnosis']})" if r.get("diagnosis") else "")
                      + f": {r.get('message') or ''}" for r in rows)
 
 
-def _case_element(suite: ET.Element, key: tuple[str, str, str, str, str], rows: list[Mapping[str, Any]]) -> str:
+def _case_element(suite: ET.Element, key: tuple[str, str, str, str, str, str],
+                  rows: list[Mapping[str, Any]]) -> str:
     """Add one ``testcase`` to ``suite``; return its outcome (pass, fail, error, skip)."""
-    backend, kind, dtype, norm, check = key
+    backend, kind, dtype, norm, check, shape = key
     case = ET.SubElement(suite, "testcase", {"classname": junit_class_name(backend),
-                                             "name": junit_case_name(kind, dtype, norm, check), "time": "0"})
+                                             "name": junit_case_name(kind, dtype, norm, check, shape), "time": "0"})
     failing = [r for r in rows if r.get("status") == "fail"]
     errors = [r for r in rows if r.get("status") == "error"]
     skipped = [r for r in rows if r.get("status") == "skip"]
     if failing:
         message = failure_message(failing)
         if errors:
-            message += f" (and n = {_sizes(errors)} could not run)"
+            message += f" (and {_at(errors)} could not run)"
         codes = sorted({r.get("diagnosis") or "fail" for r in failing})
         ET.SubElement(case, "failure", {"type": ",".join(codes), "message": message}).text = _detail(failing + errors)
         outcome = "fail"
     elif errors:
         worst = errors[0]
-        message = f"could not run at n = {_sizes(errors)}: {worst.get('message') or 'error'}"
+        message = f"could not run at {_at(errors)}: {worst.get('message') or 'error'}"
         ET.SubElement(case, "error", {"type": "error", "message": message}).text = _detail(errors)
         outcome = "error"
     elif skipped and len(skipped) == len(rows):
         reasons = list(dict.fromkeys(str(r.get("message") or "skipped") for r in skipped))
-        ET.SubElement(case, "skipped", {"message": f"n = {_sizes(skipped)}: {'; '.join(reasons)}"[:2000]})
+        ET.SubElement(case, "skipped", {"message": f"{_at(skipped)}: {'; '.join(reasons)}"[:2000]})
         return "skip"
     else:
         outcome = "pass"
@@ -132,11 +157,11 @@ def _case_element(suite: ET.Element, key: tuple[str, str, str, str, str], rows: 
     if passed:
         worst = max(passed, key=lambda r: r.get("eps_units") or 0.0)
         source = worst.get("limit_source")
-        lines.append(f"passes at n = {_sizes(passed)}; worst n = {worst['n']}: {worst.get('message') or ''}"
+        lines.append(f"passes at {_at(passed)}; worst {_at([worst])}: {worst.get('message') or ''}"
                      + (f" (limit {worst['limit']:.3g}, {source})" if worst.get("limit") is not None and source
                         else ""))
     if skipped:
-        lines.append(f"skipped at n = {_sizes(skipped)}: {skipped[0].get('message') or ''}")
+        lines.append(f"skipped at {_at(skipped)}: {skipped[0].get('message') or ''}")
     if lines:
         ET.SubElement(case, "system-out").text = "\n".join(lines)
     return outcome
@@ -229,8 +254,11 @@ def _panel_lines(doc: Mapping[str, Any]) -> tuple[list[str], list[list[str]], se
     limits = (doc.get("request") or {}).get("limits") or {}
     user = limits.get("accuracy") or limits.get(WHOLE_CASE_CHECK)
     limit_words = {"bound": "built-in bound", "user": f"yours: {user.get('criterion')}" if user else "yours"}
+    by_check: dict[tuple[str, str, str, str, str], list[Mapping[str, Any]]] = {}
+    for (backend, kind, dtype, norm, check, _), rows in groups.items():  # a panel's shaped cases together
+        by_check.setdefault((backend, kind, dtype, norm, check), []).extend(rows)
     panels: dict[tuple[str, str, str, str], dict[str, Any]] = {}
-    for (backend, kind, dtype, norm, check), rows in groups.items():
+    for (backend, kind, dtype, norm, check), rows in by_check.items():
         p = panels.setdefault((backend, kind, dtype, norm), {"pass": 0, "fail": [], "error": [], "skip": 0,
                                                               "eps": None, "limit": None})
         statuses = {r.get("status") for r in rows}

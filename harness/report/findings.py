@@ -49,6 +49,37 @@ DIAGNOSIS_MEANINGS = {
 }
 
 
+def is_shaped_row(row: Mapping[str, Any]) -> bool:
+    """Return True for a row of a shaped case (its ``shape`` a list), False for a 1-D one
+    (``shape`` absent, None, or NaN in a row read back from a table)."""
+    return isinstance(row.get("shape"), (list, tuple)) and len(row["shape"]) > 0
+
+
+def shape_words(row: Mapping[str, Any]) -> str:
+    """Return the shape, axes and layout of a shaped case's row in words, ``"12x12x12 axes
+    (0,1,2) C"`` (axes as the case lists them); ``""`` for a row of a 1-D case."""
+    if not is_shaped_row(row):
+        return ""
+    shape = row["shape"]
+    axes = ",".join(str(a) for a in row.get("axes") or ())
+    return f"{'x'.join(str(n) for n in shape)} axes ({axes}) {row.get('layout') or 'C'}"
+
+
+def case_words(row: Mapping[str, Any]) -> str:
+    """Return the case of a row in words: ``"fft float64 n = 1024"`` for a 1-D case, ``"fftn
+    float64 12x12x12 axes (0,1,2) C"`` for a shaped one (:func:`shape_words`)."""
+    where = shape_words(row) or f"n = {row.get('n')}"
+    return f"{row.get('kind')} {row.get('dtype')} {where}"
+
+
+def case_key(row: Mapping[str, Any]) -> tuple:
+    """Return the key of the case a row belongs to: backend, kind, dtype, norm, n, and for a
+    shaped case its shape, axes and layout (two shaped cases of one N are two cases)."""
+    shaped = (tuple(row["shape"]), tuple(row.get("axes") or ()), row.get("layout") or "C") \
+        if is_shaped_row(row) else ()
+    return (row["backend"], row["kind"], row["dtype"], row.get("norm") or "backward", row["n"], *shaped)
+
+
 def bound_eps_units(row: Mapping[str, Any]) -> float | None:
     """Return the row's limit in eps units: ``limit * eps_units / value`` (the row's own scale),
     else ``limit / eps`` of its precision; None without a positive limit."""
@@ -80,6 +111,16 @@ class Finding:
     size_rules: tuple[str, ...] = ()
     #: The same patterns as dicts (``rule`` None where no rule fits), for the terminal lines.
     patterns: tuple[Mapping[str, Any], ...] = ()
+    #: For a finding of shaped cases, each case's shape, axes and layout (:func:`shape_words`),
+    #: named instead of its sizes; empty for 1-D cases.
+    shapes: tuple[str, ...] = ()
+
+    def where(self) -> str:
+        """Return where the finding was seen: ``"n = 8..16, 32"``, or the shaped cases' shapes,
+        axes and layouts joined by ``"; "``."""
+        from fftgauge.harness.report.check_tables import compress_sizes
+
+        return "; ".join(self.shapes) if self.shapes else f"n = {compress_sizes(self.sizes, limit=10**6)}"
 
     @property
     def could_not_run(self) -> bool:
@@ -89,8 +130,6 @@ class Finding:
     def sentence(self) -> str:
         """Return the finding as one sentence: who, what it means, which checks saw it, where,
         and the quoted case's own message (with its bound, for an accuracy row)."""
-        from fftgauge.harness.report.check_tables import compress_sizes
-
         worst = self.worst
         message = str(worst.get("message") or "").strip()
         meaning = DIAGNOSIS_MEANINGS.get(self.cause)
@@ -111,8 +150,7 @@ class Finding:
                   f"{len(self.checks)} checks ({', '.join(self.checks)})")
         plural = "s" if self.cases != 1 else ""
         return (f"{self.backend} ({', '.join(self.panels)}): {what}, seen by {checks} at "
-                f"n = {compress_sizes(self.sizes, limit=10**6)} ({self.cases} case{plural}). "
-                f"{worst.get('check')}, {worst.get('kind')} {worst.get('dtype')} n = {worst.get('n')}: "
+                f"{self.where()} ({self.cases} case{plural}). {worst.get('check')}, {case_words(worst)}: "
                 f"{message or 'no message'}." + "".join(f" Sizes: {rule}." for rule in self.size_rules))
 
 
@@ -134,7 +172,7 @@ class Finding:
         else:
             suggests = [p["suggests"] for p in self.patterns if p.get("rule")]
             head = f"look at {suggests[0]}; " if suggests else ""
-            case = f"{worst.get('kind')} {worst.get('dtype')} n={worst.get('n')}"
+            case = case_words(worst).replace(" n = ", " n=")
             second = f"{head}worst {case}: {_first_part(worst.get('message'))}"
         return wrap_line(first, width) + wrap_line("    " + second, width)
 
@@ -209,7 +247,8 @@ def _first_line(found: "Finding", rule: str) -> str:
         f" +{len(found.checks) - CHECKS_SHOWN}" if len(found.checks) > CHECKS_SHOWN else "")
     panels = ", ".join(found.panels[:PANELS_SHOWN]) + (
         f" +{len(found.panels) - PANELS_SHOWN}" if len(found.panels) > PANELS_SHOWN else "")
-    sizes = f" at n = {compress_sizes(found.sizes, limit=SIZE_RUNS_SHOWN)}"
+    sizes = f" at {'; '.join(found.shapes)}" if found.shapes else \
+        f" at n = {compress_sizes(found.sizes, limit=SIZE_RUNS_SHOWN)}"
     return (f"  {found.backend} · {found.cause} ({checks}): {found.cases} case{plural} ({panels}){sizes}"
             + (f"; {rule}" if rule else ""))
 
@@ -225,29 +264,34 @@ def findings(rows: Iterable[Mapping[str, Any]]) -> list[Finding]:
     """Return one :class:`Finding` per distinct cause of each backend among the ``fail`` and
     ``error`` rows: wrong answers by diagnosis code, could-not-run by message (numbers aside);
     wrong answers first, then could-not-run, each by backend."""
-    groups: dict[tuple[bool, str, str, str], list[Mapping[str, Any]]] = {}
+    rows = list(rows)
+    groups: dict[tuple[bool, str, bool, str, str], list[Mapping[str, Any]]] = {}
     for row in rows:
+        shaped = is_shaped_row(row)
         if row.get("status") == "fail":
-            key = (False, row["backend"], row.get("diagnosis") or "fail", "")
+            key = (False, row["backend"], shaped, row.get("diagnosis") or "fail", "")
         elif row.get("status") == "error":
-            key = (True, row["backend"], "error", _error_kind(row.get("message")))
+            key = (True, row["backend"], shaped, "error", _error_kind(row.get("message")))
         else:
             continue
         groups.setdefault(key, []).append(row)
     from fftgauge.harness.battery.size_patterns import size_patterns
 
-    patterns = {(p["backend"], p["kind"], p["dtype"], p["norm"]): p for p in size_patterns(rows)}
+    line_rows = [r for r in rows if not is_shaped_row(r)]  # size patterns are rules over the n of 1-D cases
+    patterns = {(p["backend"], p["kind"], p["dtype"], p["norm"]): p for p in size_patterns(line_rows)}
     out = []
-    for (_, backend, cause, _), members in sorted(groups.items(), key=lambda kv: kv[0]):
+    for (_, backend, shaped, cause, _), members in sorted(groups.items(), key=lambda kv: kv[0]):
         accuracy = [r for r in members if r.get("check") == "accuracy"]
         worst = max(accuracy or members, key=lambda r: r.get("eps_units") or 0.0)
+        ruled = cause != "error" and not shaped
         out.append(Finding(
             backend=backend, cause=cause, checks=tuple(dict.fromkeys(str(r.get("check")) for r in members)),
             panels=tuple(dict.fromkeys(f"{r['kind']} {r['dtype']}" for r in members)),
             sizes=tuple(sorted({int(r["n"]) for r in members})),
-            cases=len({(r["kind"], r["dtype"], r.get("norm") or "backward", r["n"]) for r in members}), worst=worst,
-            size_rules=_size_rules(patterns, backend, members) if cause != "error" else (),
-            patterns=_patterns_of(patterns, backend, members) if cause != "error" else ()))
+            cases=len({case_key(r) for r in members}), worst=worst,
+            size_rules=_size_rules(patterns, backend, members) if ruled else (),
+            patterns=_patterns_of(patterns, backend, members) if ruled else (),
+            shapes=tuple(dict.fromkeys(shape_words(r) for r in members)) if shaped else ()))
     return out
 
 
@@ -267,13 +311,13 @@ def _size_rules(patterns: Mapping[tuple, Mapping[str, Any]], backend: str,
 
 
 def case_counts(rows: Iterable[Mapping[str, Any]]) -> dict[str, int]:
-    """Return how many cases (backend x kind x dtype x norm x n) passed, gave a wrong answer
+    """Return how many cases (:func:`case_key`: backend x kind x dtype x norm x n, x shape x axes x
+    layout for a shaped case) passed, gave a wrong answer
     (``wrong``: some check failed), could not run (``error``: some check errored) or were
     skipped (every check skipped)."""
     cases: dict[tuple, set[str]] = {}
     for r in rows:
-        key = (r["backend"], r["kind"], r["dtype"], r.get("norm") or "backward", r["n"])
-        cases.setdefault(key, set()).add(r["status"])
+        cases.setdefault(case_key(r), set()).add(r["status"])
     counts = {"passed": 0, "wrong": 0, "error": 0, "skipped": 0}
     for statuses in cases.values():
         if "error" in statuses:
