@@ -9,6 +9,10 @@ Three ways to run it (see docs/ci-gate.md for CI jobs that use them):
   ``--last K`` runs stored in a folder, and compare, corrected by the yardstick.
 - ``fftgauge gate --backend SPEC --save DIR``: measure and store only (seeds a history).
 
+``--shapes`` (arrays, batches, N-D transforms) works in every mode and with both metrics: the
+cases measured in A/B, referenced and record mode, the stored shaped cases re-measured in
+stored mode (see docs/reference.md, Gate).
+
 Exit codes (:func:`fftgauge.harness.gate.decision.exit_code`): 0 pass (and INCONCLUSIVE with
 ``--inconclusive pass``, the default); 1 a regression, an accuracy regression, a backend
 failure, or INCONCLUSIVE with ``--inconclusive fail``; 2 a bad request; 130/143/129 stopped
@@ -47,7 +51,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     add_common_options(parser, "backend", "kinds", "dtypes", "sizes", "seed", "json", "csv", "quiet", "threads",
                        "pin")
     from fftgauge.harness.shapes.options import LAYOUTS_HELP, SHAPES_HELP
-    parser.add_argument("--shapes", metavar="SHAPES", help=SHAPES_HELP + "; A/B mode (--old/--new) only")
+    parser.add_argument("--shapes", metavar="SHAPES",
+                        help=SHAPES_HELP + "; with --baseline and --backend: which stored shaped cases to re-measure")
     parser.add_argument("--layouts", metavar="LIST", help=LAYOUTS_HELP)
     decide = parser.add_argument_group("how to decide")
     decide.add_argument("--metric", choices=METRICS, default=DEFAULT_METRIC,

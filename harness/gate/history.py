@@ -7,6 +7,11 @@ measured on this machine (:data:`MACHINE_KEYS` of the fingerprint) are used, the
 creation time (:func:`load_stored_runs`). A case's baseline is the summary of the runs that
 hold it (:func:`baseline_for`, :func:`ratio_baseline_for`, with the method of
 :func:`fftgauge.harness.gate.estimates.stored_baseline`).
+
+A stored row is keyed by its case (:func:`case_of`): kind, precision, ``n`` and norm for a 1-D
+row (every row of a file written before shaped cases), and kind, precision, shape, axes,
+layout and norm for a row with a ``shape`` (``fftgauge time --shapes``, ``fftgauge gate
+--shapes``), so a shaped case and a 1-D case of the same ``n`` never share a baseline.
 """
 
 from __future__ import annotations
