@@ -59,14 +59,20 @@ class CheckRow:
     layout: str | None = None
     batch: int | None = None
     points: int | None = None
+    #: The ``sqnr`` row of a q15/q31 case (:mod:`fftgauge.harness.fixed.checks`): the backend's
+    #: SQNR (dB) on noise at each level, keyed by the level in dBFS (``"0"``, ``"-6"``, ...);
+    #: what ``fftgauge pick --sqnr`` holds a backend to. Optional: other rows leave it out.
+    noise_sqnr_db: dict[str, float] | None = None
 
     def as_dict(self) -> dict[str, Any]:
         """Return the row as a JSON-able dict (contract field order first; the shaped fields
-        only in rows of shaped cases)."""
+        only in rows of shaped cases, ``noise_sqnr_db`` only in ``sqnr`` rows that measured it)."""
         out = asdict(self)
         if self.shape is None:
             for name in ("shape", "axes", "layout", "batch", "points"):
                 out.pop(name)
+        if self.noise_sqnr_db is None:
+            out.pop("noise_sqnr_db")
         return out
 
 

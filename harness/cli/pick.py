@@ -36,6 +36,13 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--accuracy", metavar="LIMIT",
                         help="largest relative rms error accepted: eps units (8, 8eps) or a signal-to-error ratio "
                              "in dB (120dB); default: the battery's bounds")
+    parser.add_argument("--sqnr", metavar="DB",
+                        help="fixed-point workloads (q15, q31): the least SQNR in dB a backend must reach at every "
+                             "fixed-point case, on noise at --sqnr-level (e.g. 60); replaces the sqnr check's "
+                             "comparison with the textbook radix-2")
+    parser.add_argument("--sqnr-level", metavar="DBFS",
+                        help="the input level (noise peak, dBFS) --sqnr holds at: 0, -6, -20 or -40 (default 0, "
+                             "full scale)")
     parser.add_argument("--samples", type=int, default=DEFAULT_SAMPLES, metavar="N",
                         help=f"timing samples per case (default {DEFAULT_SAMPLES})")
     parser.add_argument("--rounds", type=int, default=DEFAULT_ROUNDS, metavar="R",
@@ -82,7 +89,7 @@ def run(args: argparse.Namespace) -> int:
     from fftgauge.harness.selection.workload import build_workload
 
     workload = build_workload(args.sizes, args.kinds, args.dtypes, args.norm, args.threads, args.calls_per_plan,
-                              args.accuracy)
+                              args.accuracy, args.sqnr, args.sqnr_level)
     settings = settings_from_args(args)
     check_output_path(args.json)
     doc = run_pick(workload, args.backend, settings, quiet=args.quiet)

@@ -152,7 +152,8 @@ def sqnr_row(label: str, case: Any, run: Callable, fmt: QFormat, declared: Fixed
                 ", ".join(f"{p.signal}@{p.level_dbfs:g}={p.backend.sqnr_db:.1f}/{p.reference.sqnr_db:.1f}"
                           for p in points if p.representable))
     return row_of(label, case, "sqnr", status, value=float(worst.shortfall_db), limit=float(margin_db),
-                  diagnosis=diagnosis, message=message, reference=reference.describe())
+                  diagnosis=diagnosis, message=message, reference=reference.describe(),
+                  noise_sqnr_db={f"{p.level_dbfs:g}": float(p.backend.sqnr_db) for p in points if p.signal == "noise"})
 
 
 def behaviour_rows(label: str, case: Any, run: Callable, fmt: QFormat, declared: FixedScaling, seed: int,

@@ -15,6 +15,15 @@ and its interval the same sum over the cases' interval ends (``seconds_low`` and
 A backend is recommended only when it claims every case, no battery row of the workload
 failed or errored, every case was timed, and (when the user states an accuracy) its worst
 relative rms error is within it; the others are listed with the reasons.
+
+Fixed-point cases (q15, q31) have no ``accuracy`` row: the battery's ``sqnr`` row is the one
+that says a backend takes the case, and carries the SQNR measured on noise at each input level
+(``noise_sqnr_db``). With an SQNR requirement (``--sqnr``) a backend is recommended only when
+that SQNR, at the stated level, reaches the requirement at every fixed-point case; each case
+that misses is a reason with the shortfall in dB. The requirement then takes the place of the
+``sqnr`` check's own verdict (within 1 dB of the textbook radix-2 with the same scaling): a
+backend of another design that reaches what the user needs is not refused for that, while
+every other fixed-point check (``overflow``, ``linearity``, ...) still counts.
 """
 
 from __future__ import annotations
@@ -22,8 +31,11 @@ from __future__ import annotations
 from dataclasses import asdict, dataclass, field, replace
 from typing import Any, Iterable
 
+import math
+
+from fftgauge.harness.cases import FIXED_DTYPES
 from fftgauge.harness.dft import machine_epsilon
-from fftgauge.harness.selection.workload import Workload
+from fftgauge.harness.selection.workload import DEFAULT_SQNR_LEVEL_DBFS, Workload
 
 #: Statuses of battery rows that keep a backend from being recommended.
 FAILING = ("fail", "error")
@@ -32,6 +44,12 @@ FAILING = ("fail", "error")
 def case_key(row: dict) -> tuple[str, str, int]:
     """Return the (kind, dtype, n) of a row."""
     return row["kind"], row["dtype"], int(row["n"])
+
+
+def claim_check(dtype: str) -> str:
+    """Return the check whose row says a backend takes a case of ``dtype``: ``sqnr`` for the
+    fixed-point precisions, ``accuracy`` for the others."""
+    return "sqnr" if dtype in FIXED_DTYPES else "accuracy"
 
 
 def case_text(key: tuple[str, str, int]) -> str:
@@ -72,6 +90,10 @@ class Candidate:
     worst_case: str | None = None
     limit_eps: float | None = None
     limit_source: str | None = None
+    worst_sqnr_db: float | None = None
+    sqnr_case: str | None = None
+    sqnr_need_db: float | None = None
+    sqnr_level_dbfs: float | None = None
     peak_bytes: int | None = None
     rank: int | None = None
     cases: tuple[CaseCost, ...] = field(default=())
@@ -106,11 +128,52 @@ def accuracy_evidence(rows: list[dict], workload: Workload) -> tuple[float | Non
     return worst, None if worst_key is None else case_text(worst_key), limit, source, over
 
 
-def failure_summary(rows: list[dict]) -> list[str]:
-    """Return one line per failing check: ``accuracy (precision) at 2 of 3 cases, e.g. fft float64 n=8``."""
+def row_sqnr_db(row: dict, level_key: str) -> float | None:
+    """Return the SQNR (dB) an ``sqnr`` row measured on noise at the level ``level_key`` (inf
+    for an exact output, which a results file writes as null), or None when it has none."""
+    by_level = row.get("noise_sqnr_db") or {}
+    if level_key not in by_level:
+        return None
+    value = by_level[level_key]
+    if value is None:
+        return math.inf
+    value = float(value)
+    return None if math.isnan(value) else value
+
+
+def sqnr_evidence(rows: list[dict], workload: Workload) -> tuple[float | None, str | None, float, list[str]]:
+    """Return (the worst SQNR in dB at the workload's level, its case, that level in dBFS, a
+    line per case below the requirement) from the ``sqnr`` rows of fixed-point cases.
+
+    A line reads ``fft q15 n=1024: 52.3 dB at 0 dBFS, 7.7 dB short of 60 dB``; a case whose
+    row took no SQNR at that level reads ``...: no SQNR measured at 0 dBFS``.
+    """
+    level = DEFAULT_SQNR_LEVEL_DBFS if workload.sqnr is None else workload.sqnr.level_dbfs
+    key = f"{level:g}"
+    worst, worst_key, short = None, None, []
+    for row in rows:
+        if row.get("check") != "sqnr" or row.get("dtype") not in FIXED_DTYPES or row.get("status") == "skip":
+            continue
+        got = row_sqnr_db(row, key)
+        case = case_key(row)
+        if got is None:
+            if workload.sqnr is not None:
+                short.append(f"{case_text(case)}: no SQNR measured at {level:g} dBFS")
+            continue
+        if workload.sqnr is not None and got < workload.sqnr.db:
+            short.append(f"{case_text(case)}: {got:.1f} dB at {level:g} dBFS, "
+                         f"{workload.sqnr.db - got:.1f} dB short of {workload.sqnr.db:g} dB")
+        if worst is None or got < worst:
+            worst, worst_key = got, case
+    return worst, None if worst_key is None else case_text(worst_key), level, short
+
+
+def failure_summary(rows: list[dict], waived: tuple[str, ...] = ()) -> list[str]:
+    """Return one line per failing check (but the checks in ``waived``):
+    ``accuracy (precision) at 2 of 3 cases, e.g. fft float64 n=8``."""
     by_check: dict[str, list[dict]] = {}
     for row in rows:
-        if row.get("status") in FAILING:
+        if row.get("status") in FAILING and row.get("check") not in waived:
             by_check.setdefault(row["check"], []).append(row)
     out = []
     for check, failed in by_check.items():
@@ -123,9 +186,9 @@ def failure_summary(rows: list[dict]) -> list[str]:
 
 
 def unclaimed_cases(rows: list[dict], workload_keys: Iterable[tuple[str, str, int]]) -> list[str]:
-    """Return a line per workload case the backend does not take (its ``accuracy`` row is a
-    skip, or there is none), with the battery's reason."""
-    accuracy = {case_key(r): r for r in rows if r.get("check") == "accuracy"}
+    """Return a line per workload case the backend does not take (its ``accuracy`` row, or
+    ``sqnr`` row for a fixed-point case, is a skip, or there is none), with the battery's reason."""
+    accuracy = {case_key(r): r for r in rows if r.get("check") == claim_check(r["dtype"])}
     skips = {case_key(r): r for r in rows if r.get("status") == "skip"}
     out = []
     for key in workload_keys:
@@ -158,15 +221,22 @@ def workload_keys(workload: Workload) -> list[tuple[str, str, int]]:
     return [(k, d, n) for k in workload.kinds for d in workload.dtypes for n in workload.sizes]
 
 
+def waived_checks(workload: Workload) -> tuple[str, ...]:
+    """Return the checks whose failures the user's requirement replaces: ``sqnr`` with ``--sqnr``."""
+    return ("sqnr",) if workload.sqnr is not None else ()
+
+
 def battery_reasons(check_rows: list[dict], workload: Workload) -> list[str]:
     """Return why the battery's rows (of one backend) keep it from being recommended on the
-    workload: cases it does not take, failing checks, cases above the user's accuracy."""
+    workload: cases it does not take, failing checks, cases above the user's accuracy or
+    below the SQNR needed."""
     keys = workload_keys(workload)
     wanted = set(keys)
     check_rows = [r for r in check_rows if case_key(r) in wanted]
     reasons = [f"does not take {line}" for line in unclaimed_cases(check_rows, keys)]
-    reasons += [f"fails the battery: {line}" for line in failure_summary(check_rows)]
-    return reasons + [f"is not accurate enough at {line}" for line in accuracy_evidence(check_rows, workload)[4]]
+    reasons += [f"fails the battery: {line}" for line in failure_summary(check_rows, waived_checks(workload))]
+    reasons += [f"is not accurate enough at {line}" for line in accuracy_evidence(check_rows, workload)[4]]
+    return reasons + [f"does not reach the SQNR needed at {line}" for line in sqnr_evidence(check_rows, workload)[3]]
 
 
 def assess(backend: str, check_rows: list[dict], time_rows: list[dict], workload: Workload) -> Candidate:
@@ -175,8 +245,9 @@ def assess(backend: str, check_rows: list[dict], time_rows: list[dict], workload
     wanted = set(keys)
     check_rows = [r for r in check_rows if case_key(r) in wanted]
     reasons = battery_reasons(check_rows, workload)
-    failed = failure_summary(check_rows)
+    failed = failure_summary(check_rows, waived_checks(workload))
     worst, worst_case, limit, source, _ = accuracy_evidence(check_rows, workload)
+    sqnr, sqnr_case, level, _ = sqnr_evidence(check_rows, workload) if workload.fixed_dtypes else (None, None, None, [])
     costs, missing = case_costs([r for r in time_rows if case_key(r) in wanted], keys)
     if not reasons:
         reasons += [f"has no time for {line}" for line in missing]
@@ -193,6 +264,8 @@ def assess(backend: str, check_rows: list[dict], time_rows: list[dict], workload
         amortised_low=None if plan is None else total("seconds_low") + plan / calls,
         amortised_high=None if plan is None else total("seconds_high") + plan / calls,
         worst_eps=worst, worst_case=worst_case, limit_eps=limit, limit_source=source,
+        worst_sqnr_db=sqnr, sqnr_case=sqnr_case, sqnr_level_dbfs=level,
+        sqnr_need_db=None if workload.sqnr is None else workload.sqnr.db,
         peak_bytes=max(peaks) if peaks else None, cases=tuple(costs),
     )
 

@@ -44,8 +44,11 @@ def round_up_calls(calls: float) -> int:
 
 
 def accuracy_phrase(a: Candidate, b: Candidate) -> str:
-    """Return ``at equal accuracy (worst 2.1 and 2.4 eps)`` or the two worst errors when they differ."""
+    """Return ``at equal accuracy (worst 2.1 and 2.4 eps)`` or the two worst errors when they
+    differ; for a fixed-point workload the two worst SQNRs (``, with worst SQNRs of 51.1 and 47.1 dB``)."""
     if a.worst_eps is None or b.worst_eps is None:
+        if a.worst_sqnr_db is not None and b.worst_sqnr_db is not None:
+            return f", with worst SQNRs of {a.worst_sqnr_db:.1f} and {b.worst_sqnr_db:.1f} dB"
         return ""
     low, high = sorted((max(a.worst_eps, 1e-300), max(b.worst_eps, 1e-300)))
     if high / low <= EQUAL_ACCURACY_FACTOR:
