@@ -99,7 +99,7 @@ def random_input(case: Case, rng: np.random.Generator, distribution: str = "gaus
     real = case.real_dtype
     if case.dtype in FIXED_DTYPES:  # q15/q31: (n, 2) integer pairs (harness/fixed/formats.py)
         from fftgauge.harness.fixed.signals import random_pairs
-        return random_pairs(rng, length, case.dtype)
+        return random_pairs(rng, length, case.dtype, real=case.kind == "rfft")
     if case.kind == "rfft":
         return _draw_real(rng, length, distribution, real)
     x = np.empty(length, dtype=case.complex_dtype)

@@ -14,9 +14,14 @@
               :data:`OVERLOAD_GAP_DB` below the saturating reference's; ``value`` is the
               backend's count of far-off parts over the sweep, ``limit`` the reference's.
 
+Every kind (``fft``, ``ifft``, ``rfft``, ``irfft``) is checked the same way, on its own inputs
+(:mod:`~fftgauge.harness.fixed.signals`), against the exact unnormalised transform of that
+kind and the built-in reference's same kind.
+
 A failing row's diagnosis names the first hypothesis that explains the measured SQNRs
 (:func:`diagnose`): ``scaling-shift`` (the outputs match the exact DFT under another shift),
-``overflow`` (parts far off, as a wrap-around leaves them), ``rounding`` (they match the
+``sign`` (they match the transform of the opposite direction: an inverse whose twiddles are
+not conjugated, a forward one whose are), ``overflow`` (parts far off, as a wrap-around leaves them), ``rounding`` (they match the
 reference that truncates), ``twiddle-bits`` (they match the reference with 8-, 10- or 12-bit
 twiddles), else ``precision``.
 """
@@ -29,13 +34,15 @@ from typing import Any, Callable
 import numpy as np
 
 from fftgauge.harness.battery.context import OutputProblem
+from fftgauge.harness.cases import Case
 from fftgauge.harness.errors import BackendFailure
 from fftgauge.harness.fixed.declared import FixedScaling
 from fftgauge.harness.fixed.formats import QFormat, fixed_format
-from fftgauge.harness.fixed.measure import Point, exact_output, measure_points, read_output, reference_for
+from fftgauge.harness.fixed.measure import (Point, exact_output, measure_points, opposite_sign_output, read_output,
+                                            reference_for)
 from fftgauge.harness.fixed.metrics import sqnr_db
 from fftgauge.harness.fixed.signals import LEVELS_DBFS, test_signal
-from fftgauge.harness.fixed.structure import STRUCTURE_CHECKS, structure_rows
+from fftgauge.harness.fixed.structure import PARTNER, STRUCTURE_CHECKS, structure_rows
 from fftgauge.harness.rows import CheckRow, error_rows, skip_rows
 
 __all__ = ["DEFAULT_MARGIN_DB", "FIXED_CHECKS", "SWEEP_DBFS", "diagnose", "fixed_check_case", "overflow_row",
@@ -72,16 +79,13 @@ TWIDDLE_HYPOTHESES = (8, 10, 12)
 def fixed_check_case(backend: Any, case: Any, seed: int, margin_db: float = DEFAULT_MARGIN_DB) -> list[CheckRow]:
     """Plan the q15/q31 ``case`` on ``backend`` and return the rows of :data:`FIXED_CHECKS`.
 
-    A case outside the backend's claims, a kind other than ``fft``, or a backend without a
-    declared :class:`FixedScaling` (``Capabilities(fixed=...)``) gives ``skip`` or ``error``
+    A case outside the backend's claims or a backend without a declared :class:`FixedScaling` (``Capabilities(fixed=...)``) gives ``skip`` or ``error``
     rows; a plan or a run that raises gives ``error`` rows; an output of floats or of the
     wrong shape gives ``fail`` rows (``dtype``/``shape``). Never raises for the backend's sake.
     """
     names = list(FIXED_CHECKS)
     label = backend.label
     reason = backend.unsupported_reason(case)
-    if reason is None and case.kind != "fft":
-        reason = f"the fixed-point checks cover fft only (not {case.kind})"
     if reason is None and case.n & (case.n - 1):
         reason = f"the fixed-point reference is a radix-2: powers of two only (n = {case.n})"
     if reason is not None:
@@ -100,7 +104,8 @@ def fixed_check_case(backend: Any, case: Any, seed: int, margin_db: float = DEFA
                 overflow_row(label, case, plan.execute, fmt, declared, seed),
                 *behaviour_rows(label, case, plan.execute, fmt, declared, seed, backend.capabilities()),
                 *structure_rows(lambda check, status, **fields: row_of(label, case, check, status, **fields),
-                                plan.execute, fmt, case.n, declared, seed, lambda: backend.plan(case))]
+                                plan.execute, fmt, case.n, declared, seed, lambda: backend.plan(case),
+                                kind=case.kind, partner=partner_of(backend, case))]
     except OutputProblem as problem:
         return [row_of(label, case, name, "fail", diagnosis=problem.code, message=problem.message) for name in names]
     except Exception as exc:  # noqa: BLE001 - the backend raised or returned something unusable
@@ -113,6 +118,16 @@ def fixed_check_case(backend: Any, case: Any, seed: int, margin_db: float = DEFA
             pass
 
 
+def partner_of(backend: Any, case: Any) -> Callable[[], Any] | str:
+    """Return a function planning the transform that undoes ``case`` on ``backend`` (ifft for
+    fft and back, irfft for rfft and back), or the reason it cannot (a string)."""
+    other = Case(PARTNER[case.kind], case.dtype, case.n, case.norm)
+    reason = backend.unsupported_reason(other)
+    if reason is not None:
+        return f"{backend.label} takes no {other.kind} in {case.dtype} at n = {case.n} ({reason})"
+    return lambda: backend.plan(other)
+
+
 def row_of(label: str, case: Any, check: str, status: str, **fields: Any) -> CheckRow:
     """Return a :class:`CheckRow` of ``check`` for ``case``."""
     return CheckRow(backend=label, kind=case.kind, dtype=case.dtype, n=case.n, check=check, status=status,
@@ -123,7 +138,7 @@ def sqnr_row(label: str, case: Any, run: Callable, fmt: QFormat, declared: Fixed
              margin_db: float) -> CheckRow:
     """Return the ``sqnr`` row: the worst shortfall against the reference over the grid."""
     reference = reference_for(fmt, declared)
-    points = measure_points(run, fmt, case.n, declared, reference, seed)
+    points = measure_points(run, fmt, case.n, declared, reference, seed, kind=case.kind)
     judged = judged_points(points)
     if not judged:
         return row_of(label, case, "sqnr", "skip", message=f"no noise level of {', '.join(map(str, LEVELS_DBFS))} "
@@ -133,7 +148,7 @@ def sqnr_row(label: str, case: Any, run: Callable, fmt: QFormat, declared: Fixed
     # the cause is looked for past CAUSE_FROM_DB even on a pass: a stricter --limit may fail the row
     cause = None
     if worst.shortfall_db > CAUSE_FROM_DB:
-        cause = diagnose(points, run, fmt, case.n, declared, seed, margin_db)
+        cause = diagnose(points, run, fmt, case.n, declared, seed, margin_db, kind=case.kind)
     diagnosis = cause if status == "fail" else None
     tone = next((p for p in points if p.signal == "tone" and p.level_dbfs == 0.0), None)
     gap = worst.shortfall_db
@@ -161,14 +176,14 @@ def behaviour_rows(label: str, case: Any, run: Callable, fmt: QFormat, declared:
     """Return the ``input-intact`` and ``repeatable`` rows: noise at -6 dBFS given three times;
     the caller's pairs must be unchanged (unless the backend declares ``in_place``) and the
     three outputs equal bit for bit."""
-    x = test_signal("noise", case.n, -6.0, fmt, seed)
+    x = test_signal("noise", case.n, -6.0, fmt, seed, case.kind)
     given = x.copy()
-    outputs = [read_output(run(x if k == 0 else given.copy()), fmt, case.n, declared.shift_at(case.n))[0]
+    outputs = [read_output(run(x if k == 0 else given.copy()), fmt, case.n, declared.shift_at(case.n), case.kind)[0]
                for k in range(3)]
-    changed = int(np.count_nonzero(np.any(x != given, axis=-1)))
+    changed = int(np.count_nonzero((x != given).reshape(x.shape[0], -1).any(axis=-1)))
     if changed and not getattr(capabilities, "in_place", False):
         intact = row_of(label, case, "input-intact", "fail", value=float(changed), limit=0.0,
-                        diagnosis="input-modified", message=f"the plan changed {changed} of the caller's {case.n} pairs")
+                        diagnosis="input-modified", message=f"the plan changed {changed} of the caller's {x.shape[0]} input values")
     else:
         intact = row_of(label, case, "input-intact", "pass", value=float(changed), limit=0.0,
                         message="the caller's pairs are unchanged" if not changed else
@@ -199,7 +214,8 @@ def first_overflow_level(points: list[Point], which: str) -> float | None:
 def overflow_row(label: str, case: Any, run: Callable, fmt: QFormat, declared: FixedScaling, seed: int) -> CheckRow:
     """Return the ``overflow`` row: wrap-around and the saturation onset against the reference."""
     reference = reference_for(fmt, declared)
-    points = measure_points(run, fmt, case.n, declared, reference, seed, signals=("tone", "noise"), levels=SWEEP_DBFS)
+    points = measure_points(run, fmt, case.n, declared, reference, seed, signals=("tone", "noise"), levels=SWEEP_DBFS,
+                            kind=case.kind)
     wrapped = sum(p.backend.wrapped for p in points)
     ref_wrapped = sum(p.reference.wrapped for p in points)
     mine, theirs = first_overflow_level(points, "backend"), first_overflow_level(points, "reference")
@@ -208,7 +224,8 @@ def overflow_row(label: str, case: Any, run: Callable, fmt: QFormat, declared: F
     message = (f"{said} (a {reference.describe()}: {ref_said}); {wrapped} output parts more than half the range "
                f"off over the sweep (the reference: {ref_wrapped})")
     less_headroom = mine is not None and (theirs is None or mine < theirs - 1.0)
-    overload = measure_points(run, fmt, case.n, declared, reference, seed, signals=("corners",), levels=(0.0,))[0]
+    overload = measure_points(run, fmt, case.n, declared, reference, seed, signals=("corners",), levels=(0.0,),
+                              kind=case.kind)[0]
     collapsed = overload.shortfall_db > OVERLOAD_GAP_DB
     message += (f"; overload (every part at full scale, corners): SQNR {overload.backend.sqnr_db:.1f} dB, the saturating "
                 f"reference {overload.reference.sqnr_db:.1f} dB")
@@ -224,12 +241,14 @@ def overflow_row(label: str, case: Any, run: Callable, fmt: QFormat, declared: F
 
 
 def diagnose(points: list[Point], run: Callable, fmt: QFormat, n: int, declared: FixedScaling, seed: int,
-             margin_db: float) -> str:
-    """Return the diagnosis code of a failing ``sqnr``: the first hypothesis that explains the
-    backend's SQNRs (see the module docstring), else ``precision``."""
+             margin_db: float, kind: str = "fft") -> str:
+    """Return the diagnosis code of a failing ``sqnr`` of transform ``kind``: the first
+    hypothesis that explains the backend's SQNRs (see the module docstring), else ``precision``."""
     judged = judged_points(points)
-    if shift_error(judged, run, fmt, n, declared, seed) is not None:
+    if shift_error(judged, run, fmt, n, declared, seed, kind) is not None:
         return "scaling-shift"  # first: a wrong shift also puts outputs at the rails or far off
+    if opposite_sign(judged, run, fmt, n, declared, seed, kind):
+        return "sign"
     if any(p.backend.wrapped for p in judged):
         return "overflow"
     mine = np.array([p.backend.sqnr_db for p in judged])
@@ -239,7 +258,8 @@ def diagnose(points: list[Point], run: Callable, fmt: QFormat, n: int, declared:
     for code, changes in hypotheses:
         variant = reference_for(fmt, declared, **changes)
         keys = {(p.signal, p.level_dbfs) for p in judged}
-        theirs = [p for p in measure_points(run, fmt, n, declared, variant, seed) if (p.signal, p.level_dbfs) in keys]
+        theirs = [p for p in measure_points(run, fmt, n, declared, variant, seed, kind=kind)
+                  if (p.signal, p.level_dbfs) in keys]
         sq = np.array([p.reference.sqnr_db for p in theirs])
         if np.all(np.isfinite(sq)) and np.all(np.isfinite(mine)) and np.mean(np.abs(sq - mine)) <= MATCH_DB:
             return code
@@ -247,7 +267,7 @@ def diagnose(points: list[Point], run: Callable, fmt: QFormat, n: int, declared:
 
 
 def shift_error(judged: list[Point], run: Callable, fmt: QFormat, n: int, declared: FixedScaling,
-                seed: int) -> int | None:
+                seed: int, kind: str = "fft") -> int | None:
     """Return k != 0 when the backend's outputs times 2**k match the exact DFT (its real
     output shift is the declared one plus k) far better than as declared, else None.
 
@@ -255,12 +275,30 @@ def shift_error(judged: list[Point], run: Callable, fmt: QFormat, n: int, declar
     reference's and at least 10 dB above k = 0.
     """
     for point in judged:
-        x = test_signal("noise", n, point.level_dbfs, fmt, seed)
-        y, shift = read_output(run(x.copy()), fmt, n, declared.shift_at(n))
-        exact = exact_output(x, shift)
+        x = test_signal("noise", n, point.level_dbfs, fmt, seed, kind)
+        y, shift = read_output(run(x.copy()), fmt, n, declared.shift_at(n), kind)
+        exact = exact_output(x, shift, kind, n)
         got = y[:, 0].astype(np.longdouble) + 1j * y[:, 1].astype(np.longdouble)
         scores = {k: sqnr_db(exact, got * np.longdouble(2.0) ** k) for k in range(-fmt.bits, fmt.bits + 1)}
         best = max(scores, key=lambda k: scores[k])
         if best != 0 and scores[best] >= point.reference.sqnr_db - 6.0 and scores[best] >= scores[0] + 10.0:
             return best
     return None
+
+
+def opposite_sign(judged: list[Point], run: Callable, fmt: QFormat, n: int, declared: FixedScaling, seed: int,
+                  kind: str = "fft") -> bool:
+    """Return True when the backend's outputs match the transform of the opposite exponent
+    sign (:func:`~fftgauge.harness.fixed.measure.opposite_sign_output`) within 6 dB of the
+    reference's SQNR and at least 10 dB better than the transform asked for, on every judged
+    noise level."""
+    if not judged:
+        return False
+    for point in judged:
+        x = test_signal("noise", n, point.level_dbfs, fmt, seed, kind)
+        y, shift = read_output(run(x.copy()), fmt, n, declared.shift_at(n), kind)
+        got = y[:, 0].astype(np.longdouble) + 1j * y[:, 1].astype(np.longdouble)
+        other = sqnr_db(opposite_sign_output(x, shift, kind, n), got)
+        if not (other >= point.reference.sqnr_db - 6.0 and other >= sqnr_db(exact_output(x, shift, kind, n), got) + 10.0):
+            return False
+    return True

@@ -23,10 +23,25 @@ of the integer input (``output = DFT / 2**shift``):
             of full scale, the whole block is divided by 2 and the block exponent grows by
             one; shift = the exponent of that call (:attr:`FixedResult.exponent`).
 
+Kinds (:meth:`FixedRadix2.run`), each declared by the same output shift (``output * 2**shift``
+is the unnormalised transform of the integer input):
+
+``fft``     the above: ``X[k] = sum x[n] exp(-2 pi i k n / N)``; ``(n, 2)`` pairs in and out.
+``ifft``    the same butterflies with conjugated twiddles (``W = exp(+2 pi i j / m)``, the
+            quantised imaginary parts negated): ``x[n] = sum X[k] exp(+2 pi i k n / N)``, so
+            with ``stage`` or ``input`` (shift log2 N) the output is numpy's ``ifft``.
+``rfft``    ``n`` real integers in; the complex radix-2 of ``(x, 0)``, bins ``0 .. n/2`` kept:
+            ``(n/2 + 1, 2)`` pairs out (the textbook way, every stage at size N; a library
+            that runs an N/2-point complex FFT and a split stage has as many roundings).
+``irfft``   ``(n/2 + 1, 2)`` pairs in (the imaginary parts of DC and Nyquist ignored, as
+            numpy's irfft does); the Hermitian extension (``X[N-k] = conj X[k]``, a negated
+            rail saturated or wrapped by the overflow rule), the ``ifft`` above, the real
+            parts kept: ``n`` integers out.
+
 Source: the structure is Oppenheim & Schafer, Discrete-Time Signal Processing, 3rd ed.,
 section 9.3 (decimation in time) and section 9.7 (its fixed-point noise analysis and
-scaling), from memory; tests/test_fixed_point.py checks the arithmetic bit for bit against
-an independent exact-rational implementation at N <= 16.
+scaling), from memory; tests/test_fixed_point.py checks the arithmetic of every kind bit for
+bit against an independent exact-rational implementation at N <= 16.
 """
 
 from __future__ import annotations
@@ -36,10 +51,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from fftgauge.harness.dft import bit_reversal_permutation, is_power_of_two
+from fftgauge.harness.dft import bit_reversal_permutation, hermitian_indices, is_power_of_two, real_bins
 from fftgauge.harness.fixed.formats import OVERFLOWS, ROUNDINGS, QFormat, as_pairs, handle_overflow, shift_right
 
-__all__ = ["SCALINGS", "FixedRadix2", "FixedResult", "quantised_twiddles", "scaling_shift"]
+__all__ = ["SCALINGS", "FixedRadix2", "FixedResult", "quantised_twiddles", "real_part", "scaling_shift"]
 
 #: Scaling rules of the reference.
 SCALINGS = ("none", "input", "stage", "bfp")
@@ -78,6 +93,11 @@ def quantised_twiddles(m: int, twiddle_bits: int) -> tuple[np.ndarray, np.ndarra
     wr = np.clip(np.round(np.cos(angle) * one), -top, top).astype(np.int64)
     wi = np.clip(np.round(np.sin(angle) * one), -top, top).astype(np.int64)
     return wr, wi
+
+
+def real_part(pairs: np.ndarray) -> np.ndarray:
+    """Return the real parts of ``(n, 2)`` pairs (the integers of a real output), same dtype."""
+    return np.ascontiguousarray(np.asarray(pairs)[:, 0])
 
 
 @dataclass(frozen=True)
@@ -125,8 +145,67 @@ class FixedRadix2:
         wrap = ", wrap-around" if self.overflow == "wrap" else ""
         return f"radix-2 {self.fmt.name}, {SCALING_WORDS[self.scaling]}, {self.rounding}{tw}{wrap}"
 
-    def transform(self, x: np.ndarray) -> FixedResult:
-        """Return the forward DFT of ``(n, 2)`` integer pairs ``x`` (n a power of two).
+    def run(self, kind: str, x: np.ndarray, n: int | None = None) -> FixedResult:
+        """Return the transform ``kind`` (``fft``, ``ifft``, ``rfft``, ``irfft``) of ``x`` in the
+        layout of the module docstring; ``n`` is the signal length (needed for ``irfft`` only,
+        default ``2 * (len(x) - 1)``). A real output comes back as ``(n, 2)`` pairs with zero
+        imaginary parts (:func:`real_part` gives the integers).
+
+        Raises
+        ------
+        ValueError
+            For an unknown kind, data of the wrong layout, or n not a power of two.
+        """
+        if kind in ("fft", "ifft"):
+            return self.transform(x, inverse=kind == "ifft")
+        if kind == "rfft":
+            return self.real_forward(x)
+        if kind == "irfft":
+            return self.real_inverse(x, n)
+        raise ValueError(f"unknown transform kind {kind!r}")
+
+    def real_forward(self, x: np.ndarray) -> FixedResult:
+        """Return bins ``0 .. n/2`` of the forward DFT of ``n`` real integers ``x``.
+
+        Raises
+        ------
+        ValueError
+            When ``x`` is not 1-D integers or n is not a power of two.
+        """
+        a = np.asarray(x)
+        if a.ndim != 1 or not np.issubdtype(a.dtype, np.integer):
+            raise ValueError(f"a fixed-point rfft takes n real integers, got dtype {a.dtype} shape {a.shape}")
+        pairs = np.stack([a.astype(np.int64), np.zeros(a.shape[0], dtype=np.int64)], axis=-1)
+        full = self.transform(pairs)
+        return FixedResult(full.pairs[: a.shape[0] // 2 + 1].copy(), full.exponent)
+
+    def real_inverse(self, x: np.ndarray, n: int | None = None) -> FixedResult:
+        """Return the inverse DFT of the half spectrum ``x`` (``(n/2 + 1, 2)`` pairs) as ``(n, 2)``
+        pairs whose imaginary parts are zero (the real parts of the complex inverse).
+
+        Raises
+        ------
+        ValueError
+            When ``x`` is not pairs, holds fewer than ``n/2 + 1`` of them, or n is not a power of two.
+        """
+        half = as_pairs(x)
+        n = 2 * (half.shape[0] - 1) if n is None else int(n)
+        if n < 1 or half.shape[0] < n // 2 + 1:
+            raise ValueError(f"an irfft of size {n} takes {n // 2 + 1} pairs, got {half.shape[0]}")
+        half = half[: n // 2 + 1].copy()
+        for k in real_bins(n):
+            half[k, 1] = 0
+        source, conjugated = hermitian_indices(n)
+        full = half[source]
+        full[conjugated, 1] = handle_overflow(-full[conjugated, 1], self.fmt, self.overflow)
+        out = self.transform(full, inverse=True)
+        pairs = out.pairs.copy()
+        pairs[:, 1] = 0
+        return FixedResult(pairs, out.exponent)
+
+    def transform(self, x: np.ndarray, inverse: bool = False) -> FixedResult:
+        """Return the forward DFT of ``(n, 2)`` integer pairs ``x`` (n a power of two), or with
+        ``inverse`` the unnormalised inverse DFT (conjugated twiddles), each under the scaling.
 
         Raises
         ------
@@ -149,18 +228,21 @@ class FixedRadix2:
             if self.scaling == "bfp" and np.max(np.hypot(re, im), initial=0.0) >= self.fmt.one / 2:
                 re, im = shift_right(re, 1, self.rounding), shift_right(im, 1, self.rounding)
                 exponent += 1
-            re, im = self.stage(re, im, m)
+            re, im = self.stage(re, im, m, inverse)
             if self.scaling == "stage":
                 exponent += 1
             m *= 2
         out = np.stack([re, im], axis=-1).astype(self.fmt.dtype)
         return FixedResult(out, exponent)
 
-    def stage(self, re: np.ndarray, im: np.ndarray, m: int) -> tuple[np.ndarray, np.ndarray]:
-        """Return the data after the butterflies of the stage merging sub-transforms of length m/2."""
+    def stage(self, re: np.ndarray, im: np.ndarray, m: int, inverse: bool = False) -> tuple[np.ndarray, np.ndarray]:
+        """Return the data after the butterflies of the stage merging sub-transforms of length m/2
+        (conjugated twiddles when ``inverse``)."""
         half = m // 2
         tb = self.twiddle_width
         wr, wi = quantised_twiddles(m, tb)
+        if inverse:
+            wi = -wi
         r, i = re.reshape(-1, m), im.reshape(-1, m)
         ar, ai, br, bi = r[:, :half], i[:, :half], r[:, half:], i[:, half:]
         tr = shift_right(br * wr - bi * wi, tb - 1, self.rounding)

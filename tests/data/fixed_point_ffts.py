@@ -52,8 +52,9 @@ def twiddle(j: int, m: int, tb: int) -> tuple[int, int]:
 
 
 def scalar_fft(x: list[tuple[int, int]], bits: int, scaling: str, rounding: str, overflow: str = "saturate",
-               twiddle_bits: int | None = None) -> tuple[list[tuple[int, int]], int]:
-    """Return the radix-2 DIT of integer pairs ``x`` and the output shift (exponent)."""
+               twiddle_bits: int | None = None, inverse: bool = False) -> tuple[list[tuple[int, int]], int]:
+    """Return the radix-2 DIT of integer pairs ``x`` and the output shift (exponent); with
+    ``inverse`` the twiddles are exp(+2 pi i j/m) (the quantised sine negated)."""
     n = len(x)
     t = n.bit_length() - 1
     tb = twiddle_bits or bits
@@ -72,6 +73,8 @@ def scalar_fft(x: list[tuple[int, int]], bits: int, scaling: str, rounding: str,
         for k in range(0, n, m):
             for j in range(m // 2):
                 wr, wi = twiddle(j, m, tb)
+                if inverse:
+                    wi = -wi
                 (ar, ai), (br, bi) = data[k + j], data[k + j + m // 2]
                 tr = rshift(br * wr - bi * wi, tb - 1, rounding)
                 ti = rshift(br * wi + bi * wr, tb - 1, rounding)
@@ -86,6 +89,49 @@ def scalar_fft(x: list[tuple[int, int]], bits: int, scaling: str, rounding: str,
     return [tuple(p) for p in data], exponent
 
 
+def scalar_rfft(x: list[int], bits: int, scaling: str, rounding: str, overflow: str = "saturate",
+                twiddle_bits: int | None = None) -> tuple[list[tuple[int, int]], int]:
+    """Return bins 0..n/2 of the radix-2 of the real integers ``x`` (imaginary parts 0)."""
+    out, exponent = scalar_fft([(int(v), 0) for v in x], bits, scaling, rounding, overflow, twiddle_bits)
+    return out[: len(x) // 2 + 1], exponent
+
+
+def scalar_irfft(half: list[tuple[int, int]], n: int, bits: int, scaling: str, rounding: str,
+                 overflow: str = "saturate", twiddle_bits: int | None = None) -> tuple[list[int], int]:
+    """Return the real parts of the inverse radix-2 of the Hermitian extension of ``half``:
+    X[k] for k <= n/2 (imaginary parts of DC and Nyquist dropped), conj X[n - k] above (the
+    negated part brought into range by ``overflow``)."""
+    h = [[int(a), int(b)] for a, b in half[: n // 2 + 1]]
+    h[0][1] = 0
+    if n % 2 == 0 and n >= 2:
+        h[n // 2][1] = 0
+    full = [tuple(h[k]) if k <= n // 2 else (h[n - k][0], fit(-h[n - k][1], bits, overflow)) for k in range(n)]
+    out, exponent = scalar_fft(full, bits, scaling, rounding, overflow, twiddle_bits, inverse=True)
+    return [re for re, _ in out], exponent
+
+
+def scalar_run(kind: str, x: np.ndarray, n: int, bits: int, conjugate: bool = True,
+               **computes) -> np.ndarray:
+    """Return the transform ``kind`` of ``x`` in fftgauge's fixed-point layouts (docs/fixed-point.md):
+    pairs for complex data, integers for real data. ``conjugate=False`` leaves the inverse
+    kinds with the forward twiddles (a broken inverse)."""
+    a = np.asarray(x)
+    dtype = np.int16 if bits == 16 else np.int32
+    if kind in ("fft", "ifft"):
+        out, _ = scalar_fft([(int(p), int(q)) for p, q in a], bits, inverse=kind == "ifft" and conjugate, **computes)
+        return np.array(out, dtype=dtype)
+    if kind == "rfft":
+        out, _ = scalar_rfft([int(v) for v in a], bits, **computes)
+        return np.array(out, dtype=dtype)
+    if conjugate:
+        out, _ = scalar_irfft([(int(p), int(q)) for p, q in a], n, bits, **computes)
+    else:
+        h = [(int(p), int(q)) for p, q in a]
+        full = [h[k] if k <= n // 2 else (h[n - k][0], -h[n - k][1]) for k in range(n)]
+        out = [re for re, _ in scalar_fft(full, bits, **computes)[0]]
+    return np.array(out, dtype=dtype)
+
+
 class ScalarQ15(Backend):
     """A Q15 backend around :func:`scalar_fft`; subclasses declare one thing and do another."""
 
@@ -94,15 +140,53 @@ class ScalarQ15(Backend):
     declared = FixedScaling(output_shift="log2n", scaling="stage", rounding="round-half-up")
     computes = {"scaling": "stage", "rounding": "round-half-up", "overflow": "saturate", "twiddle_bits": None}
 
+    kinds = ("fft",)
+    conjugate = True
+
     def capabilities(self):
-        return Capabilities(kinds=("fft",), dtypes=("q15",), sizes="pow2", norms=("backward",), fixed=self.declared)
+        return Capabilities(kinds=self.kinds, dtypes=("q15",), sizes="pow2", norms=("backward",), fixed=self.declared)
 
     def plan(self, case):
-        def run(x):
-            pairs = [(int(a), int(b)) for a, b in np.asarray(x)]
-            out, _ = scalar_fft(pairs, 16, **self.computes)
-            return np.array(out, dtype=np.int16)
-        return FunctionPlan(case, run)
+        return FunctionPlan(case, lambda x: scalar_run(case.kind, x, case.n, 16, self.conjugate, **self.computes))
+
+
+class AllKindsQ15(ScalarQ15):
+    """Correct in every kind (fft, ifft, rfft, irfft), 1/2 per stage, round-half-up."""
+
+    name = "all-kinds-q15"
+    kinds = ("fft", "ifft", "rfft", "irfft")
+
+
+class InverseWrongShift(AllKindsQ15):
+    """Its inverses do no scaling while it declares 1/2 per stage (the forward ones are right)."""
+
+    name = "inverse-wrong-shift"
+
+    def plan(self, case):
+        computes = {**self.computes, "scaling": "none"} if case.is_inverse else self.computes
+        return FunctionPlan(case, lambda x: scalar_run(case.kind, x, case.n, 16, True, **computes))
+
+
+class NoConjugation(AllKindsQ15):
+    """Its inverses keep the forward twiddles (the conjugation is missing)."""
+
+    name = "no-conjugation"
+    conjugate = False
+
+
+class RealTruncating(AllKindsQ15):
+    """Declares round-half-up but truncates every shift (in every kind)."""
+
+    name = "real-truncating"
+    computes = {**ScalarQ15.computes, "rounding": "truncate"}
+
+
+class RealNoSaturation(AllKindsQ15):
+    """Declares and does no scaling and lets sums wrap around (in every kind)."""
+
+    name = "real-no-saturation"
+    declared = FixedScaling(output_shift=0, scaling="none", rounding="round-half-up")
+    computes = {**ScalarQ15.computes, "scaling": "none", "overflow": "wrap"}
 
 
 class ScalarQ15Convergent(ScalarQ15):
