@@ -1,10 +1,12 @@
 """pyFFTW: FFTW 3 plans, built in :meth:`PyfftwBackend.plan` so that planning is timed apart.
 
 A plan owns one input and one output buffer (SIMD-aligned by default) and the FFTW object
-planned on them. :meth:`PyfftwPlan.prepare` copies an input into the plan's own input
-buffer and returns that buffer; :meth:`PyfftwPlan.execute` on that buffer runs FFTW with no
-copy at all; on any other array it copies in, and returns a copy of the output. ``FFTW.execute()`` computes the unscaled
-sums, so the plan applies the ``norm`` factor itself, in the case's own precision.
+planned on them (the buffers, flags, norm factor and plan shared with the shaped plans are
+:mod:`fftgauge.backends.pyfftw_buffers`). :meth:`PyfftwPlan.prepare` copies an input into the
+plan's own input buffer and returns that buffer; :meth:`PyfftwPlan.execute` on that buffer
+runs FFTW with no copy at all; on any other array it copies in, and returns a copy of the
+output. ``FFTW.execute()`` computes the unscaled sums, so the plan applies the ``norm``
+factor itself, in the case's own precision.
 
 The caller's array is never written to: FFTW only ever sees the plan's buffers. FFTW's
 one-dimensional complex-to-real (``irfft``) plans may destroy their input unless asked not
@@ -15,16 +17,16 @@ buffer keep giving the same answer.
 
 from __future__ import annotations
 
-import threading
 from functools import lru_cache
 from typing import Any
 
 import numpy as np
 import pyfftw
 
-from fftgauge.backends.base import Backend, Capabilities, OptionSpec, Plan
+from fftgauge.backends.base import Backend, Capabilities, OptionSpec
+from fftgauge.backends.pyfftw_buffers import FftwBufferPlan, fftw_buffer, fftw_scale, planner_flags
 from fftgauge.backends.pyfftw_shaped import PyfftwShapedPlan, plan_shaped_fftw
-from fftgauge.harness.cases import Case, norm_factor
+from fftgauge.harness.cases import Case
 from fftgauge.harness.shapes.case import SHAPE_KINDS, ShapeCase
 
 #: The ``effort`` option's values and the FFTW planner flag each one stands for.
@@ -59,97 +61,20 @@ def available_dtypes() -> tuple[str, ...]:
     return tuple(d for d in _PRECISION_KEYS if _probe_precision(d))
 
 
-def _buffer(length: int, dtype: np.dtype, aligned: bool) -> np.ndarray:
-    """Return an uninitialised 1-D array for FFTW.
-
-    ``aligned`` True: aligned to ``pyfftw.simd_alignment`` bytes. False: deliberately
-    offset from that alignment by one real element (still aligned for numpy), so that the
-    cost of unaligned data can be measured.
-    """
-    dtype = np.dtype(dtype)
-    if aligned:
-        return pyfftw.empty_aligned(length, dtype=dtype)
-    offset = dtype.alignment
-    nbytes = length * dtype.itemsize
-    raw = pyfftw.empty_aligned(nbytes + offset, dtype=np.uint8)
-    return raw[offset:offset + nbytes].view(dtype)
-
-
 def _scale(case: Case) -> np.floating | None:
-    """Return the factor FFTW's unscaled output is multiplied by, or None when it is 1.
-
-    Which side is scaled, and by what, is :func:`fftgauge.harness.cases.norm_factor`'s rule (the
-    array API standard's ``norm``); the factor is evaluated here in the case's own real
-    precision, so that a long-double transform is not scaled by a double.
-    """
-    if norm_factor(case.n, case.norm, case.is_inverse) == 1.0:
-        return None
-    real = case.real_dtype.type
-    if case.norm == "ortho":
-        return real(1) / np.sqrt(real(case.n))
-    return real(1) / real(case.n)
+    """Return the factor FFTW's unscaled output is multiplied by, or None when it is 1
+    (:func:`fftgauge.backends.pyfftw_buffers.fftw_scale` of the case's N, in its precision)."""
+    return fftw_scale(case.n, case.norm, case.is_inverse, case.real_dtype)
 
 
-class PyfftwPlan(Plan):
-    """One FFTW plan on buffers the plan owns.
-
-    Two ways to run it:
-
-    - the fast path, for timing: ``y = plan.execute(plan.prepare(x))`` runs FFTW on the
-      prepared buffer with no copy and returns the plan's output buffer, which the next
-      call overwrites (as :class:`~fftgauge.backends.base.Plan` allows): copy it to keep it. Not for
-      several threads at once (they would share the buffers).
-    - any other array: ``plan.execute(x)`` copies ``x`` in, runs under the plan's lock and
-      returns a fresh array, so it is safe from several threads at once.
-    """
+class PyfftwPlan(FftwBufferPlan):
+    """One FFTW plan of a 1-D case on buffers the plan owns
+    (:class:`~fftgauge.backends.pyfftw_buffers.FftwBufferPlan`: ``execute(prepare(x))`` runs
+    with no copy and returns the reused output buffer; ``execute(x)`` of any other array
+    copies in under the plan's lock and returns a fresh array, safe from several threads)."""
 
     def __init__(self, case: Case, fftw: Any, input_buffer: np.ndarray, output_buffer: np.ndarray):
-        super().__init__(case)
-        self._fftw = fftw
-        self._input = input_buffer
-        self._output = output_buffer
-        self._scale = _scale(case)
-        self._lock = threading.Lock()
-
-    @property
-    def fftw(self) -> Any:
-        """The ``pyfftw.FFTW`` object, for inspection (``flags``, ``simd_aligned``, ``N``)."""
-        return self._fftw
-
-    def prepare(self, x: np.ndarray) -> np.ndarray:
-        """Copy ``x`` into the plan's input buffer and return that buffer.
-
-        The buffer holds the latest input given to :meth:`prepare` or :meth:`execute`.
-        """
-        with self._lock:
-            self._input[...] = x
-        return self._input
-
-    def execute(self, x: np.ndarray) -> np.ndarray:
-        """Return the transform of ``x``.
-
-        When ``x`` is the buffer :meth:`prepare` returned, FFTW runs on it in place and the
-        plan's output buffer is returned (no copy either way). Any other array (any strides,
-        including negative ones) is copied into the input buffer under the plan's lock, and
-        a copy of the output is returned.
-        """
-        if x is self._input:
-            return self._run()
-        with self._lock:
-            self._input[...] = x
-            return self._run().copy()
-
-    def _run(self) -> np.ndarray:
-        """Execute FFTW on the buffers, apply the norm factor, return the output buffer."""
-        self._fftw.execute()
-        if self._scale is not None:
-            np.multiply(self._output, self._scale, out=self._output)
-        return self._output
-
-    def close(self) -> None:
-        """Drop the FFTW object and the buffers."""
-        self._fftw = None
-        self._input = self._output = None  # type: ignore[assignment]
+        super().__init__(case, fftw, input_buffer, output_buffer, _scale(case))
 
 
 class PyfftwBackend(Backend):
@@ -205,9 +130,9 @@ class PyfftwBackend(Backend):
             Whatever pyFFTW raises for a plan it cannot build.
         """
         aligned = self.opts["aligned"]
-        input_buffer = _buffer(case.input_length, case.input_dtype, aligned)
-        output_buffer = _buffer(case.output_length, case.output_dtype, aligned)
-        flags = (EFFORT_FLAGS[self.opts["effort"]],) + (() if aligned else ("FFTW_UNALIGNED",))
+        input_buffer = fftw_buffer(case.input_length, case.input_dtype, aligned)
+        output_buffer = fftw_buffer(case.output_length, case.output_dtype, aligned)
+        flags = planner_flags(EFFORT_FLAGS[self.opts["effort"]], aligned)
         fftw = pyfftw.FFTW(input_buffer, output_buffer, axes=(0,),
                            direction="FFTW_BACKWARD" if case.is_inverse else "FFTW_FORWARD",
                            flags=flags, threads=self.opts["threads"])

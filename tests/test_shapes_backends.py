@@ -201,3 +201,25 @@ def test_a_one_d_user_function_claims_no_shapes(user_file):
     backend = load_backend(f"{user_file}:one_d_fft")
     assert backend.capabilities().shaped_kinds == ()
     assert "1-D array only" in backend.shaped_unsupported_reason(ShapeCase("fft", "float64", (4, 6), (0,)))
+
+
+@pytest.mark.parametrize("layout", ["C", "F"])
+def test_pyfftw_shaped_buffers_share_the_one_d_alignment_rule(layout):
+    """The shaped plans take their buffers and flags from backends/pyfftw_buffers.py as the 1-D
+    plans do: aligned=false gives a C input buffer off the SIMD alignment, planned
+    FFTW_UNALIGNED, and every input buffer lies in the case's layout; an irfftn plan (FFTW_DESTROY_INPUT) gives the same
+    answer run after run on its prepared input. Source of the answer: the shaped ground truth."""
+    pyfftw = pytest.importorskip("pyfftw")
+    case = ShapeCase("irfftn", "float64", (6, 8), (0, 1), layout)
+    x = lay_out(shaped_signal(case, 2), case.layout)
+    for spec, aligned in (("pyfftw", True), ("pyfftw[aligned=false]", False)):
+        plan = load_backend(spec).plan_shaped(case)
+        prepared = plan.prepare(x)
+        assert prepared.flags.f_contiguous == (layout == "F") and prepared.shape == x.shape
+        if layout == "C":  # other layouts are numpy's copies of the buffer (lay_out): their alignment is numpy's
+            assert pyfftw.is_byte_aligned(prepared, n=pyfftw.simd_alignment) == aligned
+        assert ("FFTW_UNALIGNED" in plan.fftw.flags) == (not aligned) and "FFTW_DESTROY_INPUT" in plan.fftw.flags
+        first = np.array(plan.execute(prepared))
+        assert np.array_equal(np.array(plan.execute(prepared)), first)
+        assert shaped_reference(x, case).relative_error(first) <= shaped_limit(case)
+        plan.close()
