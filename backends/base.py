@@ -90,6 +90,12 @@ class Plan(ABC):
     def close(self) -> None:
         """Release what the plan holds (buffers, foreign plans). Default: nothing."""
 
+    def time_row_fields(self) -> dict[str, Any]:
+        """Return what the plan measured of itself for its ``fftgauge-time/1`` row, by row field
+        name (fields of :class:`fftgauge.harness.rows.TimeRow`, e.g. the host-device transfer
+        fields); read after the timing, before :meth:`close`. Default: nothing (``{}``)."""
+        return {}
+
 
 class ShapedFunctionPlan(Plan):
     """A plan of a shaped case that is just a function of the input: ``execute(x) = fn(x)``.

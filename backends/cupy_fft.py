@@ -29,7 +29,10 @@ copies are timed apart: :meth:`CupyBackend.plan` times one host-to-device copy o
 case's input and one device-to-host copy of its output (each the median of
 :data:`TRANSFER_REPEATS`, synchronised) and keeps them on the plan
 (``plan.transfer_seconds``) and in the backend's :meth:`~CupyBackend.details`
-(``transfer_seconds`` per case planned in the process). Called on a host (numpy) array, as
+(``transfer_seconds`` per case planned in the process); the timing job carries them into the
+case's time row (:meth:`CupyPlan.time_row_fields`: ``host_to_device_seconds``,
+``device_to_host_seconds``, ``host_to_device_bytes``, ``device_to_host_bytes``; the row's
+``seconds`` does not include them). Called on a host (numpy) array, as
 the battery does, ``execute`` copies in, transforms and copies the result back: the answer
 the user would get, end to end.
 """
@@ -57,6 +60,10 @@ from fftgauge.harness.cases import Case
 PLAN_CACHE_SIZE = 128
 #: Copies per direction whose median is the reported transfer time.
 TRANSFER_REPEATS = 5
+#: The plan's transfer measurements (``plan.transfer_seconds`` keys) and the time-row fields
+#: they are carried in (:class:`fftgauge.harness.rows.TimeRow`).
+TIME_ROW_FIELDS = {"host_to_device": "host_to_device_seconds", "device_to_host": "device_to_host_seconds",
+                   "bytes_in": "host_to_device_bytes", "bytes_out": "device_to_host_bytes"}
 
 
 def device_count() -> tuple[int, str | None]:
@@ -129,6 +136,12 @@ class CupyPlan(Plan):
             data = cupy.asarray(np.ascontiguousarray(x, dtype=self.case.input_dtype))
             synchronise()
         return DeviceArray(data)
+
+    def time_row_fields(self) -> dict[str, Any]:
+        """Return the copies timed in planning as time-row fields (:data:`TIME_ROW_FIELDS`):
+        ``host_to_device_seconds``, ``device_to_host_seconds``, ``host_to_device_bytes``,
+        ``device_to_host_bytes``."""
+        return {field: self.transfer_seconds[key] for key, field in TIME_ROW_FIELDS.items()}
 
     def execute(self, x: Any) -> Any:
         """Return the transform of ``x``: a :class:`DeviceArray` for a prepared input (the device

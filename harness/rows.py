@@ -112,7 +112,11 @@ class TimeRow:
     (``harness``: wall clock around the calls; ``program``: the durations an external
     implementation reported itself), ``seconds_p10``/``seconds_p10_low``/``seconds_p10_high``
     (the 10th percentile of the per-call times and its interval: the time with the machine's
-    other load mostly filtered out; the gate's stored mode compares it).
+    other load mostly filtered out; the gate's stored mode compares it). A device backend's
+    plan (:meth:`fftgauge.backends.base.Plan.time_row_fields`) adds the copies it timed apart:
+    ``host_to_device_seconds``/``device_to_host_seconds`` (one copy of the case's input to the
+    device, of its output back; not in ``seconds``) and ``host_to_device_bytes``/
+    ``device_to_host_bytes`` (what each moves); None for every other backend.
     """
 
     backend: str
@@ -151,6 +155,11 @@ class TimeRow:
     layout: str | None = None
     batch: int | None = None
     points: int | None = None
+    #: Host-device copies a device backend's plan timed apart (seconds, bytes); None elsewhere.
+    host_to_device_seconds: float | None = None
+    device_to_host_seconds: float | None = None
+    host_to_device_bytes: int | None = None
+    device_to_host_bytes: int | None = None
 
     def as_dict(self) -> dict[str, Any]:
         """Return the row as a JSON-able dict."""

@@ -247,6 +247,34 @@ def test_the_engines_timer_and_memory_probe_take_a_device_input(with_cupy):
     assert state.syncs >= state.launches - 1  # every launch after planning's was waited for inside its call
 
 
+def test_the_copies_timed_in_planning_reach_the_time_row(with_cupy):
+    """The timing job (harness/timing/case_job.py) carries the plan's transfer times into the
+    case's time row as host_to_device_seconds, device_to_host_seconds, host_to_device_bytes,
+    device_to_host_bytes: the very values the plan measured (the backend's details hold them
+    too); the bytes are the case's input and output sizes (float32 in, complex64 out, N/2+1
+    bins); a backend without a device leaves the four fields None."""
+    import dataclasses
+
+    from fftgauge.harness.rows import TimeRow
+    from fftgauge.harness.timing.case_job import time_case
+
+    with_cupy(FakeDevice())
+    backend = load_backend("cupy")
+    options = dict(samples=5, min_samples=5, budget_seconds=0.05, warmup_seconds=1e-3, measure_memory=False)
+    row = time_case(backend, ("rfft", "float32", 64, "ortho"), options)
+    measured = backend.details()["transfer_seconds"]["rfft float32 n=64 norm=ortho"]
+    assert (row["host_to_device_bytes"], row["device_to_host_bytes"]) == (64 * 4, 33 * 8)
+    assert (row["host_to_device_seconds"], row["device_to_host_seconds"]) == (measured["host_to_device"],
+                                                                              measured["device_to_host"])
+    assert all(isinstance(row[k], float) and row[k] >= 0 for k in ("host_to_device_seconds",
+                                                                    "device_to_host_seconds"))
+    names = [f.name for f in dataclasses.fields(TimeRow)]
+    assert TimeRow(**{k: row[k] for k in names}).as_dict() == row  # nothing outside the row's fields
+    plain = time_case(load_backend("numpy"), ("rfft", "float32", 64, "ortho"), options)
+    assert all(plain[k] is None for k in ("host_to_device_seconds", "device_to_host_seconds",
+                                          "host_to_device_bytes", "device_to_host_bytes"))
+
+
 # --------------------------------------------------------------------------- the real library
 
 def test_cupy_on_a_gpu_matches_mpmath():

@@ -147,11 +147,12 @@ def time_case(backend: Backend, case_fields: tuple, options: dict, clock: Clock 
                 return None
             m = open_case.session.result()
             mem, in_place = _memory(open_case.plan, open_case.x, rest["measure_memory"])
+            noted = plan_noted(open_case.plan)
         except BaseException:
             _close_open_case(key)
             raise
         _close_open_case(key)
-    return _row(backend, case, rest["threads"], open_case.plan_seconds, m, mem, in_place, "harness")
+    return _row(backend, case, rest["threads"], open_case.plan_seconds, m, mem, in_place, "harness", noted)
 
 
 def _close_open_case(key: tuple) -> None:
@@ -180,15 +181,30 @@ def _time_whole(backend: Backend, case: Case | ShapeCase, settings: TimerSetting
         if m is None:
             m = Timer(settings, clock).measure(plan, x)
         mem, in_place = _memory(plan, x, rest["measure_memory"])
+        noted = plan_noted(plan)
     finally:
         plan.close()
-    return _row(backend, case, rest["threads"], plan_seconds, m, mem, in_place, source)
+    return _row(backend, case, rest["threads"], plan_seconds, m, mem, in_place, source, noted)
+
+
+def plan_noted(plan: Any) -> dict[str, Any]:
+    """Return the time-row fields a plan measured of itself
+    (:meth:`~fftgauge.backends.base.Plan.time_row_fields`; ``{}`` for a plan without the method)."""
+    method = getattr(plan, "time_row_fields", None)
+    return dict(method()) if callable(method) else {}
 
 
 def _row(backend: Backend, case: Case | ShapeCase, threads: int, plan_seconds: float, m: Measurement, mem: Any,
-         in_place: bool, source: str) -> dict:
+         in_place: bool, source: str, noted: dict[str, Any] | None = None) -> dict:
     """Return the ``fftgauge-time/1`` row of a finished case as a dict (a shaped case's with
-    :data:`~fftgauge.harness.shapes.fields.ROW_FIELDS`; its rates count every transform of the batch)."""
+    :data:`~fftgauge.harness.shapes.fields.ROW_FIELDS`; its rates count every transform of the batch),
+    with the fields the plan ``noted`` of itself (:meth:`~fftgauge.backends.base.Plan.time_row_fields`).
+
+    Raises
+    ------
+    TypeError
+        When the plan noted a field a time row does not have.
+    """
     n, batch = case_size(case), getattr(case, "batch", 1)
     flops = shaped_pseudo_flops(n, batch, case.is_real)
     row = TimeRow(
@@ -204,6 +220,6 @@ def _row(backend: Backend, case: Case | ShapeCase, threads: int, plan_seconds: f
         overhead_seconds=m.overhead_seconds, floor_seconds=m.floor_seconds, relative_spread=m.relative_spread,
         coverage=m.coverage, cold_cache=m.cold_cache, memory_method=None if mem is None else mem.method,
         seconds_p10=m.seconds_p10, seconds_p10_low=m.seconds_p10_low, seconds_p10_high=m.seconds_p10_high,
-        **row_fields(case),
+        **row_fields(case), **(noted or {}),
     )
     return row.as_dict()
