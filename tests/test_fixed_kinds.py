@@ -9,6 +9,7 @@ on long double (harness reference) for what the declared shift means.
 
 from __future__ import annotations
 
+import functools
 import sys
 from pathlib import Path
 
@@ -32,6 +33,13 @@ Q15, Q31 = FORMATS["q15"], FORMATS["q31"]
 
 def rows_of(backend, kind, n=16, dtype="q15"):
     return {r.check: r for r in fixed_check_case(backend, Case(kind, dtype, n), 1234)}
+
+
+@functools.lru_cache(maxsize=None)
+def twin_rows(cls, kind, n=16):
+    """The rows of a twin of tests/data/fixed_point_ffts.py (each computed once: the scalar
+    routines run on exact rationals and are slow)."""
+    return rows_of(cls(), kind, n)
 
 
 # -- the reference against exact rationals ---------------------------------------------------
@@ -103,16 +111,29 @@ def test_reference_backend_passes_every_check_in_every_kind(kind, scaling):
             assert rows["round-trip"].status == "pass"
 
 
+def round_trip(backend, kind, n, dtype="q15"):
+    """Return the round-trip row of ``kind`` alone (harness/fixed/structure.py)."""
+    from fftgauge.harness.fixed.structure import PARTNER, Runner, round_trip_row
+
+    plan = backend.plan(Case(kind, dtype, n))
+    runner = Runner(plan.execute, FORMATS[dtype], n, backend.capabilities().fixed, kind)
+    row = round_trip_row(lambda check, status, **f: dict(status=status, **f), runner,
+                         backend.capabilities().fixed.scaling, 1234,
+                         lambda: backend.plan(Case(PARTNER[kind], dtype, n)))
+    return row
+
+
 def test_round_trip_limit_holds_for_the_reference_at_many_sizes():
     """The derived limit (module docstring of harness/fixed/structure.py) is never exceeded by
-    the reference, forward then inverse and back, N = 2..4096, every scaling with headroom;
-    the measured error stays below it (and is not zero: the check measures something)."""
+    the reference, every kind then its partner, N = 2..4096, every scaling with headroom, q15
+    and q31; the measured error is not zero (the check measures something)."""
     for n in (2, 16, 256, 4096):
         for scaling in ("stage", "input", "bfp"):
-            for kind in ("fft", "rfft"):
-                row = rows_of(FixedRadix2Backend(scaling=scaling), kind, n)["round-trip"]
-                assert row.status == "pass" and row.value <= row.limit, (n, scaling, kind, row.message)
-    assert rows_of(FixedRadix2Backend(scaling="stage"), "fft", 256)["round-trip"].value > 0
+            for kind in ("fft", "ifft", "rfft", "irfft"):
+                for dtype in ("q15", "q31"):
+                    row = round_trip(FixedRadix2Backend(scaling=scaling), kind, n, dtype)
+                    assert row["status"] == "pass" and row["value"] <= row["limit"], (n, scaling, kind, row)
+    assert round_trip(FixedRadix2Backend(scaling="stage"), "fft", 256)["value"] > 0
 
 
 def test_correct_scalar_routine_passes_in_every_kind():
@@ -149,7 +170,7 @@ def test_round_trip_skips_without_a_partner_kind():
 ])
 def test_broken_inverse_and_real_twins_are_caught_and_diagnosed(cls, kind, check, code):
     """Each twin of tests/data/fixed_point_ffts.py fails the check its bug breaks, with the code."""
-    row = rows_of(cls(), kind, 32)[check]
+    row = twin_rows(cls, kind)[check]
     assert (row.status, row.diagnosis) == ("fail", code), row.message
 
 
@@ -157,7 +178,7 @@ def test_forward_kinds_of_the_broken_inverses_still_pass_sqnr():
     """The inverse-only bugs leave the forward kinds' own checks alone (only round-trip fails)."""
     for cls in (twins.InverseWrongShift, twins.NoConjugation):
         for kind in ("fft", "rfft"):
-            rows = rows_of(cls(), kind)
+            rows = twin_rows(cls, kind)
             assert {c for c, r in rows.items() if r.status != "pass"} == {"round-trip"}, (cls.name, kind)
 
 
