@@ -52,7 +52,7 @@ def ideal_sqnr_db(bits: int) -> float:
 @dataclass(frozen=True)
 class FixedMetrics:
     """What one output says: SQNR (dB), ENOB from it, the largest error of a part in output
-    LSBs, the number of output parts at the rails, the number that wrapped around."""
+    LSBs, the number of output parts clipped at the rails, the number that wrapped around."""
 
     sqnr_db: float
     enob: float
@@ -68,7 +68,9 @@ class FixedMetrics:
 def measure(output: np.ndarray, exact: np.ndarray, fmt: QFormat) -> FixedMetrics:
     """Return the :class:`FixedMetrics` of ``output`` pairs against ``exact`` (complex, LSBs).
 
-    A part is *at the rails* when it equals the format's lowest or highest integer. A part
+    A part is *at the rails* when it equals the format's lowest or highest integer and lies
+    more than 1 LSB from its exact value (clipped: an exact value that is itself at the rail,
+    as a full-scale tone's bin or an inverse's sample is, is the right answer there). A part
     is counted as *wrapped* when it lies more than half the format's range (2**(bits-1) LSBs)
     from the exact value clipped to the rails: a two's-complement wrap moves a part by the
     whole range; saturation of the output alone moves none that far, but saturation inside
@@ -82,7 +84,9 @@ def measure(output: np.ndarray, exact: np.ndarray, fmt: QFormat) -> FixedMetrics
     clipped_r = np.clip(ex.real, fmt.min_int, fmt.max_int)
     clipped_i = np.clip(ex.imag, fmt.min_int, fmt.max_int)
     far = np.concatenate([np.abs(got.real - clipped_r), np.abs(got.imag - clipped_i)]) > (1 << (fmt.bits - 1))
-    rails = int(np.count_nonzero((y == fmt.min_int) | (y == fmt.max_int)))
+    on_rail = np.concatenate([(y[..., 0] == fmt.min_int) | (y[..., 0] == fmt.max_int),
+                              (y[..., 1] == fmt.min_int) | (y[..., 1] == fmt.max_int)])
+    rails = int(np.count_nonzero(on_rail & (parts_err > 1.0)))
     s = sqnr_db(ex, got)
     return FixedMetrics(sqnr_db=s, enob=enob_from_sinad(s), max_error_lsb=float(np.max(parts_err, initial=0.0)),
                         at_rails=rails, wrapped=int(np.count_nonzero(far)))
