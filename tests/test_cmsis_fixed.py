@@ -109,6 +109,8 @@ def test_cmsis_real_ffts_go_wrong_on_a_full_scale_real_input():
     assert y[2 * 28: 2 * 28 + 2].tolist() == [-12767, 341]
     row = {r.check: r for r in fixed_check_case(CmsisDspBackend(), Case("rfft", "q15", 64), 1234)}["overflow"]
     assert (row.status, row.diagnosis) == ("fail", "overflow") and "sums wrap around inside" in row.message
+    row = {r.check: r for r in fixed_check_case(CmsisDspBackend(), Case("rfft", "q15", 32), 1234)}["overflow"]
+    assert (row.status, row.diagnosis) == ("fail", "overflow") and "overflows inside where the reference" in row.message
 
 
 def test_cmsis_q15_irfft_is_noisier_than_a_radix2():

@@ -231,7 +231,11 @@ def overflow_row(label: str, case: Any, run: Callable, fmt: QFormat, declared: F
                 f"reference {overload.reference.sqnr_db:.1f} dB")
     failed = wrapped > ref_wrapped or less_headroom or collapsed
     if collapsed:
-        message += f" ({overload.shortfall_db:.1f} dB worse: sums wrap around inside)"
+        if overload.reference.at_rails or overload.reference.wrapped or overload.backend.sqnr_db < 0.0:
+            message += f" ({overload.shortfall_db:.1f} dB worse: sums wrap around inside)"
+        else:  # a real input the reference takes without clipping: the backend clips inside
+            message += (f" ({overload.shortfall_db:.1f} dB worse: it overflows inside where the reference has "
+                        "headroom)")
     if wrapped > ref_wrapped:
         first = min(p.level_dbfs for p in points if p.backend.wrapped > p.reference.wrapped)
         message += f"; wraps around from {first:g} dBFS where the reference saturates: missing saturation"
