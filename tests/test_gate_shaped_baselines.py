@@ -203,6 +203,12 @@ def test_stored_mode_without_shapes_re_measures_every_stored_case_and_with_sizes
     doc = _fake_run(build_request(backends=["numpy"], baseline=str(folder), sizes="64", budget=0.5),
                     ShapedSampler(clock), clock)
     assert [(r["kind"], r["n"], r.get("shape")) for r in doc["rows"]] == [("fft", 64, None)]
+    clock = Clock()  # an n name picks its family's shaped rows (the batch's fft too), not the 1-D fft
+    doc = _fake_run(build_request(backends=["numpy"], baseline=str(folder), kinds="fftn", budget=0.5),
+                    ShapedSampler(clock), clock)
+    assert sorted((r["kind"], r["layout"]) for r in doc["rows"]) == [("fft", "C"), ("fft", "F"), ("fftn", "C"),
+                                                                     ("fftn", "F")]
+    assert all(r["shape"] for r in doc["rows"])
 
 
 def test_a_shaped_case_absent_from_the_baseline_is_named_and_none_at_all_is_exit_2(tmp_path):
@@ -269,3 +275,20 @@ def test_record_then_stored_shaped_gate_end_to_end(tmp_path):
     assert code == (1 if row["verdict"] == "slower" else 0)
     assert row["shape"] == [16, 16] and row["axes"] == [0, 1] and row["layout"] == "C" and row["n"] == 256
     assert row["baseline_runs"] == 1 and row["seconds"] > 0
+
+
+def test_report_of_a_history_with_saved_shaped_runs_plots_the_1d_cases(tmp_path):
+    """``fftgauge report DIR`` on a folder holding saved shaped gate runs beside 1-D ones: the
+    history plots follow the 1-D case; the shaped rows neither break it nor join its points."""
+    from fftgauge.harness.report.history_plot import history_points
+    from fftgauge.harness.report.inputs import history_cases
+
+    folder = tmp_path / "hist"
+    _record_history(folder, runs=1)
+    _write(folder, "old-1d.json", [_row(Case("fft", "float64", 64), 1e-6)], schema="fftgauge-time/1",
+           created="2026-01-01T00:00:00Z")
+    docs = [json.loads((folder / name).read_text()) for name in sorted(os.listdir(folder))]
+    assert history_cases(docs) == ([Case("fft", "float64", 64)], 1)
+    points = history_points(docs, Case("fft", "float64", 64))
+    assert [p[1] for p in points["seconds"]["numpy"]] == [1e-6]  # not the 8x8 rows' n = 64
+    assert cli.main(["report", str(folder), "--out", str(tmp_path / "rep")]) == 0

@@ -304,7 +304,8 @@ def build_request(*, old: str | None = None, new: str | None = None, backends: S
     shape_specs, layout_list = stored_shape_filter(shapes, layouts, sizes, accuracy) if mode == "stored" else ((), None)
     shaped = [] if mode == "stored" else shaped_gate_cases(shapes, layouts, kinds, dtypes, sizes, mode, metric,
                                                               accuracy, save)
-    kind_list = parse_choice_list(kinds, SHAPE_KINDS if shaped or shape_specs else KINDS, "kind")
+    # stored mode: any kind a stored row may hold (1-D names, and the n names of shaped rows)
+    kind_list = parse_choice_list(kinds, SHAPE_KINDS if shaped or mode == "stored" else KINDS, "kind")
     dtype_list = parse_choice_list(dtypes, DTYPES, "dtype")
     size_list = tuple(parse_sizes(sizes)) if sizes else None
     runs: tuple[StoredRun, ...] = ()

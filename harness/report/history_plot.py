@@ -24,8 +24,9 @@ def run_label(doc: Mapping[str, Any]) -> str:
 
 
 def _matches(row: Mapping[str, Any], case: Case, backend: str | None) -> bool:
-    return (row.get("kind") == case.kind and row.get("dtype") == case.dtype and row.get("n") == case.n
-            and row.get("norm", "backward") == case.norm and (backend is None or row.get("backend") == backend))
+    return (not row.get("shape") and row.get("kind") == case.kind and row.get("dtype") == case.dtype
+            and row.get("n") == case.n and row.get("norm", "backward") == case.norm
+            and (backend is None or row.get("backend") == backend))
 
 
 def history_points(docs: Iterable[Mapping[str, Any]], case: Case, backend: str | None = None) -> dict[str, Any]:

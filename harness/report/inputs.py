@@ -153,10 +153,15 @@ def merged_time_rows(time_docs: list[tuple[str, dict[str, Any]]]) -> list[dict[s
 
 
 def history_cases(docs: list[dict[str, Any]], limit: int = MAX_HISTORY_PLOTS) -> tuple[list[Case], int]:
-    """Return up to ``limit`` cases held by every run (else by the newest), spread evenly, and how many there were."""
-    def cases_of(doc: dict[str, Any]) -> set[Case]:
-        return {Case(r["kind"], r["dtype"], r["n"], r.get("norm", "backward")) for r in doc["rows"]}
+    """Return up to ``limit`` cases held by every run (else by the newest), spread evenly, and how many there were.
 
+    Only 1-D rows make history cases: rows of shaped cases (a ``shape``, saved by
+    ``fftgauge gate --shapes --save``) are left out."""
+    def cases_of(doc: dict[str, Any]) -> set[Case]:
+        return {Case(r["kind"], r["dtype"], r["n"], r.get("norm", "backward")) for r in doc["rows"]
+                if not r.get("shape")}
+
+    docs = [d for d in docs if cases_of(d)]
     common = set.intersection(*(cases_of(d) for d in docs)) if docs else set()
     if not common and docs:
         common = cases_of(max(docs, key=lambda d: str(d.get("created") or "")))
