@@ -51,3 +51,30 @@ def test_summary_says_gop_for_fixed_point_and_gflops_for_floats():
     rate = TIMING_SUMMARY_HEADER.index("GFLOP/s at largest N")
     assert lines["q15"][rate] == "5.12 Gop/s" and lines["q15"][rate + 1] == "5.12 Gop/s"
     assert lines["float64"][rate] == "5.12"
+
+
+@pytest.mark.parametrize("kind,shape", [("rfft", (1024,)), ("irfft", (513, 2)), ("ifft", (1024, 2))])
+def test_real_and_inverse_q15_cases_are_timed_on_their_own_layouts(kind, shape):
+    """A q15 rfft is given n int16 reals, an irfft n/2 + 1 pairs, an ifft n pairs
+    (docs/fixed-point.md layouts); the rate is 2.5 N log2 N for the real kinds (the
+    contract's count): 25600 / 1e-5 / 1e9 = 2.56 (by hand)."""
+    clock = FakeClock()
+    backend = InputKeeping(clock, 10_000)
+    row = time_case(backend, (kind, "q15", 1024, "backward"), dict(EXACT), clock)
+    x = np.asarray(backend.seen)
+    assert x.shape == shape and x.dtype == np.int16
+    assert row["gflops"] == pytest.approx(2.56 if kind != "ifft" else 5.12, rel=1e-12)
+
+
+def test_cmsis_irfft_q15_is_timed_without_the_float_packing():
+    """cmsis-dsp declares packing=dc-nyquist for its float32 real FFTs; its q15 irfft plan gets
+    the fixed-point half spectrum as pairs, not repacked (it once raised in pack_half_spectrum)."""
+    pytest.importorskip("cmsisdsp")
+    from fftgauge.backends.cmsis_dsp import CmsisDspBackend
+    from fftgauge.harness.battery.conventions import declared_input_plan
+    from fftgauge.harness.cases import Case
+
+    backend = CmsisDspBackend()
+    plan = backend.plan(Case("irfft", "q15", 64))
+    assert declared_input_plan(backend, plan) is plan
+    assert np.asarray(plan.execute(np.zeros((33, 2), dtype=np.int16))).shape == (64,)

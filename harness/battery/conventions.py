@@ -33,7 +33,7 @@ from typing import Any
 import numpy as np
 
 from fftgauge.backends.claims import Conventions
-from fftgauge.harness.cases import Case
+from fftgauge.harness.cases import FIXED_DTYPES, Case
 from fftgauge.harness.dft import from_convention, is_power_of_two, pack_half_spectrum, to_convention, \
     unpack_half_spectrum
 
@@ -80,7 +80,9 @@ class DeclaredInputPlan:
 def declared_input_plan(backend: Any, plan: Any) -> Any:
     """Return ``plan`` as a :class:`DeclaredInputPlan` when ``backend`` declared a convention
     that changes the input of ``plan.case`` (an ``ifft`` order, an ``irfft`` packing), else
-    ``plan`` itself."""
+    ``plan`` itself (always for q15/q31: fixed-point data has its own layouts, docs/fixed-point.md)."""
+    if plan.case.dtype in FIXED_DTYPES:
+        return plan
     convention = backend_convention(backend)
     changes = set(convention.declared(plan.case)) & {"order", "packing"}
     return DeclaredInputPlan(plan, convention) if changes and plan.case.kind in ("ifft", "irfft") else plan
