@@ -103,6 +103,25 @@ def test_every_worker_lacking_something_is_named_in_one_line() -> None:
     assert "host 10.0.0.6" in problems[2] and "'pyfftw'" in problems[2]
 
 
+# -- the worker processes' environment ---------------------------------------------------------
+def test_the_variables_a_dask_nanny_forces_are_taken_out_of_the_worker_processes_environment() -> None:
+    # distributed's own configuration (distributed.yaml, ``nanny.pre-spawn-environ``) names what a
+    # nanny sets: MALLOC_TRIM_THRESHOLD_=65536 among them, which switches off glibc's dynamic mmap
+    # threshold (mallopt(3)); a value the user chose that differs from the nanny's stays.
+    import dask
+    import distributed  # noqa: F401 - its import loads the ``distributed`` settings
+
+    from fftgauge.harness.cluster.tasks import NANNY_HASH_SEED, clean_environ, nanny_environ
+
+    forced = dask.config.get("distributed.nanny.pre-spawn-environ")
+    assert str(forced["MALLOC_TRIM_THRESHOLD_"]) == nanny_environ()["MALLOC_TRIM_THRESHOLD_"]
+    environ = {"MALLOC_TRIM_THRESHOLD_": str(forced["MALLOC_TRIM_THRESHOLD_"]), "OMP_NUM_THREADS": "4",
+               NANNY_HASH_SEED[0]: NANNY_HASH_SEED[1], "PATH": "/usr/bin"}
+    removed = clean_environ(environ)
+    assert sorted(removed) == sorted(["MALLOC_TRIM_THRESHOLD_", NANNY_HASH_SEED[0]])
+    assert environ == {"OMP_NUM_THREADS": "4", "PATH": "/usr/bin"}
+
+
 # -- dask only with --cluster -----------------------------------------------------------------
 def test_a_local_check_never_imports_dask(tmp_path: Path) -> None:
     code = ("import sys\nfrom fftgauge.harness.cli import main\n"
