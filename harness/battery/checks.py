@@ -16,7 +16,6 @@ functions: overcoming the generator bottleneck", Proc. 27th ACM STOC (1995) 407-
 
 from __future__ import annotations
 
-import warnings
 from typing import Any, Callable, Mapping
 
 import numpy as np
@@ -26,7 +25,8 @@ from fftgauge.harness.battery.behaviour_checks import (
     check_concurrent, check_input_intact, check_nonfinite, check_precision, check_repeatable, check_shape,
     check_strided,
 )
-from fftgauge.harness.battery.context import CheckContext, OutputProblem, one_line
+from fftgauge.harness.battery.context import CheckContext, OutputProblem
+from fftgauge.harness.battery.context_base import asked_checks, guarded_check, rows_in_context
 from fftgauge.harness.battery.conventions import DeclaredConvention
 from fftgauge.harness.battery.exact_checks import check_convolution, check_pairs
 from fftgauge.harness.battery.reference import reference_transform
@@ -35,7 +35,6 @@ from fftgauge.harness.battery.value_checks import (
     check_symmetry, check_time_shift,
 )
 from fftgauge.harness.cases import FIXED_DTYPES, Case
-from fftgauge.harness.errors import BackendFailure, UsageError
 from fftgauge.harness.execution.crash import exception_text
 from fftgauge.harness.rows import CheckRow, error_rows, skip_rows
 
@@ -96,18 +95,7 @@ def run_check(ctx: CheckContext, name: str) -> list[CheckRow]:
     reason = inapplicable_reason(ctx.case, ctx.capabilities, name)
     if reason is not None:
         return skip_rows(ctx.label, ctx.case, [name], reason)
-    try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", RuntimeWarning)
-            warnings.simplefilter("ignore", np.exceptions.ComplexWarning)
-            return CHECKS[name](ctx)
-    except OutputProblem as problem:
-        return [ctx.row(name, "fail", diagnosis=problem.code, eps=False, message=problem.message)]
-    except BackendFailure as exc:
-        return [ctx.row(name, "error", eps=False, message=one_line(exc))]
-    except Exception as exc:  # noqa: BLE001 - one check's failure must not stop the others
-        return [ctx.row(name, "error", eps=False,
-                        message=f"the {name} check could not run: {exception_text(exc)}")]
+    return guarded_check(ctx, name, CHECKS[name])
 
 
 def check_case(backend: Backend, case: Case, seed: int, check_names: list[str] | None = None,
@@ -124,10 +112,7 @@ def check_case(backend: Backend, case: Case, seed: int, check_names: list[str] |
     UsageError
         For a check name not in :data:`CHECKS`.
     """
-    names = list(check_names) if check_names else list(CHECKS)
-    unknown = [c for c in names if c not in CHECKS]
-    if unknown:
-        raise UsageError(f"unknown check {unknown[0]!r}; checks: {', '.join(CHECKS)}")
+    names = asked_checks(check_names, CHECKS)
 
     if case.dtype in FIXED_DTYPES:  # q15/q31: the fixed-point checks (harness/fixed/checks.py)
         from fftgauge.harness.fixed.checks import fixed_check_case
@@ -139,15 +124,7 @@ def check_case(backend: Backend, case: Case, seed: int, check_names: list[str] |
         plan = backend.plan(case)
     except Exception as exc:  # noqa: BLE001
         return error_rows(backend.label, case, names, f"planning failed: {exception_text(exc)}")
-    ctx = CheckContext(backend, case, plan, seed, reference_fn=reference_fn)
-    try:
-        return [row for name in names for row in run_check(ctx, name)]
-    finally:
-        ctx.close()
-        try:
-            plan.close()
-        except Exception:  # noqa: BLE001
-            pass
+    return rows_in_context(CheckContext(backend, case, plan, seed, reference_fn=reference_fn), plan, names, run_check)
 
 
 def convention_reason(backend: Backend, case: Case) -> str | None:

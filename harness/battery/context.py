@@ -16,40 +16,23 @@ from typing import Any, Callable
 
 import numpy as np
 
-from fftgauge.backends.base import Backend, Capabilities, Plan
+from fftgauge.backends.base import Backend, Plan
 from fftgauge.harness.battery import bounds
 from fftgauge.harness.battery import inputs
+from fftgauge.harness.battery.context_base import (  # noqa: F401 - OutputProblem, one_line, copy_output re-exported
+    ROUNDING_UNITS, ContextBase, OutputProblem, close_plans, copy_output, execute_plan, one_line, require_numbers,
+)
 from fftgauge.harness.battery.conventions import ConventionMismatch, DeclaredConvention, backend_convention
 from fftgauge.harness.battery.diagnosis import diagnose
 from fftgauge.harness.battery.reference import reference_transform
 from fftgauge.harness.cases import Case
 from fftgauge.harness.dft import clean_half_spectrum, norm_factor
-from fftgauge.harness.errors import BackendFailure
-from fftgauge.harness.execution.crash import exception_text
 from fftgauge.harness.rows import CheckRow
-
-#: Unit roundoffs (of the case's precision) added to every tolerance for forming the
-#: combinations a check compares and rounding its new inputs to the case's precision.
-ROUNDING_UNITS = 8
 
 #: The inverse of each kind (the round trip and convolution pair them).
 COMPANION_KIND = {"fft": "ifft", "ifft": "fft", "rfft": "irfft", "irfft": "rfft"}
 #: sqrt(2): the growth of a half spectrum's error norm when it is extended to a full one.
 SQRT2 = float(np.sqrt(2.0))
-
-
-class OutputProblem(Exception):
-    """An output a value check cannot compare (wrong shape, not numbers); carries a diagnosis code."""
-
-    def __init__(self, code: str, message: str):
-        super().__init__(message)
-        self.code = code
-        self.message = message
-
-
-def one_line(text: Any) -> str:
-    """Return ``str(text)`` with every run of whitespace made one space (a message fits one line)."""
-    return " ".join(str(text).split())
 
 
 def norm2(v: np.ndarray) -> float:
@@ -78,7 +61,7 @@ def fmt_eps(value: float, dtype: str) -> str:
 
 
 @dataclass
-class CheckContext:
+class CheckContext(ContextBase):
     """Everything a check needs for one case of one backend.
 
     Attributes
@@ -107,36 +90,11 @@ class CheckContext:
             self.limit = bounds.accuracy_limit(self.case)
         self._convention = backend_convention(self.backend)
 
-    # -- what the case is --------------------------------------------------------------------
-    @property
-    def label(self) -> str:
-        """The backend's label as rows show it."""
-        return self.backend.label
-
-    @property
-    def capabilities(self) -> Capabilities:
-        """The backend's claims."""
-        return self.backend.capabilities()
-
+    # -- what the case is (label, capabilities, unit_roundoff, rounding, work_dtype: ContextBase)
     @property
     def convention(self) -> DeclaredConvention:
         """The conventions the backend declared (numpy's where it declared none)."""
         return self._convention
-
-    @property
-    def unit_roundoff(self) -> float:
-        """u of the case's precision."""
-        return bounds.unit_roundoff(self.case.dtype)
-
-    @property
-    def rounding(self) -> float:
-        """The rounding allowance every tolerance carries: ``ROUNDING_UNITS`` u."""
-        return ROUNDING_UNITS * self.unit_roundoff
-
-    @property
-    def work_dtype(self) -> np.dtype:
-        """The complex dtype comparisons are made in: complex128, or clongdouble for long double cases."""
-        return np.dtype(np.clongdouble if self.case.dtype == "longdouble" else np.complex128)
 
     @property
     def scale(self) -> Any:
@@ -185,27 +143,11 @@ class CheckContext:
         return self.from_native(self.run_native(self.native_input(x, case), plan, copy_input), case)
 
     def run_native(self, x: np.ndarray, plan: Plan | None = None, copy_input: bool = True) -> np.ndarray:
-        """Return a copy of ``plan.execute(x)`` as an ndarray (plans may reuse output buffers),
-        ``x`` and the output in the backend's own convention.
-
-        ``copy_input`` True passes a copy of ``x``, so a backend that writes to its input
-        cannot spoil the check's own arrays.
-
-        Raises
-        ------
-        BackendFailure
-            When the backend raises (its message names the line, as a crash does).
-        OutputProblem
-            When it returns something that is not an array of numbers.
-        """
-        plan = plan or self.plan
-        arg = np.array(x, copy=True) if copy_input else x
-        try:
-            with np.errstate(all="ignore"):
-                out = plan.execute(arg)
-        except Exception as exc:  # noqa: BLE001 - any exception of the backend is an error row
-            raise BackendFailure(f"the backend raised {exception_text(exc)}") from None
-        return copy_output(out)
+        """Return :func:`~fftgauge.harness.battery.context_base.execute_plan` of ``x`` through
+        ``plan`` (default: the case's), ``x`` and the output in the backend's own convention
+        (raises what it raises). ``copy_input`` True passes a copy of ``x``, so a backend that
+        writes to its input cannot spoil the check's own arrays."""
+        return execute_plan(plan or self.plan, np.array(x, copy=True) if copy_input else x)
 
     def native_input(self, x: np.ndarray, case: Case | None = None) -> np.ndarray:
         """Return the input ``x`` (numpy's convention) of ``case`` (default: this one) as the
@@ -234,8 +176,7 @@ class CheckContext:
             ``shape`` for a wrong shape, ``dtype`` for an output that is not floating-point.
         """
         case = case or self.case
-        if y.dtype.kind not in "fc":
-            raise OutputProblem("dtype", f"output has dtype {y.dtype}, not a floating-point or complex type")
+        require_numbers(y)
         if y.shape != (case.output_length,):
             raise OutputProblem("shape", f"output has shape {y.shape} where ({case.output_length},) is due")
         return y.astype(self.work_dtype)
@@ -253,27 +194,13 @@ class CheckContext:
             When planning the companion raises.
         """
         case = Case(COMPANION_KIND[self.case.kind], self.case.dtype, self.case.n, self.case.norm)
-        if case not in self._companions:
-            reason = self.backend.unsupported_reason(case)
-            if reason is not None:
-                self._companions[case] = (None, reason)
-            else:
-                try:
-                    self._companions[case] = (self.backend.plan(case), None)
-                except Exception as exc:  # noqa: BLE001
-                    raise BackendFailure(f"planning {case.kind} raised {exception_text(exc)}") from None
-        plan, reason = self._companions[case]
+        plan, reason = self.cached_plan(self._companions, case, self.backend.unsupported_reason, self.backend.plan,
+                                        case.kind)
         return plan, case, reason
 
     def close(self) -> None:
         """Close the companion plans this context made (the main plan is the caller's)."""
-        for plan, _ in self._companions.values():
-            if plan is not None:
-                try:
-                    plan.close()
-                except Exception:  # noqa: BLE001 - closing must not raise into the battery
-                    pass
-        self._companions.clear()
+        close_plans(self._companions)
 
     # -- verdicts ----------------------------------------------------------------------------------
     def row(self, check: str, status: str, value: float | None = None, limit: float | None = None,
@@ -296,80 +223,26 @@ class CheckContext:
                         norm=self.case.norm, reference=reference,
                         limit_source="bound" if limit is not None else None)
 
-    def diagnose(self, x: np.ndarray, y: np.ndarray) -> tuple[str, str]:
-        """Return ``diagnose(case, x, y)`` for an output ``y`` in numpy's convention; a diagnosis
-        that itself fails gives ``unknown``.
+    def find_diagnosis(self, x: np.ndarray, y: np.ndarray) -> tuple[str, str]:
+        """Return ``diagnose(case, x, y)`` for an output ``y`` in numpy's convention (see
+        :meth:`ContextBase.diagnose`, which turns a diagnosis that fails into ``unknown``).
 
         When the backend declared a convention, what is found is what remains after undoing
         it (a ``scale`` names the declared factor and the one the backend applies; the row
         names the declared convention, see :meth:`row`).
         """
-        try:
-            return diagnose(self.case, x, y, self.reference_fn, self.limit,
-                            declared_scale=self.convention.scale(self.case))
-        except Exception as exc:  # noqa: BLE001
-            return "unknown", f"no diagnosis ({type(exc).__name__}: {one_line(exc)})"
+        return diagnose(self.case, x, y, self.reference_fn, self.limit,
+                        declared_scale=self.convention.scale(self.case))
 
-    def random_diagnosis(self) -> tuple[str, str] | None:
-        """Return the diagnosis of the backend's output for a random Gaussian input, or None
-        when that output is within the accuracy limit (computed once per context)."""
-        if self._diagnosis is None:
-            xr = self.random_input("diagnosis")
-            try:
-                yr = self.run(xr)
-            except (BackendFailure, OutputProblem) as exc:
-                self._diagnosis = ("unknown", f"the backend gives no usable output for a random input ({exc})")
-            else:
-                try:
-                    err = self.reference_fn(xr, self.case).relative_error(yr)
-                except ValueError:  # wrong shape
-                    err = float("inf")
-                self._diagnosis = ("", "") if np.isfinite(err) and err <= self.limit else self.diagnose(xr, yr)
-        return self._diagnosis if self._diagnosis[0] else None
+    def random_error(self, x: np.ndarray, y: np.ndarray) -> float:
+        """Return the relative 2-norm error of the output ``y`` for the input ``x``.
 
-    def diagnose_failure(self, x: np.ndarray | None = None, y: np.ndarray | None = None) -> tuple[str, str]:
-        """Return the diagnosis of a failed value check.
-
-        The hypotheses are told apart best on a generic input (on an impulse, say, a shift of
-        the output and a constant phase factor look the same), so the backend's output for a
-        random Gaussian input is diagnosed first; only when that output is accurate is the
-        check's own ``(x, y)`` diagnosed, and the message says the failure is specific to it.
+        Raises
+        ------
+        ValueError
+            For an output of the wrong shape.
         """
-        found = self.random_diagnosis()
-        if found is not None:
-            return found
-        if x is None:
-            return "unknown", "a random input is transformed accurately"
-        code, why = self.diagnose(x, y)
-        return code, f"a random input is transformed accurately, so this is specific to the check's input: {why}"
-
-    def verdict(self, check: str, value: float, limit: float, message: str, x: np.ndarray | None = None,
-                y: np.ndarray | None = None, reference: str | None = None) -> CheckRow:
-        """Return a pass row when ``value <= limit``, else a fail row diagnosed from ``(x, y)``."""
-        if np.isfinite(value) and value <= limit:
-            return self.row(check, "pass", value, limit, message=message, reference=reference)
-        code, why = self.diagnose_failure(x, y)
-        return self.row(check, "fail", value, limit, diagnosis=code,
-                        message=f"{message}; {why}" if why else message, reference=reference)
-
-
-def copy_output(out: Any) -> np.ndarray:
-    """Return a copy of a backend's output as an ndarray.
-
-    Raises
-    ------
-    OutputProblem
-        ``dtype`` for None, something numpy cannot make an array of, or an array of Python objects.
-    """
-    if out is None:
-        raise OutputProblem("dtype", "the backend returned None, not an array")
-    try:
-        y = np.array(out, copy=True)
-    except Exception:  # noqa: BLE001
-        raise OutputProblem("dtype", f"the backend returned a {type(out).__name__}, not an array") from None
-    if y.dtype == object:
-        raise OutputProblem("dtype", f"the backend returned a {type(out).__name__} of Python objects, not numbers")
-    return y
+        return self.reference_fn(x, self.case).relative_error(y)
 
 
 def phases(m: np.ndarray, n: int, work_dtype: np.dtype) -> np.ndarray:

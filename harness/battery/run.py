@@ -30,22 +30,19 @@ cores (measured ten times slower with two workers on two cores).
 from __future__ import annotations
 
 import dataclasses
-import os
-import queue
-import threading
-import time
 from collections import deque
-from concurrent.futures import ThreadPoolExecutor
-from dataclasses import dataclass
 from typing import Any, Sequence
 
 from fftgauge.harness.execution import jobs
 from fftgauge.harness.cases import Case
 from fftgauge.backends.registry import require_unique_labels
 from fftgauge.harness.execution.dispatch import Progress, describe_cases
-from fftgauge.harness.errors import BackendFailure, RunStopped, UsageError
-from fftgauge.harness.shutdown import stop_reason
+from fftgauge.harness.errors import BackendFailure, UsageError
 from fftgauge.harness.results import ResultsWriter, envelope
+from fftgauge.harness.battery.lanes import (  # noqa: F401 - Lane, RowSink, drive_lanes and the two times re-exported
+    JOIN_POLL_SECONDS, STOP_WAIT_SECONDS, Batch, Lane, RowSink, WorkQueue, battery_workers, describe_in_parallel,
+    drive_lanes, lane_parallelism, raise_if_stopped, run_lanes,
+)
 from fftgauge.harness.battery.budget import probe_sizes, time_reason
 from fftgauge.harness.battery.unclaimed import unclaim_size_classes
 from fftgauge.harness.battery.size_patterns import size_patterns
@@ -63,176 +60,48 @@ def build_cases(req: BatteryRequest, kinds: Sequence[str]) -> list[Case]:
     return [Case(k, d, n, norm) for k in kinds for d in req.dtypes for norm in req.norms for n in req.sizes]
 
 
-@dataclass(frozen=True)
-class Batch:
-    """Every claimed case of one backend and one size, run one after another by one worker."""
-
-    spec: str
-    label: str
-    capabilities: Any
-    indices: tuple[int, ...]
-
-
-class BatchQueue:
-    """The battery's work: per backend, its batches largest size first; lanes take them with
-    :meth:`next`. Thread-safe.
+class BatchQueue(WorkQueue):
+    """The 1-D battery's work: per backend, its batches (every claimed case of one size) largest
+    size first; a lane joins another backend only when it has at least two batches left (a
+    lane that joins a backend starts a worker for it, which a single batch, the backend's
+    smallest size, does not repay). Thread-safe (:class:`~fftgauge.harness.battery.lanes.WorkQueue`).
     """
 
     def __init__(self, req: BatteryRequest, claims: dict[str, dict[str, Any]], cases: list[Case]):
-        self._order = list(req.specs)
-        self._left: dict[str, deque[Batch]] = {}
+        left: dict[str, deque[Batch]] = {}
         for spec in req.specs:
             by_size: dict[int, list[int]] = {}
             for i, reason in enumerate(claims[spec].reasons):
                 if reason is None:
                     by_size.setdefault(cases[i].n, []).append(i)
-            self._left[spec] = deque(Batch(spec, claims[spec].label, claims[spec].capabilities,
-                                           tuple(by_size[n])) for n in sorted(by_size, reverse=True))
-        #: How many cases the queue held at the start.
-        self.total_cases = sum(len(b.indices) for q in self._left.values() for b in q)
-        #: How many batches the queue held at the start.
-        self.total_batches = sum(len(q) for q in self._left.values())
-        self._started: set[str] = set()
-        self._lock = threading.Lock()
-        #: True once :meth:`stop` was called: no batch is handed out any more.
-        self.stopped = False
-
-    def stop(self) -> None:
-        """Hand out no more batches (the run is stopping)."""
-        self.stopped = True
-
-    def next(self, spec: str | None) -> Batch | None:
-        """Return the next batch for a lane now working on backend ``spec`` (None: on none yet),
-        or None when the lane should stop.
-
-        In order of preference: the next batch of the lane's own backend (its worker is
-        running); the first batch of the first backend no lane has started (in the order
-        asked; its describing worker is waiting); a batch of the backend with the most batches
-        left, when it has at least two (a lane that joins a backend starts a worker for it,
-        which a single batch, the backend's smallest size, does not repay).
-        """
-        with self._lock:
-            if self.stopped:
-                return None
-            if spec is not None and self._left.get(spec):
-                return self._left[spec].popleft()
-            for other in self._order:
-                if other not in self._started and self._left[other]:
-                    self._started.add(other)
-                    return self._left[other].popleft()
-            busiest = max(self._order, key=lambda s: len(self._left[s]), default=None)
-            if busiest is not None and len(self._left[busiest]) >= 2:
-                return self._left[busiest].popleft()
-            return None
+            left[spec] = deque(Batch(spec, claims[spec].label, claims[spec].capabilities,
+                                     tuple(by_size[n])) for n in sorted(by_size, reverse=True))
+        super().__init__(list(req.specs), left, join_min=2)
 
 
-class Lane:
-    """One core's share of the run: what a thread of the main process uses to drive one worker
-    process at a time. ``spare_workers`` (SPEC -> describing worker) is shared by the lanes,
-    under ``lock``; the first lane to reach a backend takes its describing worker."""
-
-    def __init__(self, spare_workers: dict[str, Any], lock: threading.Lock, req: BatteryRequest, lanes: int = 1):
-        self._spare, self._lock, self._req = spare_workers, lock, req
-        #: How many lanes run at once (their workers share the default memory cap).
-        self.lanes = lanes
-        #: The SPEC of the backend the lane's worker runs (None before the first batch).
-        self.spec: str | None = None
-        self._worker: Any = None
-
-    def worker_for(self, spec: str) -> Any:
-        """Return a worker for ``spec``: the current one, else the spare (describing) one, else a new one."""
-        from fftgauge.harness.execution.worker import Worker
-
-        if spec != self.spec:
-            self.close()
-            with self._lock:
-                self._worker = self._spare.pop(spec, None)
-            self._worker = self._worker or Worker(spec, threads=self._req.threads, concurrency=self.lanes)
-            self.spec = spec
-        return self._worker
-
-    def close(self) -> None:
-        """Close the current worker (if any)."""
-        if self._worker is not None:
-            self._worker.close()
-        self._worker, self.spec = None, None
-
-    def abort(self) -> None:
-        """Kill the current worker's child at once (from another thread: the run is stopping);
-        the lane's waiting call then fails and the lane ends."""
-        worker = self._worker
-        if worker is not None:
-            worker.abort()
-
-
-class RowSink:
-    """Passes rows to a :class:`~fftgauge.harness.results.ResultsWriter` from a thread of its own, so a
-    lane hands its rows over and goes on at once, never waiting while the writer rewrites the
-    file (a rewrite of tens of thousands of rows takes a good fraction of a second, during
-    which every worker would otherwise sit idle).
-    """
-
-    def __init__(self, writer: ResultsWriter):
-        self._writer = writer
-        self._queue: "queue.SimpleQueue[list[dict] | None]" = queue.SimpleQueue()
-        self._error: BaseException | None = None
-        self._thread = threading.Thread(target=self._drain, name="fftgauge-rows", daemon=True)
-        self._thread.start()
-
-    def _drain(self) -> None:
-        while (rows := self._queue.get()) is not None:
-            if self._error is None:
-                try:
-                    self._writer.add(rows)
-                except BaseException as exc:  # noqa: BLE001 - raised again by close()
-                    self._error = exc
-
-    def add(self, rows: list[dict]) -> None:
-        """Queue ``rows`` for the writer."""
-        self._queue.put(rows)
-
-    def close(self) -> None:
-        """Wait until every queued row is with the writer (the writer itself stays open).
-
-        Raises
-        ------
-        BaseException
-            Whatever the writer raised while taking rows (for example a
-            :class:`~fftgauge.harness.errors.UsageError` for a results file that cannot be written).
-        """
-        self._queue.put(None)
-        self._thread.join()
-        if self._error is not None:
-            raise self._error
-
-
-def _run_lane(lane: Lane, batches: BatchQueue, cases: list[Case], req: BatteryRequest,
-              check_names: list[str] | None, sink: RowSink, progress: Progress) -> None:
-    """Take batches from ``batches`` until it has none for this lane, passing rows to ``sink``
-    as they come; closes the lane's worker."""
+def case_runner(cases: list[Case], req: BatteryRequest, check_names: list[str] | None, batches: WorkQueue) -> Any:
+    """Return ``run_one(worker, batch, index)`` for :func:`~fftgauge.harness.battery.lanes.work_lane`:
+    the rows of case ``cases[index]`` run in ``worker`` (``error`` rows when the worker crashed,
+    hung or raised; None when it was killed because the run is stopping), the request's
+    criteria applied, and the row of processes left running beside them."""
     from fftgauge.harness.battery.checks import CHECKS
     from fftgauge.harness.battery.criteria import apply_limits
 
     names = list(check_names or CHECKS)
-    try:
-        while (batch := batches.next(lane.spec)) is not None:
-            worker = lane.worker_for(batch.spec)
-            for index in batch.indices:
-                case = cases[index]
-                if batches.stopped:
-                    return
-                try:
-                    rows = worker.call(jobs.run_case_job, (case.kind, case.dtype, case.n, case.norm), req.seed, names,
-                                       req.threads or 1, timeout_seconds=req.timeout_seconds)
-                except BackendFailure as exc:
-                    if batches.stopped:  # killed because the run is stopping: the case did not finish
-                        return
-                    rows = [row.as_dict() for row in error_rows(batch.label, case, names, str(exc))]
-                sink.add(apply_limits(rows, req.limits, getattr(batch.capabilities, "conventions", None))
-                         + leftover_rows(batch.label, case, worker.left_running))
-                progress.advance(note=f"{batch.label} {case.label()}")
-    finally:
-        lane.close()
+
+    def run_one(worker: Any, batch: Batch, index: int) -> list[dict] | None:
+        case = cases[index]
+        try:
+            rows = worker.call(jobs.run_case_job, (case.kind, case.dtype, case.n, case.norm), req.seed, names,
+                               req.threads or 1, timeout_seconds=req.timeout_seconds)
+        except BackendFailure as exc:
+            if batches.stopped:  # killed because the run is stopping: the case did not finish
+                return None
+            rows = [row.as_dict() for row in error_rows(batch.label, case, names, str(exc))]
+        return (apply_limits(rows, req.limits, getattr(batch.capabilities, "conventions", None))
+                + leftover_rows(batch.label, case, worker.left_running))
+
+    return run_one
 
 
 def leftover_rows(label: str, case: Case, count: int) -> list[dict]:
@@ -260,15 +129,7 @@ def _describe_all(workers: dict[str, Any], req: BatteryRequest, cases: list[Case
         claims = describe_cases(workers[spec], spec, cases, req.max_n_pure_python, req.timeout_seconds)
         return with_time_reasons(workers[spec], claims, req, cases)
 
-    pool = ThreadPoolExecutor(max_workers=max(1, min(parallel, len(req.specs))))
-    try:
-        futures = {spec: pool.submit(describe, spec) for spec in req.specs}
-        answers = {spec: futures[spec].result() for spec in req.specs}
-    except BaseException:  # an interruption: the caller kills the workers, so do not wait here
-        pool.shutdown(wait=False, cancel_futures=True)
-        raise
-    pool.shutdown(wait=True)
-    return answers
+    return describe_in_parallel(list(req.specs), describe, parallel)
 
 
 def probe_cases(claims: Any, cases: list[Case]) -> list[Case]:
@@ -373,7 +234,6 @@ def run_battery(req: BatteryRequest, json_path: str | None = None, quiet: bool =
         names the fallback file).
     """
     from fftgauge.harness.battery.checks import CHECKS
-    from fftgauge.harness.execution.worker import Worker
 
     if req.checks:
         unknown = [c for c in req.checks if c not in CHECKS]
@@ -382,9 +242,8 @@ def run_battery(req: BatteryRequest, json_path: str | None = None, quiet: bool =
     check_names = list(req.checks) if req.checks else None
     kinds = req.kinds or ("fft", "ifft", "rfft", "irfft")
     cases = build_cases(req, kinds)
-    parallel = max(1, os.cpu_count() or 1)
-    workers = {spec: Worker(spec, threads=req.threads, concurrency=parallel) for spec in req.specs}
-    try:
+    parallel = lane_parallelism()
+    with battery_workers(list(req.specs), req.threads, parallel) as workers:
         claims = _describe_all(workers, req, cases, parallel)
         require_unique_labels({spec: claims[spec].label for spec in req.specs})
         doc = battery_envelope(req, claims, kinds, check_names)
@@ -392,83 +251,10 @@ def run_battery(req: BatteryRequest, json_path: str | None = None, quiet: bool =
         writer.add(unclaimed_case_rows(req, claims, cases))
         batches = BatchQueue(req, claims, cases)
         progress = Progress(total=batches.total_cases, quiet=quiet)
-        spare_lock = threading.Lock()
-        lane_count = min(parallel, max(1, batches.total_batches))
-        lanes = [Lane(workers, spare_lock, req, lane_count) for _ in range(lane_count)]
-        sink = RowSink(writer)
-        stop: KeyboardInterrupt | None = None
-        try:
-            stop = drive_lanes(lanes, batches, workers,
-                               lambda lane: _run_lane(lane, batches, cases, req, check_names, sink, progress))
-        finally:
-            progress.close()
-            try:
-                sink.close()
-            finally:
-                finish_battery_rows(doc, req, claims)
-                writer.close(complete=stop is None)
-    except KeyboardInterrupt:  # while describing: end the workers at once, not after their start-up
-        for worker in workers.values():
-            worker.abort()
-        raise
-    finally:
-        for worker in workers.values():
-            worker.close()
-    if stop is not None:
-        name, code = stop_reason(stop)
-        raise RunStopped(name, code, doc) from stop
+        stop = run_lanes(workers, batches, req, writer, progress, case_runner(cases, req, check_names, batches),
+                         lambda batch, index: f"{batch.label} {cases[index].label()}",
+                         lambda: finish_battery_rows(doc, req, claims))
+    raise_if_stopped(stop, doc)
     return doc
 
 
-#: Seconds between the main thread's looks at the lanes (how soon it sees a signal's exception).
-JOIN_POLL_SECONDS = 0.1
-#: Seconds the lanes get to end after their workers were killed, before the run stops without them.
-STOP_WAIT_SECONDS = 1.0
-
-
-def drive_lanes(lanes: list[Lane], batches: BatchQueue, workers: dict[str, Any],
-                run_lane: Any) -> KeyboardInterrupt | None:
-    """Run ``run_lane(lane)`` for every lane in a thread of its own until all are done; return
-    None, or the interruption (KeyboardInterrupt, or the StopRequested of a SIGTERM/SIGHUP)
-    that stopped them.
-
-    On an interruption the queue stops handing out batches, every lane's worker and every
-    spare worker is killed at once (their calls fail, and the lanes end without rows for the
-    cases they were running), and the lanes get :data:`STOP_WAIT_SECONDS` to end: the threads
-    are daemons, so none keeps the process alive.
-
-    Raises
-    ------
-    BaseException
-        The first exception a lane raised (after every lane has ended).
-    """
-    errors: list[BaseException] = []
-
-    def lane_main(lane: Lane) -> None:
-        try:
-            run_lane(lane)
-        except BaseException as exc:  # noqa: BLE001 - raised again in the main thread
-            errors.append(exc)
-
-    threads = [threading.Thread(target=lane_main, args=(lane,), name=f"fftgauge-lane-{i}", daemon=True)
-               for i, lane in enumerate(lanes)]
-    try:
-        for thread in threads:
-            thread.start()
-        for thread in threads:
-            while thread.is_alive():
-                thread.join(JOIN_POLL_SECONDS)
-    except KeyboardInterrupt as stop:
-        batches.stop()
-        for lane in lanes:
-            lane.abort()
-        for worker in list(workers.values()):
-            worker.abort()
-        deadline = time.monotonic() + STOP_WAIT_SECONDS
-        for thread in threads:
-            if thread.ident is not None:  # started (a signal may come while they start)
-                thread.join(max(0.0, deadline - time.monotonic()))
-        return stop
-    if errors:
-        raise errors[0]
-    return None

@@ -56,13 +56,26 @@ def check_accuracy(ctx: CheckContext) -> list[CheckRow]:
             code, why = ctx.diagnose(x, raw)
             return [ctx.row("accuracy", "fail", diagnosis=code, message=f"{problem.message}; {why}")]
         ref = ctx.reference_fn(x, ctx.case)
-        err = ref.error(raw)
-        ref_norm = norm2(ref.hi)
-        rel2 = ratio(norm2(err), ref_norm)
-        rms = ref_norm / np.sqrt(max(1, err.shape[0]))
-        rel_max = ratio(float(np.max(np.abs(err))) if err.size else 0.0, rms)
+        rel2, rel_max = accuracy_measures(ref, raw)
         if worst is None or not rel2 <= worst[0]:
             worst = (rel2, rel_max, dist, x, raw, ref.method)
+    return accuracy_rows(ctx, worst)
+
+
+def accuracy_measures(ref: Any, raw: np.ndarray) -> tuple[float, float]:
+    """Return ``(relative 2-norm error, largest error relative to the rms exact output)`` of the
+    output ``raw`` against the reference ``ref`` (a :class:`~fftgauge.harness.battery.reference.Reference`)."""
+    err = ref.error(raw)
+    ref_norm = norm2(ref.hi)
+    rel2 = ratio(norm2(err), ref_norm)
+    rms = ref_norm / np.sqrt(max(1, err.size))
+    rel_max = ratio(float(np.max(np.abs(err))) if err.size else 0.0, rms)
+    return rel2, rel_max
+
+
+def accuracy_rows(ctx: Any, worst: tuple) -> list[CheckRow]:
+    """Return the ``accuracy`` row of a context (1-D or shaped) from the worse input's
+    ``(rel2, rel_max, distribution, x, output, reference method)``."""
     rel2, rel_max, dist, x, raw, method = worst
     dtype = ctx.case.dtype
     msg = (f"relative rms error {fmt_eps(rel2, dtype)} (max {fmt_eps(rel_max, dtype)} of the rms output), "

@@ -16,13 +16,14 @@ a shared queue, largest arrays first, driving one worker at a time (the 1-D batt
 from __future__ import annotations
 
 import dataclasses
-import os
-import threading
 from collections import deque
 from typing import Any
 
+from fftgauge.harness.battery.lanes import (
+    Batch, WorkQueue, battery_workers, describe_in_parallel, lane_parallelism, raise_if_stopped, run_lanes,
+)
 from fftgauge.harness.battery.request import BatteryRequest
-from fftgauge.harness.errors import BackendFailure, RunStopped, UsageError
+from fftgauge.harness.errors import BackendFailure, UsageError
 from fftgauge.harness.execution import jobs
 from fftgauge.harness.rows import CheckRow
 from fftgauge.harness.shapes.case import ShapeCase
@@ -50,46 +51,22 @@ def case_row(label: str, case: ShapeCase, status: str, message: str, check: str 
     return shaped_row(label, case, check, status, message=message).as_dict()
 
 
-class ShapedQueue:
-    """The shaped battery's work: per backend, batches (one shape each) largest array first;
-    lanes take them with :meth:`next` (their own backend's first, then a backend no lane has
-    started, then the one with most left). Thread-safe."""
+class ShapedQueue(WorkQueue):
+    """The shaped battery's work: per backend, batches (every claimed case of one shape) largest
+    array first; a lane that finished its own backend joins any with batches left. Thread-safe
+    (:class:`~fftgauge.harness.battery.lanes.WorkQueue`)."""
 
-    def __init__(self, specs: list[str], claimed: dict[str, list[int]], cases: list[ShapeCase]):
-        self._order = list(specs)
-        self._left: dict[str, deque[tuple[str, tuple[int, ...]]]] = {}
+    def __init__(self, specs: list[str], claimed: dict[str, list[int]], cases: list[ShapeCase],
+                 labels: dict[str, str] | None = None, capabilities: dict[str, Any] | None = None):
+        left: dict[str, deque[Batch]] = {}
         for spec in specs:
             by_shape: dict[tuple, list[int]] = {}
             for i in claimed[spec]:
                 by_shape.setdefault((cases[i].shape, cases[i].axes), []).append(i)
             order = sorted(by_shape, key=lambda key: -cases[by_shape[key][0]].input_bytes())
-            self._left[spec] = deque((spec, tuple(by_shape[key])) for key in order)
-        #: Cases and batches the queue held at the start.
-        self.total_cases = sum(len(b[1]) for q in self._left.values() for b in q)
-        self.total_batches = sum(len(q) for q in self._left.values())
-        self._started: set[str] = set()
-        self._lock = threading.Lock()
-        self.stopped = False
-
-    def stop(self) -> None:
-        """Hand out no more batches (the run is stopping)."""
-        self.stopped = True
-
-    def next(self, spec: str | None) -> tuple[str, tuple[int, ...]] | None:
-        """Return the next ``(spec, case indices)`` for a lane on backend ``spec``, or None."""
-        with self._lock:
-            if self.stopped:
-                return None
-            if spec is not None and self._left.get(spec):
-                return self._left[spec].popleft()
-            for other in self._order:
-                if other not in self._started and self._left[other]:
-                    self._started.add(other)
-                    return self._left[other].popleft()
-            busiest = max(self._order, key=lambda s: len(self._left[s]), default=None)
-            if busiest is not None and self._left[busiest]:
-                return self._left[busiest].popleft()
-            return None
+            left[spec] = deque(Batch(spec, (labels or {}).get(spec, spec), (capabilities or {}).get(spec),
+                                     tuple(by_shape[key])) for key in order)
+        super().__init__(list(specs), left, join_min=1)
 
 
 def run_case(worker: Any, label: str, case: ShapeCase, req: BatteryRequest, names: list[str]) -> list[dict]:
@@ -106,23 +83,6 @@ def run_case(worker: Any, label: str, case: ShapeCase, req: BatteryRequest, name
     if worker.left_running > 0:
         rows.append(case_row(label, case, "error", f"the case's checks ran, but {leftover_text(worker.left_running)}"))
     return rows
-
-
-def _describe(workers: dict[str, Any], req: BatteryRequest, cases: list[ShapeCase]) -> dict[str, Any]:
-    from concurrent.futures import ThreadPoolExecutor
-
-    from fftgauge.harness.execution.dispatch import describe_cases
-
-    pool = ThreadPoolExecutor(max_workers=max(1, min(os.cpu_count() or 1, len(req.specs))))
-    try:
-        futures = {spec: pool.submit(describe_cases, workers[spec], spec, cases, req.max_n_pure_python,
-                                     req.timeout_seconds) for spec in req.specs}
-        return {spec: futures[spec].result() for spec in req.specs}
-    except BaseException:
-        pool.shutdown(wait=False, cancel_futures=True)
-        raise
-    finally:
-        pool.shutdown(wait=False)
 
 
 def _request_record(req: BatteryRequest, names: list[str]) -> dict[str, Any]:
@@ -148,19 +108,17 @@ def run_shaped_battery(req: BatteryRequest, json_path: str | None = None, quiet:
     """
     from fftgauge.backends.registry import require_unique_labels
     from fftgauge.harness.battery.criteria import apply_limits
-    from fftgauge.harness.battery.run import CHECK_SCHEMA, Lane, RowSink, drive_lanes
-    from fftgauge.harness.execution.dispatch import Progress
-    from fftgauge.harness.execution.worker import Worker
+    from fftgauge.harness.battery.run import CHECK_SCHEMA
+    from fftgauge.harness.execution.dispatch import Progress, describe_cases
     from fftgauge.harness.results import ResultsWriter, envelope
     from fftgauge.harness.shapes.reference import shaped_reference_method
-    from fftgauge.harness.shutdown import stop_reason
 
     cases = list(req.shape_cases)
     names = shaped_check_names(req)
-    parallel = max(1, os.cpu_count() or 1)
-    workers = {spec: Worker(spec, threads=req.threads, concurrency=parallel) for spec in req.specs}
-    try:
-        claims = _describe(workers, req, cases)
+    parallel = lane_parallelism()
+    with battery_workers(list(req.specs), req.threads, parallel) as workers:
+        claims = describe_in_parallel(list(req.specs), lambda spec: describe_cases(
+            workers[spec], spec, cases, req.max_n_pure_python, req.timeout_seconds), parallel)
         require_unique_labels({spec: claims[spec].label for spec in req.specs})
         if doc is None:
             doc = envelope(CHECK_SCHEMA, req.seed, extra={
@@ -179,53 +137,25 @@ def run_shaped_battery(req: BatteryRequest, json_path: str | None = None, quiet:
             skipped += [case_row(claims[spec].label, c, "skip", reason)
                         for c, reason in zip(cases, claims[spec].reasons) if reason is not None]
         writer.add(skipped)
-        queue = ShapedQueue(list(req.specs), claimed, cases)
-        progress = Progress(total=queue.total_cases, quiet=quiet, desc="checking shapes")
-        lock = threading.Lock()
-        count = min(parallel, max(1, queue.total_batches))
-        lanes = [Lane(workers, lock, req, count) for _ in range(count)]
-        sink = RowSink(writer)
         labels = {spec: claims[spec].label for spec in req.specs}
-        conventions = {spec: getattr(claims[spec].capabilities, "conventions", None) for spec in req.specs}
+        queue = ShapedQueue(list(req.specs), claimed, cases, labels,
+                            {spec: claims[spec].capabilities for spec in req.specs})
+        progress = Progress(total=queue.total_cases, quiet=quiet, desc="checking shapes")
 
-        def run_lane(lane: Lane) -> None:
-            try:
-                while (batch := queue.next(lane.spec)) is not None:
-                    spec, indices = batch
-                    worker = lane.worker_for(spec)
-                    for index in indices:
-                        if queue.stopped:
-                            return
-                        rows = run_case(worker, labels[spec], cases[index], req, names)
-                        if queue.stopped:
-                            return
-                        sink.add(apply_limits(rows, req.limits, conventions[spec]))
-                        progress.advance(note=f"{labels[spec]} {cases[index].label()}")
-            finally:
-                lane.close()
+        def run_one(worker: Any, batch: Any, index: int) -> list[dict] | None:
+            rows = run_case(worker, batch.label, cases[index], req, names)
+            if queue.stopped:
+                return None
+            return apply_limits(rows, req.limits, getattr(batch.capabilities, "conventions", None))
 
-        stop = None
-        try:
-            stop = drive_lanes(lanes, queue, workers, run_lane)
-        finally:
-            progress.close()
-            try:
-                sink.close()
-            finally:
-                position = {claims[s].label: i for i, s in enumerate(req.specs)}
-                doc["rows"].sort(key=lambda r: (bool(r.get("shape")), position.get(r["backend"], 0))
-                                 + (row_order_key(r) if r.get("shape") else ()))
-                writer.close(complete=stop is None)
-    except KeyboardInterrupt:
-        for worker in workers.values():
-            worker.abort()
-        raise
-    finally:
-        for worker in workers.values():
-            worker.close()
-    if stop is not None:
-        name, code = stop_reason(stop)
-        raise RunStopped(name, code, doc) from stop
+        def finish() -> None:
+            position = {claims[s].label: i for i, s in enumerate(req.specs)}
+            doc["rows"].sort(key=lambda r: (bool(r.get("shape")), position.get(r["backend"], 0))
+                             + (row_order_key(r) if r.get("shape") else ()))
+
+        stop = run_lanes(workers, queue, req, writer, progress, run_one,
+                         lambda batch, index: f"{batch.label} {cases[index].label()}", finish)
+    raise_if_stopped(stop, doc)
     return doc
 
 

@@ -10,14 +10,12 @@ the asked checks and turns anything that goes wrong into rows, as
 
 from __future__ import annotations
 
-import warnings
 from typing import Any, Callable
 
 import numpy as np
 
 from fftgauge.backends.base import Backend
-from fftgauge.harness.battery.context import OutputProblem, one_line
-from fftgauge.harness.errors import BackendFailure, UsageError
+from fftgauge.harness.battery.context_base import asked_checks, guarded_check, rows_in_context
 from fftgauge.harness.execution.crash import exception_text
 from fftgauge.harness.rows import CheckRow
 from fftgauge.harness.shapes.case import ShapeCase
@@ -51,17 +49,7 @@ def run_shaped_check(ctx: ShapedContext, name: str) -> list[CheckRow]:
     """Run one check and return its rows; never raises (as the 1-D battery's ``run_check``):
     a backend that raises gives an ``error`` row, an unusable output a ``fail`` row with its
     code, a failure of the check itself an ``error`` row that says so."""
-    try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", RuntimeWarning)
-            warnings.simplefilter("ignore", np.exceptions.ComplexWarning)
-            return SHAPED_CHECKS[name](ctx)
-    except OutputProblem as problem:
-        return [ctx.row(name, "fail", diagnosis=problem.code, eps=False, message=problem.message)]
-    except BackendFailure as exc:
-        return [ctx.row(name, "error", eps=False, message=one_line(exc))]
-    except Exception as exc:  # noqa: BLE001 - one check's failure must not stop the others
-        return [ctx.row(name, "error", eps=False, message=f"the {name} check could not run: {exception_text(exc)}")]
+    return guarded_check(ctx, name, SHAPED_CHECKS[name])
 
 
 def shaped_case_rows(label: str, case: ShapeCase, names: list[str], status: str, message: str) -> list[CheckRow]:
@@ -82,10 +70,7 @@ def check_shaped_case(backend: Backend, case: ShapeCase, seed: int, check_names:
     UsageError
         For a check name not in :data:`SHAPED_CHECKS`.
     """
-    names = list(check_names) if check_names else list(SHAPED_CHECKS)
-    unknown = [c for c in names if c not in SHAPED_CHECKS]
-    if unknown:
-        raise UsageError(f"unknown check {unknown[0]!r} for shaped cases; checks: {', '.join(SHAPED_CHECKS)}")
+    names = asked_checks(check_names, SHAPED_CHECKS, " for shaped cases")
     reason = backend.shaped_unsupported_reason(case)
     if reason is not None:
         return shaped_case_rows(backend.label, case, names, "skip", reason)
@@ -94,11 +79,4 @@ def check_shaped_case(backend: Backend, case: ShapeCase, seed: int, check_names:
     except Exception as exc:  # noqa: BLE001
         return shaped_case_rows(backend.label, case, names, "error", f"planning failed: {exception_text(exc)}")
     ctx = ShapedContext(backend, case, plan, seed, reference_fn=reference_fn, limit_fn=limit_fn)
-    try:
-        return [row for name in names for row in run_shaped_check(ctx, name)]
-    finally:
-        ctx.close()
-        try:
-            plan.close()
-        except Exception:  # noqa: BLE001
-            pass
+    return rows_in_context(ctx, plan, names, run_shaped_check)

@@ -20,15 +20,14 @@ from typing import Any, Callable
 
 import numpy as np
 
-from fftgauge.backends.base import Backend, Capabilities, Plan
+from fftgauge.backends.base import Backend, Plan
 from fftgauge.harness.battery import bounds
-from fftgauge.harness.battery.context import (
-    ROUNDING_UNITS, OutputProblem, copy_output, finite_or_none, norm2, one_line, ratio,
+from fftgauge.harness.battery.context import finite_or_none, norm2, ratio
+from fftgauge.harness.battery.context_base import (
+    ContextBase, OutputProblem, close_plans, execute_plan, require_numbers,
 )
 from fftgauge.harness.cases import Case
 from fftgauge.harness.dft import norm_factor
-from fftgauge.harness.errors import BackendFailure
-from fftgauge.harness.execution.crash import exception_text
 from fftgauge.harness.rows import CheckRow
 from fftgauge.harness.shapes.case import ShapeCase, lay_out
 from fftgauge.harness.shapes.fields import row_fields
@@ -78,7 +77,7 @@ def _stable_hash(text: str) -> int:
 
 
 @dataclass
-class ShapedContext:
+class ShapedContext(ContextBase):
     """Everything a check needs for one shaped case of one backend.
 
     ``reference_fn(x, case) -> Reference`` is the ground truth
@@ -107,32 +106,7 @@ class ShapedContext:
         if self.limit is None:
             self.limit = float(self.limit_fn(self.case))
 
-    # -- what the case is -------------------------------------------------------------------
-    @property
-    def label(self) -> str:
-        """The backend's label as rows show it."""
-        return self.backend.label
-
-    @property
-    def capabilities(self) -> Capabilities:
-        """The backend's claims."""
-        return self.backend.capabilities()
-
-    @property
-    def unit_roundoff(self) -> float:
-        """u of the case's precision."""
-        return bounds.unit_roundoff(self.case.dtype)
-
-    @property
-    def rounding(self) -> float:
-        """The rounding allowance every tolerance carries (the 1-D battery's ``ROUNDING_UNITS`` u)."""
-        return ROUNDING_UNITS * self.unit_roundoff
-
-    @property
-    def work_dtype(self) -> np.dtype:
-        """The complex dtype comparisons are made in: complex128, or clongdouble for long double."""
-        return np.dtype(np.clongdouble if self.case.dtype == "longdouble" else np.complex128)
-
+    # -- what the case is (label, capabilities, unit_roundoff, rounding, work_dtype: ContextBase)
     def scale(self, case: ShapeCase | None = None) -> Any:
         """The normalisation factor of ``case`` (default: this one), the product over its axes,
         in the work precision (long double for long double cases)."""
@@ -188,14 +162,7 @@ class ShapedContext:
         OutputProblem
             When it returns something that is not an array of numbers.
         """
-        plan = plan or self.plan
-        arg = lay_out(np.array(x, copy=True), layout or self.case.layout)
-        try:
-            with np.errstate(all="ignore"):
-                out = plan.execute(arg)
-        except Exception as exc:  # noqa: BLE001 - any exception of the backend is an error row
-            raise BackendFailure(f"the backend raised {exception_text(exc)}") from None
-        return copy_output(out)
+        return execute_plan(plan or self.plan, lay_out(np.array(x, copy=True), layout or self.case.layout))
 
     def output(self, y: np.ndarray, case: ShapeCase | None = None, x: np.ndarray | None = None) -> np.ndarray:
         """Return ``y`` as a work-precision complex array after checking its dtype and shape.
@@ -208,8 +175,7 @@ class ShapedContext:
             given and the output is the transposed or other-axis transform of it).
         """
         case = case or self.case
-        if y.dtype.kind not in "fc":
-            raise OutputProblem("dtype", f"output has dtype {y.dtype}, not a floating-point or complex type")
+        require_numbers(y)
         if y.shape != case.output_shape:
             from fftgauge.harness.shapes.diagnosis import diagnose_shape
             code, words = diagnose_shape(case, x, y, self.reference_fn)
@@ -243,16 +209,8 @@ class ShapedContext:
         """
         if case == self.case:
             return self.plan, None
-        if case not in self._plans:
-            reason = self.backend.shaped_unsupported_reason(case)
-            if reason is not None:
-                self._plans[case] = (None, reason)
-            else:
-                try:
-                    self._plans[case] = (self.backend.plan_shaped(case), None)
-                except Exception as exc:  # noqa: BLE001
-                    raise BackendFailure(f"planning {case.label()} raised {exception_text(exc)}") from None
-        return self._plans[case]
+        return self.cached_plan(self._plans, case, self.backend.shaped_unsupported_reason, self.backend.plan_shaped,
+                                case.label())
 
     def line_plan(self, line: Case) -> tuple[Plan | None, str | None]:
         """Return ``(plan, None)`` for the backend's 1-D transform ``line``, or ``(None, reason)``.
@@ -262,16 +220,8 @@ class ShapedContext:
         BackendFailure
             When planning it raises.
         """
-        if line not in self._plans:
-            reason = self.backend.unsupported_reason(line)
-            if reason is not None:
-                self._plans[line] = (None, reason)
-            else:
-                try:
-                    self._plans[line] = (self.backend.plan(line), None)
-                except Exception as exc:  # noqa: BLE001
-                    raise BackendFailure(f"planning 1-D {line.label()} raised {exception_text(exc)}") from None
-        return self._plans[line]
+        return self.cached_plan(self._plans, line, self.backend.unsupported_reason, self.backend.plan,
+                                f"1-D {line.label()}")
 
     def companion(self) -> tuple[Plan | None, ShapeCase, str | None]:
         """Return ``(plan, case, reason)`` for the inverse kind of this case (plan None: not claimed)."""
@@ -282,13 +232,7 @@ class ShapedContext:
 
     def close(self) -> None:
         """Close the derived plans this context made (the main plan is the caller's)."""
-        for plan, _ in self._plans.values():
-            if plan is not None:
-                try:
-                    plan.close()
-                except Exception:  # noqa: BLE001 - closing must not raise into the battery
-                    pass
-        self._plans.clear()
+        close_plans(self._plans)
 
     # -- verdicts ---------------------------------------------------------------------------------
     def row(self, check: str, status: str, value: float | None = None, limit: float | None = None,
@@ -302,48 +246,12 @@ class ShapedContext:
                           diagnosis=diagnosis if status == "fail" else None, message=message,
                           reference=reference, limit_source="bound" if limit is not None else None)
 
-    def diagnose(self, x: np.ndarray, y: np.ndarray) -> tuple[str, str]:
+    def find_diagnosis(self, x: np.ndarray, y: np.ndarray) -> tuple[str, str]:
         """Return :func:`fftgauge.harness.shapes.diagnosis.diagnose_shaped` of the output ``y``
-        for ``x``; a diagnosis that itself fails gives ``unknown``."""
+        for ``x`` (see :meth:`ContextBase.diagnose`, which turns a diagnosis that fails into ``unknown``)."""
         from fftgauge.harness.shapes.diagnosis import diagnose_shaped
-        try:
-            return diagnose_shaped(self, x, y)
-        except Exception as exc:  # noqa: BLE001
-            return "unknown", f"no diagnosis ({type(exc).__name__}: {one_line(exc)})"
+        return diagnose_shaped(self, x, y)
 
-    def random_diagnosis(self) -> tuple[str, str] | None:
-        """Return the diagnosis of the backend's output for a random input, or None when that
-        output is within the accuracy limit (computed once per context)."""
-        if self._diagnosis is None:
-            xr = self.random_input("diagnosis")
-            try:
-                yr = self.run(xr)
-            except (BackendFailure, OutputProblem) as exc:
-                self._diagnosis = ("unknown", f"the backend gives no usable output for a random input ({exc})")
-            else:
-                try:
-                    err = self.error_of(xr, yr)
-                except ValueError:  # wrong shape
-                    err = float("inf")
-                self._diagnosis = ("", "") if np.isfinite(err) and err <= self.limit else self.diagnose(xr, yr)
-        return self._diagnosis if self._diagnosis[0] else None
-
-    def diagnose_failure(self, x: np.ndarray | None = None, y: np.ndarray | None = None) -> tuple[str, str]:
-        """Return the diagnosis of a failed check: the random input's output first (the
-        hypotheses are told apart best on a generic input), else the check's own ``(x, y)``."""
-        found = self.random_diagnosis()
-        if found is not None:
-            return found
-        if x is None:
-            return "unknown", "a random input is transformed accurately"
-        code, why = self.diagnose(x, y)
-        return code, f"a random input is transformed accurately, so this is specific to the check's input: {why}"
-
-    def verdict(self, check: str, value: float, limit: float, message: str, x: np.ndarray | None = None,
-                y: np.ndarray | None = None, reference: str | None = None) -> CheckRow:
-        """Return a pass row when ``value <= limit``, else a fail row diagnosed from ``(x, y)``."""
-        if np.isfinite(value) and value <= limit:
-            return self.row(check, "pass", value, limit, message=message, reference=reference)
-        code, why = self.diagnose_failure(x, y)
-        return self.row(check, "fail", value, limit, diagnosis=code,
-                        message=f"{message}; {why}" if why else message, reference=reference)
+    def random_error(self, x: np.ndarray, y: np.ndarray) -> float:
+        """Return the relative 2-norm error of the output ``y`` for the random input ``x`` (:meth:`error_of`)."""
+        return self.error_of(x, y)

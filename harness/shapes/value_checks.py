@@ -27,6 +27,7 @@ from __future__ import annotations
 import numpy as np
 
 from fftgauge.harness.battery.context import SQRT2, OutputProblem, fmt_eps, norm2, phases, ratio, relative
+from fftgauge.harness.battery.value_checks import accuracy_measures, accuracy_rows
 from fftgauge.harness.rows import CheckRow
 from fftgauge.harness.shapes.case import ShapeCase
 from fftgauge.harness.shapes.context import ShapedContext, reverse_axes
@@ -94,18 +95,10 @@ def check_accuracy(ctx: ShapedContext) -> list[CheckRow]:
         raw = ctx.run(x)
         ctx.output(raw, x=x)
         ref = ctx.reference_fn(x, ctx.case)
-        err = ref.error(raw)
-        ref_norm = norm2(ref.hi)
-        rel2 = ratio(norm2(err), ref_norm)
-        rms = ref_norm / np.sqrt(max(1, err.size))
-        rel_max = ratio(float(np.max(np.abs(err))) if err.size else 0.0, rms)
+        rel2, rel_max = accuracy_measures(ref, raw)
         if worst is None or not rel2 <= worst[0]:
             worst = (rel2, rel_max, dist, x, raw, ref.method)
-    rel2, rel_max, dist, x, raw, method = worst
-    dtype = ctx.case.dtype
-    msg = (f"relative rms error {fmt_eps(rel2, dtype)} (max {fmt_eps(rel_max, dtype)} of the rms output), "
-           f"worst on the {dist} input")
-    return [ctx.verdict("accuracy", rel2, ctx.limit, msg, x, raw, reference=method)]
+    return accuracy_rows(ctx, worst)
 
 
 def check_linearity(ctx: ShapedContext) -> list[CheckRow]:
