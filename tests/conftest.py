@@ -18,7 +18,10 @@ DATA_DIR = Path(__file__).parent / "data"
 # The terminal summary fits its findings to the terminal's width (harness/report/findings.py);
 # the tests read it at one fixed width, whatever terminal (or none) the suite runs under.
 os.environ["COLUMNS"] = "120"
-os.environ.setdefault("FFTGAUGE_TEST_SLEEP_SECONDS", f"987.{os.getpid() % 1000:03d}")
+# Set, never inherited: pytest-xdist's workers inherit the controller's environment, and with
+# setdefault every worker of `pytest -n auto` (CI) slept the controller's value, so one worker's
+# sleepers counted as another's leftovers. The whole pid keeps two live test processes apart.
+os.environ["FFTGAUGE_TEST_SLEEP_SECONDS"] = f"987.{os.getpid():07d}"
 C_EXAMPLE = Path(__file__).resolve().parent.parent / "examples" / "c_radix2"
 #: What the example builds: the shared libraries and protocol servers, each also broken
 #: on purpose (-DMISSING_BITREVERSAL).

@@ -401,7 +401,7 @@ def sleepers() -> set[int]:
     return found
 
 
-def _wait_for_sleepers(count: int, within_seconds: float = 5.0) -> set[int]:
+def _wait_for_sleepers(count: int, within_seconds: float = 30.0) -> set[int]:
     deadline = time.monotonic() + within_seconds
     while time.monotonic() < deadline:
         found = sleepers()
@@ -431,7 +431,7 @@ def test_processes_a_backend_starts_end_with_its_worker(attr):
     assert _gone_all(sleepers() - before), f"{attr} left sleepers behind"
 
 
-def _gone_all(pids: set[int], within_seconds: float = 5.0) -> bool:
+def _gone_all(pids: set[int], within_seconds: float = 30.0) -> bool:
     return all(_gone(pid, within_seconds) for pid in pids)
 
 
@@ -451,6 +451,44 @@ def test_processes_of_a_dead_or_stopped_child_are_ended(attr, pattern):
             worker.call(PLAN, FFT8, signal_x(8), timeout_seconds=SHORT_TIMEOUT_SECONDS)
         assert worker.processes_ended == 1
     assert _gone_all(sleepers() - before), f"{attr} left a sleeper behind"
+
+
+def test_a_child_that_dies_while_its_tree_is_read_leaves_its_orphans_to_the_token_search(monkeypatch):
+    """The race behind a leftover sleeper: the child is alive when asked, dies while its tree
+    is read (its orphans go to init, out of the tree), and the search for the worker's token
+    must still run. Here a real child is killed inside the tree's read, and an orphan carrying
+    the token (a daemonised sleeper, never in the child's tree) must be found."""
+    from fftgauge.harness.execution import processes
+
+    token = f"race-{os.getpid()}-{time.monotonic_ns()}"
+    env = dict(os.environ, **{processes.TOKEN_VARIABLE: token})
+    child = subprocess.Popen([sys.executable, "-c", "import time; time.sleep(120)"], env=env)
+    done = subprocess.run(["sh", "-c", f"setsid sleep {LEFTOVER_SLEEP} >/dev/null 2>&1 & echo $!"], env=env,
+                          capture_output=True, text=True, check=True, timeout=TIMEOUT_SECONDS)
+    orphan = int(done.stdout.split()[-1])
+    try:
+        deadline = time.monotonic() + TIMEOUT_SECONDS  # until its fork and exec are done, however loaded
+        while orphan not in sleepers() and time.monotonic() < deadline:
+            time.sleep(0.02)
+        assert orphan in sleepers()
+        read_tree = processes.descendant_pids
+
+        def dies_while_read(pid, running_only=True):
+            found = read_tree(pid, running_only)
+            child.kill()
+            child.wait(timeout=TIMEOUT_SECONDS)
+            return found
+
+        monkeypatch.setattr(processes, "descendant_pids", dies_while_read)
+        found = {proc.pid for proc in processes.worker_processes(child.pid, token)}
+        assert orphan in found and child.pid not in found
+    finally:
+        child.kill()
+        child.wait(timeout=TIMEOUT_SECONDS)
+        try:
+            psutil.Process(orphan).kill()
+        except psutil.Error:
+            pass
 
 
 # -- resource limits -----------------------------------------------------------------------

@@ -117,11 +117,13 @@ def worker_processes(child_pid: int | None, token: str | None, known: set[int] =
     environment token (None: not looked for), ``known`` pids the child reported earlier.
     Found as: the child's descendants, ``known`` pids still running with the token, and any
     process of this user carrying the token (only searched when the child has died, when its
-    orphans may have gone to init).
+    orphans may have gone to init). Whether it died is asked again after its descendants were
+    read: a child that ends meanwhile hands its orphans to init, out of the tree just read.
     """
     procs: dict[int, psutil.Process] = {}
-    child_alive = child_pid is not None and psutil.pid_exists(child_pid) and not _is_zombie(child_pid)
+    child_alive = _running(child_pid)
     pids = descendant_pids(child_pid) if child_alive else set()
+    child_alive = child_alive and _running(child_pid)
     for pid in pids | set(known):
         try:
             proc = psutil.Process(pid)
@@ -135,6 +137,11 @@ def worker_processes(child_pid: int | None, token: str | None, known: set[int] =
     procs.pop(child_pid, None)
     procs.pop(os.getpid(), None)
     return list(procs.values())
+
+
+def _running(pid: int | None) -> bool:
+    """Return True when process ``pid`` exists and is no zombie (False for None)."""
+    return pid is not None and psutil.pid_exists(pid) and not _is_zombie(pid)
 
 
 def end_processes(procs: list[psutil.Process]) -> int:

@@ -310,8 +310,7 @@ class Worker:
             return
         self._aborted = True
         try:
-            end_processes(worker_processes(process.pid, None if self._subreaper else self._token,
-                                           set(self._known_pids)))
+            end_processes(worker_processes(process.pid, self._token, set(self._known_pids)))
             kill_group(process.pid)
             process.kill()
         except Exception:  # noqa: BLE001 - the run is stopping; what is left, close() reaps
@@ -441,9 +440,9 @@ class Worker:
             return 0
         alive = process.exitcode is None
         # While the child lives (a subreaper) its descendants are its children's tree; after
-        # it died, or where it is no subreaper, they are found by the token they inherited.
-        procs = worker_processes(process.pid, self._token if not (alive and self._subreaper) else None,
-                                 self._known_pids)
+        # it died (also while it is being read: worker_processes asks again), or where it is
+        # no subreaper, they are found by the token they inherited.
+        procs = worker_processes(process.pid, self._token, self._known_pids)
         ended = end_processes(procs)
         kill_group(process.pid)  # its session's group: what it started with no new session
         if process.exitcode is None:
@@ -453,7 +452,7 @@ class Worker:
             process.kill()
         process.join()
         process.close()
-        if alive and procs:  # stragglers forked while the first ones were ended
+        if procs:  # stragglers forked while the first ones were ended (the child reaped: found by token)
             more = worker_processes(None, self._token)
             ended += end_processes(more)
             procs += more

@@ -138,17 +138,37 @@ def session_sleeper_fft(x):
     return np.fft.fft(x)
 
 
-def daemon_sleeper_fft(x):
+def start_daemon_sleeper() -> int:
     """Start a daemonised ``sleep LEFTOVER_SLEEP`` (a shell runs ``setsid sleep ... &`` and
-    exits, so the sleeper is an orphan in a session of its own), then return."""
-    subprocess.run(["sh", "-c", f"setsid sleep {LEFTOVER_SLEEP} >/dev/null 2>&1 &"], check=True)
+    exits, so the sleeper is an orphan in a session of its own); return its pid."""
+    done = subprocess.run(["sh", "-c", f"setsid sleep {LEFTOVER_SLEEP} >/dev/null 2>&1 & echo $!"], check=True,
+                          capture_output=True, text=True)
+    return int(done.stdout.split()[-1])
+
+
+def daemon_sleeper_fft(x):
+    """Start a daemonised sleeper (:func:`start_daemon_sleeper`), then return."""
+    start_daemon_sleeper()
     return np.fft.fft(x)
 
 
+def wait_until_sleeping(pid: int, within_seconds: float = 30.0) -> None:
+    """Return once process ``pid`` runs ``sleep LEFTOVER_SLEEP`` (its fork and exec done, however
+    loaded the machine), or after ``within_seconds``."""
+    deadline = time.monotonic() + within_seconds
+    while time.monotonic() < deadline:
+        try:
+            with open(f"/proc/{pid}/cmdline", "rb") as fh:
+                if fh.read().split(b"\0")[:2] == [b"sleep", LEFTOVER_SLEEP.encode()]:
+                    return
+        except OSError:
+            pass
+        time.sleep(0.02)
+
+
 def daemon_then_abort_fft(x):
-    """Start a daemonised sleeper, wait until it runs, then abort the process (SIGABRT)."""
-    daemon_sleeper_fft(x)
-    time.sleep(0.3)
+    """Start a daemonised sleeper, wait until it runs ``sleep``, then abort the process (SIGABRT)."""
+    wait_until_sleeping(start_daemon_sleeper())
     os.abort()
 
 
