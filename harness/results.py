@@ -320,7 +320,8 @@ ROW_STATUSES = {
 NONNEGATIVE_FIELDS = ("seconds", "seconds_low", "seconds_high", "plan_seconds", "seconds_p10", "seconds_p10_low",
                       "seconds_p10_high", "overhead_seconds", "floor_seconds", "flops", "gflops", "ns_per_nlogn",
                       "peak_bytes", "ratio", "ratio_low", "ratio_high", "limit", "eps_units", "coverage",
-                      "relative_spread")
+                      "relative_spread", "host_to_device_seconds", "device_to_host_seconds", "host_to_device_bytes",
+                      "device_to_host_bytes")
 
 #: Other numeric row fields: a finite number, or null.
 NUMBER_FIELDS = ("value", "p_value")

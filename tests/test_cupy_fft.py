@@ -270,6 +270,13 @@ def test_the_copies_timed_in_planning_reach_the_time_row(with_cupy):
                                                                     "device_to_host_seconds"))
     names = [f.name for f in dataclasses.fields(TimeRow)]
     assert TimeRow(**{k: row[k] for k in names}).as_dict() == row  # nothing outside the row's fields
+    from fftgauge.harness.results import validate_results
+
+    envelope = {"schema": "fftgauge-time/1", "rows": [row]}
+    validate_results("run.json", envelope, ("fftgauge-time/1",))  # the loader's checks take the fields
+    with pytest.raises(UsageError, match="row 0 field 'host_to_device_seconds' is -1.0; it cannot be negative"):
+        validate_results("run.json", {**envelope, "rows": [dict(row, host_to_device_seconds=-1.0)]},
+                         ("fftgauge-time/1",))
     plain = time_case(load_backend("numpy"), ("rfft", "float32", 64, "ortho"), options)
     assert all(plain[k] is None for k in ("host_to_device_seconds", "device_to_host_seconds",
                                           "host_to_device_bytes", "device_to_host_bytes"))
