@@ -66,17 +66,20 @@ def describe_on_cluster(session: ClusterSession, req: Any, cases: list[Case]) ->
 class BatteryFeed:
     """Makes the battery's tasks: per backend (in the order asked), its chunks (:mod:`.chunks`)."""
 
-    def __init__(self, session: ClusterSession, req: Any, claims: dict[str, Any], cases: list[Case],
+    def __init__(self, session: ClusterSession, req: Any, claims: dict[str, Any], cases: list[Any],
                  check_names: list[str], stop_name: str, threads: int):
         self.session, self.req, self.claims, self.cases = session, req, claims, cases
         self.check_names, self.stop_name, self.threads = check_names, stop_name, threads
-        sizes = [c.n for c in cases]
-        self.queues = [SpecQueue(spec, size_groups([i for i, r in enumerate(claims[spec].reasons) if r is None], sizes))
+        self.queues = [SpecQueue(spec, self.groups([i for i, r in enumerate(claims[spec].reasons) if r is None]))
                        for spec in req.specs]
         #: Cases claimed in all (the progress bar's total).
         self.total_cases = sum(q.left for q in self.queues)
         #: (cases, seconds on the worker, seconds from submit to result) of every finished task.
         self.chunks: list[tuple[int, float]] = []
+
+    def groups(self, indices: list[int]) -> Any:
+        """Return the claimed case indices in run order, grouped: one size each, largest first."""
+        return size_groups(indices, [c.n for c in self.cases])
 
     def remaining_cases(self) -> int:
         """Return the cases not yet sent."""
@@ -94,8 +97,6 @@ class BatteryFeed:
 
     def next(self) -> tuple[Any, ChunkMeta] | None:
         """Return ``(future, meta)`` of the next chunk, or None when every case was sent."""
-        from fftgauge.harness.cluster.tasks import run_chunk
-
         queue = next((q for q in self.queues if q.left), None)
         if queue is None:
             return None
@@ -103,12 +104,24 @@ class BatteryFeed:
         if queue.case_seconds is not None:
             size = chunk_cases(self.session.overhead_seconds, queue.case_seconds, self.remaining_cases(), self.threads)
         indices = queue.take(size)
-        claims = self.claims[queue.spec]
+        return self.submit(queue.spec, indices), ChunkMeta(queue.spec, indices)
+
+    def submit(self, spec: str, indices: list[int]) -> Any:
+        """Return the future of the task that runs the cases ``indices`` of backend ``spec``."""
+        from fftgauge.harness.cluster.tasks import run_chunk
+
+        claims = self.claims[spec]
         fields = [(self.cases[i].kind, self.cases[i].dtype, self.cases[i].n, self.cases[i].norm) for i in indices]
-        future = self.session.client.submit(run_chunk, queue.spec, claims.label,
-                                            getattr(claims.capabilities, "conventions", None), fields, self.req,
-                                            self.check_names, self.stop_name, pure=False)
-        return future, ChunkMeta(queue.spec, indices)
+        return self.session.client.submit(run_chunk, spec, claims.label, getattr(claims.capabilities, "conventions", None),
+                                          fields, self.req, self.check_names, self.stop_name, pure=False)
+
+    def error_rows(self, meta: ChunkMeta, text: str, host: str | None) -> list[dict]:
+        """Return the ``error`` rows of a chunk that failed on the cluster, naming the host."""
+        from fftgauge.harness.rows import error_rows
+
+        label = self.claims[meta.spec].label
+        return [{**row.as_dict(), "host": host or "unknown"}
+                for i in meta.indices for row in error_rows(label, self.cases[i], self.check_names, text)]
 
     def learn(self, meta: ChunkMeta, result: dict[str, Any]) -> None:
         """Record a finished chunk's cost in its backend's estimate."""
@@ -119,8 +132,9 @@ class BatteryFeed:
 
 def run_battery_on_cluster(req: Any, target: ClusterTarget, json_path: str | None = None,
                            quiet: bool = True) -> dict[str, Any]:
-    """Run the battery on the cluster ``target``; return the ``fftgauge-check/1`` document
-    (rows with ``host``; the envelope's ``cluster`` says where and the chunking).
+    """Run the battery (1-D sizes and/or ``--shapes``, :mod:`.shaped`) on the cluster ``target``;
+    return the ``fftgauge-check/1`` document (rows with ``host``; the envelope's ``cluster``
+    says where and the chunking).
 
     Raises
     ------
@@ -136,26 +150,22 @@ def run_battery_on_cluster(req: Any, target: ClusterTarget, json_path: str | Non
     from fftgauge.harness.battery.checks import CHECKS
     from fftgauge.harness.cluster.session import cluster_session
 
-    if getattr(req, "shape_cases", ()):
-        raise UsageError("--shapes does not run on a cluster yet; leave out --cluster")
-    if req.checks:
+    from fftgauge.harness.cluster.shaped import check_request_in_session
+
+    if req.checks and not getattr(req, "shape_cases", ()):
         unknown = [c for c in req.checks if c not in CHECKS]
         if unknown:
             raise UsageError(f"unknown check {unknown[0]!r}; checks: {', '.join(CHECKS)}")
     with cluster_session(target, list(req.specs), req.threads, quiet=quiet) as session:
-        return battery_in_session(session, req, json_path, quiet)
+        return check_request_in_session(session, req, json_path, quiet)
 
 
 def battery_in_session(session: ClusterSession, req: Any, json_path: str | None, quiet: bool) -> dict[str, Any]:
     """:func:`run_battery_on_cluster`'s body, on an open session."""
     from fftgauge.backends.registry import require_unique_labels
     from fftgauge.harness.battery.checks import CHECKS
-    from fftgauge.harness.battery.run import (RowSink, battery_envelope, build_cases, finish_battery_rows,
-                                              unclaimed_case_rows)
-    from fftgauge.harness.execution.dispatch import Progress
+    from fftgauge.harness.battery.run import battery_envelope, build_cases, finish_battery_rows, unclaimed_case_rows
     from fftgauge.harness.results import ResultsWriter
-    from fftgauge.harness.rows import error_rows
-    from fftgauge.harness.shutdown import stop_reason
 
     check_names = list(req.checks) if req.checks else list(CHECKS)
     kinds = req.kinds or ("fft", "ifft", "rfft", "irfft")
@@ -163,13 +173,39 @@ def battery_in_session(session: ClusterSession, req: Any, json_path: str | None,
     claims = describe_on_cluster(session, req, cases)
     require_unique_labels({spec: claims[spec].label for spec in req.specs})
     doc = battery_envelope(req, claims, kinds, list(req.checks) if req.checks else None)
-    threads = sum(call_with_timeout(session.client.nthreads, 10.0, "the workers' thread counts").values())
-    stop_name = f"fftgauge-stop-{uuid.uuid4().hex}"
-    feed = BatteryFeed(session, req, claims, cases, check_names, stop_name, max(1, threads))
+    feed = BatteryFeed(session, req, claims, cases, check_names, f"fftgauge-stop-{uuid.uuid4().hex}",
+                       cluster_threads(session))
     doc["cluster"] = session.record()
     writer = ResultsWriter(json_path, doc)
     writer.add(unclaimed_case_rows(req, claims, cases))
-    progress = Progress(total=feed.total_cases, quiet=quiet, desc="checking on the cluster")
+    return drive_feed(session, feed, writer, doc, json_path, quiet, "checking on the cluster",
+                      lambda: finish_battery_rows(doc, req, claims), "chunks")
+
+
+def cluster_threads(session: ClusterSession) -> int:
+    """Return the Dask threads of the cluster (at least 1)."""
+    return max(1, sum(call_with_timeout(session.client.nthreads, 10.0, "the workers' thread counts").values()))
+
+
+def drive_feed(session: ClusterSession, feed: BatteryFeed, writer: Any, doc: dict[str, Any], json_path: str | None,
+               quiet: bool, desc: str, finish: Any, record_key: str) -> dict[str, Any]:
+    """Run ``feed``'s chunks, rows to ``writer`` as they come (a failed chunk: ``error`` rows
+    naming the host), a progress bar ``desc``; at the end ``finish()`` puts the rows in their
+    final form, ``doc["cluster"][record_key]`` records the chunking and the writer is closed.
+    Return ``doc``.
+
+    Raises
+    ------
+    RunStopped
+        When a signal stopped the run (what finished is written, ``complete: false``).
+    UsageError
+        When the scheduler was lost mid-run (what finished is written first).
+    """
+    from fftgauge.harness.battery.run import RowSink
+    from fftgauge.harness.execution.dispatch import Progress
+    from fftgauge.harness.shutdown import stop_reason
+
+    progress = Progress(total=feed.total_cases, quiet=quiet, desc=desc)
     sink, tally = RowSink(writer), Tally()
 
     def on_result(meta: ChunkMeta, result: dict[str, Any]) -> None:
@@ -179,9 +215,7 @@ def battery_in_session(session: ClusterSession, req: Any, json_path: str | None,
         progress.advance(result["cases"], note=tally.note(feed.expected_tasks(tally.sent)))
 
     def on_failure(meta: ChunkMeta, text: str, host: str | None) -> None:
-        label = claims[meta.spec].label
-        rows = [{**row.as_dict(), "host": host or "unknown"}
-                for i in meta.indices for row in error_rows(label, cases[i], check_names, text)]
+        rows = feed.error_rows(meta, text, host)
         sink.add(rows)
         tally.done, tally.rows, tally.failures = tally.done + 1, tally.rows + len(rows), tally.failures + 1
         progress.advance(len(meta.indices), note=tally.note(feed.expected_tasks(tally.sent)))
@@ -192,14 +226,14 @@ def battery_in_session(session: ClusterSession, req: Any, json_path: str | None,
             tally.sent += 1
         return made
 
-    loop = TaskLoop(session, make_next, on_result, on_failure, capacity=TASKS_PER_THREAD * max(1, threads))
+    loop = TaskLoop(session, make_next, on_result, on_failure, capacity=TASKS_PER_THREAD * feed.threads)
     stop: BaseException | None = None
     lost: ClusterLost | None = None
     try:
         loop.run()
     except KeyboardInterrupt as exc:
         stop = exc
-        signal_stop(session, stop_name)
+        signal_stop(session, feed.stop_name)
     except ClusterLost as exc:
         lost = exc
     finally:
@@ -207,9 +241,10 @@ def battery_in_session(session: ClusterSession, req: Any, json_path: str | None,
         try:
             sink.close()
         finally:
-            finish_battery_rows(doc, req, claims)
-            doc["cluster"]["tasks"] = tally.done
-            doc["cluster"]["chunks"] = chunk_summary(feed.chunks, session.overhead_seconds)
+            finish()
+            doc.setdefault("cluster", session.record())
+            doc["cluster"]["tasks"] = doc["cluster"].get("tasks", 0) + tally.done
+            doc["cluster"][record_key] = chunk_summary(feed.chunks, session.overhead_seconds)
             writer.close(complete=stop is None and lost is None)
     if stop is not None:
         name, code = stop_reason(stop)

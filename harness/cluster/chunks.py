@@ -80,3 +80,14 @@ def size_groups(indices: list[int], sizes: list[int]) -> deque:
     for i in indices:
         by_size.setdefault(sizes[i], []).append(i)
     return deque(tuple(by_size[n]) for n in sorted(by_size, reverse=True))
+
+
+def shape_groups(indices: list[int], cases: list) -> deque:
+    """Return the shaped case indices grouped by array (shape and axes: every kind, precision and
+    layout of it together), largest input first, as the local shaped battery orders them
+    (:class:`fftgauge.harness.shapes.battery.ShapedQueue`)."""
+    by_shape: dict[tuple, list[int]] = {}
+    for i in indices:
+        by_shape.setdefault((cases[i].shape, cases[i].axes), []).append(i)
+    order = sorted(by_shape, key=lambda key: -cases[by_shape[key][0]].input_bytes())
+    return deque(tuple(by_shape[key]) for key in order)

@@ -1,5 +1,5 @@
-"""What runs on the Dask workers: the start-up probe, the battery's chunks, the timer's chunks,
-``count``'s chunks, and the release of the worker processes they keep.
+"""What runs on the Dask workers: the start-up probe, the battery's chunks (1-D and shaped), the
+timer's chunks, ``count``'s chunks, and the release of the worker processes they keep.
 
 A Dask worker never loads a backend itself: every chunk runs the backend in the same isolated
 :class:`~fftgauge.harness.execution.worker.Worker` processes as a local run, so a backend that
@@ -244,6 +244,45 @@ def run_chunk(spec: str, label: str, conventions: Any, case_fields: list[tuple],
             done += 1
     return {"rows": rows, "host": host, "cases": done, "seconds": time.perf_counter() - started,
             "stopped": done < len(case_fields)}
+
+
+def describe_shaped_spec(spec: str, req: Any, cases: list[Any]) -> Any:
+    """Return the backend's claims for the shaped ``cases`` (the local shaped battery's
+    :func:`~fftgauge.harness.execution.dispatch.describe_cases`), described here.
+
+    Raises
+    ------
+    UsageError
+        When the SPEC cannot be loaded or the backend fails while describing itself.
+    """
+    from fftgauge.harness.execution.dispatch import describe_cases
+
+    with kept_worker(spec, req.threads) as worker:
+        return describe_cases(worker, spec, list(cases), req.max_n_pure_python, req.timeout_seconds)
+
+
+def run_shaped_chunk(spec: str, label: str, conventions: Any, cases: list[Any], req: Any, check_names: list[str],
+                     stop_name: str | None = None) -> dict[str, Any]:
+    """Run the shaped checks of ``cases`` (:class:`~fftgauge.harness.shapes.case.ShapeCase`) on
+    ``spec`` in this worker's isolated process, as a local lane does
+    (:func:`fftgauge.harness.shapes.battery.run_case`, then the limits). Returns what
+    :func:`run_chunk` returns."""
+    from fftgauge.harness.battery.criteria import apply_limits
+    from fftgauge.harness.shapes.battery import run_case
+
+    started = time.perf_counter()
+    host, stop = this_host(), StopFlag(stop_name)
+    rows: list[dict] = []
+    done = 0
+    with kept_worker(spec, req.threads) as worker:
+        for case in cases:
+            if stop.is_set():
+                break
+            case_rows = apply_limits(run_case(worker, label, case, req, check_names), req.limits, conventions)
+            rows.extend({**row, "host": host} for row in case_rows)
+            done += 1
+    return {"rows": rows, "host": host, "cases": done, "seconds": time.perf_counter() - started,
+            "stopped": done < len(cases)}
 
 
 def time_chunk(req: Any, pin: str | None, slot_name: str | None) -> dict[str, Any]:

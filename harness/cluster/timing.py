@@ -6,7 +6,8 @@ Every host that offers a timing slot (a worker started with ``--resources timing
 :data:`~fftgauge.harness.timing.runner.WINDOW_CASES` cases, each pinned to its host and
 needing its ``timing`` resource, and each chunk holds the host's timing slot (a Dask
 ``Lock`` per host) while it runs the local timer (:func:`~.tasks.time_chunk`): never two
-timed cases at once on one host, however many workers it runs. Rows carry ``host`` and
+timed cases at once on one host, however many workers it runs (shaped cases, ``--shapes``,
+go out the same way, that many cases a chunk). Rows carry ``host`` and
 ``machine`` (the fingerprint of the host that measured them) and stream to the results file
 as chunks finish.
 """
@@ -43,6 +44,32 @@ def timing_hosts(session: ClusterSession) -> list[str]:
     return hosts
 
 
+def work_chunks(req: Any) -> list[tuple]:
+    """Return the request's work in chunks: shaped cases (``--shapes``) :data:`WINDOW_CASES`
+    at a time, in the order asked, or else :func:`size_chunks`."""
+    from fftgauge.harness.timing.runner import WINDOW_CASES
+
+    cases = list(getattr(req, "shape_cases", ()) or ())
+    if cases:
+        return [tuple(cases[i:i + WINDOW_CASES]) for i in range(0, len(cases), WINDOW_CASES)]
+    return size_chunks(req)
+
+
+def chunk_request(req: Any, chunk: tuple) -> Any:
+    """Return the sub-request that times one chunk: its shaped cases, or its sizes."""
+    if getattr(req, "shape_cases", ()):
+        return dataclasses.replace(req, shape_cases=chunk)
+    return dataclasses.replace(req, sizes=chunk)
+
+
+def chunk_cases_of(req: Any, chunk: tuple) -> list[Any]:
+    """Return the cases of a chunk (shaped cases, or every kind, precision and norm of its sizes)."""
+    if getattr(req, "shape_cases", ()):
+        return list(chunk)
+    return [Case(k, d, n, norm) for k in (req.kinds or KINDS) for d in req.dtypes for norm in req.norms
+            for n in chunk]
+
+
 def size_chunks(req: Any) -> list[tuple[int, ...]]:
     """Return the request's sizes in chunks of about ``WINDOW_CASES`` cases (every kind,
     precision and normalisation of a size in one chunk), in the order asked."""
@@ -62,7 +89,8 @@ def timing_envelope(req: Any, backends: dict[str, Any], session: ClusterSession)
         "complete": False, "threads": req.threads, "pinned_cpus": None, "backends": backends,
         "request": {"kinds": list(req.kinds or KINDS), "dtypes": list(req.dtypes), "norms": list(req.norms),
                     "sizes": list(req.sizes), "samples": req.samples, "budget_seconds": req.budget_seconds,
-                    "cold_cache": req.cold_cache, "rounds": req.rounds},
+                    "cold_cache": req.cold_cache, "rounds": req.rounds,
+                    **({"shapes": [c.label() for c in req.shape_cases]} if getattr(req, "shape_cases", ()) else {})},
         "cluster": session.record(),
     })
 
@@ -78,7 +106,8 @@ def describe_backends(session: ClusterSession, req: Any) -> dict[str, Any]:
     from fftgauge.backends.registry import require_unique_labels
     from fftgauge.harness.cluster.tasks import describe_spec
 
-    fields = [(k, d, req.sizes[0], norm) for k in (req.kinds or KINDS) for d in req.dtypes for norm in req.norms]
+    kinds = [k for k in (req.kinds or KINDS) if k in KINDS] or ["fft"]  # shaped kinds: the record is the same
+    fields = [(k, d, req.sizes[0] if req.sizes else 8, norm) for k in kinds for d in req.dtypes for norm in req.norms]
     futures = {spec: session.client.submit(describe_spec, spec, req, fields, False, pure=False) for spec in req.specs}
     try:
         claims = call_with_timeout(lambda: {s: futures[s].result() for s in req.specs}, 600.0,
@@ -91,12 +120,12 @@ def describe_backends(session: ClusterSession, req: Any) -> dict[str, Any]:
     return {claims[s].label: claims[s].record(s) for s in req.specs}
 
 
-def error_rows_for(req: Any, labels: list[str], sizes: tuple[int, ...], host: str | None, text: str) -> list[dict]:
+def error_rows_for(req: Any, labels: list[str], chunk: tuple, host: str | None, text: str) -> list[dict]:
     """Return one ``error`` time row per backend and case of a chunk that failed, naming the host."""
     from fftgauge.harness.timing.runner import placeholder_row
 
-    return [{**placeholder_row(label, Case(k, d, n, norm), req.threads, "error", text), "host": host or "unknown"}
-            for label in labels for k in (req.kinds or KINDS) for d in req.dtypes for norm in req.norms for n in sizes]
+    return [{**placeholder_row(label, case, req.threads, "error", text), "host": host or "unknown"}
+            for label in labels for case in chunk_cases_of(req, chunk)]
 
 
 def run_timing_on_cluster(req: Any, target: ClusterTarget, pin: str | None = None, json_path: str | None = None,
@@ -115,8 +144,6 @@ def run_timing_on_cluster(req: Any, target: ClusterTarget, pin: str | None = Non
     """
     from fftgauge.harness.cluster.session import cluster_session
 
-    if getattr(req, "shape_cases", ()):
-        raise UsageError("--shapes does not run on a cluster yet; leave out --cluster")
     doc = {} if doc is None else doc
     with cluster_session(target, list(req.specs), req.threads, quiet=quiet) as session:
         return timing_in_session(session, req, pin, json_path, quiet, doc)
@@ -128,38 +155,40 @@ def timing_in_session(session: ClusterSession, req: Any, pin: str | None, json_p
     from fftgauge.harness.cluster.tasks import time_chunk
     from fftgauge.harness.execution.dispatch import Progress
     from fftgauge.harness.results import ResultsWriter
+    from fftgauge.harness.shapes.fields import row_order_key
 
     hosts = timing_hosts(session)
     backends = describe_backends(session, req)
     labels = list(backends)
     doc.update(timing_envelope(req, backends, session))
     writer = ResultsWriter(json_path, doc)
-    chunks = [(host, sizes) for sizes in size_chunks(req) for host in hosts]
-    per_size = len(req.kinds or KINDS) * len(req.dtypes) * len(req.norms) * len(req.specs)
-    progress = Progress(total=per_size * len(req.sizes) * len(hosts), quiet=quiet, desc="timing on the cluster")
+    chunks = [(host, chunk) for chunk in work_chunks(req) for host in hosts]
+    per_case = len(req.specs)
+    progress = Progress(total=per_case * sum(len(chunk_cases_of(req, c)) for _, c in chunks), quiet=quiet,
+                        desc="timing on the cluster")
     tally = Tally()
     pending = list(chunks)
 
     def make_next() -> Any:
         if not pending:
             return None
-        host, sizes = pending.pop(0)
-        sub = dataclasses.replace(req, sizes=sizes)
+        host, chunk = pending.pop(0)
+        sub = chunk_request(req, chunk)
         future = session.client.submit(time_chunk, sub, pin, f"fftgauge-timing-slot-{host}", workers=[host],
                                        allow_other_workers=False, resources={TIMING_RESOURCE: 1}, pure=False)
         tally.sent += 1
-        return future, (host, sizes)
+        return future, (host, chunk)
 
     def on_result(meta: Any, result: dict[str, Any]) -> None:
         writer.add(result["rows"])
         tally.done, tally.rows = tally.done + 1, tally.rows + len(result["rows"])
-        progress.advance(per_size * len(meta[1]), note=tally.note(len(chunks)))
+        progress.advance(per_case * len(chunk_cases_of(req, meta[1])), note=tally.note(len(chunks)))
 
     def on_failure(meta: Any, text: str, host: str | None) -> None:
         rows = error_rows_for(req, labels, meta[1], host or meta[0], text)
         writer.add(rows)
         tally.done, tally.rows, tally.failures = tally.done + 1, tally.rows + len(rows), tally.failures + 1
-        progress.advance(per_size * len(meta[1]), note=tally.note(len(chunks)))
+        progress.advance(per_case * len(chunk_cases_of(req, meta[1])), note=tally.note(len(chunks)))
 
     loop = TaskLoop(session, make_next, on_result, on_failure, capacity=2 * len(hosts),
                     pinned_host=lambda meta: meta[0])
@@ -174,8 +203,8 @@ def timing_in_session(session: ClusterSession, req: Any, pin: str | None, json_p
         progress.close()
         position = {label: i for i, label in enumerate(labels)}
         host_pos = {h: i for i, h in enumerate(hosts)}
-        doc["rows"].sort(key=lambda r: (host_pos.get(r.get("host"), len(hosts)), KINDS.index(r["kind"]), r["dtype"],
-                                        r.get("norm") or "backward", r["n"], position.get(r["backend"], 0)))
+        doc["rows"].sort(key=lambda r: (host_pos.get(r.get("host"), len(hosts)), row_order_key(r),
+                                        position.get(r["backend"], 0)))
         doc["cluster"]["tasks"] = tally.done
         writer.close(complete=finished)
     return doc

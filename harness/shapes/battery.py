@@ -29,7 +29,8 @@ from fftgauge.harness.rows import CheckRow
 from fftgauge.harness.shapes.case import ShapeCase
 from fftgauge.harness.shapes.fields import case_fields, row_order_key
 
-__all__ = ["SHAPED_CASE_CHECK", "ShapedQueue", "run_check_request", "run_shaped_battery", "shaped_check_names"]
+__all__ = ["SHAPED_CASE_CHECK", "ShapedQueue", "line_request", "run_check_request", "run_shaped_battery",
+           "shaped_check_names", "shaped_envelope", "sort_shaped_rows"]
 
 #: The ``check`` name of the single row that stands for a shaped case not run (as the 1-D battery's).
 SHAPED_CASE_CHECK = "all"
@@ -108,10 +109,8 @@ def run_shaped_battery(req: BatteryRequest, json_path: str | None = None, quiet:
     """
     from fftgauge.backends.registry import require_unique_labels
     from fftgauge.harness.battery.criteria import apply_limits
-    from fftgauge.harness.battery.run import CHECK_SCHEMA
     from fftgauge.harness.execution.dispatch import Progress, describe_cases
-    from fftgauge.harness.results import ResultsWriter, envelope
-    from fftgauge.harness.shapes.reference import shaped_reference_method
+    from fftgauge.harness.results import ResultsWriter
 
     cases = list(req.shape_cases)
     names = shaped_check_names(req)
@@ -120,15 +119,7 @@ def run_shaped_battery(req: BatteryRequest, json_path: str | None = None, quiet:
         claims = describe_in_parallel(list(req.specs), lambda spec: describe_cases(
             workers[spec], spec, cases, req.max_n_pure_python, req.timeout_seconds), parallel)
         require_unique_labels({spec: claims[spec].label for spec in req.specs})
-        if doc is None:
-            doc = envelope(CHECK_SCHEMA, req.seed, extra={
-                "reference": {}, "backends": {}, "request": {"kinds": [], "dtypes": list(req.dtypes),
-                                                             "norms": list(req.norms), "sizes": [],
-                                                             "checks": list(req.checks or names)}})
-        doc.setdefault("reference", {}).update(
-            {f"{d} (shapes)": f"{shaped_reference_method(d)} axis by axis" for d in req.dtypes})
-        doc.setdefault("backends", {}).update({claims[s].label: claims[s].record(s) for s in req.specs})
-        doc.setdefault("request", {}).update(_request_record(req, names))
+        doc = shaped_envelope(req, claims, names, doc)
         writer = ResultsWriter(json_path, doc)
         claimed: dict[str, list[int]] = {}
         skipped = []
@@ -148,15 +139,54 @@ def run_shaped_battery(req: BatteryRequest, json_path: str | None = None, quiet:
                 return None
             return apply_limits(rows, req.limits, getattr(batch.capabilities, "conventions", None))
 
-        def finish() -> None:
-            position = {claims[s].label: i for i, s in enumerate(req.specs)}
-            doc["rows"].sort(key=lambda r: (bool(r.get("shape")), position.get(r["backend"], 0))
-                             + (row_order_key(r) if r.get("shape") else ()))
-
         stop = run_lanes(workers, queue, req, writer, progress, run_one,
-                         lambda batch, index: f"{batch.label} {cases[index].label()}", finish)
+                         lambda batch, index: f"{batch.label} {cases[index].label()}",
+                         lambda: sort_shaped_rows(doc, req, claims))
     raise_if_stopped(stop, doc)
     return doc
+
+
+def shaped_envelope(req: BatteryRequest, claims: dict[str, Any], names: list[str],
+                    doc: dict[str, Any] | None = None) -> dict[str, Any]:
+    """Return ``doc`` (a 1-D run's document; None: a new ``fftgauge-check/1`` envelope) with the
+    shaped run's reference, backends and request added (rows kept)."""
+    from fftgauge.harness.battery.run import CHECK_SCHEMA
+    from fftgauge.harness.results import envelope
+    from fftgauge.harness.shapes.reference import shaped_reference_method
+
+    if doc is None:
+        doc = envelope(CHECK_SCHEMA, req.seed, extra={
+            "reference": {}, "backends": {}, "request": {"kinds": [], "dtypes": list(req.dtypes),
+                                                         "norms": list(req.norms), "sizes": [],
+                                                         "checks": list(req.checks or names)}})
+    doc.setdefault("reference", {}).update(
+        {f"{d} (shapes)": f"{shaped_reference_method(d)} axis by axis" for d in req.dtypes})
+    doc.setdefault("backends", {}).update({claims[s].label: claims[s].record(s) for s in req.specs})
+    doc.setdefault("request", {}).update(_request_record(req, names))
+    return doc
+
+
+def sort_shaped_rows(doc: dict[str, Any], req: BatteryRequest, claims: dict[str, Any]) -> None:
+    """Put ``doc``'s rows in their final order: 1-D rows first, then by backend (in the order
+    asked) and, for shaped rows, :func:`~fftgauge.harness.shapes.fields.row_order_key`."""
+    position = {claims[s].label: i for i, s in enumerate(req.specs)}
+    doc["rows"].sort(key=lambda r: (bool(r.get("shape")), position.get(r["backend"], 0))
+                     + (row_order_key(r) if r.get("shape") else ()))
+
+
+def line_request(req: BatteryRequest) -> BatteryRequest | None:
+    """Return the 1-D part of a request with shapes (its sizes, the 1-D kinds of its kinds and
+    the 1-D checks of its checks), or None when it asks no 1-D case."""
+    from fftgauge.harness.battery.checks import CHECKS
+    from fftgauge.harness.shapes.case import family_kind
+
+    if not req.sizes:
+        return None
+    kinds = tuple(dict.fromkeys(family_kind(k, 1) for k in req.kinds)) if req.kinds else None
+    checks = tuple(c for c in req.checks if c in CHECKS) if req.checks else None
+    if checks == ():
+        return None
+    return dataclasses.replace(req, kinds=kinds, checks=checks)
 
 
 def run_check_request(req: BatteryRequest, json_path: str | None = None, quiet: bool = True) -> dict[str, Any]:
@@ -165,19 +195,14 @@ def run_check_request(req: BatteryRequest, json_path: str | None = None, quiet: 
 
     Raises what :func:`fftgauge.harness.battery.run.run_battery` and :func:`run_shaped_battery` raise.
     """
-    from fftgauge.harness.battery.checks import CHECKS
     from fftgauge.harness.battery.run import run_battery
-    from fftgauge.harness.shapes.case import family_kind
 
     if not req.shape_cases:
         return run_battery(req, json_path=json_path, quiet=quiet)
     doc = None
-    if req.sizes:
-        kinds = tuple(dict.fromkeys(family_kind(k, 1) for k in req.kinds)) if req.kinds else None
-        checks = tuple(c for c in req.checks if c in CHECKS) if req.checks else None
-        if checks != ():
-            line_req = dataclasses.replace(req, kinds=kinds, checks=checks)
-            doc = run_battery(line_req, json_path=None if json_path == "-" else json_path, quiet=quiet)
+    line_req = line_request(req)
+    if line_req is not None:
+        doc = run_battery(line_req, json_path=None if json_path == "-" else json_path, quiet=quiet)
     return run_shaped_battery(req, json_path=json_path, quiet=quiet, doc=doc)
 
 
