@@ -11,13 +11,23 @@ machine shared with other work the wall time depends on that load, the processor
 less.
 
 Run: ``.venv/bin/python benchmarks/bench_check.py``
+
+Throughput against an earlier commit (ABAB): ``.venv/bin/python benchmarks/bench_check.py
+--before COMMIT --backend numpy --sizes 1..3000 --repeats 2`` runs ``fftgauge check --backend
+numpy --sizes 1..3000 --seed 3`` alternately from this checkout and from a checkout of COMMIT
+(``git worktree add``, the same virtual environment, ``PYTHONPATH`` at that checkout, whose
+``fftgauge/__init__`` maps its own ``harness/`` and ``backends/``), prints every wall and
+processor time, the medians and their ratio, and whether the rows of the two are equal field
+for field apart from timing fields (a faster battery must give the same rows at a seed).
 """
 
 from __future__ import annotations
 
+import argparse
 import json
 import os
 import resource
+import statistics
 import subprocess
 import sys
 import tempfile
@@ -38,7 +48,8 @@ def _load() -> str:
         return "n/a"
 
 
-if __name__ == "__main__":
+def defaults_run() -> int:
+    """Time one ``fftgauge check`` with no options; return 0."""
     with tempfile.TemporaryDirectory() as tmp:
         path = os.path.join(tmp, "check.json")
         load_before = _load()
@@ -56,3 +67,76 @@ if __name__ == "__main__":
           f"({passes} pass, {bad} failed/error), {seconds:.1f} s on {os.cpu_count()} cores "
           f"({cpu_seconds:.1f} s of processor time; load average {load_before} before, {_load()} after); "
           f"target <= 60 s: {'meets' if seconds <= 60 else 'MISSES'}")
+    return 0
+
+
+#: Row fields that hold times (they differ between any two runs).
+TIME_FIELDS = ("seconds",)
+
+
+def _git(*args: str) -> str:
+    return subprocess.run(["git", *args], cwd=ROOT, check=True, capture_output=True, text=True).stdout.strip()
+
+
+def comparable_rows(path: str) -> list[dict]:
+    """Return the rows of a results file without their timing fields."""
+    rows = json.load(open(path))["rows"]
+    return [{k: v for k, v in r.items() if not any(t in k for t in TIME_FIELDS)} for r in rows]
+
+
+def timed_check(tree: str, args: list[str], out: str) -> tuple[float, float, int]:
+    """Return (wall s, processor s of the command and its workers, exit code) of one
+    ``fftgauge check ARGS --json OUT`` run from ``tree``."""
+    env = dict(os.environ, PYTHONPATH=tree)
+    cpu, start = _children_cpu_seconds(), time.perf_counter()
+    proc = subprocess.run([sys.executable, "-m", "fftgauge", "check", *args, "--quiet", "--json", out], cwd=tree,
+                          env=env, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
+    return time.perf_counter() - start, _children_cpu_seconds() - cpu, proc.returncode
+
+
+def compare_run(before: str, args: list[str], repeats: int) -> int:
+    """Run ``check ARGS`` ABAB from this checkout and from commit ``before``; print the times,
+    medians, ratio and whether the rows agree; return 0 when they agree, else 1."""
+    commit = _git("rev-parse", before)
+    with tempfile.TemporaryDirectory() as tmp:
+        old_tree = os.path.join(tmp, "before")
+        _git("worktree", "add", "--detach", old_tree, commit)
+        try:
+            trees = {"now": ROOT, "before": old_tree}
+            walls: dict[str, list[float]] = {"now": [], "before": []}
+            cpus: dict[str, list[float]] = {"now": [], "before": []}
+            load_before = _load()
+            for i in range(repeats):
+                for name in (("before", "now") if i % 2 == 0 else ("now", "before")):
+                    wall, cpu, rc = timed_check(trees[name], args, os.path.join(tmp, f"{name}{i}.json"))
+                    walls[name].append(wall)
+                    cpus[name].append(cpu)
+                    print(f"run {i + 1} {name:6s}: {wall:7.1f} s wall, {cpu:7.1f} s processor, exit {rc}", flush=True)
+            same = comparable_rows(os.path.join(tmp, "now0.json")) == comparable_rows(os.path.join(tmp, "before0.json"))
+        finally:
+            _git("worktree", "remove", "--force", old_tree)
+    wall_now, wall_before = statistics.median(walls["now"]), statistics.median(walls["before"])
+    cpu_now, cpu_before = statistics.median(cpus["now"]), statistics.median(cpus["before"])
+    print(f"fftgauge check {' '.join(args)}: median wall now {wall_now:.1f} s, before ({commit[:7]}) "
+          f"{wall_before:.1f} s, ratio {wall_now / wall_before:.3f}; processor now {cpu_now:.1f} s, before "
+          f"{cpu_before:.1f} s, ratio {cpu_now / cpu_before:.3f}; {os.cpu_count()} cores, load average "
+          f"{load_before} before, {_load()} after; rows equal apart from times: {same}")
+    return 0 if same else 1
+
+
+def main() -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--before", default=None, help="commit to compare against (ABAB); without it: the defaults run")
+    ap.add_argument("--backend", action="append", default=None, help="backend SPEC of the compared runs")
+    ap.add_argument("--sizes", default="1..3000", help="sizes of the compared runs (default 1..3000)")
+    ap.add_argument("--seed", default="3")
+    ap.add_argument("--repeats", type=int, default=2, help="runs of each side (default 2)")
+    opts = ap.parse_args()
+    if opts.before is None:
+        return defaults_run()
+    args = [a for b in (opts.backend or ["numpy"]) for a in ("--backend", b)]
+    return compare_run(opts.before, args + ["--sizes", opts.sizes, "--seed", opts.seed], opts.repeats)
+
+
+if __name__ == "__main__":
+    sys.exit(main())

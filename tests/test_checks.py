@@ -568,3 +568,23 @@ def test_a_concurrent_call_that_raises_names_its_line():
     assert row.status == "fail" and row.diagnosis == "thread-unsafe"
     assert "first: a concurrent call raised RuntimeError: not from another thread (at " in row.message
     assert f"test_checks.py:{line_of(here, '# THREAD-LINE')} in only_in_the_main_thread" in row.message
+
+
+def test_convolution_by_double_transforms_is_exact_at_the_largest_entries():
+    """Above DIRECT_CONVOLUTION_MAX_N the exact convolution comes from double transforms
+    rounded to integers. Every entry at the range's corner r (1 + i) gives the largest sums
+    the check can meet, and a closed form: the circular convolution of two constant sequences
+    c is n c^2 at every index (the sum of n equal products), here 2i n r^2. At a prime n
+    (Bluestein's algorithm inside the FFT) and n = 2^17 the rounded result equals it and
+    the rounding residual is far below the 0.25 the check allows."""
+    r = exact_checks.CONVOLUTION_RANGE
+    backend = load_backend("numpy")
+    for n in (99991, 2**17):
+        case = Case("fft", "float64", n)
+        ctx = context.CheckContext(backend, case, backend.plan(case), seed=3)
+        x = np.full(n, r * (1 + 1j))
+        got = exact_checks.circular_convolution(ctx, x, x)
+        assert np.array_equal(got, np.full(n, 2j * n * r * r))
+        fwd, inv = Case("fft", "float32", n), Case("ifft", "float32", n)
+        approx = ctx.reference_fn(ctx.reference_fn(x, fwd).values() ** 2, inv).values()
+        assert float(np.max(np.abs(approx - got))) < 1e-3

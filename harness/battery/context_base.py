@@ -13,6 +13,7 @@ what they planned.
 
 from __future__ import annotations
 
+import functools
 import warnings
 from typing import Any, Callable
 
@@ -114,9 +115,10 @@ class ContextBase:
         """The backend's label as rows show it."""
         return self.backend.label
 
-    @property
+    @functools.cached_property
     def capabilities(self) -> Capabilities:
-        """The backend's claims."""
+        """The backend's claims, asked once per context (every check of the case asks; building
+        and validating a :class:`~fftgauge.backends.base.Capabilities` costs tens of microseconds)."""
         return self.backend.capabilities()
 
     @property
