@@ -19,6 +19,13 @@ numpy --sizes 1..3000 --seed 3`` alternately from this checkout and from a check
 ``fftgauge/__init__`` maps its own ``harness/`` and ``backends/``), prints every wall and
 processor time, the medians and their ratio, and whether the rows of the two are equal field
 for field apart from timing fields (a faster battery must give the same rows at a seed).
+
+Where a case's time goes: ``.venv/bin/python benchmarks/bench_check.py --profile --sizes
+1..3000 --step 37`` runs the worker's job (``check_case``, every kind, float32 and float64,
+seed 3) in this process under cProfile for every 37th size, and prints the seconds per case
+spent in the backend's calls on the main thread, in the ``concurrent`` check's threads (the
+main thread waits for them), in the ground truth, in the exact convolution's sums, in
+drawing inputs, and in each check.
 """
 
 from __future__ import annotations
@@ -124,6 +131,55 @@ def compare_run(before: str, args: list[str], repeats: int) -> int:
     return 0 if same else 1
 
 
+#: (label, function name as cProfile lists it, file name) of what --profile reports.
+PROFILE_PARTS = (
+    ("backend calls, main thread (execute_plan)", "execute_plan", "context_base.py"),
+    ("concurrent check's threads (ThreadCrew.run)", "run", "thread_crew.py"),
+    ("ground truth (reference_transform)", "reference_transform", "reference.py"),
+    ("exact convolution sums", "exact_circular_convolution", "exact_checks.py"),
+    ("input generators (case_rng)", "case_rng", "inputs.py"),
+    ("input draws (random_input)", "random_input", "inputs.py"),
+)
+
+
+def profile_run(sizes: str, step: int) -> int:
+    """Profile ``check_case`` in this process over every ``step``-th size of ``sizes``; print
+    seconds per case by part and by check; return 0."""
+    import cProfile
+    import pstats
+
+    sys.path.insert(0, ROOT)
+    from fftgauge.backends.registry import load_backend
+    from fftgauge.harness.battery.checks import CHECKS, check_case
+    from fftgauge.harness.cases import Case
+    from fftgauge.harness.sizes import parse_sizes
+
+    backend = load_backend("numpy")
+    check_case(backend, Case("fft", "float64", 8), 3)  # imports (scipy.fft) outside the profile
+    cases = [Case(k, d, n) for n in parse_sizes(sizes)[::step] for k in ("fft", "ifft", "rfft", "irfft")
+             for d in ("float32", "float64")]
+    profile = cProfile.Profile()
+    started = time.perf_counter()
+    profile.enable()
+    for case in cases:
+        check_case(backend, case, 3)
+    profile.disable()
+    wall = time.perf_counter() - started
+    cum: dict[tuple[str, str], float] = {}
+    for (file, _, name), (_, _, _, cumtime, _) in pstats.Stats(profile).stats.items():
+        key = (os.path.basename(file), name)
+        cum[key] = cum.get(key, 0.0) + cumtime
+    print(f"{len(cases)} cases (numpy, sizes {sizes} every {step}th, 4 kinds, float32 and float64) in {wall:.1f} s: "
+          f"{1000 * wall / len(cases):.1f} ms per case (load average {_load()})")
+    for label, name, file in PROFILE_PARTS:
+        seconds = cum.get((file, name), 0.0)
+        print(f"  {label:48s} {1000 * seconds / len(cases):7.2f} ms per case  {100 * seconds / wall:5.1f}%")
+    for name, fn in CHECKS.items():
+        seconds = cum.get((os.path.basename(fn.__code__.co_filename), fn.__name__), 0.0)
+        print(f"  check {name:42s} {1000 * seconds / len(cases):7.2f} ms per case  {100 * seconds / wall:5.1f}%")
+    return 0
+
+
 def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--before", default=None, help="commit to compare against (ABAB); without it: the defaults run")
@@ -131,7 +187,11 @@ def main() -> int:
     ap.add_argument("--sizes", default="1..3000", help="sizes of the compared runs (default 1..3000)")
     ap.add_argument("--seed", default="3")
     ap.add_argument("--repeats", type=int, default=2, help="runs of each side (default 2)")
+    ap.add_argument("--profile", action="store_true", help="profile check_case in this process instead")
+    ap.add_argument("--step", type=int, default=37, help="with --profile: every STEP-th size (default 37)")
     opts = ap.parse_args()
+    if opts.profile:
+        return profile_run(opts.sizes, opts.step)
     if opts.before is None:
         return defaults_run()
     args = [a for b in (opts.backend or ["numpy"]) for a in ("--backend", b)]

@@ -220,10 +220,17 @@ def check_parseval(ctx: CheckContext) -> list[CheckRow]:
     y = ctx.output(raw)
     e_in = _half_energy(x, n) if case.kind == "irfft" else _energy(x)
     e_out = _half_energy(y, n) if case.kind == "rfft" else _energy(y)
-    c = np.longdouble(ctx.scale)
-    expected = c * c * n * e_in
+    return parseval_rows(ctx, x, raw, e_in, e_out, np.longdouble(ctx.scale), n, case.kind == "rfft")
+
+
+def parseval_rows(ctx: Any, x: np.ndarray, raw: np.ndarray, e_in: Any, e_out: Any, c: Any, points: int,
+                  half_output: bool) -> list[CheckRow]:
+    """Return the ``parseval`` row of a context (1-D or shaped): the energies ``e_in`` of the
+    input and ``e_out`` of the output (long double) against ``c^2 points e_in``; the tolerance
+    2 g limit + (g limit)^2 + rounding, g = sqrt(2) when the output is a half spectrum."""
+    expected = c * c * points * e_in
     value = float(abs(e_out / expected - 1)) if expected else (0.0 if e_out == 0 else float("inf"))
-    g = SQRT2 if case.kind == "rfft" else 1.0
+    g = SQRT2 if half_output else 1.0
     tol = 2 * g * ctx.limit + (g * ctx.limit) ** 2 + ctx.rounding
     msg = f"output energy / (c^2 N input energy) = 1 {'+' if e_out >= expected else '-'} {value:.3g}"
     return [ctx.verdict("parseval", value, tol, msg, x, raw)]

@@ -27,7 +27,7 @@ from __future__ import annotations
 import numpy as np
 
 from fftgauge.harness.battery.context import SQRT2, OutputProblem, fmt_eps, norm2, phases, ratio, relative
-from fftgauge.harness.battery.value_checks import accuracy_measures, accuracy_rows
+from fftgauge.harness.battery.value_checks import accuracy_measures, accuracy_rows, parseval_rows
 from fftgauge.harness.rows import CheckRow
 from fftgauge.harness.shapes.case import ShapeCase
 from fftgauge.harness.shapes.context import ShapedContext, reverse_axes
@@ -221,13 +221,7 @@ def check_parseval(ctx: ShapedContext) -> list[CheckRow]:
     y = ctx.output(raw, x=x)
     e_in = _energy(x, full_weights(case, x.shape)) if case.base_kind == "irfft" else _energy(x)
     e_out = _energy(y, full_weights(case, y.shape)) if case.base_kind == "rfft" else _energy(y)
-    c = np.longdouble(ctx.scale())
-    expected = c * c * case.points * e_in
-    value = float(abs(e_out / expected - 1)) if expected else (0.0 if e_out == 0 else float("inf"))
-    g = SQRT2 if case.base_kind == "rfft" else 1.0
-    tol = 2 * g * ctx.limit + (g * ctx.limit) ** 2 + ctx.rounding
-    msg = f"output energy / (c^2 N input energy) = 1 {'+' if e_out >= expected else '-'} {value:.3g}"
-    return [ctx.verdict("parseval", value, tol, msg, x, raw)]
+    return parseval_rows(ctx, x, raw, e_in, e_out, np.longdouble(ctx.scale()), case.points, case.base_kind == "rfft")
 
 
 def check_round_trip(ctx: ShapedContext) -> list[CheckRow]:
