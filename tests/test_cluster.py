@@ -63,6 +63,12 @@ def test_a_bad_cluster_value_is_one_line_and_exit_2(capsys: pytest.CaptureFixtur
     assert len(err) == 1 and "not an address" in err[0] and "Traceback" not in err[0]
 
 
+def test_gate_with_a_cluster_is_one_line_and_exit_2(capsys: pytest.CaptureFixture[str]) -> None:
+    assert main(["gate", "--old", "numpy", "--new", "numpy", "--cluster", "local:2"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "on this machine only" in err[0] and "--cluster" in err[0]
+
+
 # -- the chunk rule -------------------------------------------------------------------------
 def test_a_chunk_makes_the_overhead_a_small_share_of_its_work() -> None:
     # 10 ms of overhead, 1 ms per case, plenty left: a task of overhead / share = 0.2 s = 200 cases,
@@ -184,6 +190,54 @@ def test_a_cluster_timing_run_gives_one_row_per_case_with_its_host_and_fingerpri
     assert all(r["status"] == "ok" and r["seconds"] > 0 for r in doc["rows"])
     assert {r["host"] for r in doc["rows"]} == {"127.0.0.1"}
     assert all(r["machine"] == machine_fingerprint() for r in doc["rows"])  # loopback: this machine
+
+
+@pytest.mark.slow
+def test_a_cluster_check_of_shapes_and_sizes_gives_the_local_rows_field_for_field(cluster, tmp_path: Path) -> None:
+    # the local engine (shapes.battery.run_check_request: 1-D first, then the shaped cases) is the reference
+    from fftgauge.harness.battery.request import build_request
+    from fftgauge.harness.cluster.battery import run_battery_on_cluster
+    from fftgauge.harness.shapes.battery import run_check_request
+
+    local, _ = cluster
+    req = build_request(backends=["numpy"], sizes="6,8", shapes="8x8,6x5,4x3x2 over 0+2", layouts="C,F",
+                        dtypes="float64", seed=4321)
+    here = run_check_request(req, json_path=str(tmp_path / "l.json"))
+    there = run_battery_on_cluster(req, parse_cluster(local.scheduler_address), json_path=str(tmp_path / "c.json"))
+    assert there["complete"] and sum(1 for r in there["rows"] if r.get("shape")) > 0
+    assert {r["host"] for r in there["rows"]} == {"127.0.0.1"}
+    assert rows_without_host(there["rows"]) == here["rows"]
+    for key in ("request", "backends", "reference"):
+        assert there[key] == here[key]
+    assert there["cluster"]["shaped_chunks"]["tasks"] >= 1
+    assert json.loads((tmp_path / "c.json").read_text())["rows"] == there["rows"]
+
+
+#: The fields of a time row that name its case and outcome (the rest are measurements, which differ run to run).
+TIME_CASE_FIELDS = ("backend", "kind", "dtype", "n", "norm", "threads", "status", "shape", "axes", "layout", "batch",
+                    "points", "flops", "in_place")
+
+
+@pytest.mark.slow
+def test_a_cluster_timing_run_of_shapes_gives_the_local_cases_with_host_and_fingerprint(cluster) -> None:
+    from fftgauge.harness.cluster.timing import run_timing_on_cluster
+    from fftgauge.harness.machine import machine_fingerprint
+    from fftgauge.harness.shapes.request import shaped_fields
+    from fftgauge.harness.timing.runner import TimingRequest, run_timing
+
+    local, _ = cluster
+    cases = shaped_fields("8x8,6x5", "C,F", "fftn,rfftn", "float64", "backward", None)["shape_cases"]
+    req = TimingRequest(specs=("numpy",), kinds=("fftn", "rfftn"), dtypes=("float64",), sizes=(), samples=5,
+                        budget_seconds=0.05, rounds=1, measure_memory=False, shape_cases=tuple(cases))
+    here = run_timing(req)
+    there = run_timing_on_cluster(req, parse_cluster(local.scheduler_address), pin="off")
+    assert there["complete"] and len(there["rows"]) == len(cases) == 8
+    assert [{k: r.get(k) for k in TIME_CASE_FIELDS} for r in there["rows"]] == \
+        [{k: r.get(k) for k in TIME_CASE_FIELDS} for r in here["rows"]]
+    assert all(r["status"] == "ok" and r["seconds"] > 0 for r in there["rows"])
+    assert {r["host"] for r in there["rows"]} == {"127.0.0.1"}
+    assert all(r["machine"] == machine_fingerprint() for r in there["rows"])  # loopback: this machine
+    assert there["request"]["shapes"] == here["request"]["shapes"]
 
 
 @pytest.mark.slow

@@ -54,6 +54,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--shapes", metavar="SHAPES",
                         help=SHAPES_HELP + "; with --baseline and --backend: which stored shaped cases to re-measure")
     parser.add_argument("--layouts", metavar="LIST", help=LAYOUTS_HELP)
+    parser.add_argument("--cluster", metavar="ADDRESS|local:N", help=argparse.SUPPRESS)  # refused in run()
     decide = parser.add_argument_group("how to decide")
     decide.add_argument("--metric", choices=METRICS, default=DEFAULT_METRIC,
                         help="what a case's ratio compares: time per call, or instructions per transform counted "
@@ -131,6 +132,11 @@ def run(args: argparse.Namespace) -> int:
     from fftgauge.harness.gate.decision import exit_code
     from fftgauge.harness.gate.outputs import summary_text
     from fftgauge.harness.gate.run import run_and_write
+
+    if getattr(args, "cluster", None) is not None:
+        from fftgauge.harness.errors import UsageError
+        raise UsageError("gate times its A/B pairs on this machine only (A/B on a cluster is not built); "
+                         "leave out --cluster, and run the gate on each host to be gated")
 
     from fftgauge.harness.results import check_output_path, is_stdout
     from fftgauge.harness.shutdown import stop_on_signals
