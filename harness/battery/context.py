@@ -20,7 +20,7 @@ from fftgauge.backends.base import Backend, Plan
 from fftgauge.harness.battery import bounds
 from fftgauge.harness.battery import inputs
 from fftgauge.harness.battery.context_base import (  # noqa: F401 - OutputProblem, one_line, copy_output re-exported
-    ROUNDING_UNITS, ContextBase, OutputProblem, close_plans, copy_output, execute_plan, one_line, require_numbers,
+    ROUNDING_UNITS, ContextBase, OutputProblem, copy_output, execute_plan, one_line, require_numbers,
 )
 from fftgauge.harness.battery.conventions import ConventionMismatch, DeclaredConvention, backend_convention
 from fftgauge.harness.battery.diagnosis import diagnose
@@ -81,7 +81,7 @@ class CheckContext(ContextBase):
     seed: int
     reference_fn: Callable[[np.ndarray, Case], Any] = reference_transform
     limit: float | None = None
-    _companions: dict = field(default_factory=dict, repr=False)
+    _plans: dict = field(default_factory=dict, repr=False)
     _diagnosis: tuple[str, str] | None = field(default=None, repr=False)
     _convention: DeclaredConvention | None = field(default=None, repr=False)
 
@@ -194,13 +194,9 @@ class CheckContext(ContextBase):
             When planning the companion raises.
         """
         case = Case(COMPANION_KIND[self.case.kind], self.case.dtype, self.case.n, self.case.norm)
-        plan, reason = self.cached_plan(self._companions, case, self.backend.unsupported_reason, self.backend.plan,
+        plan, reason = self.cached_plan(self._plans, case, self.backend.unsupported_reason, self.backend.plan,
                                         case.kind)
         return plan, case, reason
-
-    def close(self) -> None:
-        """Close the companion plans this context made (the main plan is the caller's)."""
-        close_plans(self._companions)
 
     # -- verdicts ----------------------------------------------------------------------------------
     def row(self, check: str, status: str, value: float | None = None, limit: float | None = None,

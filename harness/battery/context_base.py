@@ -100,7 +100,8 @@ def close_plans(plans: dict) -> None:
 
 class ContextBase:
     """The methods both check contexts share. A subclass (a dataclass) holds ``backend``,
-    ``case`` (with ``dtype``), ``plan``, ``limit`` and ``_diagnosis``, and defines
+    ``case`` (with ``dtype``), ``plan``, ``limit``, ``_diagnosis`` and ``_plans`` (the plans it
+    made, closed by :meth:`close`), and defines
     ``random_input(purpose)``, ``run(x)``, ``random_error(x, y)`` (the relative error of an
     output for a random input), ``find_diagnosis(x, y)`` and ``row(...)``."""
 
@@ -108,6 +109,7 @@ class ContextBase:
     case: Any
     limit: float | None
     _diagnosis: tuple[str, str] | None
+    _plans: dict
 
     # -- what the case is --------------------------------------------------------------------
     @property
@@ -157,6 +159,10 @@ class ContextBase:
                 except Exception as exc:  # noqa: BLE001
                     raise BackendFailure(f"planning {what} raised {exception_text(exc)}") from None
         return plans[key]
+
+    def close(self) -> None:
+        """Close the plans this context made (companions, derived cases; the main plan is the caller's)."""
+        close_plans(self._plans)
 
     # -- verdicts --------------------------------------------------------------------------------
     def diagnose(self, x: np.ndarray, y: np.ndarray) -> tuple[str, str]:

@@ -24,7 +24,7 @@ from fftgauge.backends.base import Backend, Plan
 from fftgauge.harness.battery import bounds
 from fftgauge.harness.battery.context import finite_or_none, norm2, ratio
 from fftgauge.harness.battery.context_base import (
-    ContextBase, OutputProblem, close_plans, execute_plan, require_numbers,
+    ContextBase, OutputProblem, execute_plan, require_numbers,
 )
 from fftgauge.harness.cases import Case
 from fftgauge.harness.dft import norm_factor
@@ -229,10 +229,6 @@ class ShapedContext(ContextBase):
         comp = replace(self.case, kind=COMPANION_KIND[self.case.kind])
         plan, reason = self.derived(comp)
         return plan, comp, reason
-
-    def close(self) -> None:
-        """Close the derived plans this context made (the main plan is the caller's)."""
-        close_plans(self._plans)
 
     # -- verdicts ---------------------------------------------------------------------------------
     def row(self, check: str, status: str, value: float | None = None, limit: float | None = None,
