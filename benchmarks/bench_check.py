@@ -25,7 +25,8 @@ Where a case's time goes: ``.venv/bin/python benchmarks/bench_check.py --profile
 seed 3) in this process under cProfile for every 37th size, and prints the seconds per case
 spent in the backend's calls on the main thread, in the ``concurrent`` check's threads (the
 main thread waits for them), in the ground truth, in the exact convolution's sums, in
-drawing inputs, and in each check.
+drawing inputs, and in each check. ``--before COMMIT --job --sizes 513..4096 --step 61``
+compares that job alone (in a child process of each tree, ABAB) instead of the command.
 """
 
 from __future__ import annotations
@@ -99,6 +100,52 @@ def timed_check(tree: str, args: list[str], out: str) -> tuple[float, float, int
     proc = subprocess.run([sys.executable, "-m", "fftgauge", "check", *args, "--quiet", "--json", out], cwd=tree,
                           env=env, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
     return time.perf_counter() - start, _children_cpu_seconds() - cpu, proc.returncode
+
+
+#: What ``--job`` runs in a child process of each tree: ``check_case`` over every STEP-th size,
+#: printing wall and processor milliseconds per case.
+JOB_CODE = """
+import sys, time
+from fftgauge.backends.registry import load_backend
+from fftgauge.harness.battery.checks import check_case
+from fftgauge.harness.cases import Case
+from fftgauge.harness.sizes import parse_sizes
+backend = load_backend("numpy")
+check_case(backend, Case("fft", "float64", 8), 3)
+cases = [Case(k, d, n) for n in parse_sizes(sys.argv[1])[::int(sys.argv[2])] for k in ("fft", "ifft", "rfft", "irfft")
+         for d in ("float32", "float64")]
+wall, cpu = time.perf_counter(), time.process_time()
+for case in cases:
+    check_case(backend, case, 3)
+print(1000 * (time.perf_counter() - wall) / len(cases), 1000 * (time.process_time() - cpu) / len(cases))
+"""
+
+
+def compare_job(before: str, sizes: str, step: int, repeats: int) -> int:
+    """ABAB of the worker's job alone (``JOB_CODE``) from this checkout and from ``before``;
+    print milliseconds per case and the ratio of the medians; return 0."""
+    commit = _git("rev-parse", before)
+    times: dict[str, list[tuple[float, float]]] = {"now": [], "before": []}
+    with tempfile.TemporaryDirectory() as tmp:
+        old_tree = os.path.join(tmp, "before")
+        _git("worktree", "add", "--detach", old_tree, commit)
+        try:
+            for i in range(repeats):
+                for name, tree in ((("before", old_tree), ("now", ROOT)) if i % 2 == 0
+                                   else (("now", ROOT), ("before", old_tree))):
+                    out = subprocess.run([sys.executable, "-c", JOB_CODE, sizes, str(step)], cwd=tree,
+                                         env=dict(os.environ, PYTHONPATH=tree), capture_output=True, text=True,
+                                         check=True).stdout.split()
+                    times[name].append((float(out[0]), float(out[1])))
+                    print(f"run {i + 1} {name:6s}: {times[name][-1][0]:8.2f} ms wall, {times[name][-1][1]:8.2f} ms "
+                          f"processor per case", flush=True)
+        finally:
+            _git("worktree", "remove", "--force", old_tree)
+    cpu_now = statistics.median(t[1] for t in times["now"])
+    cpu_before = statistics.median(t[1] for t in times["before"])
+    print(f"check_case, numpy, sizes {sizes} every {step}th: processor per case now {cpu_now:.2f} ms, before "
+          f"({commit[:7]}) {cpu_before:.2f} ms, ratio {cpu_now / cpu_before:.3f}; load average {_load()}")
+    return 0
 
 
 def compare_run(before: str, args: list[str], repeats: int) -> int:
@@ -188,10 +235,13 @@ def main() -> int:
     ap.add_argument("--seed", default="3")
     ap.add_argument("--repeats", type=int, default=2, help="runs of each side (default 2)")
     ap.add_argument("--profile", action="store_true", help="profile check_case in this process instead")
-    ap.add_argument("--step", type=int, default=37, help="with --profile: every STEP-th size (default 37)")
+    ap.add_argument("--step", type=int, default=37, help="with --profile or --job: every STEP-th size (default 37)")
+    ap.add_argument("--job", action="store_true", help="with --before: compare the worker's job alone (check_case)")
     opts = ap.parse_args()
     if opts.profile:
         return profile_run(opts.sizes, opts.step)
+    if opts.job and opts.before:
+        return compare_job(opts.before, opts.sizes, opts.step, opts.repeats)
     if opts.before is None:
         return defaults_run()
     args = [a for b in (opts.backend or ["numpy"]) for a in ("--backend", b)]
