@@ -59,7 +59,8 @@ def detect(args: argparse.Namespace) -> dict:
         trial = {"ratio_same": est[0].ratio, "ratio_plus1": est[1].ratio, "verdict_same": verdicts[0],
                  "verdict_plus1": verdicts[1], "default_verdict_same": at_default[0],
                  "default_verdict_plus1": at_default[1], "interval_plus1": [est[1].ratio_low, est[1].ratio_high],
-                 "spread": max(c.spread for c in got.values()), "seconds": time.monotonic() - started,
+                 "spread": max(c.spread for c in got.values()),
+                 "instructions": {k: list(c.instructions) for k, c in got.items()}, "seconds": time.monotonic() - started,
                  "load": os.getloadavg()[0]}
         trials.append(trial)
         print(f"trial {i + 1}: 0% {trial['ratio_same']:.5f} {verdicts[0]}; +1% {trial['ratio_plus1']:.5f} "
