@@ -173,7 +173,8 @@ class StopFlag:
 
     def __init__(self, name: str | None):
         self._event = None
-        self._next_look = 0.0
+        # the first look only after STOP_LOOK_SECONDS: a short chunk asks the scheduler nothing
+        self._next_look = time.monotonic() + STOP_LOOK_SECONDS
         if name:
             from distributed import Event
 
