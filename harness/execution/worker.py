@@ -453,7 +453,9 @@ class Worker:
         process.join()
         process.close()
         if procs:  # stragglers forked while the first ones were ended (the child reaped: found by token)
-            more = worker_processes(None, self._token)
+            # A process sent SIGKILL above may still show as running (the signal not yet
+            # delivered on a loaded machine): it is not counted, nor signalled, twice.
+            more = [proc for proc in worker_processes(None, self._token) if proc not in procs]
             ended += end_processes(more)
             procs += more
         wait_gone(procs)
